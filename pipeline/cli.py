@@ -1,0 +1,89 @@
+"""The ``fluidledger`` command: a thin dispatcher over one module per sub-command.
+
+Each module in :mod:`pipeline.commands` defines ``NAME``, ``HELP``, ``add_arguments(parser)``
+and ``run(args) -> int``. User errors (:class:`FluidLedgerError`) become one line on stderr
+and their exit code; anything unexpected is an internal error (exit 3) with a short message.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import logging
+import os
+import sys
+
+from pipeline import __version__
+from pipeline.errors import EXIT_INTERNAL, EXIT_USAGE, FluidLedgerError
+
+COMMANDS = [
+    "ingest", "status", "fit", "check", "explain", "publish", "query", "diff",
+    "nightly", "history", "verify", "decide", "decisions",
+]
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse exits 2 on usage errors already; keep its one-line message, no traceback."""
+
+
+def _load(name: str):
+    try:
+        return importlib.import_module(f"pipeline.commands.{name}")
+    except ModuleNotFoundError as err:
+        if err.name == f"pipeline.commands.{name}":
+            return None
+        raise
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="fluidledger", description=(
+        "Curate pure-fluid phase-boundary data: ingest raw batches into a DuckDB store, fit "
+        "correlations, run consistency checks, publish curated values with provenance."))
+    parser.add_argument("--version", action="version", version=f"fluidledger {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+    for name in COMMANDS:
+        module = _load(name)
+        if module is None:
+            continue
+        p = sub.add_parser(module.NAME, help=module.HELP, description=module.HELP)
+        p.add_argument("--store", metavar="PATH", default=None,
+                       help="working store (default: $FLUIDLEDGER_STORE or curated/fluidledger.duckdb)")
+        p.add_argument("-q", "--quiet", action="store_true", help="print only errors and the verdict")
+        p.add_argument("-v", "--verbose", action="store_true", help="print debug log lines")
+        module.add_arguments(p)
+        p.set_defaults(_run=module.run)
+    return parser
+
+
+def _configure_logging(args) -> None:
+    level = logging.DEBUG if args.verbose else logging.WARNING if args.quiet else logging.INFO
+    logging.basicConfig(level=level, format="%(asctime)s %(levelname)s %(name)s: %(message)s",
+                        stream=sys.stderr, force=True)
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    _configure_logging(args)
+    try:
+        return int(args._run(args) or 0)
+    except FluidLedgerError as err:
+        print(f"fluidledger {args.command}: error: {err}", file=sys.stderr)
+        return err.exit_code
+    except KeyboardInterrupt:
+        print("fluidledger: interrupted", file=sys.stderr)
+        return EXIT_USAGE
+    except BrokenPipeError:
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
+    except Exception as err:  # an internal error: one clear line, details only with --verbose
+        if args.verbose:
+            raise
+        print(f"fluidledger {args.command}: internal error: {type(err).__name__}: {err} "
+              "(run with --verbose for details)", file=sys.stderr)
+        return EXIT_INTERNAL
+
+
+if __name__ == "__main__":
+    sys.exit(main())

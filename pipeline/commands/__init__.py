@@ -1,0 +1,1 @@
+"""One module per sub-command; each is a thin layer over its stage."""

@@ -1,0 +1,1 @@
+"""Ingest stage: raw batches -> normalised observations in the store, or quarantine."""

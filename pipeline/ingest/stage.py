@@ -1,0 +1,450 @@
+"""The ingest stage: raw batches -> store, one transaction per batch, nothing lost.
+
+Recipe for each batch folder (``<raw>/<batch>/batch.toml``):
+1. validate batch.toml against ``schemas/batch.schema.json`` before reading any row;
+2. hash every file (SHA-256) and compare with the current versions in ``raw_file``: unchanged
+   content read the same way is skipped, so a second ingest is a no-op;
+3. in ONE transaction: supersede changed or removed files (old rows stay as history), stage
+   each changed CSV with a pinned dialect, normalise it, insert observations and quarantine
+   rows, record the file with rows_read = rows_loaded + rows_quarantined; any error rolls the
+   whole batch back, leaving the store exactly as before.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import logging
+import os
+import secrets
+from dataclasses import asdict, dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+
+import duckdb
+
+from pipeline import __version__
+from pipeline.errors import BatchError, FluidLedgerError
+from pipeline.ingest.contract import (
+    BatchManifest,
+    Fluid,
+    TableSpec,
+    canonical_hash,
+    load_batch,
+    load_fluids,
+)
+from pipeline.ingest.normalise import QUANTITY_KIND, normalise, uncertainty_sql
+from pipeline.ingest.points import constant_row, fixed_point_row
+from pipeline.ingest.reader import stage_csv
+
+log = logging.getLogger(__name__)
+REMOVED = 0  # raw_file.superseded_by for a file that disappeared from raw/
+
+
+def utcnow() -> datetime:
+    return datetime.now(timezone.utc).replace(tzinfo=None)
+
+
+def new_run_id(kind: str) -> str:
+    return f"{kind}-{utcnow():%Y%m%dT%H%M%S}-{secrets.token_hex(3)}"
+
+
+@dataclass
+class FileResult:
+    path: str
+    status: str            # loaded | unchanged
+    rows_read: int = 0
+    rows_loaded: int = 0
+    rows_quarantined: int = 0
+
+
+@dataclass
+class BatchResult:
+    batch: str
+    status: str            # loaded | unchanged | error
+    files: list[FileResult] = field(default_factory=list)
+    error: str | None = None
+
+    @property
+    def rows(self) -> tuple[int, int, int]:
+        return tuple(sum(getattr(f, k) for f in self.files)
+                     for k in ("rows_read", "rows_loaded", "rows_quarantined"))
+
+
+@dataclass
+class IngestResult:
+    run_id: str
+    batches: list[BatchResult]
+    removed: list[str]
+
+    @property
+    def errors(self) -> list[BatchResult]:
+        return [b for b in self.batches if b.status == "error"]
+
+    @property
+    def changed(self) -> bool:
+        return bool(self.removed) or any(b.status == "loaded" for b in self.batches)
+
+    def asdict(self) -> dict:
+        return {"run_id": self.run_id, "removed": self.removed,
+                "batches": [asdict(b) for b in self.batches]}
+
+    def asstr(self) -> str:
+        lines = []
+        for b in self.batches:
+            read, loaded, quarantined = b.rows
+            detail = b.error if b.status == "error" else (
+                f"{read} rows read, {loaded} loaded, {quarantined} quarantined")
+            lines.append(f"{b.status:>9}  {b.batch}: {detail}")
+        for path in self.removed:
+            lines.append(f"{'removed':>9}  {path}")
+        return "\n".join(lines)
+
+
+def discover_batches(root: Path) -> list[Path]:
+    """Batch folders under ``root`` (``root`` itself when it holds batch.toml), sorted."""
+    if (root / "batch.toml").is_file():
+        return [root]
+    return sorted(p.parent for p in root.rglob("batch.toml"))
+
+
+def _safe_file(batch_dir: Path, name: str, label: str) -> Path:
+    """The table file, refusing any path (or symlink) that leaves the batch folder."""
+    path = batch_dir / name
+    try:
+        resolved = path.resolve(strict=True)
+    except FileNotFoundError:
+        raise BatchError(f"table file '{name}' named in batch.toml does not exist",
+                         file=label) from None
+    if not resolved.is_relative_to(batch_dir.resolve()):
+        raise BatchError(f"table file '{name}' resolves outside the batch folder "
+                         f"({resolved}); refused", file=label)
+    if not resolved.is_file():
+        raise BatchError(f"table file '{name}' is not a regular file", file=label)
+    return resolved
+
+
+@dataclass
+class _Plan:
+    """What one batch holds now, hashed, before anything is written."""
+
+    batch: str
+    manifest: BatchManifest
+    manifest_path: str
+    manifest_sha: str
+    manifest_bytes: int
+    tables: list[tuple[int, TableSpec, str, Path, bytes, str, str]]  # i, spec, rel, abs, data, sha, map
+
+
+def plan_batch(root: Path, batch_dir: Path, fluids: dict[str, Fluid]) -> _Plan:
+    """Validate a batch and hash its files (reads, never writes)."""
+    rel_batch = batch_dir.relative_to(root).as_posix() if batch_dir != root else batch_dir.name
+    manifest_file = batch_dir / "batch.toml"
+    label = _label(root, manifest_file)
+    data = manifest_file.read_bytes()
+    manifest, doc = load_batch(manifest_file)
+    for i, t in enumerate(manifest.table):
+        _known_fluid(t.fluid, fluids, label, f"table[{i}].fluid")
+    for kind, entries in (("fixed_point", manifest.fixed_point), ("constant", manifest.constant)):
+        for i, e in enumerate(entries):
+            _known_fluid(e.fluid, fluids, label, f"{kind}[{i}].fluid")
+    names = [t.file for t in manifest.table]
+    if len(set(names)) != len(names):
+        raise BatchError("the same file is mapped by two [[table]] entries", file=label)
+    tables = []
+    for i, spec in enumerate(manifest.table):
+        path = _safe_file(batch_dir, spec.file, label)
+        content = path.read_bytes()
+        mapping = canonical_hash({"table": doc["table"][i], "source": doc["source"]})
+        tables.append((i, spec, _label(root, batch_dir / spec.file), path, content,
+                       hashlib.sha256(content).hexdigest(), mapping))
+    return _Plan(rel_batch, manifest, label, hashlib.sha256(data).hexdigest(), len(data), tables)
+
+
+def _label(root: Path, path: Path) -> str:
+    try:
+        return path.relative_to(root).as_posix()
+    except ValueError:
+        return path.as_posix()
+
+
+def _known_fluid(fluid: str, fluids: dict[str, Fluid], label: str, key: str) -> None:
+    if fluid not in fluids:
+        raise BatchError(f"fluid '{fluid}' is not in fluids.toml (known: {sorted(fluids)})",
+                         file=label, key=key)
+
+
+class Ingestor:
+    """Loads batches into an open store connection (one transaction per batch)."""
+
+    def __init__(self, con: duckdb.DuckDBPyConnection, root: Path, fluids: dict[str, Fluid],
+                 run_id: str):
+        self.con, self.root, self.fluids, self.run_id = con, root, fluids, run_id
+
+    # -- what is in the store -------------------------------------------------------------
+    def _current(self, batch: str) -> dict[str, tuple[int, str, str]]:
+        rows = self.con.execute(
+            "SELECT path, file_id, sha256, mapping_sha256 FROM raw_file "
+            "WHERE batch = ? AND superseded_by IS NULL", [batch]).fetchall()
+        return {path: (fid, sha, mapping) for path, fid, sha, mapping in rows}
+
+    def _duplicate_of(self, sha: str, path: str) -> str | None:
+        row = self.con.execute(
+            "SELECT path FROM raw_file WHERE sha256 = ? AND path <> ? AND role = 'table' "
+            "AND superseded_by IS NULL LIMIT 1", [sha, path]).fetchone()
+        return row[0] if row else None
+
+    # -- one batch ------------------------------------------------------------------------
+    def ingest(self, batch_dir: Path) -> BatchResult:
+        try:
+            plan = plan_batch(self.root, batch_dir, self.fluids)
+        except FluidLedgerError as err:
+            rel = _label(self.root, batch_dir)
+            return BatchResult(rel, "error", error=str(err))
+        current = self._current(plan.batch)
+        wanted = {plan.manifest_path: (plan.manifest_sha, plan.manifest_sha)}
+        wanted.update({rel: (sha, mapping) for _, _, rel, _, _, sha, mapping in plan.tables})
+        unchanged = {p for p, (sha, mapping) in wanted.items()
+                     if p in current and current[p][1:] == (sha, mapping)}
+        removed = [p for p in current if p not in wanted]
+        if len(unchanged) == len(wanted) and not removed:
+            return BatchResult(plan.batch, "unchanged",
+                               [FileResult(p, "unchanged") for p in sorted(wanted)])
+        self.con.execute("BEGIN TRANSACTION")
+        try:
+            result = self._load(plan, current, unchanged, removed)
+            self.con.execute("COMMIT")
+            return result
+        except FluidLedgerError as err:
+            self.con.execute("ROLLBACK")
+            return BatchResult(plan.batch, "error", error=str(err))
+        except BaseException:
+            self.con.execute("ROLLBACK")
+            raise
+
+    def _load(self, plan: _Plan, current, unchanged: set[str], removed: list[str]) -> BatchResult:
+        self._upsert_source(plan)
+        for path in removed:
+            self._supersede(current[path][0], REMOVED)
+        result = BatchResult(plan.batch, "loaded")
+        if plan.manifest_path not in unchanged:
+            result.files.append(self._load_manifest(plan, current.get(plan.manifest_path)))
+        else:
+            result.files.append(FileResult(plan.manifest_path, "unchanged"))
+        for i, spec, rel, path, content, sha, mapping in plan.tables:
+            if rel in unchanged:
+                result.files.append(FileResult(rel, "unchanged"))
+                continue
+            twin = self._duplicate_of(sha, rel)
+            if twin is not None:
+                raise BatchError(f"has the same content (SHA-256 {sha[:12]}…) as the already "
+                                 f"ingested file '{twin}'; a duplicated file is refused", file=rel)
+            old = current.get(rel)
+            file_id = self._new_file(rel, plan, "table", sha, mapping, len(content), spec, i)
+            if old is not None:
+                self._supersede(old[0], file_id)
+            result.files.append(self._load_table(file_id, rel, path, content, sha, spec, plan))
+        return result
+
+    def _upsert_source(self, plan: _Plan) -> None:
+        s = plan.manifest.source
+        row = self.con.execute("SELECT batch FROM source WHERE source_id = ?", [s.id]).fetchone()
+        if row and row[0] != plan.batch:
+            live = self.con.execute("SELECT count(*) FROM raw_file WHERE batch = ? AND "
+                                    "superseded_by IS NULL", [row[0]]).fetchone()[0]
+            if live:
+                raise BatchError(f"source id '{s.id}' is already declared by batch '{row[0]}'",
+                                 file=plan.manifest_path, key="source.id")
+        self.con.execute(
+            "INSERT OR REPLACE INTO source VALUES (?, ?, ?, ?, ?, ?, ?)",
+            [s.id, s.kind, s.citation, s.doi or None, s.license or None, plan.batch, self.run_id])
+
+    def _new_file(self, rel, plan, role, sha, mapping, size, spec=None, index=None) -> int:
+        file_id = self.con.execute("SELECT nextval('file_id_seq')").fetchone()[0]
+        self.con.execute(
+            "INSERT INTO raw_file VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0, 0, 0, ?, ?, NULL, NULL)",
+            [file_id, sha, mapping, rel, plan.batch, role, plan.manifest.source.id, index,
+             spec.fluid if spec else None, spec.boundary if spec else None,
+             spec.solid_phase if spec else None, size, self.run_id, utcnow()])
+        return file_id
+
+    def _supersede(self, old_id: int, new_id: int) -> None:
+        self.con.execute("UPDATE raw_file SET superseded_by = ?, superseded_run_id = ? "
+                         "WHERE file_id = ?", [new_id, self.run_id, old_id])
+
+    def _count(self, file_id: int, read: int, loaded: int, quarantined: int) -> None:
+        if read != loaded + quarantined:
+            raise BatchError(f"row accounting failed: {read} read != {loaded} loaded + "
+                             f"{quarantined} quarantined")
+        self.con.execute("UPDATE raw_file SET rows_read = ?, rows_loaded = ?, rows_quarantined = ? "
+                         "WHERE file_id = ?", [read, loaded, quarantined, file_id])
+
+    # -- manifest entries -----------------------------------------------------------------
+    def _load_manifest(self, plan: _Plan, old) -> FileResult:
+        label = plan.manifest_path
+        file_id = self._new_file(label, plan, "manifest", plan.manifest_sha, plan.manifest_sha,
+                                 plan.manifest_bytes)
+        if old is not None:
+            self._supersede(old[0], file_id)
+        source = plan.manifest.source.id
+        common = [source, file_id, plan.manifest_sha, label]
+        loaded = quarantined = 0
+        entries = [(fixed_point_row, e, "fixed_point") for e in plan.manifest.fixed_point]
+        entries += [(constant_row, e, "constant") for e in plan.manifest.constant]
+        counters = {"fixed_point": 0, "constant": 0}
+        for build, spec, kind in entries:
+            counters[kind] += 1
+            row, rejected = build(spec, counters[kind], self.fluids[spec.fluid].molar_mass_kg_mol,
+                                  label)
+            if rejected is not None:
+                self._quarantine(file_id, plan.manifest_sha, label, rejected.entry, rejected.key,
+                                 rejected.raw, rejected.code, rejected.message)
+                quarantined += 1
+                continue
+            if kind == "fixed_point":
+                self.con.execute(
+                    "INSERT INTO fixed_point VALUES (nextval('fp_id_seq'), ?, ?, ?, ?, ?, ?, ?, ?, "
+                    "?, ?, ?, ?, ?, ?, ?, ?)",
+                    [spec.fluid, row["kind"], row["phases"], row["T_K"], row["u_T_K"], row["p_Pa"],
+                     row["u_p_Pa"], row["rho_kg_m3"], row["u_rho_kg_m3"], *common,
+                     row["entry_number"], row["original_json"], self.run_id])
+            else:
+                self.con.execute(
+                    "INSERT INTO stated_constant VALUES (nextval('const_id_seq'), ?, ?, ?, ?, ?, "
+                    "?, ?, ?, ?, ?, ?, ?)",
+                    [spec.fluid, row["name"], row["value_si"], row["u_si"], row["si_unit"], *common,
+                     row["entry_number"], row["original_json"], self.run_id])
+            loaded += 1
+        self._count(file_id, loaded + quarantined, loaded, quarantined)
+        return FileResult(label, "loaded", loaded + quarantined, loaded, quarantined)
+
+    def _quarantine(self, file_id, sha, label, row, column, raw, code, message) -> None:
+        self.con.execute("INSERT INTO quarantine VALUES (nextval('q_id_seq'), ?, ?, ?, ?, ?, ?, ?, "
+                         "?, ?)", [file_id, sha, label, row, column, raw, code, message, self.run_id])
+
+    # -- CSV tables -----------------------------------------------------------------------
+    def _load_table(self, file_id, rel, path, content, sha, spec: TableSpec, plan) -> FileResult:
+        needed = {"temperature": spec.temperature.column}
+        needed.update({q: c.column for q, c in spec.value_columns().items()})
+        needed.update({f"uncertainty of {q}": u.column for q, u in spec.uncertainty.items()
+                       if u.column})
+        staged = stage_csv(self.con, str(path), content, spec, rel, needed, "fl_stage")
+        molar_mass = self.fluids[spec.fluid].molar_mass_kg_mol
+        rules = normalise(self.con, "fl_stage", spec, molar_mass, "fl_norm")
+        for row, column, raw, message in staged.rejects:
+            self._quarantine(file_id, sha, rel, row, column, raw, "bad-row-shape",
+                             f"{rel}, row {row}" + (f", column '{column}'" if column else "")
+                             + f": {message}")
+        self._insert_observations(file_id, rel, sha, spec, plan, rules)
+        self.con.execute(
+            "INSERT INTO quarantine SELECT nextval('q_id_seq'), ?, ?, ?, row_number, "
+            "nullif(split_part(fault, '|', 2), ''), raw, split_part(fault, '|', 1), "
+            "printf('%s, row %d%s: %s (cell %s)', ?, row_number, "
+            "CASE WHEN split_part(fault, '|', 2) <> '' THEN printf(', column ''%s''', "
+            "split_part(fault, '|', 2)) ELSE '' END, split_part(fault, '|', 1), "
+            "coalesce(cell, 'empty')), ? FROM ("
+            f"SELECT *, {self._raw_text(spec)} AS raw, {self._cell(spec)} AS cell "
+            "FROM fl_norm WHERE fault IS NOT NULL)", [file_id, sha, rel, rel, self.run_id])
+        loaded, bad = self.con.execute(
+            "SELECT count(*) FILTER (WHERE fault IS NULL), count(*) FILTER (WHERE fault IS NOT NULL) "
+            "FROM fl_norm").fetchone()
+        quarantined = bad + len(staged.rejects)
+        self._count(file_id, staged.rows_read, loaded, quarantined)
+        self.con.execute("DROP TABLE fl_stage; DROP TABLE fl_norm")
+        return FileResult(rel, "loaded", staged.rows_read, loaded, quarantined)
+
+    @staticmethod
+    def _raw_text(spec: TableSpec) -> str:
+        keys = ["T"] + list(spec.value_columns())
+        sep = spec.delimiter.replace("'", "''")
+        return "concat_ws('" + sep + "', " + ", ".join(f"coalesce(txt_{k}, '')" for k in keys) + ")"
+
+    @staticmethod
+    def _cell(spec: TableSpec) -> str:
+        def lit(text: str) -> str:
+            return "'" + text.replace("'", "''") + "'"
+
+        arms = [f"WHEN split_part(fault, '|', 2) = {lit(spec.temperature.column)} THEN txt_T"]
+        arms += [f"WHEN split_part(fault, '|', 2) = {lit(c.column)} THEN txt_{q}"
+                 for q, c in spec.value_columns().items()]
+        arms += [f"WHEN split_part(fault, '|', 2) = {lit(u.column)} "
+                 f"THEN txt_u_{'T' if q == 'temperature' else q}"
+                 for q, u in spec.uncertainty.items() if u.column]
+        return "CASE " + " ".join(arms) + " END"
+
+    def _insert_observations(self, file_id, rel, sha, spec: TableSpec, plan, rules) -> None:
+        uT = uncertainty_sql("T", rules)
+        for q, cs in spec.value_columns().items():
+            si_unit = QUANTITY_KIND[q][1]
+            self.con.execute(
+                "INSERT INTO observation SELECT nextval('obs_id_seq'), ?, ?, ?, ?, si_T, "
+                f"{uT}, si_{q}, {uncertainty_sql(q, rules)}, ?, ?, ?, ?, ?, row_number, txt_T, ?, ?, "
+                f"txt_{q}, ?, ?, ? FROM fl_norm WHERE fault IS NULL AND NOT empty_{q}",
+                [spec.fluid, spec.boundary, spec.solid_phase, q, si_unit,
+                 plan.manifest.source.id, file_id, sha, rel, spec.temperature.unit,
+                 spec.temperature.scale, cs.unit, cs.column, self.run_id])
+
+
+def _upsert_fluids(con, fluids: dict[str, Fluid], run_id: str) -> None:
+    con.execute("BEGIN TRANSACTION")
+    for f in fluids.values():
+        con.execute("INSERT OR REPLACE INTO fluid VALUES (?, ?, ?, ?, ?, ?)",
+                    [f.id, f.name, f.formula or None, f.cas_rn or None, f.molar_mass_kg_mol, run_id])
+    con.execute("COMMIT")
+
+
+def find_fluids_file(paths: list[Path]) -> Path:
+    """``fluids.toml`` in the first path or one of its parents."""
+    for start in paths:
+        for folder in [start, *start.resolve().parents]:
+            if (folder / "fluids.toml").is_file():
+                return folder / "fluids.toml"
+    raise BatchError("fluids.toml not found in the raw folder or its parents",
+                     file=str(paths[0] / "fluids.toml"))
+
+
+def run_ingest(con: duckdb.DuckDBPyConnection, paths: list[Path], *, fluids_file: Path | None = None,
+               progress=None, run_id: str | None = None) -> IngestResult:
+    """Ingest every batch under ``paths``; a path that is the raw root also retires batches
+    that disappeared from it."""
+    run_id = run_id or new_run_id("ingest")
+    fluids_path = fluids_file or find_fluids_file(paths)
+    fluids = load_fluids(fluids_path)
+    root = fluids_path.parent
+    for p in paths:
+        if not p.exists():
+            raise BatchError("path does not exist", file=str(p))
+    con.execute("INSERT INTO run VALUES (?, 'ingest', ?, NULL, ?, ?, 'running', NULL)",
+                [run_id, utcnow(), __version__, json.dumps(
+                    {"paths": [str(p) for p in paths]}, sort_keys=True)])
+    _upsert_fluids(con, fluids, run_id)
+    batches = [b for p in paths for b in discover_batches(p)]
+    results = []
+    for batch_dir in batches:
+        results.append(Ingestor(con, root, fluids, run_id).ingest(batch_dir))
+        if progress:
+            progress(batch_dir)
+    removed = _retire_missing(con, root, paths, {r.batch for r in results}, run_id)
+    result = IngestResult(run_id, results, removed)
+    status = "error" if result.errors else ("ok" if result.changed else "no-changes")
+    con.execute("UPDATE run SET finished_at = ?, status = ?, summary_json = ? WHERE run_id = ?",
+                [utcnow(), status, json.dumps(result.asdict(), sort_keys=True), run_id])
+    return result
+
+
+def _retire_missing(con, root: Path, paths: list[Path], seen: set[str], run_id: str) -> list[str]:
+    """When the raw root itself was ingested, supersede files of batches no longer present."""
+    if not any(os.path.samefile(p, root) for p in paths if p.exists()):
+        return []
+    gone = con.execute("SELECT file_id, path, batch FROM raw_file WHERE superseded_by IS NULL"
+                       ).fetchall()
+    gone = [(fid, path) for fid, path, batch in gone if batch not in seen
+            and not (root / batch / "batch.toml").is_file()]
+    if not gone:
+        return []
+    con.execute("BEGIN TRANSACTION")
+    for fid, _ in gone:
+        con.execute("UPDATE raw_file SET superseded_by = ?, superseded_run_id = ? WHERE file_id = ?",
+                    [REMOVED, run_id, fid])
+    con.execute("COMMIT")
+    return sorted(path for _, path in gone)

@@ -1,0 +1,82 @@
+"""Open the working store: path resolution, the single-writer lock, migrations.
+
+DuckDB lets one process write a database file or many processes read it, never both. A
+second writer gets :class:`StoreBusyError` (exit code 75) naming the holder's PID where
+DuckDB reports it, instead of a traceback or a hang.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from dataclasses import dataclass
+from pathlib import Path
+
+import duckdb
+
+from pipeline.errors import StoreBusyError, StoreError
+from pipeline.store.migrations import migrate
+
+DEFAULT_STORE = Path("curated") / "fluidledger.duckdb"
+STORE_ENV = "FLUIDLEDGER_STORE"
+_PID = re.compile(r"PID (\d+)")
+
+
+def resolve_store_path(cli_value: str | os.PathLike | None = None) -> Path:
+    """``--store`` wins, then ``$FLUIDLEDGER_STORE``, then ``curated/fluidledger.duckdb``."""
+    if cli_value:
+        return Path(cli_value)
+    env = os.environ.get(STORE_ENV)
+    return Path(env) if env else DEFAULT_STORE
+
+
+@dataclass
+class Store:
+    """An open store connection with its path; use as a context manager."""
+
+    path: Path
+    con: duckdb.DuckDBPyConnection
+    read_only: bool
+
+    def __enter__(self) -> "Store":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def close(self) -> None:
+        try:
+            self.con.close()
+        except duckdb.Error:
+            pass
+
+
+def _is_lock_error(err: Exception) -> bool:
+    text = str(err)
+    return "Could not set lock" in text or "Conflicting lock" in text or "lock on file" in text
+
+
+def open_store(path: str | os.PathLike | None = None, *, read_only: bool = False,
+               create: bool = True) -> Store:
+    """Open (and migrate, when writable) the store at ``path`` (see :func:`resolve_store_path`)."""
+    target = resolve_store_path(path)
+    if read_only and not target.exists():
+        raise StoreError(f"store {target} does not exist; run 'fluidledger ingest' first")
+    if not create and not target.exists():
+        raise StoreError(f"store {target} does not exist")
+    if not read_only:
+        target.parent.mkdir(parents=True, exist_ok=True)
+    try:
+        con = duckdb.connect(str(target), read_only=read_only)
+    except duckdb.IOException as err:
+        if _is_lock_error(err):
+            m = _PID.search(str(err))
+            holder = f" (held by PID {m.group(1)})" if m else ""
+            raise StoreBusyError(f"store {target} is busy{holder}: another FluidLedger process "
+                                 "is writing it; retry later") from None
+        raise StoreError(f"cannot open store {target}: {err}") from None
+    except duckdb.Error as err:
+        raise StoreError(f"cannot open store {target}: {err}") from None
+    if not read_only:
+        migrate(con)
+    return Store(path=target, con=con, read_only=read_only)
