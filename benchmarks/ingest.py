@@ -50,8 +50,9 @@ def make_batch(root: Path, rows: int) -> Path:
     rng = np.random.default_rng(1)
     T = rng.uniform(-189.0, -123.0, rows)                  # degC, argon liquid range
     p = 68.9 * np.exp(9.0 * (1 - 83.8 / (T + 273.15)))     # a rough vapour-pressure shape [kPa]
+    p *= 1 + 1e-4 * rng.standard_normal(rows)               # measurement scatter
     u = p * 1e-3
-    lines = np.char.add(np.char.add(np.char.mod("%.4f,", T), np.char.mod("%.5g,", p)),
+    lines = np.char.add(np.char.add(np.char.mod("%.6f,", T), np.char.mod("%.7g,", p)),
                         np.char.mod("%.3g", u))
     lines[::100_000] = "-150.0,abc,0.1"                    # planted bad rows -> quarantine
     batch = root / "raw" / "bench"

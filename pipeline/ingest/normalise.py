@@ -34,9 +34,6 @@ QUANTITY_KIND = {
     "h_sublimation": ("enthalpy", "J/mol", 1e7),
 }
 T_MAX_K = 1e5
-_NUMBER = {".": r"^[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?$",
-           ",": r"^[+-]?([0-9]+,?[0-9]*|,[0-9]+)([eE][+-]?[0-9]+)?$"}
-_NONFINITE = r"^(?i)[+-]?(nan|inf|infinity)$"
 
 
 def ident(name: str) -> str:
@@ -88,21 +85,25 @@ def _plan(spec: TableSpec, molar_mass: float) -> tuple[list[Column], dict[str, d
 
 
 def _parse_sql(staged: str, cols: list[Column], spec: TableSpec) -> str:
+    """Parse every mapped cell once. ``plain_<key>``: the cell is an ordinary finite number in
+    the declared decimal style (no unit, no thousands separator, no underscore); ``si_<key>``:
+    its value in SI (NaN/inf kept so that the fault CASE can name them)."""
     nulls = ", ".join("'" + v.replace("'", "''") + "'" for v in spec.null_values)
-    number = _NUMBER[spec.decimal]
+    other = "." if spec.decimal == "," else ","
     parts = ["row_number"]
     for c in cols:
         cell = f"trim({ident(c.column)})"
         empty = f"({ident(c.column)} IS NULL OR {cell} = ''" + (
             f" OR {cell} IN ({nulls}))" if nulls else ")")
-        num = (f"CASE WHEN regexp_full_match({cell}, '{number}') "
-               f"THEN CAST(replace({cell}, ',', '.') AS DOUBLE) "
-               f"WHEN regexp_full_match({cell}, '{_NONFINITE}') THEN CAST({cell} AS DOUBLE) END")
+        raw = f"TRY_CAST(replace({cell}, ',', '.') AS DOUBLE)" if spec.decimal == "," else \
+            f"TRY_CAST({cell} AS DOUBLE)"
         parts += [f"{ident(c.column)} AS txt_{c.key}", f"{empty} AS empty_{c.key}",
-                  f"coalesce(regexp_full_match({cell}, '{number}'), false) AS plain_{c.key}",
-                  f"({num}) * {c.factor!r} + {c.offset!r} AS si_{c.key}"]
-    dup_cols = ", ".join(ident(c.column) for c in cols)
-    parts.append(f"row_number() OVER (PARTITION BY {dup_cols} ORDER BY row_number) > 1 AS dup")
+                  f"CASE WHEN contains({cell}, '_') OR contains({cell}, '{other}') THEN NULL "
+                  f"ELSE {raw} END AS num_{c.key}",
+                  f"coalesce(isfinite(num_{c.key}) OR regexp_matches({cell}, '^[+-]?[0-9.,]+"
+                  f"([eE][+-]?[0-9]+)?$'), false) AS plain_{c.key}",
+                  f"num_{c.key} * {c.factor!r} + {c.offset!r} AS si_{c.key}"]
+    parts.append("hash(" + ", ".join(ident(c.column) for c in cols) + ") AS row_hash")
     return f"SELECT {', '.join(parts)} FROM {staged}"
 
 
@@ -135,19 +136,27 @@ def normalise(con: duckdb.DuckDBPyConnection, staged: str, spec: TableSpec,
               molar_mass: float, out: str) -> dict[str, dict]:
     """Create temp table ``out`` with SI columns ``si_<key>``, texts and ``fault``.
 
-    Returns the uncertainty rules per quantity key for the loader.
+    Returns the uncertainty rules per quantity key for the loader. Duplicate rows are found
+    by a hash of their mapped cells (grouped once, then joined), not by a window sort.
     """
     cols, rules = _plan(spec, molar_mass)
-    con.execute(f"CREATE OR REPLACE TEMP TABLE {out} AS {_parse_sql(staged, cols, spec)}")
+    parsed = f"{out}_parsed"
+    con.execute(f"CREATE OR REPLACE TEMP TABLE {parsed} AS {_parse_sql(staged, cols, spec)}")
     scale = spec.temperature.scale
     if scale != "ITS-90":
-        _convert_scale(con, out, scale)
-    con.execute(f"ALTER TABLE {out} ADD COLUMN fault VARCHAR")
-    con.execute(f"UPDATE {out} SET fault = {_fault_sql(cols)}")
-    if scale != "ITS-90":
-        col = spec.temperature.column.replace("'", "''")
-        con.execute(f"UPDATE {out} SET fault = 'out-of-scale-range|{col}' "
-                    "WHERE fault IS NULL AND isnan(si_T)")
+        _convert_scale(con, parsed, scale)
+    col = spec.temperature.column.replace("'", "''")
+    scale_arm = (f"WHEN fault IS NULL AND isnan(si_T) THEN 'out-of-scale-range|{col}' "
+                 if scale != "ITS-90" else "")
+    con.execute(
+        f"CREATE OR REPLACE TEMP TABLE {out} AS "
+        f"WITH dups AS (SELECT row_hash, min(row_number) AS first_row FROM {parsed} "
+        "GROUP BY row_hash HAVING count(*) > 1), "
+        f"marked AS (SELECT p.*, coalesce(p.row_number > d.first_row, false) AS dup "
+        f"FROM {parsed} p LEFT JOIN dups d USING (row_hash)), "
+        f"faulted AS (SELECT *, {_fault_sql(cols)} AS fault FROM marked) "
+        f"SELECT * EXCLUDE (fault), CASE {scale_arm}WHEN true THEN fault END AS fault FROM faulted")
+    con.execute(f"DROP TABLE {parsed}")
     return rules
 
 

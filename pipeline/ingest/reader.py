@@ -75,14 +75,30 @@ def check_columns(header: tuple[str, ...], needed: dict[str, str], spec, label: 
                          "extra_columns = \"ignore\" for the table", file=label, column=extra[0])
 
 
-def _data_lines(text: str, comment: str) -> np.ndarray:
-    """File line numbers (1-based) of the lines DuckDB treats as records, header excluded."""
-    lines = text.split("\n")
-    if lines and lines[-1] == "":
-        lines.pop()
-    keep = [i + 1 for i, line in enumerate(lines[1:], start=1)
-            if line.strip("\r").strip() and not (comment and line.lstrip().startswith(comment))]
-    return np.asarray(keep, dtype=np.int64)
+def _data_lines(data: bytes, comment: str) -> np.ndarray:
+    """File line numbers (1-based) of the lines DuckDB treats as records, header excluded.
+
+    Vectorised over the raw bytes: a line is skipped when it is empty (or only ``\r``) or
+    starts with the comment character.
+    """
+    buf = np.frombuffer(data, dtype=np.uint8)
+    newlines = np.flatnonzero(buf == 10)
+    starts = np.concatenate(([0], newlines + 1))
+    ends = np.concatenate((newlines, [buf.size]))
+    if starts[-1] == buf.size:          # trailing newline: no last line
+        starts, ends = starts[:-1], ends[:-1]
+    length = ends - starts
+    cr = np.zeros_like(length, dtype=bool)
+    has = length > 0
+    cr[has] = buf[ends[has] - 1] == 13
+    content = length - cr
+    keep = content > 0
+    if comment:
+        first = np.zeros_like(keep)
+        first[has] = buf[starts[has]] == ord(comment)
+        keep &= ~first
+    numbers = np.flatnonzero(keep) + 1
+    return numbers[numbers > 1]
 
 
 def stage_csv(con: duckdb.DuckDBPyConnection, path: str, data: bytes, spec, label: str,
@@ -91,7 +107,7 @@ def stage_csv(con: duckdb.DuckDBPyConnection, path: str, data: bytes, spec, labe
     text = _decode(data, spec.encoding, label)
     header = read_header(text, spec, label)
     check_columns(header, needed, spec, label)
-    lines = _data_lines(text, spec.comment)
+    lines = _data_lines(data[3:] if data.startswith(b"\xef\xbb\xbf") else data, spec.comment)
     if lines.size == 0:
         raise BatchError("file has a header but no data rows", file=label)
     columns = {name: "VARCHAR" for name in header}

@@ -32,9 +32,11 @@ extrapolated above 630 degC (-0.25 K at 1000 K against +0.012 K from C).
 Range of the conversion: the functions are published for 13.8 K <= T90 <= 1337.33 K, and
 IPTS-68 itself starts at 13.81 K (the e-H2 triple point). An IPTS-68 value is therefore
 converted when 13.81 K <= T68 <= 1337.58 K (the IPTS-68 values of its lower limit and of the
-gold point, which map to 13.8029 K and 1337.33 K on ITS-90; range C gives the gold point
-0.1 mK high, and that 0.1 mK is evaluated with D(1337.33 K)). Outside, the result is NaN and
-:func:`out_of_range_mask` tells the caller which rows to quarantine; no exception per row.
+gold point, which map to 13.8029 K and 1337.33 K on ITS-90). Range C maps the IPTS-68 gold
+point 0.12 mK above 1337.33 K, so :func:`its90_minus_ipts68` accepts T90 up to
+:data:`T90_EDGE_K` (0.2 mK above the gold point) and the gold point converts both ways.
+Outside, the result is NaN and :func:`out_of_range_mask` tells the caller which rows to
+quarantine; no exception per row.
 
 Inverting the functions: because they are written in T90, T90 is found from T68 by the
 fixed-point iteration ``T90 <- T68 + D(T90)``, started at ``T90 = T68`` and run
@@ -85,6 +87,8 @@ T90_MAX_K = 1337.33
 """Highest T90 of the difference functions (range C, the gold point). [K]"""
 T_SWITCH_AB_K = 73.15
 """Range A below, range B from here up (-200 degC). [K]"""
+T90_EDGE_K = T90_MAX_K + 2e-4
+"""Upper end of T90 accepted by :func:`its90_minus_ipts68`: the gold point plus 0.2 mK. [K]"""
 T68_MIN_K = 13.81
 """Lowest IPTS-68 temperature converted: the lower limit of IPTS-68 (e-H2 triple point). [K]"""
 T68_MAX_K = 1337.58
@@ -114,7 +118,7 @@ def _difference(T90: np.ndarray) -> np.ndarray:
 
 
 def _in_domain(T90: np.ndarray) -> np.ndarray:
-    return (T90 >= T90_MIN_K) & (T90 <= T90_MAX_K)  # False for NaN
+    return (T90 >= T90_MIN_K) & (T90 <= T90_EDGE_K)  # False for NaN
 
 
 def its90_minus_ipts68(T90_K: np.ndarray) -> np.ndarray:
@@ -128,7 +132,8 @@ def its90_minus_ipts68(T90_K: np.ndarray) -> np.ndarray:
     Returns
     -------
     numpy.ndarray
-        T90 - T68 [K]; NaN outside 13.8 K <= T90 <= 1337.33 K.
+        T90 - T68 [K]; NaN outside 13.8 K <= T90 <= 1337.33 K (+0.2 mK, see
+        :data:`T90_EDGE_K`).
 
     Notes
     -----
@@ -165,7 +170,7 @@ def ipts68_to_its90(T68_K: np.ndarray) -> np.ndarray:
     T68c = np.where(inside, T68, 300.0)
     T90 = T68c
     for _ in range(FIXED_POINT_ITERATIONS):
-        T90 = T68c + _difference(np.clip(T90, T90_MIN_K, T90_MAX_K))
+        T90 = T68c + _difference(np.clip(T90, T90_MIN_K, T90_EDGE_K))
     return np.where(inside, T90, np.nan)
 
 
@@ -180,7 +185,7 @@ def its90_to_ipts68(T90_K: np.ndarray) -> np.ndarray:
     Returns
     -------
     numpy.ndarray
-        T68 [K]; NaN outside 13.8 K <= T90 <= 1337.33 K.
+        T68 [K]; NaN outside 13.8 K <= T90 <= 1337.33 K (+0.2 mK).
     """
     T90 = np.asarray(T90_K, dtype=np.float64)
     return T90 - its90_minus_ipts68(T90)

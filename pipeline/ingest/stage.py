@@ -373,16 +373,28 @@ class Ingestor:
         return "CASE " + " ".join(arms) + " END"
 
     def _insert_observations(self, file_id, rel, sha, spec: TableSpec, plan, rules) -> None:
+        """Narrow bulk inserts (per-file facts go to raw_column once); ids are allocated as a
+        block after the current maximum, so no sequence is touched per row."""
+        quantities = list(spec.value_columns().items())
+        base = self.con.execute("SELECT coalesce(max(obs_id), 0) + 1 FROM observation"
+                                ).fetchall()[0][0]
+        t = spec.temperature
+        self._column(file_id, "temperature", t.column, t.unit, t.scale, "K", rules.get("T"))
         uT = uncertainty_sql("T", rules)
-        for q, cs in spec.value_columns().items():
-            si_unit = QUANTITY_KIND[q][1]
+        # ids and row numbers are explicit, so the bulk insert need not keep row order
+        self.con.execute("SET preserve_insertion_order = false")
+        for qi, (q, cs) in enumerate(quantities):
+            self._column(file_id, q, cs.column, cs.unit, None, QUANTITY_KIND[q][1], rules.get(q))
             self.con.execute(
-                "INSERT INTO observation SELECT nextval('obs_id_seq'), ?, ?, ?, ?, si_T, "
-                f"{uT}, si_{q}, {uncertainty_sql(q, rules)}, ?, ?, ?, ?, ?, row_number, txt_T, ?, ?, "
-                f"txt_{q}, ?, ?, ? FROM fl_norm WHERE fault IS NULL AND NOT empty_{q}",
-                [spec.fluid, spec.boundary, spec.solid_phase, q, si_unit,
-                 plan.manifest.source.id, file_id, sha, rel, spec.temperature.unit,
-                 spec.temperature.scale, cs.unit, cs.column, self.run_id])
+                f"INSERT INTO observation SELECT ? + (row_number - 1) * {len(quantities)} + {qi}, "
+                f"?, row_number, ?, si_T, {uT}, si_{q}, {uncertainty_sql(q, rules)}, txt_T, txt_{q} "
+                f"FROM fl_norm WHERE fault IS NULL AND NOT empty_{q}", [base, file_id, q])
+        self.con.execute("RESET preserve_insertion_order")
+
+    def _column(self, file_id, quantity, column, unit, scale, si_unit, rule) -> None:
+        self.con.execute("INSERT INTO raw_column VALUES (?, ?, ?, ?, ?, ?, ?)",
+                         [file_id, quantity, column, unit, scale, si_unit,
+                          json.dumps(rule, sort_keys=True) if rule else None])
 
 
 def _upsert_fluids(con, fluids: dict[str, Fluid], run_id: str) -> None:

@@ -8,8 +8,8 @@ Quantity is ever built per row (per-row Quantities are some 700x slower).
 SI targets (see docs/interfaces.md): temperature [K], pressure [Pa], density [kg/m^3],
 enthalpy [J/mol], dimensionless [1].
 
-How a unit string is matched (a decision of this module; documented in docs/batch-contract.md)
-------------------------------------------------------------------------------------------------
+How a unit string is matched (a decision of this module)
+--------------------------------------------------------
 1. Typography is normalised: surrounding and repeated blanks, ``**`` -> ``^``, superscript
    digits (``m³`` -> ``m^3``, ``m⁻³`` -> ``m^-3``), the middle dot and ``*`` -> a blank,
    ``℃``/``℉`` -> ``°C``/``°F``, the ordinal sign ``º`` -> ``°``, the Kelvin sign -> ``K``.
@@ -28,10 +28,10 @@ How a unit string is matched (a decision of this module; documented in docs/batc
 5. Anything else is unknown: the message lists the accepted units and suggests the closest
    spellings (:mod:`difflib`).
 
-Definitions are pint's, which are exact where the definition is exact: 1 atm = 101 325 Pa,
-1 bar = 10^5 Pa, 1 Torr = 101 325/760 Pa, 1 psi = 0.453 592 37 kg x 9.806 65 m s^-2 /
-(0.0254 m)^2 = 6 894.757... Pa, 1 mmHg (conventional) = 13.5951 g cm^-3 x 9.806 65 m s^-2 x
-1 mm = 133.322 387 415 Pa. The mmHg value is checked when the registry is built and defined
+Definitions are pint's (after removing its float noise, :func:`_tidy`), exact where the
+definition is exact: 1 atm = 101 325 Pa, 1 bar = 10^5 Pa, 1 Torr = 101 325/760 Pa,
+1 psi = 0.453 592 37 kg x 9.806 65 m s^-2 / (0.0254 m)^2 = 6 894.757... Pa,
+1 mmHg (conventional) = 13.5951 g cm^-3 x 9.806 65 m s^-2 x 1 mm = 133.322 387 415 Pa. The mmHg value is checked when the registry is built and defined
 explicitly should a pint release ever differ (:func:`_mmhg_name`).
 
 References
@@ -404,12 +404,12 @@ def _resolve(unit: str, quantity: str) -> tuple[str, str | None]:
     if text in AMBIGUOUS:
         raise UnitError(f"ambiguous {quantity} unit {unit!r}: {AMBIGUOUS[text]}; "
                         f"{_listing(quantity)}")
+    expected = f"{_a(QUANTITIES[quantity].title)} unit was expected ({_dimension_text(quantity)})"
     for other, other_table in ALIASES.items():
         if other != quantity and text in other_table:
             dim = _pint(UNITS[other][other_table[text]].pint_expr).dimensionality
-            raise UnitError(
-                f"{_a(QUANTITIES[quantity].title)} unit was expected ({_dimension_text(quantity)}), "
-                f"but {unit!r} is {_a(QUANTITIES[other].title)} unit ({dim}); {_listing(quantity)}")
+            raise UnitError(f"{expected}, but {unit!r} is {_a(QUANTITIES[other].title)} unit "
+                            f"({dim}); {_listing(quantity)}")
     same_but_case = sorted({table[s] for s in table if s.casefold() == text.casefold()})
     if same_but_case:
         readings = _case_readings(text, quantity)
@@ -423,9 +423,8 @@ def _resolve(unit: str, quantity: str) -> tuple[str, str | None]:
                         f"case-sensitive and only exact spellings are accepted; write {want}")
     parsed = _try_parse(text)
     if parsed is not None and parsed.dimensionality not in _dimensions(quantity):
-        raise UnitError(
-            f"{_a(QUANTITIES[quantity].title)} unit was expected ({_dimension_text(quantity)}), "
-            f"but {unit!r} reads as {parsed} ({parsed.dimensionality}); {_listing(quantity)}")
+        raise UnitError(f"{expected}, but {unit!r} reads as {parsed} "
+                        f"({parsed.dimensionality}); {_listing(quantity)}")
     if parsed is not None:
         raise UnitError(f"{quantity} unit {unit!r} (read as {parsed}) is not in the accepted "
                         f"list; convert the column or ask for an alias; {_listing(quantity)}")
@@ -536,7 +535,21 @@ def _conversion(unit: str, quantity: str, molar_mass_kg_mol: float | None, refer
         if not difference:
             offset = float(ambient_Pa)
             notes.append(f"gauge; ambient {_fmt(ambient_Pa)} Pa")
-    return Linear(float(factor), float(offset), si, canonical, "; ".join(notes))
+    return Linear(_tidy(factor), _tidy(offset), si, canonical, "; ".join(notes))
+
+
+def _tidy(x: float) -> float:
+    """Remove pint's float noise: a value within 4 ulp of a 12-digit decimal becomes that decimal.
+
+    pint chains prefix factors in binary floating point (g/cm^3 -> 999.9999999999999 kg/m^3);
+    the decimal is the exact definition, and the change is below 1e-15 relative. Values that
+    are not short decimals (5/9, psi) are left exactly as pint gives them.
+    """
+    x = float(x)
+    if x == 0.0 or not math.isfinite(x):
+        return x
+    short = float(f"{x:.12g}")
+    return short if abs(short - x) <= 4 * math.ulp(x) else x
 
 
 def _molar_mass(M: float | None, unit: str, quantity: str, udef: UnitDef) -> float:

@@ -10,7 +10,7 @@ from pipeline.ingest.stage import run_ingest
 from pipeline.store import open_store
 from tests.conftest import SIMPLE_BATCH, SIMPLE_CSV, write_batch
 
-TABLES = ["raw_file", "observation", "fixed_point", "stated_constant", "quarantine", "source"]
+TABLES = ["raw_file", "raw_column", "observation", "fixed_point", "stated_constant", "quarantine", "source"]
 
 
 def snapshot(con: duckdb.DuckDBPyConnection) -> dict:
@@ -122,7 +122,7 @@ def test_ipts68_temperatures_are_converted_and_originals_kept(raw_root, store_pa
     write_batch(raw_root, "b1", manifest, {"vp.csv": "T,p\n83.798,68.9\n"})
     ingest(store_path, raw_root)
     with open_store(store_path) as s:
-        T, orig, scale = s.con.execute("SELECT T_K, T_original, T_scale FROM observation").fetchone()
+        T, orig, scale = s.con.execute("SELECT T_K, T_original, T_scale FROM observation_current").fetchone()
     # argon triple point: 83.798 K (IPTS-68) = 83.8058 K (ITS-90), Preston-Thomas (1990)
     assert T == pytest.approx(83.8058, abs=1e-3)
     assert (orig, scale) == ("83.798", "IPTS-68")

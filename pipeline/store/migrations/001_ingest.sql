@@ -106,54 +106,48 @@ COMMENT ON COLUMN raw_file.ingested_at IS 'UTC time of the load.';
 COMMENT ON COLUMN raw_file.superseded_by IS 'file_id of the newer version of the same path (0 when the file was removed from raw/); NULL while current.';
 COMMENT ON COLUMN raw_file.superseded_run_id IS 'Ingest run that superseded this version.';
 
-CREATE SEQUENCE obs_id_seq START 1;
+CREATE TABLE raw_column (
+    file_id BIGINT NOT NULL,
+    quantity VARCHAR NOT NULL,
+    column_name VARCHAR NOT NULL,
+    unit VARCHAR NOT NULL,
+    scale VARCHAR,
+    si_unit VARCHAR NOT NULL,
+    uncertainty_rule VARCHAR,
+    PRIMARY KEY (file_id, quantity)
+);
+COMMENT ON TABLE raw_column IS 'How each mapped column of a raw table file was read: the per-file facts every observation of that file shares.';
+COMMENT ON COLUMN raw_column.file_id IS 'Raw file version (raw_file.file_id).';
+COMMENT ON COLUMN raw_column.quantity IS 'temperature, or the quantity of the value column: pressure | rho_liquid | rho_vapour | rho_solid | h_vaporization | h_fusion | h_sublimation.';
+COMMENT ON COLUMN raw_column.column_name IS 'CSV column header.';
+COMMENT ON COLUMN raw_column.unit IS 'Unit declared in batch.toml for the column.';
+COMMENT ON COLUMN raw_column.scale IS 'Temperature scale declared (ITS-90, IPTS-68); NULL for other quantities.';
+COMMENT ON COLUMN raw_column.si_unit IS 'SI unit the values were converted to (K, Pa, kg/m^3, J/mol).';
+COMMENT ON COLUMN raw_column.uncertainty_rule IS 'How the standard uncertainty was obtained (constant, relative, column; coverage factor), JSON.';
+
 CREATE TABLE observation (
-    obs_id BIGINT PRIMARY KEY,
-    fluid_id VARCHAR NOT NULL,
-    boundary VARCHAR NOT NULL,
-    solid_phase VARCHAR NOT NULL,
+    obs_id BIGINT NOT NULL,
+    file_id BIGINT NOT NULL,
+    row_number BIGINT NOT NULL,
     quantity VARCHAR NOT NULL,
     T_K DOUBLE NOT NULL,
     u_T_K DOUBLE,
     value_si DOUBLE NOT NULL,
     u_value_si DOUBLE,
-    si_unit VARCHAR NOT NULL,
-    source_id VARCHAR NOT NULL,
-    file_id BIGINT NOT NULL,
-    file_sha256 VARCHAR NOT NULL,
-    file_path VARCHAR NOT NULL,
-    row_number BIGINT NOT NULL,
     T_original VARCHAR NOT NULL,
-    T_unit VARCHAR NOT NULL,
-    T_scale VARCHAR NOT NULL,
-    value_original VARCHAR NOT NULL,
-    value_unit VARCHAR NOT NULL,
-    value_column VARCHAR NOT NULL,
-    ingest_run_id VARCHAR NOT NULL
+    value_original VARCHAR NOT NULL
 );
-COMMENT ON TABLE observation IS 'One measured or tabulated value on a phase boundary, normalised to SI and ITS-90, with its origin. Use the observation_current view for data of current file versions.';
-COMMENT ON COLUMN observation.obs_id IS 'Observation identifier (stable for a file version).';
-COMMENT ON COLUMN observation.fluid_id IS 'Fluid (fluid.fluid_id).';
-COMMENT ON COLUMN observation.boundary IS 'liquid-vapour | solid-liquid | solid-vapour | solid-solid.';
-COMMENT ON COLUMN observation.solid_phase IS 'Solid phase label for polymorphs, empty otherwise.';
+COMMENT ON TABLE observation IS 'One measured or tabulated value on a phase boundary, normalised to SI and ITS-90. Per-file facts (fluid, boundary, source, units, hash) live in raw_file and raw_column; the views observation_current and observation_history put them together.';
+COMMENT ON COLUMN observation.obs_id IS 'Observation identifier (unique; stable for a file version).';
+COMMENT ON COLUMN observation.file_id IS 'Raw file version (raw_file.file_id): gives fluid, boundary, solid phase, source, SHA-256.';
+COMMENT ON COLUMN observation.row_number IS 'Data row in the raw file (1 = first line after the header).';
 COMMENT ON COLUMN observation.quantity IS 'pressure [Pa] | rho_liquid, rho_vapour, rho_solid [kg/m^3] | h_vaporization, h_fusion, h_sublimation [J/mol].';
 COMMENT ON COLUMN observation.T_K IS 'Temperature on ITS-90 [K].';
 COMMENT ON COLUMN observation.u_T_K IS 'Standard uncertainty (k=1) of T_K [K]; NULL when not stated.';
-COMMENT ON COLUMN observation.value_si IS 'Value of the quantity in SI [Pa, kg/m^3 or J/mol, see si_unit].';
+COMMENT ON COLUMN observation.value_si IS 'Value of the quantity in SI [Pa, kg/m^3 or J/mol].';
 COMMENT ON COLUMN observation.u_value_si IS 'Standard uncertainty (k=1) of value_si [same unit]; NULL when not stated.';
-COMMENT ON COLUMN observation.si_unit IS 'SI unit of value_si: Pa, kg/m^3 or J/mol.';
-COMMENT ON COLUMN observation.source_id IS 'Source (source.source_id).';
-COMMENT ON COLUMN observation.file_id IS 'Raw file version (raw_file.file_id).';
-COMMENT ON COLUMN observation.file_sha256 IS 'SHA-256 of the raw file version the row came from.';
-COMMENT ON COLUMN observation.file_path IS 'Raw file path relative to the raw root.';
-COMMENT ON COLUMN observation.row_number IS 'Data row in the raw file (1 = first row after the header).';
 COMMENT ON COLUMN observation.T_original IS 'Temperature cell exactly as written in the raw file.';
-COMMENT ON COLUMN observation.T_unit IS 'Temperature unit declared for the raw column.';
-COMMENT ON COLUMN observation.T_scale IS 'Temperature scale declared for the raw column (ITS-90, IPTS-68).';
 COMMENT ON COLUMN observation.value_original IS 'Value cell exactly as written in the raw file.';
-COMMENT ON COLUMN observation.value_unit IS 'Unit declared for the raw value column.';
-COMMENT ON COLUMN observation.value_column IS 'Raw CSV column the value came from.';
-COMMENT ON COLUMN observation.ingest_run_id IS 'Ingest run that loaded the row.';
 
 CREATE SEQUENCE fp_id_seq START 1;
 CREATE TABLE fixed_point (
@@ -254,11 +248,21 @@ CREATE VIEW raw_file_current AS
     SELECT * FROM raw_file WHERE superseded_by IS NULL;
 COMMENT ON VIEW raw_file_current IS 'Current version of every raw file path (superseded versions excluded).';
 
-CREATE VIEW observation_current AS
-    SELECT o.* FROM observation o
+CREATE VIEW observation_history AS
+    SELECT o.obs_id, f.fluid_id, f.boundary, f.solid_phase, o.quantity, o.T_K, o.u_T_K,
+           o.value_si, o.u_value_si, v.si_unit, f.source_id, o.file_id, f.sha256 AS file_sha256,
+           f.path AS file_path, o.row_number, o.T_original, t.unit AS T_unit, t.scale AS T_scale,
+           o.value_original, v.unit AS value_unit, v.column_name AS value_column,
+           f.ingest_run_id, f.superseded_by IS NULL AS is_current
+    FROM observation o
     JOIN raw_file f ON f.file_id = o.file_id
-    WHERE f.superseded_by IS NULL;
-COMMENT ON VIEW observation_current IS 'Observations of current raw file versions; superseded versions stay in observation as history.';
+    JOIN raw_column t ON t.file_id = o.file_id AND t.quantity = 'temperature'
+    JOIN raw_column v ON v.file_id = o.file_id AND v.quantity = o.quantity;
+COMMENT ON VIEW observation_history IS 'Every observation ever loaded with its per-file facts (fluid, boundary, source, units, scale, SHA-256); is_current is false for superseded file versions.';
+
+CREATE VIEW observation_current AS
+    SELECT * EXCLUDE (is_current) FROM observation_history WHERE is_current;
+COMMENT ON VIEW observation_current IS 'Observations of current raw file versions with their per-file facts; superseded versions stay in observation_history.';
 
 CREATE VIEW fixed_point_current AS
     SELECT p.* FROM fixed_point p
