@@ -1,0 +1,28 @@
+"""``fluidledger fit``: fit correlations to every phase boundary with enough data."""
+
+from __future__ import annotations
+
+from pipeline.store import open_store
+
+NAME = "fit"
+HELP = ("Fit vapour-pressure, sublimation, melting and saturated-density correlations; refit "
+        "only groups whose inputs changed.")
+
+
+def add_arguments(p) -> None:
+    p.add_argument("--fluid", action="append", default=None, help="restrict to a fluid (repeatable)")
+    p.add_argument("--full", action="store_true", help="refit every group, ignoring input hashes")
+    p.add_argument("--outlier-z", type=float, default=4.0,
+                   help="flag points with |normalised residual| above this (default 4)")
+    p.add_argument("--min-points", type=int, default=5, help="fewest points to fit (default 5)")
+
+
+def run(args) -> int:
+    from pipeline.fitting.stage import FitSettings, run_fit
+
+    settings = FitSettings(outlier_z=args.outlier_z, min_points=args.min_points)
+    with open_store(args.store) as store:
+        result = run_fit(store.con, fluids=args.fluid, settings=settings, full=args.full)
+    if not args.quiet:
+        print(result.asstr())
+    return 0

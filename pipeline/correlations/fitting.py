@@ -1,0 +1,610 @@
+"""Weighted, outlier-flagging fits of correlation forms, with the number of terms chosen by BIC.
+
+Conventions
+-----------
+* Fits run in the form's fit space: ln(value) for log-link forms (residuals are relative),
+  value for identity-link forms (melting pressures, the rho'/rho_c power sum). The standard
+  uncertainty carried over is u_z = u_eff |dz/dy|, with
+  u_eff^2 = u_y^2 + (dy/dT u_T)^2: a first fit with u_y alone gives the slope, the second
+  (final) fit uses u_eff. Chi-square values are therefore comparable across links.
+* Linear forms: weighted least squares by SVD of the column-equilibrated weighted design matrix
+  (numerically the ``numpy.linalg.lstsq`` solution). Nonlinear forms (Antoine, Simon-Glatzel):
+  ``scipy.optimize.least_squares`` with the soft-L1 loss (``f_scale`` = 3 normalised units, so
+  Gaussian scatter is treated almost quadratically and gross outliers linearly) and the analytic
+  Jacobian, from a start found by profiling the form's linear parameters.
+* Covariance: (J^T W J)^-1 at the solution, multiplied by the reduced chi-square when that
+  exceeds 1 (Birge-ratio inflation for underestimated input uncertainties); never shrunk.
+* Outliers: points with |z| > ``outlier_z`` against the current best model are flagged (kept in
+  the outcome, not deleted) and model selection is repeated without them; z is recomputed for
+  every point each round, so a point can be un-flagged. At most ``MAX_OUTLIER_ROUNDS`` rounds,
+  and at most ``MAX_OUTLIER_FRACTION`` of the usable points (the largest |z|): beyond that the
+  model does not fit, which shows in the reduced chi-square rather than as a crowd of
+  "outliers".
+* Model selection: every candidate form with 1..k_max terms (the nested series of its
+  exponents) is fitted on the same points; the lowest criterion wins (BIC = chi2 + k ln n), with
+  k <= n_used - 2 parameters at most.
+* Points above the reference temperature (Tc for liquid-vapour forms, Tt for sublimation
+  forms): by default the fit is *skipped* with a reason, because such points are physically
+  impossible and usually mean a wrong Tc, unit or phase label. With
+  ``above_reference="exclude"`` they are excluded and flagged ``above-critical-temperature``
+  (or ``above-triple-temperature``) and the fit goes on.
+* Bad data never raises: the outcome carries ``skipped_reason`` and ``skip_code``. Programming
+  errors (an unknown form name or criterion) raise KeyError.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from enum import Enum
+
+import numpy as np
+from scipy.optimize import least_squares
+
+from pipeline.correlations.base import (CorrelationForm, Curve, LinearForm,
+                                        covariance_from_jacobian, get_form,
+                                        weighted_linear_solve)
+from pipeline.errors import FitError
+
+MAX_OUTLIER_ROUNDS = 10
+MAX_OUTLIER_FRACTION = 0.2    # never flag more than 20 % of the usable points as outliers
+SOFT_L1_F_SCALE = 3.0
+MONOTONIC_K = 3.0            # a step "falls" when it drops by more than 3 combined u
+MONOTONIC_MAX_FRACTION = 0.1  # more than 10 % falling steps (and more than 2): non-monotonic
+
+CRITERIA = {
+    "bic": lambda chi2, k, n: chi2 + k * math.log(n),
+    "aic": lambda chi2, k, n: chi2 + 2.0 * k,
+}
+"""Model-selection criteria from chi-square, parameter count and point count."""
+
+
+class PointFlag(str, Enum):
+    """Why a point was not used in the final fit."""
+
+    OUTLIER = "outlier"
+    ABOVE_CRITICAL = "above-critical-temperature"
+    ABOVE_TRIPLE = "above-triple-temperature"
+    OUTSIDE_DOMAIN = "outside-form-domain"
+    NON_FINITE_SLOPE = "non-finite-slope"
+
+
+class SkipCode(str, Enum):
+    """Why a fit was not made."""
+
+    BAD_SHAPE = "bad-shape"
+    NON_FINITE = "non-finite"
+    NON_POSITIVE = "non-positive"
+    NO_REFERENCE = "no-reference-temperature"
+    CROSSES_REFERENCE = "crosses-reference-temperature"
+    TOO_FEW_POINTS = "too-few-points"
+    NON_MONOTONIC = "non-monotonic"
+    SINGULAR = "singular-design"
+    OPTIMISER_FAILED = "optimiser-failed"
+
+
+# ---------------------------------------------------------------------------------------------
+# Result records
+# ---------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True, eq=False)
+class FormFit:
+    """One weighted fit of one form with a fixed number of terms (no outlier handling)."""
+
+    form: str
+    params: np.ndarray
+    covariance: np.ndarray  # scaled by max(1, reduced chi-square)
+    chi2: float
+    n: int
+    exponents: tuple[float, ...]
+    method: str             # "linear" | "nonlinear"
+    nfev: int = 0
+
+    @property
+    def n_params(self) -> int:
+        """Number of fitted parameters."""
+        return int(self.params.size)
+
+    @property
+    def reduced_chi2(self) -> float:
+        """chi2 / (n - k); NaN with no degrees of freedom."""
+        dof = self.n - self.n_params
+        return self.chi2 / dof if dof > 0 else math.nan
+
+
+@dataclass(frozen=True, eq=False)
+class FitOutcome:
+    """Result of :func:`fit_curve`: the selected curve and what happened to every point.
+
+    Arrays (``outlier_mask``, ``z``) are in the order of the input points. ``z`` holds the
+    normalised residuals (obs - model)/u_z of all points, flagged ones included (NaN where the
+    form is undefined). ``point_flags[i]`` is "" for a used point, else a :class:`PointFlag`
+    value. ``weighted_rms`` is sqrt(sum w r^2 / sum w) of the fit-space residuals r of the used
+    points (``fit_space`` says which space: ln(value) residuals are relative).
+    """
+
+    curve: Curve | None
+    form: str | None
+    n_used: int
+    n_flagged: int
+    outlier_mask: np.ndarray
+    z: np.ndarray
+    weighted_rms: float
+    reduced_chi2: float
+    bic: float
+    skipped_reason: str | None = None
+    skip_code: str | None = None
+    point_flags: tuple[str, ...] = ()
+    candidates: tuple[tuple[str, int, float], ...] = ()
+    criterion: str = "bic"
+    fit_space: str = ""
+
+    @property
+    def fitted(self) -> bool:
+        """True when a curve was fitted."""
+        return self.skipped_reason is None
+
+    def asdict(self) -> dict:
+        """Machine form (JSON-safe)."""
+        def num(x):
+            return None if x is None or not math.isfinite(x) else float(x)
+        return {
+            "curve": None if self.curve is None else self.curve.to_dict(),
+            "form": self.form, "n_used": self.n_used, "n_flagged": self.n_flagged,
+            "outlier_mask": [bool(v) for v in self.outlier_mask],
+            "z": [num(v) for v in self.z],
+            "weighted_rms": num(self.weighted_rms), "reduced_chi2": num(self.reduced_chi2),
+            "bic": num(self.bic), "skipped_reason": self.skipped_reason,
+            "skip_code": self.skip_code, "point_flags": list(self.point_flags),
+            "candidates": [[f, k, num(c)] for f, k, c in self.candidates],
+            "criterion": self.criterion, "fit_space": self.fit_space,
+        }
+
+    def asstr(self) -> str:
+        """Human form, one line."""
+        if not self.fitted:
+            return f"skipped ({self.skip_code}): {self.skipped_reason}"
+        n_out = int(np.sum(self.outlier_mask))
+        return (f"{self.form} ({len(self.curve.params)} params): {self.n_used} points used, "
+                f"{self.n_flagged} flagged ({n_out} outliers |z| > threshold); "
+                f"reduced chi2 = {self.reduced_chi2:.3g}, weighted RMS = "
+                f"{self.weighted_rms:.3g} in {self.fit_space}, BIC = {self.bic:.2f}")
+
+
+# ---------------------------------------------------------------------------------------------
+# Single-form solvers
+# ---------------------------------------------------------------------------------------------
+
+def _inflate(cov: np.ndarray, chi2: float, n: int) -> np.ndarray:
+    dof = n - cov.shape[0]
+    return cov * max(1.0, chi2 / dof) if dof > 0 else cov
+
+
+def _solve_linear(form: LinearForm, X: np.ndarray, z: np.ndarray, u_z: np.ndarray):
+    beta, cov_beta, rank = weighted_linear_solve(X, z, 1.0 / u_z)
+    if rank < X.shape[1]:
+        raise FitError(f"{form.name}: design matrix is singular (rank {rank} < "
+                       f"{X.shape[1]} parameters)")
+    params = form.params_from_beta(beta)
+    jac = form.dparams_dbeta(beta)
+    chi2 = float(np.sum(((z - X @ beta) / u_z) ** 2))
+    return params, jac @ cov_beta @ jac.T, chi2
+
+
+def _solve_nonlinear(form: CorrelationForm, T, z, u_z, T_ref, exps, x0=None):
+    T2, T_ref2 = T[None, :], np.array([[T_ref]])
+    lo, hi = form.bounds(T, T_ref) if hasattr(form, "bounds") else (-np.inf, np.inf)
+    if x0 is None:
+        x0 = form.initial_params(T, z, 1.0 / u_z**2, T_ref, exps)
+    x0 = np.clip(np.asarray(x0, dtype=float), lo, hi)
+
+    def resid(p):
+        with np.errstate(all="ignore"):
+            y = form.evaluate(T2, p[None, :], T_ref2, exps)[0]
+            return (form.to_fit_space(y) - z) / u_z
+
+    def jac(p):
+        with np.errstate(all="ignore"):
+            y = form.evaluate(T2, p[None, :], T_ref2, exps)[0]
+            J = form.jacobian(T2, p[None, :], T_ref2, exps)[0]
+        return J * (form.fit_space_slope(y) / u_z)[:, None]
+
+    res = least_squares(resid, x0, jac=jac, loss="soft_l1", f_scale=SOFT_L1_F_SCALE,
+                        bounds=(lo, hi), x_scale="jac", method="trf")
+    r = resid(res.x)
+    if not res.success or not np.all(np.isfinite(r)):
+        raise FitError(f"{form.name}: optimiser failed ({res.message})")
+    cov, rank = covariance_from_jacobian(jac(res.x))
+    if rank < res.x.size:
+        raise FitError(f"{form.name}: Jacobian is singular at the solution (rank {rank} < "
+                       f"{res.x.size} parameters)")
+    return res.x, cov, float(np.sum(r**2)), int(res.nfev)
+
+
+def fit_form(form_name: str, T, y, u, ref: dict, n_terms: int | None = None, *,
+             method: str = "auto", x0=None) -> FormFit:
+    """Fit one form with a fixed number of terms to all points (no outlier handling).
+
+    Parameters
+    ----------
+    form_name : str
+        Registry name.
+    T : array_like
+        Temperatures. [K]
+    y : array_like
+        Values. [Pa] or [kg/m^3]
+    u : array_like
+        Effective standard uncertainties of y (temperature part already included). [same as y]
+    ref : dict
+        ``T_ref_K`` [K] and optionally ``exponents``.
+    n_terms : int, optional
+        Sum terms to use (default: all exponents; ignored by nonlinear forms).
+    method : {"auto", "linear", "nonlinear"}
+        "nonlinear" solves a linear form with ``least_squares`` too (for benchmarks).
+    x0 : array_like, optional
+        Start for the nonlinear solver.
+
+    Returns
+    -------
+    FormFit
+
+    Raises
+    ------
+    FitError
+        If the design matrix is singular or the optimiser fails.
+    """
+    form = get_form(form_name)
+    T, y, u = (np.asarray(a, dtype=float) for a in (T, y, u))
+    n_terms = form.max_terms(ref.get("exponents")) if n_terms is None else n_terms
+    exps = form.exponents(ref, n_terms if form.linear else None)
+    T_ref = float(ref.get("T_ref_K", math.nan))
+    z, u_z = form.to_fit_space(y), u * np.abs(form.fit_space_slope(y))
+    if method == "auto":
+        method = "linear" if form.linear else "nonlinear"
+    if method == "linear":
+        params, cov, chi2 = _solve_linear(form, form.design(T, T_ref, exps), z, u_z)
+        nfev = 0
+    else:
+        params, cov, chi2, nfev = _solve_nonlinear(form, T, z, u_z, T_ref, exps, x0)
+    return FormFit(form=form.name, params=params, covariance=_inflate(cov, chi2, T.size),
+                   chi2=chi2, n=T.size, exponents=exps, method=method, nfev=nfev)
+
+
+# ---------------------------------------------------------------------------------------------
+# Candidates and model selection
+# ---------------------------------------------------------------------------------------------
+
+@dataclass
+class _Candidate:
+    """A form with the data-dependent pieces cached for one fit stage."""
+
+    form: CorrelationForm
+    exps: tuple[float, ...]
+    T_ref: float
+    X_full: np.ndarray | None = None
+    warm: dict = field(default_factory=dict)
+
+    def sizes(self, n_terms: int | None) -> list[int]:
+        if not self.form.linear:
+            return [len(self.exps)]
+        if n_terms is not None:
+            return [n_terms] if n_terms <= len(self.exps) else []
+        return list(range(self.form.min_terms, len(self.exps) + 1))
+
+    def fit(self, T, z, u_z, mask, n_terms):
+        """Fit on the masked points; returns (params, unscaled cov, chi2)."""
+        exps = self.exps[:n_terms] if self.form.linear else self.exps
+        if self.form.linear:
+            X = self.X_full[mask][:, :n_terms + 1]
+            return _solve_linear(self.form, X, z[mask], u_z[mask])
+        params, cov, chi2, _ = _solve_nonlinear(self.form, T[mask], z[mask], u_z[mask],
+                                                self.T_ref, exps, self.warm.get(n_terms))
+        self.warm[n_terms] = params
+        return params, cov, chi2
+
+
+@dataclass
+class _Best:
+    cand: _Candidate
+    n_terms: int
+    params: np.ndarray
+    cov: np.ndarray
+    chi2: float
+    n: int
+    crit: float
+
+    @property
+    def exps(self):
+        return self.cand.exps[:self.n_terms] if self.cand.form.linear else self.cand.exps
+
+    def kernel(self, name: str, T: np.ndarray) -> np.ndarray:
+        with np.errstate(all="ignore"):
+            return getattr(self.cand.form, name)(T[None, :], self.params[None, :],
+                                                 np.array([[self.cand.T_ref]]), self.exps)[0]
+
+    def z_all(self, T, z, u_z) -> np.ndarray:
+        with np.errstate(all="ignore"):
+            return (z - self.cand.form.to_fit_space(self.kernel("evaluate", T))) / u_z
+
+
+def _select(cands, T, z_by_link, u_by_link, mask, n_terms, criterion):
+    """Fit every candidate size on `mask`; return the best and the table of tried models."""
+    n = int(mask.sum())
+    best, table, errors = None, [], []
+    for cand in cands:
+        z, u_z = z_by_link[cand.form.link], u_by_link[cand.form.link]
+        for nt in cand.sizes(n_terms):
+            k = cand.form.n_params(nt)
+            if k > n - 2:
+                continue
+            try:
+                params, cov, chi2 = cand.fit(T, z, u_z, mask, nt)
+            except FitError as exc:
+                errors.append(str(exc))
+                continue
+            crit = CRITERIA[criterion](chi2, k, n)
+            table.append((cand.form.name, k, crit))
+            if best is None or crit < best.crit:
+                best = _Best(cand, nt, params, cov, chi2, n, crit)
+    return best, table, errors
+
+
+def _robust_select(cands, T, z_by_link, u_by_link, base, n_terms, criterion, outlier_z,
+                   min_points):
+    """Alternate model selection and outlier flagging until the used set is stable."""
+    mask = base.copy()
+    best, table, errors = _select(cands, T, z_by_link, u_by_link, mask, n_terms, criterion)
+    for _ in range(MAX_OUTLIER_ROUNDS):
+        if best is None:
+            break
+        zr = np.abs(best.z_all(T, z_by_link[best.cand.form.link],
+                               u_by_link[best.cand.form.link]))
+        new = base & (zr <= outlier_z)
+        cap = int(MAX_OUTLIER_FRACTION * base.sum())
+        if (base & ~new).sum() > cap:  # model misfit, not outliers: flag only the worst
+            worst = np.argsort(np.where(base, -zr, np.inf))[:cap]
+            new = base.copy()
+            new[worst] = False
+        if np.array_equal(new, mask) or new.sum() < min_points:
+            break
+        mask = new
+        best, table, errors = _select(cands, T, z_by_link, u_by_link, mask, n_terms, criterion)
+    return best, mask, table, errors
+
+
+# ---------------------------------------------------------------------------------------------
+# Input screening
+# ---------------------------------------------------------------------------------------------
+
+def _skip(n: int, code: SkipCode, reason: str, flags=None, criterion="bic") -> FitOutcome:
+    return FitOutcome(curve=None, form=None, n_used=0, n_flagged=0,
+                      outlier_mask=np.zeros(n, dtype=bool), z=np.full(n, np.nan),
+                      weighted_rms=math.nan, reduced_chi2=math.nan, bic=math.nan,
+                      skipped_reason=reason, skip_code=code.value,
+                      point_flags=tuple(flags) if flags is not None else ("",) * n,
+                      criterion=criterion)
+
+
+def _as_arrays(T, y, u_y, u_T):
+    T = np.atleast_1d(np.asarray(T, dtype=float))
+    y = np.atleast_1d(np.asarray(y, dtype=float))
+    u_y = np.broadcast_to(np.asarray(u_y, dtype=float), T.shape).copy()
+    u_T = np.broadcast_to(np.asarray(0.0 if u_T is None else u_T, dtype=float), T.shape).copy()
+    return T, y, u_y, u_T
+
+
+def _screen_values(forms, T, y, u_y, u_T, ref) -> tuple[SkipCode, str] | None:
+    bad = ~(np.isfinite(T) & np.isfinite(y) & np.isfinite(u_y) & np.isfinite(u_T))
+    if bad.any():
+        return SkipCode.NON_FINITE, (f"non-finite values: {int(bad.sum())} of {T.size} points "
+                                     f"have NaN or inf in T, value or uncertainty (first at "
+                                     f"index {int(np.argmax(bad))})")
+    if np.any(u_y <= 0) or np.any(u_T < 0):
+        i = int(np.argmax((u_y <= 0) | (u_T < 0)))
+        return SkipCode.NON_POSITIVE, (f"uncertainties must be u_value > 0 and u_T >= 0; "
+                                       f"index {i} has u_value = {u_y[i]:g}, u_T = {u_T[i]:g}")
+    if np.any(T <= 0):
+        return SkipCode.NON_POSITIVE, f"temperatures must be > 0 K; minimum is {T.min():g} K"
+    if any(f.link == "log" for f in forms) and np.any(y <= 0):
+        return SkipCode.NON_POSITIVE, (f"{int(np.sum(y <= 0))} values are <= 0; a form fitted "
+                                       f"in ln(value) needs positive values")
+    T_ref = ref.get("T_ref_K")
+    needs = [f.name for f in forms if f.reference_point]
+    if needs and not (T_ref is not None and math.isfinite(T_ref) and T_ref > 0):
+        return SkipCode.NO_REFERENCE, (f"forms {needs} need ref['T_ref_K'] (Tc or Tt) > 0; "
+                                       f"got {T_ref!r}")
+    return None
+
+
+def _domain_flags(cands, T) -> list[str]:
+    """Per point: "" inside every candidate's domain, else the first reason found."""
+    flags = [""] * T.size
+    for cand in cands:
+        ok = cand.form.domain(T, cand.T_ref, cand.exps)
+        above = T > cand.T_ref
+        kind = {"critical": PointFlag.ABOVE_CRITICAL, "triple": PointFlag.ABOVE_TRIPLE}.get(
+            cand.form.reference_point, PointFlag.OUTSIDE_DOMAIN)
+        for i in np.flatnonzero(~ok):
+            if not flags[i]:
+                flags[i] = (kind if above[i] else PointFlag.OUTSIDE_DOMAIN).value
+    return flags
+
+
+def _crossing_reason(flags, T, T_ref) -> str | None:
+    above = [i for i, f in enumerate(flags)
+             if f in (PointFlag.ABOVE_CRITICAL.value, PointFlag.ABOVE_TRIPLE.value)]
+    if not above:
+        return None
+    which = "critical temperature Tc" if flags[above[0]] == PointFlag.ABOVE_CRITICAL.value \
+        else "triple-point temperature Tt"
+    return (f"{len(above)} of {T.size} points lie above the {which} = {T_ref:g} K (highest "
+            f"{T[above].max():g} K), where this boundary does not exist; fix the data or the "
+            f"reference point, or pass above_reference='exclude' to fit without them "
+            f"(they are then flagged)")
+
+
+def _monotonic_reason(T, y, u_y, u_T) -> str | None:
+    """Reason text when the series clearly does not rise with T, else None."""
+    order = np.lexsort((y, T))
+    T, y, u_y, u_T = T[order], y[order], u_y[order], u_T[order]
+    dT = np.diff(T)
+    judged = dT > MONOTONIC_K * np.hypot(u_T[1:], u_T[:-1])
+    falls = judged & (-np.diff(y) > MONOTONIC_K * np.hypot(u_y[1:], u_y[:-1]))
+    n_j, n_f = int(judged.sum()), int(falls.sum())
+    if n_f > max(2, MONOTONIC_MAX_FRACTION * n_j):
+        return (f"pressure does not rise with temperature: {n_f} of {n_j} steps fall by more "
+                f"than {MONOTONIC_K:g} combined standard uncertainties (a vapour or "
+                f"sublimation pressure must increase with T)")
+    return None
+
+
+# ---------------------------------------------------------------------------------------------
+# fit_curve
+# ---------------------------------------------------------------------------------------------
+
+def _fit_space_arrays(cands, y, u_eff):
+    z_by_link, u_by_link = {}, {}
+    for link in {c.form.link for c in cands}:
+        form = next(c.form for c in cands if c.form.link == link)
+        with np.errstate(all="ignore"):
+            z_by_link[link] = form.to_fit_space(y)
+            u_by_link[link] = u_eff * np.abs(form.fit_space_slope(y))
+    return z_by_link, u_by_link
+
+
+def _make_candidates(forms, T, ref):
+    T_ref = float(ref.get("T_ref_K", math.nan))
+    cands = []
+    for form in forms:
+        exps = form.exponents(ref)
+        X = form.design(T, T_ref, exps) if form.linear else None
+        cands.append(_Candidate(form, exps, T_ref, X))
+    return cands
+
+
+def _outcome(best: _Best, mask, flags, T, z_by_link, u_by_link, table, criterion):
+    form = best.cand.form
+    z, u_z = z_by_link[form.link], u_by_link[form.link]
+    zr = best.z_all(T, z, u_z)
+    w = 1.0 / u_z[mask] ** 2
+    r = (zr * u_z)[mask]
+    k, n = best.params.size, best.n
+    cov = _inflate(best.cov, best.chi2, n)
+    curve = Curve(form=form.name, params=tuple(best.params),
+                  ref={"T_ref_K": best.cand.T_ref, "exponents": best.exps},
+                  covariance=tuple(map(tuple, cov)), T_min_K=float(T[mask].min()),
+                  T_max_K=float(T[mask].max()),
+                  citation=f"weighted least-squares fit of {n} points; form: {form.citation}")
+    outlier = np.array([f == "" for f in flags]) & ~mask
+    flags = tuple(PointFlag.OUTLIER.value if outlier[i] else f for i, f in enumerate(flags))
+    return FitOutcome(
+        curve=curve, form=form.name, n_used=n, n_flagged=sum(1 for f in flags if f),
+        outlier_mask=outlier, z=zr, weighted_rms=float(np.sqrt(np.sum(w * r**2) / np.sum(w))),
+        reduced_chi2=best.chi2 / (n - k) if n > k else math.nan,
+        bic=CRITERIA["bic"](best.chi2, k, n), point_flags=flags, candidates=tuple(table),
+        criterion=criterion, fit_space="ln(value)" if form.link == "log" else "value")
+
+
+def _stage(cands, T, y, u_eff, base, n_terms, criterion, outlier_z, min_points):
+    z_by_link, u_by_link = _fit_space_arrays(cands, y, u_eff)
+    best, mask, table, errors = _robust_select(cands, T, z_by_link, u_by_link, base, n_terms,
+                                               criterion, outlier_z, min_points)
+    return best, mask, table, errors, z_by_link, u_by_link
+
+
+def _no_model(n, errors, base, flags, criterion):
+    if errors and all("singular" in e for e in errors):
+        return _skip(n, SkipCode.SINGULAR, "design matrix is singular for every candidate "
+                     f"(e.g. too few distinct temperatures): {errors[0]}", flags, criterion)
+    if errors:
+        return _skip(n, SkipCode.OPTIMISER_FAILED, "; ".join(sorted(set(errors))), flags,
+                     criterion)
+    return _skip(n, SkipCode.TOO_FEW_POINTS, f"too few points: {int(base.sum())} usable, "
+                 "every candidate needs at least its parameter count + 2", flags, criterion)
+
+
+def fit_curve(candidate_forms: str | Sequence[str], T, y, u_y, u_T, ref: dict, *,
+              outlier_z: float = 4.0, min_points: int = 5, criterion: str = "bic",
+              n_terms: int | None = None, above_reference: str = "skip") -> FitOutcome:
+    """Fit a phase-boundary series, choosing form and number of terms, flagging outliers.
+
+    Parameters
+    ----------
+    candidate_forms : str or sequence of str
+        Registry names of the forms to try (e.g. ``["wagner-2.5-5", "wagner-3-6"]``).
+    T : array_like
+        Temperatures. [K]
+    y : array_like
+        Boundary values: pressure [Pa] or density [kg/m^3].
+    u_y : array_like or float
+        Standard uncertainties of y (k = 1). [same as y]
+    u_T : array_like, float or None
+        Standard uncertainties of T. [K]
+    ref : dict
+        ``T_ref_K`` (Tc for liquid-vapour forms, Tt for solid boundaries) [K] and optionally
+        ``exponents`` for the forms that take them.
+    outlier_z : float
+        Points with |z| above this are flagged and excluded.
+    min_points : int
+        Fewest usable points to attempt a fit.
+    criterion : {"bic", "aic"}
+        Model-selection criterion.
+    n_terms : int, optional
+        Fix the number of sum terms instead of selecting it.
+    above_reference : {"skip", "exclude"}
+        What to do with points above T_ref of a form bounded by it (see module notes).
+
+    Returns
+    -------
+    FitOutcome
+        ``skipped_reason`` is None when a curve was fitted; otherwise it says why not.
+    """
+    names = [candidate_forms] if isinstance(candidate_forms, str) else list(candidate_forms)
+    forms = [get_form(name) for name in names]
+    CRITERIA[criterion]  # noqa: B018 - an unknown criterion is a KeyError, like a form name
+    if above_reference not in ("skip", "exclude"):
+        raise KeyError(f"above_reference must be 'skip' or 'exclude', not {above_reference!r}")
+    try:
+        T, y, u_y, u_T = _as_arrays(T, y, u_y, u_T)
+    except ValueError as exc:
+        return _skip(np.size(T), SkipCode.BAD_SHAPE, f"inputs do not match in shape: {exc}")
+    n = T.size
+    if y.shape != T.shape or T.ndim != 1:
+        return _skip(n, SkipCode.BAD_SHAPE, f"T has shape {T.shape}, value {y.shape}; "
+                     "both must be one-dimensional of equal length", criterion=criterion)
+    screened = _screen_values(forms, T, y, u_y, u_T, ref)
+    if screened:
+        return _skip(n, *screened, criterion=criterion)
+
+    cands = _make_candidates(forms, T, ref)
+    flags = _domain_flags(cands, T)
+    crossing = _crossing_reason(flags, T, float(ref.get("T_ref_K", math.nan)))
+    if crossing and above_reference == "skip":
+        return _skip(n, SkipCode.CROSSES_REFERENCE, crossing, flags, criterion)
+    base = np.array([f == "" for f in flags])
+    if base.sum() < min_points:
+        return _skip(n, SkipCode.TOO_FEW_POINTS, f"too few points: {int(base.sum())} usable "
+                     f"of {n}, at least {min_points} needed", flags, criterion)
+    if any(f.increasing for f in forms):
+        reason = _monotonic_reason(T[base], y[base], u_y[base], u_T[base])
+        if reason:
+            return _skip(n, SkipCode.NON_MONOTONIC, reason, flags, criterion)
+
+    # Stage 1: u_y only, to get the slope; stage 2: u_eff with u_T carried through the slope.
+    args = (n_terms, criterion, outlier_z, min_points)
+    best, mask, table, errors, zl, ul = _stage(cands, T, y, u_y, base, *args)
+    if best is None:
+        return _no_model(n, errors, base, flags, criterion)
+    if np.any(u_T > 0):
+        u_eff = np.hypot(u_y, best.kernel("derivative", T) * u_T)
+        bad_slope = base & ~np.isfinite(u_eff)
+        flags = [PointFlag.NON_FINITE_SLOPE.value if bad_slope[i] else f
+                 for i, f in enumerate(flags)]
+        base = base & ~bad_slope
+        u_eff = np.where(np.isfinite(u_eff), u_eff, np.inf)
+        best2, mask2, table2, errors2, zl2, ul2 = _stage(cands, T, y, u_eff, base, *args)
+        if best2 is None:
+            return _no_model(n, errors2, base, flags, criterion)
+        best, mask, table, zl, ul = best2, mask2, table2, zl2, ul2
+    return _outcome(best, mask, flags, T, zl, ul, table, criterion)

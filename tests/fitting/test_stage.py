@@ -1,0 +1,126 @@
+"""Fit stage: groups fitted from the store, refit only on change, skips stated, outliers kept."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from pipeline.correlations.reference import reference_curve
+from pipeline.fitting.stage import run_fit
+from pipeline.ingest.stage import run_ingest
+from pipeline.store import open_store
+from tests.conftest import write_batch
+
+ARGON_REF = """
+[source]
+id = "{source}"
+kind = "evaluated"
+citation = "Tegeler, Span & Wagner, J. Phys. Chem. Ref. Data 28, 779 (1999), ancillary equations"
+
+[[table]]
+file = "vp.csv"
+fluid = "argon"
+boundary = "liquid-vapour"
+temperature = {{ column = "T", unit = "K" }}
+pressure = {{ column = "p", unit = "Pa" }}
+[table.uncertainty]
+pressure = {{ relative = 0.0005 }}
+
+[[fixed_point]]
+fluid = "argon"
+kind = "critical"
+T = {{ value = 150.687, unit = "K", u = 0.015 }}
+p = {{ value = 4.863, unit = "MPa", u = 0.003 }}
+rho = {{ value = 535.6, unit = "kg/m^3", u = 1.0 }}
+"""
+
+
+def vp_csv(T: np.ndarray, factor: np.ndarray | None = None) -> str:
+    """Argon vapour pressures from the Tegeler et al. (1999) ancillary equation."""
+    p = reference_curve("argon", "liquid-vapour", "pressure").value(T)
+    if factor is not None:
+        p = p * factor
+    return "T,p\n" + "".join(f"{t:.4f},{v:.8g}\n" for t, v in zip(T, p))
+
+
+def build(raw_root, store_path, csv: str, source="ref-argon"):
+    write_batch(raw_root, source, ARGON_REF.format(source=source), {"vp.csv": csv})
+    with open_store(store_path) as s:
+        run_ingest(s.con, [raw_root])
+
+
+def fit(store_path, **kw):
+    with open_store(store_path) as s:
+        return run_fit(s.con, **kw), s.con.execute(
+            "SELECT fit_id, status, form, n_used, n_flagged, reduced_chi2, input_hash "
+            "FROM fit WHERE is_current").fetchall()
+
+
+def test_published_curve_data_is_fitted_and_recovers_the_curve(raw_root, store_path):
+    """Points on the argon ancillary curve (Tegeler et al. 1999) are fitted within their u."""
+    T = np.linspace(84.0, 148.0, 40)
+    build(raw_root, store_path, vp_csv(T))
+    result, rows = fit(store_path)
+    assert [g.status for g in result.groups] == ["fitted"]
+    (_, status, form, n_used, n_flagged, chi2, _), = rows
+    assert status == "fitted" and n_used == 40 and n_flagged == 0
+    with open_store(store_path) as s:
+        z = np.array([r[0] for r in s.con.execute("SELECT z FROM fit_residual").fetchall()])
+    assert np.all(np.abs(z) < 2.0)
+
+
+def test_unchanged_inputs_are_not_refitted(raw_root, store_path):
+    """A second fit run with the same observations refits nothing."""
+    build(raw_root, store_path, vp_csv(np.linspace(84.0, 148.0, 20)))
+    fit(store_path)
+    again, rows_again = fit(store_path)
+    assert [g.status for g in again.groups] == ["unchanged"] and not again.changed
+    assert len(rows_again) == 1
+
+
+def test_changed_inputs_refit_and_keep_history(raw_root, store_path):
+    """New data changes the input hash: a new current fit, the old one kept as not current."""
+    build(raw_root, store_path, vp_csv(np.linspace(84.0, 148.0, 20)))
+    _, before = fit(store_path)
+    build(raw_root, store_path, vp_csv(np.linspace(84.0, 149.0, 25)))
+    result, after = fit(store_path)
+    assert [g.status for g in result.groups] == ["fitted"]
+    assert before[0][6] != after[0][6]
+    with open_store(store_path) as s:
+        assert s.con.execute("SELECT count(*) FROM fit").fetchone()[0] == 2
+
+
+def test_too_few_points_is_skipped_with_a_stated_reason(raw_root, store_path):
+    """A group below the minimum number of points gets a skipped fit row with its reason."""
+    build(raw_root, store_path, vp_csv(np.array([85.0, 90.0, 95.0])))
+    result, rows = fit(store_path)
+    assert rows[0][1] == "skipped"
+    assert "too few points" in result.groups[0].reason
+
+
+def test_gross_outlier_is_flagged_and_kept(raw_root, store_path):
+    """A point 8 % off the curve is flagged as an outlier; its residual row is kept."""
+    T = np.linspace(84.0, 148.0, 30)
+    factor = np.ones_like(T)
+    factor[12] = 1.08
+    build(raw_root, store_path, vp_csv(T, factor))
+    _, rows = fit(store_path)
+    assert rows[0][4] == 1
+    with open_store(store_path) as s:
+        flagged = s.con.execute("SELECT o.T_K FROM fit_residual r JOIN observation o USING (obs_id) "
+                                "WHERE r.is_outlier").fetchall()
+        n = s.con.execute("SELECT count(*) FROM fit_residual").fetchone()[0]
+    assert flagged == [(pytest.approx(T[12], abs=1e-4),)] and n == 30
+
+
+def test_exclusions_leave_points_out_and_name_the_decision(raw_root, store_path):
+    """An excluded observation is not used, stays visible, and carries the decision id."""
+    build(raw_root, store_path, vp_csv(np.linspace(84.0, 148.0, 20)))
+    with open_store(store_path) as s:
+        obs = s.con.execute("SELECT obs_id FROM observation ORDER BY obs_id LIMIT 1").fetchone()[0]
+    _, rows = fit(store_path, exclusions={obs: "D-7"})
+    with open_store(store_path) as s:
+        excluded = s.con.execute("SELECT obs_id, excluded_by FROM fit_residual "
+                                 "WHERE excluded_by IS NOT NULL").fetchall()
+        n_excluded = s.con.execute("SELECT n_excluded, n_used FROM fit WHERE is_current").fetchone()
+    assert excluded == [(obs, "D-7")] and n_excluded == (1, 19)
