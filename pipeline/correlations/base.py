@@ -27,16 +27,14 @@ from typing import Any
 
 import numpy as np
 
-# ---------------------------------------------------------------------------------------------
-# Registry
-# ---------------------------------------------------------------------------------------------
+# --- Registry ------------------------------------------------------------------------------------
 
 FORMS: dict[str, CorrelationForm] = {}
 """Registry of correlation forms by name; filled by the topic modules when the package loads."""
 
 
 def register_form(form: CorrelationForm) -> CorrelationForm:
-    """Add `form` to :data:`FORMS` under ``form.name``; a second form of the same name is an error."""
+    """Add `form` to :data:`FORMS` under its name; registering a name twice is an error."""
     if form.name in FORMS:
         raise ValueError(f"correlation form {form.name!r} is already registered")
     FORMS[form.name] = form
@@ -52,9 +50,7 @@ def get_form(name: str) -> CorrelationForm:
         raise KeyError(f"unknown correlation form {name!r}; valid forms: {valid}") from None
 
 
-# ---------------------------------------------------------------------------------------------
-# Small numeric helpers
-# ---------------------------------------------------------------------------------------------
+# --- Small numeric helpers -----------------------------------------------------------------------
 
 def power(x: np.ndarray, t: float) -> np.ndarray:
     """x**t with NaN (not a warning) where the power is undefined (negative base, fractional t)."""
@@ -111,9 +107,7 @@ def bracketed_inverse(g, target: np.ndarray, T_lo: float, T_hi: float,
     return np.where(has_root, root, np.nan)
 
 
-# ---------------------------------------------------------------------------------------------
-# The form protocol
-# ---------------------------------------------------------------------------------------------
+# --- The form protocol ---------------------------------------------------------------------------
 
 class CorrelationForm(ABC):
     """The mathematics of one published correlation, without coefficients.
@@ -162,7 +156,7 @@ class CorrelationForm(ABC):
     def __repr__(self) -> str:
         return f"<CorrelationForm {self.name}: {self.quantity}, fitted in {self.link} space>"
 
-    # --- parameter bookkeeping ---------------------------------------------------------------
+    # --- parameter bookkeeping -------------------------------------------------------------------
     @abstractmethod
     def n_params(self, n_terms: int) -> int:
         """Number of parameters of the form with `n_terms` sum terms."""
@@ -170,10 +164,6 @@ class CorrelationForm(ABC):
     @abstractmethod
     def n_terms(self, n_params: int) -> int:
         """Number of sum terms (exponents used) for a parameter vector of length `n_params`."""
-
-    @abstractmethod
-    def param_names(self, n_terms: int) -> tuple[str, ...]:
-        """Names of the parameters, in order, with their units in brackets."""
 
     def max_terms(self, exponents: Sequence[float] | None = None) -> int:
         """Largest number of sum terms available with `exponents` (default: the form's own)."""
@@ -193,7 +183,7 @@ class CorrelationForm(ABC):
             exps = exps[:n_terms]
         return exps
 
-    # --- batched kernels (T: (n, m), P: (n, k), T_ref: (n, 1)) ----------------------------------
+    # --- batched kernels (T: (n, m), P: (n, k), T_ref: (n, 1)) -----------------------------------
     @abstractmethod
     def evaluate(self, T: np.ndarray, P: np.ndarray, T_ref: np.ndarray,
                  exps: tuple[float, ...]) -> np.ndarray:
@@ -216,7 +206,7 @@ class CorrelationForm(ABC):
             ok &= T <= T_ref
         return ok
 
-    # --- fit-space transform -------------------------------------------------------------------
+    # --- fit-space transform ---------------------------------------------------------------------
     def to_fit_space(self, y: np.ndarray) -> np.ndarray:
         """Transform values to the space the form is fitted in (ln y or y)."""
         if self.link == "log":
@@ -248,10 +238,6 @@ class LinearForm(CorrelationForm):
 
     def n_terms(self, n_params: int) -> int:
         return n_params - 1
-
-    def param_names(self, n_terms: int) -> tuple[str, ...]:
-        first = "ln_ref" if self.link == "log" else "ref"
-        return (first,) + tuple(f"a{i + 1}" for i in range(n_terms))
 
     @abstractmethod
     def basis(self, T: np.ndarray, T_ref: np.ndarray, exps: tuple[float, ...]) -> np.ndarray:
@@ -290,7 +276,7 @@ class LinearForm(CorrelationForm):
         phi = self.basis(T[None, :], np.array([[T_ref]]), exps)[0]
         return ok & np.all(np.isfinite(phi), axis=-1)
 
-    # --- linear least squares -------------------------------------------------------------------
+    # --- linear least squares --------------------------------------------------------------------
     def design(self, T: np.ndarray, T_ref: float, exps: tuple[float, ...]) -> np.ndarray:
         """Design matrix X (m, k+1) with fit-space value = X @ beta."""
         phi = self.basis(T[None, :], np.array([[T_ref]]), exps)[0]
@@ -390,9 +376,7 @@ def _equilibrated_svd(A: np.ndarray, rcond: float):
     return U, s, Vt, norms, rank
 
 
-# ---------------------------------------------------------------------------------------------
-# Curve
-# ---------------------------------------------------------------------------------------------
+# --- Curve ---------------------------------------------------------------------------------------
 
 _RANGE_RTOL = 1e-12  # float noise allowed at the range ends (e.g. T_max = Tc computed elsewhere)
 
@@ -430,6 +414,9 @@ class Curve:
         form = get_form(self.form)
         params = tuple(float(p) for p in self.params)
         k = form.n_terms(len(params))
+        if (form.linear and k < 1) or (not form.linear and len(params) != form.n_params(k)):
+            raise ValueError(f"curve {self.form!r}: {len(params)} parameters do not fit the "
+                             f"form (linear forms need >= 2, others exactly their count)")
         exps = form.exponents(self.ref, k if form.linear else None)
         T_ref = self.ref.get("T_ref_K")
         ref = {"T_ref_K": None if T_ref is None else float(T_ref), "exponents": exps}
@@ -493,7 +480,7 @@ class Curve:
         out = self._mask(T, out[0].reshape(T.shape), extrapolate)
         return out if out.ndim else float(out)
 
-    # --- public evaluation ------------------------------------------------------------------------
+    # --- public evaluation -----------------------------------------------------------------------
     def value(self, T, *, extrapolate: bool = False):
         """Curve value at temperature(s) T [K]: [Pa] or [kg/m^3]; NaN outside the range."""
         return self._call("evaluate", T, extrapolate)
@@ -542,7 +529,7 @@ class Curve:
         out = bracketed_inverse(g, target, lo, hi, n_grid=n_grid).reshape(y.shape)
         return out if out.ndim else float(out)
 
-    # --- serialisation ------------------------------------------------------------------------------
+    # --- serialisation ---------------------------------------------------------------------------
     def to_dict(self) -> dict:
         """JSON-safe dict (plain floats, lists) that :meth:`from_dict` turns back into the curve."""
         return {
@@ -563,9 +550,7 @@ class Curve:
                    T_max_K=data["T_max_K"], citation=data.get("citation", ""))
 
 
-# ---------------------------------------------------------------------------------------------
-# Batch evaluation of many curves
-# ---------------------------------------------------------------------------------------------
+# --- Batch evaluation of many curves -------------------------------------------------------------
 
 _BATCH_KERNELS = {"value": "evaluate", "slope": "derivative", "u": "jacobian"}
 

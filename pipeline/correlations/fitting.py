@@ -48,7 +48,7 @@ from pipeline.correlations.base import (CorrelationForm, Curve, LinearForm,
 from pipeline.errors import FitError
 
 MAX_OUTLIER_ROUNDS = 10
-MAX_OUTLIER_FRACTION = 0.2    # never flag more than 20 % of the usable points as outliers
+MAX_OUTLIER_FRACTION = 0.45   # never flag more than 45 % of the usable points as outliers
 SOFT_L1_F_SCALE = 3.0
 MONOTONIC_K = 3.0            # a step "falls" when it drops by more than 3 combined u
 MONOTONIC_MAX_FRACTION = 0.1  # more than 10 % falling steps (and more than 2): non-monotonic
@@ -84,9 +84,7 @@ class SkipCode(str, Enum):
     OPTIMISER_FAILED = "optimiser-failed"
 
 
-# ---------------------------------------------------------------------------------------------
-# Result records
-# ---------------------------------------------------------------------------------------------
+# --- Result records ------------------------------------------------------------------------------
 
 @dataclass(frozen=True, eq=False)
 class FormFit:
@@ -172,9 +170,7 @@ class FitOutcome:
                 f"{self.weighted_rms:.3g} in {self.fit_space}, BIC = {self.bic:.2f}")
 
 
-# ---------------------------------------------------------------------------------------------
-# Single-form solvers
-# ---------------------------------------------------------------------------------------------
+# --- Single-form solvers -------------------------------------------------------------------------
 
 def _inflate(cov: np.ndarray, chi2: float, n: int) -> np.ndarray:
     dof = n - cov.shape[0]
@@ -192,7 +188,8 @@ def _solve_linear(form: LinearForm, X: np.ndarray, z: np.ndarray, u_z: np.ndarra
     return params, jac @ cov_beta @ jac.T, chi2
 
 
-def _solve_nonlinear(form: CorrelationForm, T, z, u_z, T_ref, exps, x0=None):
+def _solve_nonlinear(form: CorrelationForm, T, z, u_z, T_ref, exps, x0=None,
+                     loss: str = "soft_l1"):
     T2, T_ref2 = T[None, :], np.array([[T_ref]])
     lo, hi = form.bounds(T, T_ref) if hasattr(form, "bounds") else (-np.inf, np.inf)
     if x0 is None:
@@ -210,7 +207,7 @@ def _solve_nonlinear(form: CorrelationForm, T, z, u_z, T_ref, exps, x0=None):
             J = form.jacobian(T2, p[None, :], T_ref2, exps)[0]
         return J * (form.fit_space_slope(y) / u_z)[:, None]
 
-    res = least_squares(resid, x0, jac=jac, loss="soft_l1", f_scale=SOFT_L1_F_SCALE,
+    res = least_squares(resid, x0, jac=jac, loss=loss, f_scale=SOFT_L1_F_SCALE,
                         bounds=(lo, hi), x_scale="jac", method="trf")
     r = resid(res.x)
     if not res.success or not np.all(np.isfinite(r)):
@@ -223,7 +220,7 @@ def _solve_nonlinear(form: CorrelationForm, T, z, u_z, T_ref, exps, x0=None):
 
 
 def fit_form(form_name: str, T, y, u, ref: dict, n_terms: int | None = None, *,
-             method: str = "auto", x0=None) -> FormFit:
+             method: str = "auto", x0=None, loss: str = "soft_l1") -> FormFit:
     """Fit one form with a fixed number of terms to all points (no outlier handling).
 
     Parameters
@@ -244,6 +241,9 @@ def fit_form(form_name: str, T, y, u, ref: dict, n_terms: int | None = None, *,
         "nonlinear" solves a linear form with ``least_squares`` too (for benchmarks).
     x0 : array_like, optional
         Start for the nonlinear solver.
+    loss : str
+        ``least_squares`` loss for the nonlinear solver ("soft_l1", or "linear" for plain
+        least squares, which reproduces the linear solution).
 
     Returns
     -------
@@ -266,14 +266,12 @@ def fit_form(form_name: str, T, y, u, ref: dict, n_terms: int | None = None, *,
         params, cov, chi2 = _solve_linear(form, form.design(T, T_ref, exps), z, u_z)
         nfev = 0
     else:
-        params, cov, chi2, nfev = _solve_nonlinear(form, T, z, u_z, T_ref, exps, x0)
+        params, cov, chi2, nfev = _solve_nonlinear(form, T, z, u_z, T_ref, exps, x0, loss)
     return FormFit(form=form.name, params=params, covariance=_inflate(cov, chi2, T.size),
                    chi2=chi2, n=T.size, exponents=exps, method=method, nfev=nfev)
 
 
-# ---------------------------------------------------------------------------------------------
-# Candidates and model selection
-# ---------------------------------------------------------------------------------------------
+# --- Candidates and model selection --------------------------------------------------------------
 
 @dataclass
 class _Candidate:
@@ -350,10 +348,56 @@ def _select(cands, T, z_by_link, u_by_link, mask, n_terms, criterion):
     return best, table, errors
 
 
+ROBUST_START_TERMS = 3        # terms of the robust starting fit (small: it must not chase outliers)
+
+
+def _robust_start(cands, T, z_by_link, u_by_link, base, outlier_z, trusted=None) -> np.ndarray:
+    """Initial inlier set from a soft-L1 fit, so that a contaminating subset (a file in the
+    wrong unit, a series on the wrong scale) cannot drag the first least-squares fit onto
+    itself and get good points flagged instead.
+
+    Each linear candidate is fitted with ``ROBUST_START_TERMS`` terms by ``least_squares``
+    with the soft-L1 loss on the normalised residuals; the candidate with the smallest median
+    |z| wins. Points whose |z| exceeds ``outlier_z`` times the robust scale of the residuals
+    (1.4826 MAD, at least 1) start outside the fit; the least-squares rounds that follow may
+    take them back in. Returns ``base`` unchanged when no linear candidate can be fitted.
+
+    ``trusted`` (optional boolean array) names the points of the most authoritative sources
+    (e.g. a published standard): when at least 4 of them are usable, the starting fit uses
+    them alone and judges every point against it, which holds even when a wrong series is
+    close to half of the data (beyond the breakdown point of any loss function).
+    """
+    fit_on = base
+    if trusted is not None and int((base & trusted).sum()) >= 4:
+        fit_on = base & trusted
+    best_mask, best_med = base, math.inf
+    for cand in cands:
+        if not cand.form.linear or int(fit_on.sum()) < 4:
+            continue
+        k = min(ROBUST_START_TERMS, len(cand.exps))
+        X = cand.X_full[:, :k + 1]
+        z, u_z = z_by_link[cand.form.link], u_by_link[cand.form.link]
+        if int(fit_on.sum()) <= X.shape[1] or not np.all(np.isfinite(X[base])) \
+                or not np.all(u_z[base] > 0):
+            continue
+        A = X / u_z[:, None]
+        zn = z / u_z
+        b0 = np.linalg.lstsq(A[fit_on], zn[fit_on], rcond=None)[0]
+        res = least_squares(lambda b: A[fit_on] @ b - zn[fit_on], b0, jac=lambda b: A[fit_on],
+                            loss="soft_l1", f_scale=1.0, method="trf", x_scale="jac")
+        r = np.abs(A @ res.x - zn)
+        med = float(np.median(r[fit_on]))
+        if med < best_med:
+            scale = max(1.0, 1.4826 * med)
+            best_mask, best_med = base & (r <= outlier_z * scale), med
+    return best_mask if best_mask.sum() >= max(4, 0.5 * base.sum()) else base
+
+
 def _robust_select(cands, T, z_by_link, u_by_link, base, n_terms, criterion, outlier_z,
-                   min_points):
-    """Alternate model selection and outlier flagging until the used set is stable."""
-    mask = base.copy()
+                   min_points, trusted=None):
+    """Alternate model selection and outlier flagging until the used set is stable, starting
+    from the robust inlier set (:func:`_robust_start`)."""
+    mask = _robust_start(cands, T, z_by_link, u_by_link, base, outlier_z, trusted)
     best, table, errors = _select(cands, T, z_by_link, u_by_link, mask, n_terms, criterion)
     for _ in range(MAX_OUTLIER_ROUNDS):
         if best is None:
@@ -373,9 +417,7 @@ def _robust_select(cands, T, z_by_link, u_by_link, base, n_terms, criterion, out
     return best, mask, table, errors
 
 
-# ---------------------------------------------------------------------------------------------
-# Input screening
-# ---------------------------------------------------------------------------------------------
+# --- Input screening -----------------------------------------------------------------------------
 
 def _skip(n: int, code: SkipCode, reason: str, flags=None, criterion="bic") -> FitOutcome:
     return FitOutcome(curve=None, form=None, n_used=0, n_flagged=0,
@@ -459,9 +501,7 @@ def _monotonic_reason(T, y, u_y, u_T) -> str | None:
     return None
 
 
-# ---------------------------------------------------------------------------------------------
-# fit_curve
-# ---------------------------------------------------------------------------------------------
+# --- fit_curve -----------------------------------------------------------------------------------
 
 def _fit_space_arrays(cands, y, u_eff):
     z_by_link, u_by_link = {}, {}
@@ -491,8 +531,9 @@ def _outcome(best: _Best, mask, flags, T, z_by_link, u_by_link, table, criterion
     r = (zr * u_z)[mask]
     k, n = best.params.size, best.n
     cov = _inflate(best.cov, best.chi2, n)
+    T_ref = best.cand.T_ref if math.isfinite(best.cand.T_ref) else None
     curve = Curve(form=form.name, params=tuple(best.params),
-                  ref={"T_ref_K": best.cand.T_ref, "exponents": best.exps},
+                  ref={"T_ref_K": T_ref, "exponents": best.exps},
                   covariance=tuple(map(tuple, cov)), T_min_K=float(T[mask].min()),
                   T_max_K=float(T[mask].max()),
                   citation=f"weighted least-squares fit of {n} points; form: {form.citation}")
@@ -506,10 +547,10 @@ def _outcome(best: _Best, mask, flags, T, z_by_link, u_by_link, table, criterion
         criterion=criterion, fit_space="ln(value)" if form.link == "log" else "value")
 
 
-def _stage(cands, T, y, u_eff, base, n_terms, criterion, outlier_z, min_points):
+def _stage(cands, T, y, u_eff, base, n_terms, criterion, outlier_z, min_points, trusted=None):
     z_by_link, u_by_link = _fit_space_arrays(cands, y, u_eff)
     best, mask, table, errors = _robust_select(cands, T, z_by_link, u_by_link, base, n_terms,
-                                               criterion, outlier_z, min_points)
+                                               criterion, outlier_z, min_points, trusted)
     return best, mask, table, errors, z_by_link, u_by_link
 
 
@@ -526,7 +567,8 @@ def _no_model(n, errors, base, flags, criterion):
 
 def fit_curve(candidate_forms: str | Sequence[str], T, y, u_y, u_T, ref: dict, *,
               outlier_z: float = 4.0, min_points: int = 5, criterion: str = "bic",
-              n_terms: int | None = None, above_reference: str = "skip") -> FitOutcome:
+              n_terms: int | None = None, above_reference: str = "skip",
+              trusted=None) -> FitOutcome:
     """Fit a phase-boundary series, choosing form and number of terms, flagging outliers.
 
     Parameters
@@ -554,6 +596,9 @@ def fit_curve(candidate_forms: str | Sequence[str], T, y, u_y, u_T, ref: dict, *
         Fix the number of sum terms instead of selecting it.
     above_reference : {"skip", "exclude"}
         What to do with points above T_ref of a form bounded by it (see module notes).
+    trusted : array_like of bool, optional
+        Points of the most authoritative sources; the robust starting fit uses them alone
+        when there are enough (see :func:`_robust_start`).
 
     Returns
     -------
@@ -587,12 +632,17 @@ def fit_curve(candidate_forms: str | Sequence[str], T, y, u_y, u_T, ref: dict, *
         return _skip(n, SkipCode.TOO_FEW_POINTS, f"too few points: {int(base.sum())} usable "
                      f"of {n}, at least {min_points} needed", flags, criterion)
     if any(f.increasing for f in forms):
-        reason = _monotonic_reason(T[base], y[base], u_y[base], u_T[base])
+        # judged on the robust inliers: a grossly wrong file must not veto the whole group
+        zs, us = _fit_space_arrays(cands, y, u_y)
+        trusted = None if trusted is None else np.asarray(trusted, dtype=bool)
+        ok = _robust_start(cands, T, zs, us, base, outlier_z, trusted)
+        reason = _monotonic_reason(T[ok], y[ok], u_y[ok], u_T[ok])
         if reason:
             return _skip(n, SkipCode.NON_MONOTONIC, reason, flags, criterion)
 
     # Stage 1: u_y only, to get the slope; stage 2: u_eff with u_T carried through the slope.
-    args = (n_terms, criterion, outlier_z, min_points)
+    trusted = None if trusted is None else np.asarray(trusted, dtype=bool)
+    args = (n_terms, criterion, outlier_z, min_points, trusted)
     best, mask, table, errors, zl, ul = _stage(cands, T, y, u_y, base, *args)
     if best is None:
         return _no_model(n, errors, base, flags, criterion)

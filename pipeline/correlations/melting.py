@@ -205,9 +205,6 @@ class SimonGlatzel(NonlinearForm):
     n_fixed = 3
     citation = "F. Simon, G. Glatzel, Z. Anorg. Allg. Chem. 178, 309-316 (1929)"
 
-    def param_names(self, n_terms):
-        return ("ref", "a_Pa", "c")
-
     def evaluate(self, T, P, T_ref, exps):
         return P[:, :1] + P[:, 1:2] * (power(T / T_ref, P[:, 2:3]) - 1.0)
 

@@ -88,6 +88,36 @@ class Wagner255(_WagnerBase):
     citation = f"{WAGNER_CITATION}; {WAGNER_PRUSS_CITATION}"
 
 
+class WagnerPruss6(_WagnerBase):
+    """Wagner-type vapour-pressure sum with the six exponents of Wagner & Pruss (1993).
+
+    Parameters (in order)
+    ---------------------
+    ln_ref : float
+        ln(pc / Pa), fitted. [-]
+    a1..a6 : float
+        Coefficients of tau, tau^1.5, tau^3, tau^3.5, tau^4, tau^7.5. [-]
+
+    Notes
+    -----
+    .. math:: \\ln p = \\ln p_c + \\frac{T_c}{T}\\sum_i a_i \\tau^{t_i},\\qquad
+              t = 1, 1.5, 3, 3.5, 4, 7.5
+
+    The exponent set of the IAPWS SR1-86(1992) saturation-pressure equation for water; wide
+    ranges (triple point to critical point) with small uncertainties need its extra terms.
+
+    References
+    ----------
+    .. [1] W. Wagner, A. Pruss, J. Phys. Chem. Ref. Data 22, 783-787 (1993),
+       doi:10.1063/1.555926.
+    """
+
+    name = "wagner-pruss-6"
+    default_exponents = (1.0, 1.5, 3.0, 3.5, 4.0, 7.5)
+    fixed_exponents = True
+    citation = WAGNER_PRUSS_CITATION
+
+
 class WagnerType(_WagnerBase):
     """Wagner-type vapour-pressure sum with arbitrary exponents given in ``ref["exponents"]``.
 
@@ -147,9 +177,6 @@ class Antoine(NonlinearForm):
     increasing = True
     n_fixed = 3
     citation = "C. Antoine, C. R. Acad. Sci. 107, 681-684, 778-780, 836-837 (1888)"
-
-    def param_names(self, n_terms):
-        return ("A", "B_K", "C_K")
 
     def _ln_p(self, T, P, exps):
         return P[:, :1] - P[:, 1:2] / (T + P[:, 2:3])
@@ -230,9 +257,6 @@ class AntoineExtended(Antoine):
     citation = ("C. Antoine, C. R. Acad. Sci. 107, 681-684 (1888); L. Riedel, "
                 "Chem. Ing. Tech. 26, 83-89 (1954)")
 
-    def param_names(self, n_terms):
-        return ("A", "B_K", "C_K", "D", "E")
-
     def _ln_p(self, T, P, exps):
         F = exps[0]
         return super()._ln_p(T, P, exps) + P[:, 3:4] * np.log(T) + P[:, 4:5] * power(T, F)
@@ -261,6 +285,7 @@ class AntoineExtended(Antoine):
 
 WAGNER_3_6 = register_form(Wagner36())
 WAGNER_2_5_5 = register_form(Wagner255())
+WAGNER_PRUSS_6 = register_form(WagnerPruss6())
 WAGNER_TYPE = register_form(WagnerType())
 ANTOINE = register_form(Antoine())
 ANTOINE_EXTENDED = register_form(AntoineExtended())

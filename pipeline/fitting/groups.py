@@ -11,12 +11,13 @@ import pandas as pd
 
 # (boundary, quantity) -> (reference kind, candidate forms in order of preference)
 FIT_PLAN: dict[tuple[str, str], tuple[str, tuple[str, ...]]] = {
-    ("liquid-vapour", "pressure"): ("critical", ("wagner-3-6", "wagner-2.5-5")),
+    ("liquid-vapour", "pressure"): ("critical", ("wagner-3-6", "wagner-2.5-5",
+                                                 "wagner-pruss-6")),
     ("liquid-vapour", "rho_liquid"): ("critical", ("density-power", "density-log")),
     ("liquid-vapour", "rho_vapour"): ("critical", ("density-log-tc", "density-log")),
     ("solid-vapour", "pressure"): ("triple", ("sublimation-power",)),
     ("solid-liquid", "pressure"): ("triple", ("melting-polynomial", "melting-simon-sum",
-                                              "simon-glatzel")),
+                                              "iapws-melting", "simon-glatzel")),
 }
 FITTED_QUANTITIES = ("pressure", "rho_liquid", "rho_vapour")
 SOURCE_RANK = {"standard": 0, "evaluated": 1, "literature": 2, "measurement": 3, "estimate": 4}
@@ -32,12 +33,6 @@ class Reference:
     p_Pa: float
     rho_kg_m3: float | None
     source_id: str
-
-    def as_ref(self) -> dict:
-        ref = {"T_ref_K": self.T_K, "p_ref_Pa": self.p_Pa}
-        if self.rho_kg_m3 is not None:
-            ref["rho_ref_kg_m3"] = self.rho_kg_m3
-        return ref
 
 
 def _best(points: pd.DataFrame) -> pd.Series | None:

@@ -22,7 +22,7 @@ import pyarrow as pa
 
 from pipeline import __version__
 from pipeline.correlations.fitting import fit_curve
-from pipeline.fitting.groups import FIT_PLAN, FITTED_QUANTITIES, reference_point
+from pipeline.fitting.groups import FIT_PLAN, FITTED_QUANTITIES, SOURCE_RANK, reference_point
 from pipeline.ingest.stage import new_run_id, utcnow
 
 
@@ -82,10 +82,11 @@ class FitRunResult:
 
 
 _OBS_SQL = """
-SELECT obs_id, fluid_id, boundary, solid_phase, quantity, T_K, u_T_K, value_si, u_value_si
-FROM observation_current
+SELECT o.obs_id, o.fluid_id, o.boundary, o.solid_phase, o.quantity, o.T_K, o.u_T_K,
+       o.value_si, o.u_value_si, s.kind AS source_kind
+FROM observation_current o JOIN source s USING (source_id)
 WHERE quantity IN ({q}) {where}
-ORDER BY fluid_id, boundary, solid_phase, quantity, T_K, obs_id
+ORDER BY o.fluid_id, o.boundary, o.solid_phase, o.quantity, o.T_K, o.obs_id
 """
 _FP_SQL = """
 SELECT p.fp_id, p.fluid_id, p.kind, p.phases, p.T_K, p.u_T_K, p.p_Pa, p.rho_kg_m3, p.source_id,
@@ -206,7 +207,7 @@ def run_fit(con: duckdb.DuckDBPyConnection, *, fluids: list[str] | None = None,
     con.execute("INSERT INTO run VALUES (?, 'fit', ?, NULL, ?, ?, 'running', NULL)",
                 [run_id, utcnow(), __version__, json.dumps(
                     {"fluids": fluids, "full": full, **asdict(settings)}, sort_keys=True)])
-    where, params = ("AND list_contains(?, fluid_id)", [fluids]) if fluids else ("", [])
+    where, params = ("AND list_contains(?, o.fluid_id)", [fluids]) if fluids else ("", [])
     q = ", ".join(f"'{x}'" for x in FITTED_QUANTITIES)
     obs = con.execute(_OBS_SQL.format(q=q, where=where), params).df()
     fixed = con.execute(_FP_SQL.format(where="WHERE list_contains(?, p.fluid_id)" if fluids else ""),
@@ -251,9 +252,11 @@ def _fit_group(key, g, fixed, settings, exclusions, current, full, writer) -> Gr
     u_y = use["u_value_si"].to_numpy(float)
     u_y = np.where(np.isfinite(u_y) & (u_y > 0), u_y, settings.default_relative_u * np.abs(y))
     u_T = np.nan_to_num(use["u_T_K"].to_numpy(float), nan=0.0)
+    rank = use["source_kind"].map(SOURCE_RANK).fillna(9).to_numpy()
     outcome = fit_curve(forms, use["T_K"].to_numpy(float), y, u_y, u_T, {"T_ref_K": ref.T_K},
                         outlier_z=settings.outlier_z, min_points=settings.min_points,
-                        criterion=settings.criterion, above_reference="exclude")
+                        criterion=settings.criterion, above_reference="exclude",
+                        trusted=rank == rank.min())
     res.fit_id = writer.add(key, digest, g, outcome, None, list(excluded), excluded)
     if outcome.fitted:
         res.status, res.form = "fitted", outcome.form
