@@ -124,3 +124,38 @@ def test_exclusions_leave_points_out_and_name_the_decision(raw_root, store_path)
                                  "WHERE excluded_by IS NOT NULL").fetchall()
         n_excluded = s.con.execute("SELECT n_excluded, n_used FROM fit WHERE is_current").fetchone()
     assert excluded == [(obs, "D-7")] and n_excluded == (1, 19)
+
+
+LAB_BATCH = """
+[source]
+id = "lab-argon"
+kind = "measurement"
+citation = "invented lab campaign for the test suite"
+
+[[table]]
+file = "vp.csv"
+fluid = "argon"
+boundary = "liquid-vapour"
+temperature = { column = "T", unit = "K" }
+pressure = { column = "p", unit = "Pa" }
+[table.uncertainty]
+pressure = { relative = 0.002 }
+"""
+
+
+def test_a_file_in_the_wrong_unit_is_flagged_not_fitted(raw_root, store_path):
+    """A lab file 1000x low (kPa written as Pa) beside published data is flagged whole; the
+    published points all stay in the fit (robust start on the most authoritative source)."""
+    build(raw_root, store_path, vp_csv(np.linspace(84.0, 148.0, 30)))
+    write_batch(raw_root, "lab-argon", LAB_BATCH,
+                {"vp.csv": vp_csv(np.linspace(85.5, 140.5, 20), np.full(20, 1e-3))})
+    with open_store(store_path) as s:
+        run_ingest(s.con, [raw_root])
+    result, rows = fit(store_path)
+    assert result.groups[0].status == "fitted"
+    with open_store(store_path) as s:
+        flagged = dict(s.con.execute(
+            "SELECT o.source_id, count(*) FILTER (WHERE r.is_outlier) FROM fit_residual r "
+            "JOIN observation_current o USING (obs_id) JOIN fit f USING (fit_id) "
+            "WHERE f.is_current GROUP BY 1").fetchall())
+    assert flagged == {"ref-argon": 0, "lab-argon": 20}
