@@ -90,7 +90,7 @@ def _parse_sql(staged: str, cols: list[Column], spec: TableSpec) -> str:
     its value in SI (NaN/inf kept so that the fault CASE can name them)."""
     nulls = ", ".join("'" + v.replace("'", "''") + "'" for v in spec.null_values)
     other = "." if spec.decimal == "," else ","
-    parts = ["row_number"]
+    parts, derived = ["row_number"], []
     for c in cols:
         cell = f"trim({ident(c.column)})"
         empty = f"({ident(c.column)} IS NULL OR {cell} = ''" + (
@@ -99,12 +99,14 @@ def _parse_sql(staged: str, cols: list[Column], spec: TableSpec) -> str:
             f"TRY_CAST({cell} AS DOUBLE)"
         parts += [f"{ident(c.column)} AS txt_{c.key}", f"{empty} AS empty_{c.key}",
                   f"CASE WHEN contains({cell}, '_') OR contains({cell}, '{other}') THEN NULL "
-                  f"ELSE {raw} END AS num_{c.key}",
-                  f"coalesce(isfinite(num_{c.key}) OR regexp_matches({cell}, '^[+-]?[0-9.,]+"
-                  f"([eE][+-]?[0-9]+)?$'), false) AS plain_{c.key}",
-                  f"num_{c.key} * {c.factor!r} + {c.offset!r} AS si_{c.key}"]
+                  f"ELSE {raw} END AS num_{c.key}"]
+        # computed one level up, so that a CSV column named like an alias (num_T) cannot
+        # shadow it: the outer query sees only the columns made here
+        derived += [f"coalesce(isfinite(num_{c.key}) OR regexp_matches(trim(txt_{c.key}), "
+                    f"'^[+-]?[0-9.,]+([eE][+-]?[0-9]+)?$'), false) AS plain_{c.key}",
+                    f"num_{c.key} * {c.factor!r} + {c.offset!r} AS si_{c.key}"]
     parts.append("hash(" + ", ".join(ident(c.column) for c in cols) + ") AS row_hash")
-    return f"SELECT {', '.join(parts)} FROM {staged}"
+    return f"SELECT *, {', '.join(derived)} FROM (SELECT {', '.join(parts)} FROM {staged})"
 
 
 def _fault_sql(cols: list[Column]) -> str:
@@ -146,7 +148,9 @@ def normalise(con: duckdb.DuckDBPyConnection, staged: str, spec: TableSpec,
     if scale != "ITS-90":
         _convert_scale(con, parsed, scale)
     col = spec.temperature.column.replace("'", "''")
-    scale_arm = (f"WHEN fault IS NULL AND isnan(si_T) THEN 'out-of-scale-range|{col}' "
+    # a finite temperature that the scale conversion turned into NaN is out of its range; this
+    # wins over the generic "finite number became non-finite" arm of _fault_sql
+    scale_arm = (f"WHEN isfinite(num_T) AND isnan(si_T) THEN 'out-of-scale-range|{col}' "
                  if scale != "ITS-90" else "")
     con.execute(
         f"CREATE OR REPLACE TEMP TABLE {out} AS "

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import csv
 import io
+import re
 from dataclasses import dataclass
 
 import duckdb
@@ -22,6 +23,7 @@ from pipeline.errors import BatchError
 
 ENCODINGS = {"utf-8": "utf-8", "utf-8-sig": "utf-8", "latin-1": "latin-1"}
 _DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}
+RESERVED_COLUMNS = ("row_number", "ord")  # added to the staging table by stage_csv
 
 
 @dataclass(frozen=True)
@@ -51,11 +53,19 @@ def read_header(text: str, spec, label: str) -> tuple[str, ...]:
     first = text.split("\n", 1)[0].rstrip("\r")
     if not text.strip():
         raise BatchError("file is empty (no header, no rows)", file=label)
-    header = tuple(c.strip() for c in next(csv.reader(io.StringIO(first), delimiter=spec.delimiter,
-                                                      quotechar=spec.quote)))
+    try:
+        header = tuple(c.strip() for c in next(csv.reader(
+            io.StringIO(first), delimiter=spec.delimiter, quotechar=spec.quote), []))
+    except csv.Error as err:  # e.g. a lone carriage return inside the header line
+        raise BatchError(f"header line cannot be read as CSV: {err}", file=label, row=0) from None
     if len(set(header)) != len(header):
         dup = sorted({c for c in header if header.count(c) > 1})
         raise BatchError(f"header repeats column(s) {dup}", file=label, row=0)
+    reserved = [c for c in header if c.lower() in RESERVED_COLUMNS]
+    if reserved:
+        raise BatchError(f"column name(s) {reserved} are reserved by the reader, which numbers "
+                         "rows with them (names are case-insensitive in SQL); rename the "
+                         "column(s)", file=label, row=0, column=reserved[0])
     return header
 
 
@@ -101,6 +111,48 @@ def _data_lines(data: bytes, comment: str) -> np.ndarray:
     return numbers[numbers > 1]
 
 
+_REJECT_TEXT_LIMIT = 10_000  # DuckDB cuts the csv_line of a reject at this many characters
+
+
+def _swallowed(rejects, text: str, lines: np.ndarray) -> list[tuple[int, None, str, str]]:
+    """Rejects for the data lines a rejected record swallowed (an unterminated quote runs on
+    over the following lines, to the end of the file when DuckDB cut the record's text), so
+    that every data line is still one row."""
+    if not rejects:
+        return []
+    physical = text.split("\n")
+    out, taken = [], {int(r[0]) for r in rejects}
+    for line, _, raw, message in rejects:
+        span = (raw or "").strip("\r\n").count("\n")
+        last = len(physical) if len(raw or "") >= _REJECT_TEXT_LIMIT else int(line) + span
+        for swallowed in lines[(lines > int(line)) & (lines <= last)]:
+            if int(swallowed) not in taken:
+                taken.add(int(swallowed))
+                out.append((int(swallowed), None, physical[swallowed - 1].rstrip("\r"),
+                            f"{message.split(':')[0]}: line is inside the quoted value left "
+                            f"open on row {int(line) - 1}"))
+    return out
+
+
+def _reject_inline_comments(con, table: str, text: str, good_lines: np.ndarray, comment: str,
+                            rejects: list) -> int:
+    """Move staged rows whose line holds the comment character to the rejects.
+
+    DuckDB cuts a line at an unquoted comment character, so ``85.0,78.9#3`` would load as
+    78.9; the contract skips whole comment lines only, so such a row is quarantined
+    (bad-row-shape) rather than silently shortened. Returns the number of rows moved.
+    """
+    physical = text.split("\n")
+    inline = [int(n) for n in good_lines if comment in physical[n - 1]]
+    if inline:
+        con.execute(f"DELETE FROM {table} WHERE list_contains($rows, row_number)",
+                    {"rows": [n - 1 for n in inline]})
+        rejects += [(n, None, physical[n - 1].rstrip("\r"),
+                     f"INLINE COMMENT: comment character {comment!r} inside a data row (only "
+                     "whole comment lines are skipped)") for n in inline]
+    return len(inline)
+
+
 def stage_csv(con: duckdb.DuckDBPyConnection, path: str, data: bytes, spec, label: str,
               needed: dict[str, str], table: str) -> StagedTable:
     """Read ``path`` (whose bytes are ``data``) into temporary table ``table``."""
@@ -115,7 +167,11 @@ def stage_csv(con: duckdb.DuckDBPyConnection, path: str, data: bytes, spec, labe
                    columns=columns, auto_detect=False, store_rejects=True, strict_mode=True,
                    all_varchar=True, null_padding=False, encoding=ENCODINGS[spec.encoding],
                    rejects_table="fl_reject_errors", rejects_scan="fl_reject_scans",
-                   rejects_limit=0, new_line="\\n" if "\r\n" not in text[:4096] else "\\r\\n")
+                   rejects_limit=0)
+    if "\r\n" not in text[:4096]:
+        # pinned for LF files; CRLF files are left to the reader, because new_line = '\r\n'
+        # makes DuckDB 2.0 return no rows and no rejects for them
+        options["new_line"] = "\\n"
     if spec.comment:
         options["comment"] = spec.comment
     option_sql = ", ".join(f"{k} = ${k}" for k in options)
@@ -128,7 +184,15 @@ def stage_csv(con: duckdb.DuckDBPyConnection, path: str, data: bytes, spec, labe
     rejects = con.execute(
         "SELECT line, column_name, csv_line, error_type || ': ' || error_message "
         "FROM fl_reject_errors ORDER BY line").fetchall()
+    rejects += _swallowed(rejects, text, lines)
     reject_lines = np.unique(np.asarray([r[0] for r in rejects], dtype=np.int64))
+    if not np.isin(reject_lines, lines).all():
+        # DuckDB numbered a record on a line that is not a data line: it broke a line at a
+        # lone carriage return, so its line numbers no longer match the file's
+        cr = re.search("\r(?!\n)", text)
+        row = text.count("\n", 0, cr.start()) if cr else None
+        raise BatchError("a carriage return not followed by a newline splits a row; remove it "
+                         "or quote the cell", file=label, row=row)
     good_lines = lines[~np.isin(lines, reject_lines)]
     staged = con.execute(f"SELECT count(*) FROM {table}").fetchall()[0][0]
     if staged != good_lines.size:
@@ -144,6 +208,8 @@ def stage_csv(con: duckdb.DuckDBPyConnection, path: str, data: bytes, spec, labe
         con.execute(f"CREATE OR REPLACE TEMP TABLE {table} AS SELECT m.row_number, "
                     f"s.* EXCLUDE (ord) FROM {table} s JOIN fl_row_map m USING (ord)")
         con.unregister("fl_row_map")
+    if spec.comment:
+        staged -= _reject_inline_comments(con, table, text, good_lines, spec.comment, rejects)
     seen = {}
     for line, column, raw, message in rejects:
         seen.setdefault(int(line), (int(line) - 1, column, raw, message))

@@ -22,9 +22,10 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 import duckdb
+import numpy as np
 
 from pipeline import __version__
-from pipeline.errors import BatchError, FluidLedgerError
+from pipeline.errors import BatchError, FluidLedgerError, ScaleError, UnitError
 from pipeline.ingest.contract import (
     BatchManifest,
     Fluid,
@@ -34,8 +35,10 @@ from pipeline.ingest.contract import (
     load_fluids,
 )
 from pipeline.ingest.normalise import QUANTITY_KIND, normalise, uncertainty_sql
-from pipeline.ingest.points import constant_row, fixed_point_row
+from pipeline.ingest.points import CONSTANT_KIND, constant_row, fixed_point_row
 from pipeline.ingest.reader import stage_csv
+from pipeline.ingest.scales import get_scale
+from pipeline.ingest.units import conversion
 
 log = logging.getLogger(__name__)
 REMOVED = 0  # raw_file.superseded_by for a file that disappeared from raw/
@@ -148,6 +151,7 @@ def plan_batch(root: Path, batch_dir: Path, fluids: dict[str, Fluid]) -> _Plan:
     for kind, entries in (("fixed_point", manifest.fixed_point), ("constant", manifest.constant)):
         for i, e in enumerate(entries):
             _known_fluid(e.fluid, fluids, label, f"{kind}[{i}].fluid")
+    check_declarations(manifest, fluids, label)
     names = [t.file for t in manifest.table]
     if len(set(names)) != len(names):
         raise BatchError("the same file is mapped by two [[table]] entries", file=label)
@@ -159,6 +163,60 @@ def plan_batch(root: Path, batch_dir: Path, fluids: dict[str, Fluid]) -> _Plan:
         tables.append((i, spec, _label(root, batch_dir / spec.file), path, content,
                        hashlib.sha256(content).hexdigest(), mapping))
     return _Plan(rel_batch, manifest, label, hashlib.sha256(data).hexdigest(), len(data), tables)
+
+
+def _declared(label: str, key: str, check):
+    """Run ``check()``; a unit or scale error is re-raised naming the batch.toml key."""
+    try:
+        return check()
+    except (UnitError, ScaleError) as err:
+        raise type(err)(err.detail, file=label, key=key) from None
+
+
+def _column_rule(label: str, key: str, v, kind: str, molar_mass: float) -> None:
+    """Check the unit (with its reference and ambient) of one column or point value."""
+    ambient = None
+    if v.ambient is not None:
+        ambient = _declared(label, f"{key}.ambient.unit", lambda: conversion(
+            v.ambient.unit, "pressure").apply(np.array([v.ambient.value]))[0])
+        if v.reference == "gauge" and not (np.isfinite(ambient) and ambient > 0):
+            raise UnitError(f"the ambient pressure of a gauge value must be positive, got "
+                            f"{v.ambient.value} {v.ambient.unit}", file=label, key=f"{key}.ambient")
+    _declared(label, f"{key}.unit", lambda: conversion(
+        v.unit, kind, molar_mass_kg_mol=molar_mass, reference=v.reference, ambient_Pa=ambient))
+
+
+def check_declarations(manifest: BatchManifest, fluids: dict[str, Fluid], label: str) -> None:
+    """Every unit and scale in batch.toml converts, before any row is read; an unknown,
+    misspelt or dimensionally wrong unit, or a refused scale, names its key."""
+    for i, t in enumerate(manifest.table):
+        M = fluids[t.fluid].molar_mass_kg_mol
+        key = f"table[{i}]"
+        _declared(label, f"{key}.temperature.unit", lambda: conversion(t.temperature.unit,
+                                                                      "temperature"))
+        _declared(label, f"{key}.temperature.scale", lambda: get_scale(t.temperature.scale))
+        for q, cs in t.value_columns().items():
+            where = f"{key}.pressure" if q == "pressure" else f"{key}.columns.{q}"
+            _column_rule(label, where, cs, QUANTITY_KIND[q][0], M)
+        for q, u in t.uncertainty.items():
+            if u.relative is None:
+                kind = "temperature" if q == "temperature" else QUANTITY_KIND[q][0]
+                _declared(label, f"{key}.uncertainty.{q}.unit", lambda: conversion(
+                    u.unit, kind, molar_mass_kg_mol=M, difference=True))
+    kinds = {"T": "temperature", "p": "pressure", "rho": "density"}
+    for i, fp in enumerate(manifest.fixed_point):
+        M = fluids[fp.fluid].molar_mass_kg_mol
+        for name, kind in kinds.items():
+            v = getattr(fp, name)
+            if v is not None:
+                _column_rule(label, f"fixed_point[{i}].{name}", v, kind, M)
+        _declared(label, f"fixed_point[{i}].T.scale", lambda: get_scale(fp.T.scale))
+    for i, c in enumerate(manifest.constant):
+        kind = CONSTANT_KIND[c.name][0]
+        _declared(label, f"constant[{i}].unit", lambda: conversion(
+            c.unit, kind, molar_mass_kg_mol=fluids[c.fluid].molar_mass_kg_mol))
+        if kind == "temperature":
+            _declared(label, f"constant[{i}].scale", lambda: get_scale(c.scale))
 
 
 def _label(root: Path, path: Path) -> str:

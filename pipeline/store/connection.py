@@ -56,6 +56,33 @@ def _is_lock_error(err: Exception) -> bool:
     return "Could not set lock" in text or "Conflicting lock" in text or "lock on file" in text
 
 
+def _create(target: Path) -> None:
+    """Create a new store atomically: build and migrate it under a temporary name, then link it
+    into place. A process killed while DuckDB writes a new file's first blocks would otherwise
+    leave a partial file that no later open can read; this way ``target`` is either absent
+    or complete. A store created meanwhile by another process is kept (link never replaces)."""
+    tmp = target.with_name(f".{target.name}.creating-{os.getpid()}")
+    for leftover in (tmp, tmp.with_name(tmp.name + ".wal")):
+        leftover.unlink(missing_ok=True)
+    try:
+        con = duckdb.connect(str(tmp))
+        try:
+            migrate(con)
+        finally:
+            con.close()
+        try:
+            os.link(tmp, target)
+        except FileExistsError:
+            pass
+        except OSError:  # a file system without hard links
+            if not target.exists():
+                os.replace(tmp, target)
+    except duckdb.Error as err:
+        raise StoreError(f"cannot create store {target}: {err}") from None
+    finally:
+        tmp.unlink(missing_ok=True)
+
+
 def open_store(path: str | os.PathLike | None = None, *, read_only: bool = False,
                create: bool = True) -> Store:
     """Open (and migrate, when writable) the store at ``path`` (see :func:`resolve_store_path`)."""
@@ -66,6 +93,8 @@ def open_store(path: str | os.PathLike | None = None, *, read_only: bool = False
         raise StoreError(f"store {target} does not exist")
     if not read_only:
         target.parent.mkdir(parents=True, exist_ok=True)
+        if not target.exists():
+            _create(target)
     try:
         con = duckdb.connect(str(target), read_only=read_only)
     except duckdb.IOException as err:

@@ -1,0 +1,134 @@
+"""Benchmark of the check stage: every check over 1,000 and 4,000 synthetic fluids in memory.
+
+Each synthetic fluid is a corresponding-states copy of a published fluid (argon, nitrogen, carbon
+dioxide: the reference curves of ``pipeline.correlations.reference``) with its temperatures
+scaled by s_T and pressures by s_p (every reference form is a function of T/T_ref times the
+reference value, so the scaled curves stay mutually consistent). Per fluid: triple and critical
+points from two sources, a stated acentric factor, ~300 observations in seven files (three
+vapour-pressure campaigns, a sublimation and a melting series, near-critical saturated
+densities, solid and liquid densities at Tt) with noise and fit residuals; 1 % of the fluids
+carry a kPa-recorded-as-Pa file so the diagnosis path is timed too.
+
+Run: ``python benchmarks/check.py`` (``--fluids 1000 4000`` to choose sizes). Targets: < 10 s
+for 1,000 fluids, and 4x the fluids in <= 4.5x the time.
+"""
+
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import math
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from pipeline.checks import FluidData, run_checks  # noqa: E402
+from pipeline.correlations import REFERENCE_CONSTANTS, reference_curve  # noqa: E402
+
+BASES = ("argon", "nitrogen", "carbon-dioxide")
+SCALE_OF = {"pressure": "p", "rho_liquid": "rho", "rho_vapour": "rho"}
+CURVE_KEYS = [("liquid-vapour", "", "pressure"), ("liquid-vapour", "", "rho_liquid"),
+              ("liquid-vapour", "", "rho_vapour"), ("solid-vapour", "", "pressure"),
+              ("solid-liquid", "", "pressure")]
+
+
+def scaled(curve, sT: float, factor: float):
+    """The curve with T scaled by sT and its values by ``factor`` (corresponding states)."""
+    log = curve.correlation_form.link == "log"
+    first = curve.params[0] + math.log(factor) if log else curve.params[0] * factor
+    return dataclasses.replace(curve, params=(first,) + tuple(curve.params[1:]),
+                               ref={**curve.ref, "T_ref_K": curve.ref["T_ref_K"] * sT},
+                               T_min_K=curve.T_min_K * sT, T_max_K=curve.T_max_K * sT)
+
+
+def _series(curve, T, rng, *, boundary, quantity="pressure", source, kind, noise=1e-4, scale=1.0):
+    value = np.asarray(curve.value(T), dtype=float) * (1 + rng.normal(0, noise, len(T))) * scale
+    return {"boundary": np.full(len(T), boundary), "quantity": np.full(len(T), quantity),
+            "T_K": T, "value_si": value, "u_value_si": np.abs(value) * noise,
+            "source_id": np.full(len(T), source), "source_kind": np.full(len(T), kind),
+            "file_path": np.full(len(T), f"synthetic/{source}-{boundary}-{quantity}.csv")}
+
+
+def synthetic_fluid(i: int, rng: np.random.Generator, *, plant: bool) -> FluidData:
+    base = BASES[i % len(BASES)]
+    ref = REFERENCE_CONSTANTS[base]
+    sT, sp, srho = rng.uniform(0.6, 1.8), rng.uniform(0.5, 2.0), rng.uniform(0.8, 1.2)
+    factor = {"p": sp, "rho": srho}
+    curves = {k: scaled(reference_curve(base, k[0], k[2], k[1]), sT, factor[SCALE_OF[k[2]]]) for k in CURVE_KEYS}
+    tp = ref["triple_points"][0]
+    Tt, pt, Tc, pc, rhoc = tp["T_K"] * sT, tp["p_Pa"] * sp, ref["Tc_K"] * sT, ref["pc_Pa"] * sp, ref["rhoc_kg_m3"] * srho
+    lv, sv, sl = curves[CURVE_KEYS[0]], curves[CURVE_KEYS[3]], curves[CURVE_KEYS[4]]
+    parts = [_series(lv, np.linspace(Tt + 1, Tc - 1, 50), rng, boundary="liquid-vapour", source=f"std-{i}", kind="standard"),
+             _series(lv, np.linspace(Tt + 2, Tc - 2, 45), rng, boundary="liquid-vapour", source=f"lit-{i}", kind="literature"),
+             _series(lv, np.linspace(Tt + 3, 0.9 * Tc, 40), rng, boundary="liquid-vapour", source=f"lab-{i}",
+                     kind="measurement", scale=1e-3 if plant else 1.0),
+             _series(sv, np.linspace(sv.T_min_K, Tt - 0.5, 30), rng, boundary="solid-vapour", source=f"sub-{i}", kind="literature"),
+             _series(sl, np.linspace(Tt + 0.5, sl.T_max_K, 30), rng, boundary="solid-liquid", source=f"melt-{i}", kind="literature")]
+    Tcrit = np.linspace(0.95 * Tc, 0.998 * Tc, 20)
+    for q in ("rho_liquid", "rho_vapour"):
+        parts.append(_series(curves[("liquid-vapour", "", q)], Tcrit, rng, boundary="liquid-vapour", quantity=q,
+                             source=f"dens-{i}", kind="literature"))
+    rho_l = float(curves[CURVE_KEYS[1]].value(Tt))
+    for q, v in (("rho_solid", 1.15 * rho_l), ("rho_liquid", rho_l)):
+        parts.append({"boundary": ["solid-liquid"], "quantity": [q], "T_K": [Tt], "value_si": [v], "u_value_si": [0.5],
+                      "source_id": [f"dens-{i}"], "source_kind": ["literature"], "file_path": [f"synthetic/dens-{i}-solid.csv"]})
+    obs = pd.concat([pd.DataFrame(p) for p in parts], ignore_index=True)
+    obs["obs_id"] = np.arange(1, len(obs) + 1) + 1000 * i
+    pressure = obs["quantity"].to_numpy() == "pressure"
+    obs["fit_id"] = np.where(pressure, obs["boundary"].to_numpy() + f"-{i}", None)
+    obs["z"] = np.where(pressure, rng.normal(0, 1, len(obs)), np.nan)
+    u = {"u_T": 0.01 * sT, "u_p": 1e-4}
+    fixed = [dict(kind="triple", phases="vapour,liquid,solid", T_K=Tt, u_T_K=u["u_T"], p_Pa=pt, u_p_Pa=pt * 1e-4,
+                  source_id=f"std-{i}", source_kind="standard"),
+             dict(kind="triple", phases="vapour,liquid,solid", T_K=Tt + 0.003, u_T_K=u["u_T"], p_Pa=pt * 1.00005,
+                  u_p_Pa=pt * 1e-4, source_id=f"lit-{i}", source_kind="literature"),
+             dict(kind="critical", phases="liquid,vapour", T_K=Tc, u_T_K=u["u_T"], p_Pa=pc, u_p_Pa=pc * 1e-4,
+                  rho_kg_m3=rhoc, u_rho_kg_m3=rhoc * 1e-3, source_id=f"std-{i}", source_kind="standard"),
+             dict(kind="critical", phases="liquid,vapour", T_K=Tc - 0.004, u_T_K=u["u_T"], p_Pa=pc * 0.99995,
+                  u_p_Pa=pc * 1e-4, rho_kg_m3=rhoc, u_rho_kg_m3=rhoc * 1e-3, source_id=f"lit-{i}",
+                  source_kind="literature")]
+    omega = -math.log10(float(lv.value(0.7 * Tc, extrapolate=True)) / pc) - 1
+    constants = [dict(name="acentric_factor", value_si=omega + rng.normal(0, 1e-3), u_si=2e-3, si_unit="1",
+                      source_id=f"lit-{i}", source_kind="literature")]
+    return FluidData.build(f"synthetic-{i:05d}", ref["molar_mass_kg_mol"], observations=obs,
+                           fixed_points=fixed, constants=constants, curves=curves)
+
+
+def build(n: int, seed: int = 7) -> dict[str, FluidData]:
+    rng = np.random.default_rng(seed)
+    fluids = [synthetic_fluid(i, rng, plant=(i % 100 == 0)) for i in range(n)]
+    return {f.fluid_id: f for f in fluids}
+
+
+def timed(n: int) -> tuple[float, object]:
+    t0 = time.perf_counter()
+    fluids = build(n)
+    t_build = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    run = run_checks(fluids)
+    seconds = time.perf_counter() - t0
+    print(f"{n:6d} fluids: built in {t_build:6.2f} s; checks in {seconds:6.2f} s "
+          f"({len(run.results)} results: {run.asstr().split(': ', 1)[1]})", flush=True)
+    return seconds, run
+
+
+def main(argv=None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--fluids", type=int, nargs="+", default=[1000, 4000])
+    args = p.parse_args(argv)
+    times = [timed(n)[0] for n in args.fluids]
+    if len(times) >= 2:
+        n0, n1 = args.fluids[0], args.fluids[-1]
+        ratio = times[-1] / times[0]
+        print(f"ratio {n1}/{n0} fluids: time x{ratio:.2f} for x{n1 / n0:.1f} fluids "
+              f"(target <= x{4.5 * n1 / n0 / 4:.2f}); {n0} fluids in {times[0]:.2f} s (target < 10 s)")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,217 @@
+"""Clapeyron checks: slope signs from density changes, slope magnitudes from Δh/(TΔv).
+
+Clapeyron's equation along any two-phase boundary of a pure substance,
+
+    dp/dT = Δh / (T Δv),
+
+with Δh the molar enthalpy and Δv the molar volume of transition (B. P. E. Clapeyron, J. Éc.
+Polytech. 14, 153 (1834); R. Clausius, Ann. Phys. 157, 353 (1850)).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from pipeline.checks.data import FluidData, FittedCurve, ObsSeries
+from pipeline.checks.findings import Finding, judge, skipped
+from pipeline.checks.physics import (
+    PHASES_OF,
+    curve_label,
+    delta_v,
+    density,
+    enthalpy,
+    ideal_gas_density,
+)
+from pipeline.checks.points import SINGLE_SOLID
+from pipeline.checks.registry import register_check
+from pipeline.checks.stats import deviation_statistic, linear_fit
+
+_SIGN_WORD = {1: "positive", -1: "negative"}
+_T_CLAMP = 1e6  # |t| of an exactly linear series
+
+
+def _reference_T(fluid: FluidData, solid_phase: str, rho_solid: ObsSeries) -> float | None:
+    tp = fluid.vapour_triple_point(solid_phase or SINGLE_SOLID)
+    if tp is not None:
+        return tp.T_K
+    return float(np.median(rho_solid.T)) if len(rho_solid) else None
+
+
+def expected_melting_sign(fluid: FluidData, solid_phase: str, th):
+    """sign(ρ_solid − ρ_liquid) with its evidence, or (None, reason)."""
+    solid_obs = fluid.series("solid-liquid", "rho_solid", solid_phase)
+    T = _reference_T(fluid, solid_phase, solid_obs)
+    if T is None:
+        return None, "no solid density stored and no triple point to read it at"
+    tol = th["density_T_tol_K"]
+    rho_s = density(fluid, "solid", "solid-liquid", solid_phase, T, tol)
+    rho_l = density(fluid, "liquid", "solid-liquid", solid_phase, T, tol)
+    if rho_s is None or rho_l is None:
+        missing = " and ".join(n for n, r in (("solid", rho_s), ("liquid", rho_l)) if r is None)
+        return None, f"no {missing} density within {tol:g} K of {T:.6g} K"
+    diff = rho_s.value - rho_l.value
+    u = math.hypot(*(0.0 if not math.isfinite(r.u) else r.u for r in (rho_s, rho_l)))
+    evidence = {"T_K": T, "rho_solid": rho_s.evidence(), "rho_liquid": rho_l.evidence(),
+                "rho_solid_minus_liquid_kg_m3": diff}
+    if diff == 0 or abs(diff) <= th["density_z"] * u:
+        return None, (f"ρ_solid − ρ_liquid = {diff:.4g} ± {u:.2g} kg/m3 does not fix the sign")
+    return (1 if diff > 0 else -1, evidence), None
+
+
+def _grid(fitted: FittedCurve, n: int) -> np.ndarray:
+    return np.linspace(fitted.T_min_K, fitted.T_max_K, n)
+
+
+def _fitted_sign(fluid: FluidData, key, fitted: FittedCurve, sign: int, basis: str,
+                 evidence: dict, th) -> Finding:
+    T = _grid(fitted, int(th["n_grid"]))
+    slope = np.asarray(fitted.slope(T), dtype=float)
+    worst = float(np.nanmin(sign * slope))
+    context = (f"{curve_label(key)} fit: dp/dT from {np.nanmin(slope):.4g} to "
+               f"{np.nanmax(slope):.4g} Pa/K over {T[0]:.6g}-{T[-1]:.6g} K; {basis} so the "
+               f"slope must be {_SIGN_WORD[sign]}")
+    return judge(fluid.fluid_id, f"curve:{curve_label(key)}", measured=worst, limit=0.0,
+                 upper=False, ok=worst > 0, statistic="min(sign*dp/dT) [Pa/K]", context=context,
+                 evidence={**evidence, **fitted.evidence(), "expected_sign": sign})
+
+
+def _file_sign(fluid: FluidData, path: str, s: ObsSeries, sign: int, basis: str, th) -> Finding:
+    subject = f"file:{path}|{s.boundary}" + (f":{s.solid_phase}" if s.solid_phase else "")
+    if len(s) < th["min_points"] or np.ptp(s.T) == 0:
+        return skipped(fluid.fluid_id, subject, f"{len(s)} points in {path}: too few for a slope")
+    (a, b), cov = linear_fit(s.T, s.value)
+    se = math.sqrt(max(cov[1, 1], 0.0))
+    t = float(np.clip(sign * b / se, -_T_CLAMP, _T_CLAMP)) if se > 0 else math.copysign(_T_CLAMP, sign * b)
+    context = (f"{path}: {len(s)} melting points, slope {b:.4g} Pa/K (t = {t:.3g}); {basis} so "
+               f"the slope must be {_SIGN_WORD[sign]}")
+    return judge(fluid.fluid_id, subject, measured=t, limit=-th["t_min"], upper=False,
+                 statistic="t = sign*slope/u(slope)", context=context,
+                 evidence={"slope_Pa_K": b, "u_slope_Pa_K": se, "expected_sign": sign,
+                           "observations": s.refs()})
+
+
+def _melting_findings(fluid: FluidData, solid_phase: str, th) -> list[Finding]:
+    key = ("solid-liquid", solid_phase, "pressure")
+    fitted = fluid.curve(*key)
+    files = fluid.series("solid-liquid", "pressure", solid_phase).by_file()
+    expected, reason = expected_melting_sign(fluid, solid_phase, th)
+    if expected is not None:
+        sign, evidence = expected
+        d = evidence["rho_solid_minus_liquid_kg_m3"]
+        basis = f"ρ_solid − ρ_liquid = {d:.4g} kg/m3 at {evidence['T_K']:.6g} K"
+    elif fitted is not None and len(files) > 1:
+        slope = np.asarray(fitted.slope(_grid(fitted, int(th["n_grid"]))), dtype=float)
+        sign, evidence = int(np.sign(np.nanmedian(slope))), {"basis": "fitted curve"}
+        basis = "the fitted melting curve of all files has that sign"
+    else:
+        return [skipped(fluid.fluid_id, f"curve:{curve_label(key)}", reason)]
+    out = []
+    if fitted is not None and "rho_solid_minus_liquid_kg_m3" in evidence:
+        out.append(_fitted_sign(fluid, key, fitted, sign, basis, evidence, th))
+    elif fitted is not None:
+        out.append(skipped(fluid.fluid_id, f"curve:{curve_label(key)}", reason))
+    out.extend(_file_sign(fluid, path, s, sign, basis, th) for path, s in files.items())
+    return out
+
+
+@register_check("clapeyron.slope-sign", tags=("clapeyron", "melting", "curves", "sources"),
+                purpose="Melting slopes have the sign of ρ_solid − ρ_liquid; vapour and "
+                        "sublimation slopes are positive.")
+def slope_sign(fluid: FluidData, th):
+    """On melting Δh_fus > 0, so by Clapeyron sign(dp/dT) = sign(Δv) = sign(ρ_solid − ρ_liquid):
+    a solid less dense than its liquid (ice Ih: 916.7 vs 999.8 kg/m3) melts at a lower
+    temperature under pressure and its melting curve falls; a denser solid (CO2, argon) has a
+    rising melting curve. Vaporization and sublimation always have Δh > 0 and Δv > 0, so their
+    curves rise.
+
+    Densities come from rho_solid / rho_liquid observations on the melting curve (within
+    density_T_tol_K of the triple point), or the fitted saturated-liquid density at the
+    triple point. The sign is tested on the fitted melting curve (every grid point) and on each
+    source file's own melting series (least-squares slope, t = sign*b/u(b) >= -t_min), so a
+    single bad file is named; without densities the files are compared with the fitted curve.
+
+    Usual causes of a failure: a file with T and p columns swapped or sorted wrongly; a
+    melting series of another solid phase; solid and liquid density columns interchanged.
+    """
+    out: list[Finding] = []
+    solids = sorted({k[1] for k in fluid.groups() if k[0] == "solid-liquid"}
+                    | {k[1] for k in fluid.pressure_curves() if k[0] == "solid-liquid"})
+    for solid_phase in solids:
+        out.extend(_melting_findings(fluid, solid_phase, th))
+    for key, fitted in fluid.pressure_curves().items():
+        if key[0] in ("liquid-vapour", "solid-vapour"):
+            out.append(_fitted_sign(fluid, key, fitted, 1, f"Δh > 0 and Δv > 0 on {key[0]}",
+                                    {}, th))
+    return out
+
+
+def _clapeyron_point(fluid: FluidData, key, fitted: FittedCurve, T: float, th, triple_T):
+    boundary, solid_phase, _ = key
+    h = enthalpy(fluid, boundary, solid_phase, T, th["T_tol_K"], triple_T)
+    if h is None:
+        return None
+    first, second = PHASES_OF[boundary]
+    rho = {ph: density(fluid, ph, boundary, solid_phase, T, th["T_tol_K"]) for ph in (first, second)}
+    if boundary == "solid-vapour" and rho["vapour"] is None and th["ideal_gas_vapour"]:
+        rho["vapour"] = ideal_gas_density(fluid, float(fitted.value(T, extrapolate=True)), T)
+    if any(r is None for r in rho.values()):
+        return None
+    dv, u_dv = delta_v(fluid.molar_mass, rho[first], rho[second])
+    clap = h.value / (T * dv)
+    stated = all(math.isfinite(x.u) and x.u > 0 for x in (h, rho[first], rho[second]))
+    u_clap = abs(clap) * math.hypot(h.u / h.value, u_dv / dv) if stated else 0.0
+    slope = float(fitted.slope(T, extrapolate=True))
+    dev = deviation_statistic(slope - clap, clap, u_clap, z_max=th["z_max"], rel_tol=th["rel_tol"])
+    return dev, {"T_K": T, "slope_fit_Pa_K": slope, "slope_clapeyron_Pa_K": clap,
+                 "u_clapeyron_Pa_K": u_clap, "ratio": slope / clap, "delta_h": h.evidence(),
+                 **{f"rho_{ph}": r.evidence() for ph, r in rho.items()}}
+
+
+def _enthalpy_temperatures(fluid: FluidData, key, fitted: FittedCurve, triple_T) -> list[float]:
+    boundary, solid_phase, _ = key
+    quantity = {"liquid-vapour": "h_vaporization", "solid-liquid": "h_fusion",
+                "solid-vapour": "h_sublimation"}[boundary]
+    T = [float(t) for t in fluid.series(boundary, quantity, solid_phase).T if fitted.covers(t)]
+    if triple_T is not None and fitted.covers(triple_T, 1e-6):
+        T.append(triple_T)
+    return sorted(set(T))
+
+
+@register_check("clapeyron.magnitude", tags=("clapeyron", "curves"),
+                purpose="Fitted slopes agree with Clapeyron's Δh/(TΔv) where Δh and densities exist.")
+def magnitude(fluid: FluidData, th):
+    """Clapeyron: dp/dT = Δh / (T Δv) with molar Δh [J/mol] and Δv = M (1/ρ_b − 1/ρ_a)
+    [m3/mol] from the stored densities of the two phases and the molar mass. At every
+    temperature where an enthalpy of transition is stored (observations, or the stated
+    h_*_triple constants at the triple point) and both densities are found (fits, or
+    observations within T_tol_K), the fitted slope is compared: z = (slope − Clapeyron) / u,
+    u from the enthalpy and density uncertainties when all three are stated;
+    |slope/Clapeyron − 1| <= rel_tol otherwise. On sublimation curves the vapour density may be the ideal-gas value p M/(R T).
+    The worst point of each curve is reported, all points in the evidence.
+
+    Usual causes of a failure: enthalpies in J/kg stored as J/mol (a factor of the molar mass);
+    densities of the wrong phase; a fit whose slope is poorly constrained (too few points or
+    a narrow range); an enthalpy at another temperature than stated.
+    """
+    out = []
+    for key, fitted in fluid.pressure_curves().items():
+        if key[0] not in PHASES_OF:
+            continue
+        tp = fluid.vapour_triple_point(None if key[0] == "liquid-vapour" else key[1] or SINGLE_SOLID)
+        triple_T = tp.T_K if tp else None
+        points = [p for T in _enthalpy_temperatures(fluid, key, fitted, triple_T)
+                  if (p := _clapeyron_point(fluid, key, fitted, T, th, triple_T)) is not None]
+        subject = f"curve:{curve_label(key)}"
+        if not points:
+            continue
+        dev, worst = max(points, key=lambda p: p[0].measured / p[0].limit)
+        out.append(judge(fluid.fluid_id, subject, measured=dev.measured, limit=dev.limit,
+                         statistic=dev.statistic, evidence={"worst": worst,
+                                                            "points": [p[1] for p in points]},
+                         context=f"{curve_label(key)} at {worst['T_K']:.6g} K: fitted slope "
+                                 f"{worst['slope_fit_Pa_K']:.5g} Pa/K vs Clapeyron "
+                                 f"{worst['slope_clapeyron_Pa_K']:.5g} Pa/K (ratio "
+                                 f"{worst['ratio']:.5f}; {len(points)} point(s))"))
+    return out

@@ -1,0 +1,159 @@
+"""Robust consensus curves of a group of files, for comparing one file with the others.
+
+A consensus is a linear model y(T) = D(T) c (y = ln p for vapour curves, p for steep curves)
+fitted with Tukey-biweight reweighting (J. W. Tukey's bisquare; A. E. Beaton and J. W. Tukey,
+Technometrics 16, 147 (1974), from memory), started from the least median of residuals over
+straight lines through single files, so a minority of files off by a unit factor ends with zero
+weight. Designs:
+
+- Wagner-type basis ln p = c0 + (Tc/T) Σ c_i τ^t_i, τ = 1 − T/Tc, for vapour pressures when Tc
+  is known (W. Wagner, Cryogenics 13, 470 (1973)): near-critical curvature needs it;
+- a polynomial in x(T) (1/T for sublimation, T for melting curves) otherwise.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+TUKEY_C = 4.685
+ITERATIONS = 6
+WAGNER_EXPONENTS = (1.0, 1.5, 2.5, 5.0, 2.0, 3.0, 4.0)   # the first four: Wagner's 2.5-5 form
+MAX_POLY_DEGREE = 3
+
+Design = Callable[[np.ndarray], np.ndarray]          # T -> design matrix (n, k + 1)
+DesignMaker = Callable[[np.ndarray, int], Design]     # (T of the fit, k) -> design
+
+
+def wagner_design(Tc: float) -> DesignMaker:
+    """Designs [1, (Tc/T) τ^t_1, ..., (Tc/T) τ^t_k]; NaN above Tc."""
+    def make(_T: np.ndarray, k: int) -> Design:
+        exps = WAGNER_EXPONENTS[:max(1, min(k, len(WAGNER_EXPONENTS)))]
+
+        def design(T: np.ndarray) -> np.ndarray:
+            with np.errstate(invalid="ignore", divide="ignore"):
+                tau = 1.0 - T / Tc
+                return np.column_stack([np.ones_like(T)] + [Tc / T * tau ** e for e in exps])
+        return design
+    return make
+
+
+def poly_design(x: Callable[[np.ndarray], np.ndarray], max_degree: int = MAX_POLY_DEGREE) -> DesignMaker:
+    """Designs [1, s, ..., s^k] with s = x(T) scaled to the fitted points' range."""
+    def make(T: np.ndarray, k: int) -> Design:
+        xs = x(T)
+        centre, scale = float(np.mean(xs)), float(np.ptp(xs)) or 1.0
+        degree = max(1, min(k, max_degree))
+        return lambda T: np.vander((x(T) - centre) / scale, degree + 1, increasing=True)
+    return make
+
+
+@dataclass(frozen=True)
+class Model:
+    """A fitted consensus y(T), NaN outside the temperatures of its inlier points."""
+
+    design: Design
+    coef: np.ndarray
+    T_min_K: float
+    T_max_K: float
+
+    def __call__(self, T) -> np.ndarray:
+        T = np.asarray(T, dtype=float)
+        with np.errstate(invalid="ignore", over="ignore"):
+            y = self.design(T) @ self.coef
+        return np.where((T >= self.T_min_K) & (T <= self.T_max_K), y, np.nan)
+
+    def raw(self, T: np.ndarray) -> np.ndarray:
+        """y(T) without the range mask (used while fitting)."""
+        with np.errstate(invalid="ignore", over="ignore"):
+            return self.design(T) @ self.coef
+
+
+def _terms(T: np.ndarray) -> int:
+    """Sum terms a fit to these temperatures can carry: about one per three distinct points."""
+    return max(1, min(len(np.unique(T)) // 3, len(np.unique(T)) - 2))
+
+
+def _solve(A: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray | None:
+    """Weighted least squares on the rows with w > 0; None when they cannot fix the model."""
+    m = w > 0
+    if m.sum() < A.shape[1]:
+        return None
+    sw = np.sqrt(w[m])
+    coef, _, rank, _ = np.linalg.lstsq(A[m] * sw[:, None], y[m] * sw, rcond=None)
+    return coef if rank == A.shape[1] else None
+
+
+def weighted_fit(T: np.ndarray, y: np.ndarray, w: np.ndarray, make: DesignMaker,
+                 k: int | None = None) -> Model | None:
+    """Weighted least squares on the points with w > 0; None when too few points."""
+    m = (w > 0) & np.isfinite(y) & np.isfinite(T)
+    if len(np.unique(T[m])) < 2:
+        return None
+    design = make(T[m], _terms(T[m]) if k is None else k)
+    A = design(T[m])
+    ok = np.all(np.isfinite(A), axis=1)
+    coef = _solve(A[ok], y[m][ok], w[m][ok])
+    if coef is None:
+        return None
+    return Model(design, coef, float(T[m][ok].min()), float(T[m][ok].max()))
+
+
+def tukey_weights(r: np.ndarray, floor: float) -> np.ndarray:
+    """Bisquare weights of residuals r, scale 1.4826 MAD (at least ``floor``); 0 for NaN."""
+    fin = np.isfinite(r)
+    mad = 1.4826 * float(np.median(np.abs(r[fin]))) if fin.any() else 0.0
+    q = np.where(fin, r / (TUKEY_C * max(mad, floor)), np.inf)
+    return np.where(np.abs(q) < 1.0, (1.0 - q ** 2) ** 2, 0.0)
+
+
+def _start(T, y, files, line: DesignMaker, floor) -> np.ndarray | None:
+    """Weights from the single-file straight line with the least median residual over all points."""
+    best = None
+    for f in dict.fromkeys(files):
+        model = weighted_fit(T, y, (files == f).astype(float), line, 1)
+        if model is None:
+            continue
+        med = float(np.nanmedian(np.abs(model.raw(T) - y)))
+        if best is None or med < best[0]:
+            best = (med, model)
+    return None if best is None else tukey_weights(best[1].raw(T) - y, floor)
+
+
+def robust_fit(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMaker,
+               line: DesignMaker, floor: float, start_w: np.ndarray | None = None):
+    """(Model of the inliers, final weights), or (None, None) when no fit is possible.
+
+    The design is built once from the starting inliers; the reweighting stops when no weight
+    changes by more than 1e-3.
+    """
+    ok = np.isfinite(T) & np.isfinite(y)
+    w = np.zeros(len(T))
+    start = _start(T[ok], y[ok], files[ok], line, floor) if start_w is None else start_w[ok]
+    if start is None:
+        return None, None
+    w[ok] = start
+    if len(np.unique(T[w > 0])) < 2:
+        return None, None
+    design = make(T[w > 0], _terms(T[w > 0]))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        A = design(np.where(ok, T, np.nan))
+    usable = ok & np.all(np.isfinite(A), axis=1)
+    A, yy = np.where(usable[:, None], A, 0.0), np.where(usable, y, 0.0)
+    w = np.where(usable, w, 0.0)
+    for _ in range(ITERATIONS):
+        coef = _solve(A, yy, w)
+        if coef is None:
+            return None, None
+        new = np.where(usable, tukey_weights(np.where(usable, A @ coef - yy, np.nan), floor), 0.0)
+        done = np.max(np.abs(new - w)) < 1e-3
+        w = new
+        if done:
+            break
+    inliers = w > 0.5
+    coef = _solve(A, yy, np.where(inliers, w, 0.0))
+    if coef is None:
+        return None, None
+    return Model(design, coef, float(T[inliers].min()), float(T[inliers].max())), w

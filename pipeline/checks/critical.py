@@ -1,0 +1,181 @@
+"""Critical-point checks: the vapour-pressure curve ends at (Tc, pc); no boiling above Tc;
+the saturated densities converge on (Tc, ρc)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from pipeline.checks.data import FluidData
+from pipeline.checks.data import CheckBatch
+from pipeline.checks.findings import Finding, judge, skipped
+from pipeline.checks.points import u0
+from pipeline.checks.registry import register_check
+from pipeline.checks.stats import combined_u, deviation_statistic, linear_fit
+
+LV = "liquid-vapour"
+
+
+@register_check("critical.curve-end", tags=("critical", "curves"),
+                purpose="The vapour-pressure fit reaches the critical point and p_vap(Tc) = pc.")
+def curve_end(fluid: FluidData, th):
+    """The liquid-vapour curve ends at the critical point: the fitted vapour pressure must
+    reach Tc (its range ends within max_gap_fraction of Tc and not above it) and there
+    p_vap(Tc) = pc. With the fitted-reference convention (ln pc a fitted parameter, Tc fixed)
+    the comparison is a real test: z = (p_vap(Tc) − pc) / u, u^2 = u_pc^2 +
+    (dp/dT u_Tc)^2 + u_fit(Tc)^2; |p_vap(Tc)/pc − 1| <= rel_tol without uncertainties.
+
+    Usual causes of a failure: vapour-pressure data that stop far below Tc; a stated critical
+    pressure from another source than the data; data above Tc included in the fit.
+    """
+    cp, fitted = fluid.critical_point, fluid.curve(LV)
+    if cp is None or fitted is None:
+        missing = "stated critical point" if cp is None else "fitted vapour-pressure curve"
+        return [skipped(fluid.fluid_id, "reach", f"no {missing}")]
+    Tc, pc = cp.T_K, cp.p_Pa
+    gap = (Tc - fitted.T_max_K) / Tc
+    above = fitted.T_max_K > Tc + th["T_tol_K"] + th["z_max"] * u0(cp.u_T_K)
+    ev = {**cp.evidence(), **fitted.evidence(), "gap_fraction": gap}
+    out = [judge(fluid.fluid_id, "reach", measured=gap, limit=th["max_gap_fraction"],
+                 ok=(gap <= th["max_gap_fraction"]) and not above,
+                 statistic="(Tc - T_max)/Tc", evidence=ev,
+                 context=f"fit ends at {fitted.T_max_K:.6g} K, Tc = {Tc:.6g} K"
+                         + (" (the fit extends above Tc)" if above else ""))]
+    if not math.isfinite(pc):
+        return out + [skipped(fluid.fluid_id, "p(Tc)", "the critical point states no pressure")]
+    if gap > th["max_gap_fraction"]:
+        return out + [skipped(fluid.fluid_id, "p(Tc)", "fit ends too far below Tc to evaluate p_vap(Tc)")]
+    p = float(fitted.value(Tc, extrapolate=True))
+    slope, u_fit = float(fitted.slope(Tc, extrapolate=True)), float(fitted.u(Tc, extrapolate=True))
+    u = combined_u(cp.u_p_Pa, slope * u0(cp.u_T_K), u_fit)
+    dev = deviation_statistic(p - pc, pc, u, z_max=th["z_max"], rel_tol=th["rel_tol"])
+    out.append(judge(fluid.fluid_id, "p(Tc)", measured=dev.measured, limit=dev.limit,
+                     statistic=dev.statistic,
+                     evidence={**ev, "p_curve_Pa": p, "u_fit_Pa": u_fit, "u_combined_Pa": u},
+                     context=f"p_vap(Tc = {Tc:.6g} K) = {p:.6g} Pa vs pc = {pc:.6g} Pa "
+                             f"({(p / pc - 1) * 100:+.3g} %)"))
+    return out
+
+
+@register_check("critical.no-vle-above-tc", tags=("critical", "data"), vectorised=True,
+                purpose="No liquid-vapour observation lies above the critical temperature.")
+def no_vle_above_tc(batch: CheckBatch, th):
+    """Above the critical temperature liquid and vapour are one phase: there is no boiling and
+    no vapour pressure. Every liquid-vapour observation (pressure or saturated density) must
+    have T <= Tc within its uncertainty: a point is above Tc when
+    T − Tc > max(T_tol_K, z_max sqrt(u_T^2 + u_Tc^2)). The offending observation ids, files
+    and rows are named.
+
+    Usual causes of a failure: supercritical isotherm or dew/bubble data of a mixture filed as
+    vapour pressure; a temperature column in another unit or scale; a stated Tc that is too low.
+    """
+    obs = batch.observations
+    lv = obs[obs["boundary"] == LV].reset_index(drop=True) if len(obs) else obs
+    by_fluid = lv.groupby("fluid_id", sort=False).indices if len(lv) else {}
+    cols = {c: lv[c].to_numpy() for c in ("T_K", "u_T_K", "obs_id", "file_path", "row_number", "quantity")} \
+        if len(lv) else {}
+    out: list[Finding] = []
+    for fluid in batch:
+        cp, fid = fluid.critical_point, fluid.fluid_id
+        t = th(fid)
+        idx = by_fluid.get(fid)
+        if cp is None or idx is None:
+            out.append(skipped(fid, "", "no stated critical point" if cp is None
+                               else "no liquid-vapour observations"))
+            continue
+        excess = cols["T_K"][idx].astype(float) - cp.T_K
+        u = np.nan_to_num(cols["u_T_K"][idx].astype(float))
+        bad = idx[excess > np.maximum(t["T_tol_K"], t["z_max"] * np.sqrt(u ** 2 + u0(cp.u_T_K) ** 2))]
+        refs = [{"obs_id": int(cols["obs_id"][i]), "file": str(cols["file_path"][i]),
+                 "row": int(cols["row_number"][i]), "quantity": str(cols["quantity"][i]),
+                 "T_K": float(cols["T_K"][i])} for i in bad[:20]]
+        named = "; ".join(f"obs {r['obs_id']} ({r['file']} row {r['row']}, T = {r['T_K']:.6g} K)"
+                          for r in refs[:5])
+        worst = float(excess.max())
+        out.append(judge(fid, "", measured=float(len(bad)), limit=0.0,
+                         statistic="observations above Tc",
+                         evidence={"Tc_K": cp.T_K, "u_Tc_K": cp.u_T_K, "max_T_minus_Tc_K": worst,
+                                   "n_observations": int(len(idx)), "above": refs},
+                         context=(f"{len(bad)} of {len(idx)} liquid-vapour observations above "
+                                  f"Tc = {cp.T_K:.6g} K" + (f": {named}" if named else
+                                                            f" (highest T - Tc = {worst:.4g} K)"))))
+    return out
+
+
+def _paired_densities(fluid: FluidData, Tc: float, th):
+    """(T, ρ', ρ'', basis) near Tc from observations at equal T, else from the fitted curves."""
+    liq, vap = fluid.series(LV, "rho_liquid"), fluid.series(LV, "rho_vapour")
+    lo = th["Tr_min"] * Tc
+    if len(liq) and len(vap):
+        key_l = np.round(liq.T, 3)
+        key_v = np.round(vap.T, 3)
+        common = np.intersect1d(key_l[key_l >= lo], key_v[key_v >= lo])
+        if len(common) >= th["min_points"]:
+            rl = np.array([liq.value[key_l == k].mean() for k in common])
+            rv = np.array([vap.value[key_v == k].mean() for k in common])
+            return common.astype(float), rl, rv, "observations"
+    fl, fv = fluid.curve(LV, "", "rho_liquid"), fluid.curve(LV, "", "rho_vapour")
+    if fl is None or fv is None:
+        return None
+    a, b = max(lo, fl.T_min_K, fv.T_min_K), min(Tc, fl.T_max_K, fv.T_max_K)
+    if b <= a:
+        return None
+    T = np.linspace(a, b, int(th["n_grid"]) + 1)[:-1] if b >= Tc else np.linspace(a, b, int(th["n_grid"]))
+    return T, np.asarray(fl.value(T), float), np.asarray(fv.value(T), float), "fitted curves"
+
+
+def _estimate(T, rl, rv, beta):
+    """Tc from (ρ'−ρ'')^(1/β) linear in T; ρc from the rectilinear diameter at that Tc."""
+    (a, b), cov = linear_fit(T, (rl - rv) ** (1.0 / beta))
+    Tc = -a / b
+    g = np.array([-1.0 / b, a / b ** 2])
+    u_Tc = math.sqrt(max(g @ cov @ g, 0.0))
+    (c0, c1), cov_d = linear_fit(T, (rl + rv) / 2.0)
+    rhoc = c0 + c1 * Tc
+    gd = np.array([1.0, Tc])
+    u_rhoc = math.sqrt(max(gd @ cov_d @ gd + (c1 * u_Tc) ** 2, 0.0))
+    return Tc, u_Tc, rhoc, u_rhoc, float(c1)
+
+
+@register_check("critical.density-convergence", tags=("critical", "densities"),
+                purpose="Saturated liquid and vapour densities converge on the stated (Tc, ρc).")
+def density_convergence(fluid: FluidData, th):
+    """Near the critical point the coexisting densities follow the scaling law
+    ρ' − ρ'' = B (1 − T/Tc)^β with β ≈ 0.326 (E. A. Guggenheim, J. Chem. Phys. 13, 253 (1945),
+    with the modern exponent), and their mean follows the law of the rectilinear diameter
+    (ρ' + ρ'')/2 = ρc + A (1 − T/Tc) (L. Cailletet and E. Mathias, C. R. Acad. Sci. 102, 1202
+    (1886)). So (ρ' − ρ'')^(1/β) is linear in T and vanishes at Tc: a straight-line fit over
+    T/Tc >= Tr_min gives an estimate of Tc, and the diameter line at that temperature an
+    estimate of ρc. Both are compared with the stated critical point within Tc_rel_tol and
+    rhoc_rel_tol (the laws are asymptotic, so a tolerance, not a z-score, decides; the
+    regression uncertainties are in the evidence). Densities are observations of ρ' and ρ''
+    at equal temperatures, else the fitted saturated-density curves.
+
+    Usual causes of a failure: a stated Tc or ρc from another source than the densities;
+    liquid and vapour density columns swapped or in different units; near-critical data
+    measured on another temperature scale.
+    """
+    cp = fluid.critical_point
+    if cp is None:
+        return [skipped(fluid.fluid_id, "Tc", "no stated critical point")]
+    pairs = _paired_densities(fluid, cp.T_K, th)
+    if pairs is None or len(pairs[0]) < th["min_points"]:
+        return [skipped(fluid.fluid_id, "Tc", f"fewer than {th['min_points']} pairs of saturated "
+                                              f"densities with T/Tc >= {th['Tr_min']}")]
+    T, rl, rv, basis = pairs
+    Tc, u_Tc, rhoc, u_rhoc, slope_d = _estimate(T, rl, rv, th["beta"])
+    ev = {"basis": basis, "n_points": int(len(T)), "T_range_K": [float(T.min()), float(T.max())],
+          "Tc_estimate_K": Tc, "u_Tc_estimate_K": u_Tc, "rhoc_estimate_kg_m3": rhoc,
+          "u_rhoc_estimate_kg_m3": u_rhoc, "diameter_slope_kg_m3_K": slope_d,
+          "beta": th["beta"], **cp.evidence()}
+    out = [judge(fluid.fluid_id, "Tc", measured=abs(Tc / cp.T_K - 1), limit=th["Tc_rel_tol"],
+                 statistic="|Tc_est/Tc - 1|", evidence=ev,
+                 context=f"scaling law on {len(T)} {basis} gives Tc = {Tc:.6g} ± {u_Tc:.2g} K "
+                         f"vs stated {cp.T_K:.6g} K")]
+    if math.isfinite(cp.rho_kg_m3):
+        out.append(judge(fluid.fluid_id, "rhoc", measured=abs(rhoc / cp.rho_kg_m3 - 1),
+                         limit=th["rhoc_rel_tol"], statistic="|rhoc_est/rhoc - 1|", evidence=ev,
+                         context=f"rectilinear diameter gives ρc = {rhoc:.5g} ± {u_rhoc:.2g} kg/m3 "
+                                 f"vs stated {cp.rho_kg_m3:.5g} kg/m3"))
+    return out

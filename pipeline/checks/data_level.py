@@ -1,0 +1,261 @@
+"""Data-level checks over the stacked observations of all fluids (vectorised): pressures rise
+with T, values in physical ranges, residual outliers, duplicates across files."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from pipeline.checks.data import CheckBatch
+from pipeline.checks.findings import Finding, judge
+from pipeline.checks.physics import curve_label
+from pipeline.checks.registry import register_check
+
+_COLUMNS = ("fluid_id", "boundary", "solid_phase", "quantity", "obs_id", "file_path",
+            "row_number", "T_K", "value_si", "u_value_si", "fit_id", "z", "is_outlier")
+
+
+def _columns(frame: pd.DataFrame) -> dict[str, np.ndarray]:
+    """The stacked frame as numpy arrays (per-row work stays out of pandas)."""
+    return {c: frame[c].to_numpy() for c in _COLUMNS if c in frame}
+
+
+def _ref(cols: dict, i: int) -> dict:
+    """Evidence entry of row ``i``: obs id, file, row, T, value."""
+    return {"obs_id": int(cols["obs_id"][i]), "file": str(cols["file_path"][i]),
+            "row": int(cols["row_number"][i]), "T_K": float(cols["T_K"][i]),
+            "value_si": float(cols["value_si"][i])}
+
+
+def _segments(frame: pd.DataFrame, keys: list[str], order: list[str] = ()):
+    """The frame sorted by ``keys`` (+ ``order``), its columns, group codes, starts and ends."""
+    s = frame.sort_values(keys + list(order), kind="stable").reset_index(drop=True)
+    g = s.groupby(keys, sort=False).ngroup().to_numpy()
+    starts = np.flatnonzero(np.r_[True, g[1:] != g[:-1]]) if len(g) else np.zeros(0, dtype=int)
+    return s, _columns(s), g, starts, np.r_[starts[1:], len(g)].astype(int)
+
+
+def _per_row(th, key: str, fluid_ids: pd.Series) -> np.ndarray:
+    """Threshold ``key`` for every row, from the per-fluid values."""
+    codes, uniques = pd.factorize(fluid_ids)
+    return th.array(key, uniques)[codes]
+
+
+def _series_subject(boundary: str, solid: str, path: str) -> str:
+    return f"file:{path}|{boundary}" + (f":{solid}" if solid else "")
+
+
+@register_check("data.monotonic", tags=("data",), vectorised=True,
+                purpose="Vapour and sublimation pressures rise with temperature in every file.")
+def monotonic(batch: CheckBatch, th):
+    """Along a vapour-pressure or sublimation curve dp/dT = Δh/(TΔv) > 0, so within one file's
+    series, sorted by temperature, every step to a higher T must raise the pressure. A step
+    is a fall when Δp < −max(z_max sqrt(u_1^2 + u_2^2), rel_tol p) (steps closer than
+    min_dT_K are not compared). Each file's series gets one result naming the falling steps.
+
+    Usual causes of a failure: rows out of order with a column shifted; a file mixing two
+    campaigns at different pressures; temperatures in two units; a typing error in one row.
+    """
+    obs = batch.observations
+    sel = obs[obs["boundary"].isin(["liquid-vapour", "solid-vapour"]) & (obs["quantity"] == "pressure")] \
+        if len(obs) else obs
+    if sel.empty:
+        return []
+    s, cols, g, starts, ends = _segments(sel, ["fluid_id", "boundary", "solid_phase", "file_path"], ["T_K"])
+    T, p = cols["T_K"].astype(float), cols["value_si"].astype(float)
+    u = np.nan_to_num(cols["u_value_si"].astype(float))
+    z, rel = _per_row(th, "z_max", s["fluid_id"]), _per_row(th, "rel_tol", s["fluid_id"])
+    min_dT = _per_row(th, "min_dT_K", s["fluid_id"])
+    same = g[1:] == g[:-1]
+    allowed = np.maximum(z[1:] * np.hypot(u[1:], u[:-1]), rel[1:] * np.abs(p[:-1]))
+    fall_at = np.flatnonzero(same & (np.diff(T) > min_dT[1:]) & (np.diff(p) < -allowed))
+    out = []
+    for start, end in zip(starts, ends):
+        steps = fall_at[np.searchsorted(fall_at, start):np.searchsorted(fall_at, end - 1)]
+        pairs = [{"from": _ref(cols, i), "to": _ref(cols, i + 1)} for i in steps[:10]]
+        text = "; ".join(f"obs {q['from']['obs_id']} -> {q['to']['obs_id']} ({q['from']['T_K']:.6g} K "
+                         f"{q['from']['value_si']:.6g} Pa -> {q['to']['T_K']:.6g} K "
+                         f"{q['to']['value_si']:.6g} Pa)" for q in pairs[:3])
+        fid, boundary, solid, path = (cols[c][start] for c in ("fluid_id", "boundary", "solid_phase", "file_path"))
+        out.append(judge(fid, _series_subject(boundary, solid, path),
+                         measured=float(len(steps)), limit=0.0, statistic="falling steps",
+                         evidence={"n_points": int(end - start), "falls": pairs},
+                         context=f"{path} ({boundary}): {len(steps)} of {end - start - 1} steps "
+                                 f"fall" + (f": {text}" if text else "")))
+    return out
+
+
+def _bounds(batch: CheckBatch) -> pd.DataFrame:
+    """Per fluid (and solid): pc, ρc, pt of the vapour triple point, lowest melting pt."""
+    rows = []
+    for f in batch:
+        cp = f.critical_point
+        for solid in {""} | {k[1] for k in f.groups() if k[0] in ("solid-liquid", "solid-vapour")}:
+            label = solid or "solid"
+            vtp = f.vapour_triple_point(label)
+            melt = [tp.p_Pa for tp in f.triple_points if "liquid" in tp.phases and label in tp.phases]
+            rows.append((f.fluid_id, solid, cp.p_Pa if cp else np.nan, cp.rho_kg_m3 if cp else np.nan,
+                         vtp.p_Pa if vtp else np.nan, min(melt) if melt else np.nan))
+    return pd.DataFrame(rows, columns=["fluid_id", "solid_phase", "pc", "rhoc", "pt_vap", "pt_melt"])
+
+
+def _is(f, boundary=None, quantity=None, prefix=None):
+    mask = np.ones(len(f), dtype=bool)
+    if boundary:
+        mask &= (f["boundary"] == boundary).to_numpy()
+    if quantity:
+        mask &= (f["quantity"] == quantity).to_numpy()
+    if prefix:
+        mask &= f["quantity"].str.startswith(prefix).to_numpy()
+    return mask
+
+
+#: rule -> vectorised test over the stacked frame ``f`` with per-row thresholds ``t``
+RANGE_RULES = {
+    "T <= 0 K": lambda f, t: f["T_K"].to_numpy() <= 0,
+    "T above T_max_K": lambda f, t: f["T_K"].to_numpy() > t["T_max_K"],
+    "value <= 0": lambda f, t: f["value_si"].to_numpy() <= 0,
+    "pressure above p_max_Pa": lambda f, t: _is(f, quantity="pressure") & (f["value_si"].to_numpy() > t["p_max_Pa"]),
+    "density above rho_max_kg_m3": lambda f, t: _is(f, prefix="rho_") & (f["value_si"].to_numpy() > t["rho_max_kg_m3"]),
+    "enthalpy above h_max_J_mol": lambda f, t: _is(f, prefix="h_") & (f["value_si"].to_numpy() > t["h_max_J_mol"]),
+    "vapour pressure above pc": lambda f, t: _is(f, "liquid-vapour", "pressure")
+    & (f["value_si"].to_numpy() > f["pc"].to_numpy() * (1 + t["rel_tol"])),
+    "sublimation pressure above pt": lambda f, t: _is(f, "solid-vapour", "pressure")
+    & (f["value_si"].to_numpy() > f["pt_vap"].to_numpy() * (1 + t["rel_tol"])),
+    "melting pressure below pt": lambda f, t: _is(f, "solid-liquid", "pressure")
+    & (f["value_si"].to_numpy() < f["pt_melt"].to_numpy() * (1 - t["rel_tol"])),
+    "saturated vapour denser than rhoc": lambda f, t: _is(f, "liquid-vapour", "rho_vapour")
+    & (f["value_si"].to_numpy() > f["rhoc"].to_numpy() * (1 + t["rel_tol"])),
+    "saturated liquid less dense than rhoc": lambda f, t: _is(f, "liquid-vapour", "rho_liquid")
+    & (f["value_si"].to_numpy() < f["rhoc"].to_numpy() * (1 - t["rel_tol"])),
+}
+_RANGE_KEYS = ("T_max_K", "p_max_Pa", "rho_max_kg_m3", "h_max_J_mol", "rel_tol")
+
+
+@register_check("data.ranges", tags=("data",), vectorised=True,
+                purpose="Values are positive and inside physical ranges.")
+def ranges(batch: CheckBatch, th):
+    """Temperatures, pressures, densities and enthalpies of transition are positive and below
+    generous physical bounds (T_max_K, p_max_Pa, rho_max_kg_m3, h_max_J_mol). The stated
+    points bound them further: a vapour pressure cannot exceed pc, a sublimation pressure pt,
+    a melting pressure cannot lie below the pt where that melting curve starts, and a
+    saturated vapour is less dense, a saturated liquid denser, than ρc (all within rel_tol).
+    One result per (boundary, solid phase, quantity) group names the rows out of range and the
+    rule each breaks.
+
+    Usual causes of a failure: a unit mix-up (see data.unit-mixup), a sign lost in a gauge
+    conversion, densities of the other phase, values beyond the critical point.
+    """
+    obs = batch.observations
+    if obs.empty:
+        return []
+    merged = obs.merge(_bounds(batch), on=["fluid_id", "solid_phase"], how="left")
+    f, cols, _, starts, ends = _segments(merged, ["fluid_id", "boundary", "solid_phase", "quantity"])
+    t = {k: _per_row(th, k, f["fluid_id"]) for k in _RANGE_KEYS}
+    broken = {name: rule(f, t) for name, rule in RANGE_RULES.items()}
+    any_bad = np.logical_or.reduce(list(broken.values()))
+    out = []
+    for start, end in zip(starts, ends):
+        bad = start + np.flatnonzero(any_bad[start:end])
+        offenders = [{**_ref(cols, i), "rules": [n for n, m in broken.items() if m[i]]} for i in bad[:20]]
+        text = "; ".join(f"obs {o['obs_id']} ({o['file']} row {o['row']}): {', '.join(o['rules'])}"
+                         for o in offenders[:3])
+        fid, boundary, solid, quantity = (cols[c][start] for c in ("fluid_id", "boundary", "solid_phase", "quantity"))
+        subject = f"{boundary}" + (f":{solid}" if solid else "") + f"/{quantity}"
+        out.append(judge(fid, subject, measured=float(len(bad)), limit=0.0,
+                         statistic="values out of range",
+                         evidence={"n": int(end - start), "out_of_range": offenders},
+                         context=f"{subject}: {len(bad)} of {end - start} values out of range"
+                                 + (f": {text}" if text else "")))
+    return out
+
+
+@register_check("data.outliers", tags=("data", "fits"), severity="warn", vectorised=True,
+                purpose="No observation sits far off its fitted curve.")
+def outliers(batch: CheckBatch, th):
+    """Every observation of a fitted group has a normalised residual z = (y − y_fit)/u from
+    the fit stage (the fitter flags points it down-weights as outliers). A point with
+    |z| > z_max, or flagged by the fitter, is reported with its file and row; it stays in the
+    store (outliers are flagged, never hidden). One result per fitted curve.
+
+    Usual causes: a typing error in one row, a point of another phase, a transient in a
+    measurement campaign, a unit slip in a single cell.
+    """
+    obs = batch.observations
+    fitted = obs[obs["fit_id"].notna()] if len(obs) else obs
+    if fitted.empty:
+        return []
+    f, cols, _, starts, ends = _segments(fitted, ["fluid_id", "fit_id"])
+    zmax = _per_row(th, "z_max", f["fluid_id"])
+    z = cols["z"].astype(float)
+    absz = np.abs(z)
+    flagged = cols["is_outlier"].astype(bool) | (absz > zmax)
+    worst = np.fmax.reduceat(np.where(np.isfinite(absz), absz, 0.0), starts)
+    out = []
+    for k, (start, end) in enumerate(zip(starts, ends)):
+        bad = start + np.flatnonzero(flagged[start:end])
+        refs = [{**_ref(cols, i), "z": float(z[i])} for i in bad[:20]]
+        text = "; ".join(f"obs {r['obs_id']} ({r['file']} row {r['row']}, T = {r['T_K']:.6g} K, "
+                         f"z = {r['z']:+.3g})" for r in refs[:3])
+        fid, fit_id = cols["fluid_id"][start], cols["fit_id"][start]
+        label = curve_label((cols["boundary"][start], cols["solid_phase"][start], cols["quantity"][start]))
+        out.append(judge(fid, f"curve:{label}", measured=float(worst[k]), limit=float(zmax[start]),
+                         ok=len(bad) == 0, statistic="max |z|",
+                         evidence={"fit_id": fit_id, "n": int(end - start), "outliers": refs},
+                         context=f"{label} fit {fit_id}: {len(bad)} of {end - start} observations "
+                                 f"off the fit" + (f": {text}" if text else "")))
+    return out
+
+
+def _duplicate_pairs(obs: pd.DataFrame, th) -> pd.DataFrame:
+    s, cols, g, _, _ = _segments(obs, ["fluid_id", "boundary", "solid_phase", "quantity"], ["T_K"])
+    T, v, files = cols["T_K"].astype(float), cols["value_si"].astype(float), cols["file_path"]
+    T_tol, rel = _per_row(th, "T_tol_K", s["fluid_id"]), _per_row(th, "rel_tol", s["fluid_id"])
+    found = []
+    for lag in range(1, int(th["max_lag"]) + 1):
+        i = np.arange(len(s) - lag)
+        j = i + lag
+        hit = (g[i] == g[j]) & (np.abs(T[j] - T[i]) <= T_tol[i]) & \
+              (np.abs(v[j] - v[i]) <= rel[i] * np.abs(v[i])) & (files[i] != files[j])
+        found.append(np.column_stack([i[hit], j[hit]]))
+    pairs = np.concatenate(found) if found else np.zeros((0, 2), dtype=int)
+    a, b = s.iloc[pairs[:, 0]].reset_index(drop=True), s.iloc[pairs[:, 1]].reset_index(drop=True)
+    first = np.where(a["file_path"] < b["file_path"], a["file_path"], b["file_path"])
+    second = np.where(a["file_path"] < b["file_path"], b["file_path"], a["file_path"])
+    return pd.DataFrame({"fluid_id": a["fluid_id"], "file_a": first, "file_b": second,
+                         "obs_a": a["obs_id"], "obs_b": b["obs_id"], "T_K": a["T_K"],
+                         "value_si": a["value_si"], "quantity": a["quantity"]})
+
+
+@register_check("data.duplicates", tags=("data", "sources"), severity="warn", vectorised=True,
+                purpose="No data set appears twice under different files.")
+def duplicates(batch: CheckBatch, th):
+    """The same value at the same temperature (within T_tol_K and rel_tol) for the same fluid,
+    boundary and quantity in two different files is almost surely one data set entered twice
+    (a table copied from a paper that is also in the store, a file re-sent under a new name).
+    A duplicate counts twice in a fit and shrinks its uncertainty. Neighbours after sorting by
+    T (up to max_lag) are compared; one result per pair of files names the shared points.
+
+    Usual causes: a compilation that reproduces a primary source also stored; the same
+    campaign ingested under two batch names.
+    """
+    obs = batch.observations
+    if obs.empty:
+        return []
+    pairs = _duplicate_pairs(obs, th)
+    out: list[Finding] = []
+    with_dups = set(pairs["fluid_id"])
+    for (fid, fa, fb), grp in pairs.groupby(["fluid_id", "file_a", "file_b"], sort=False):
+        ev = [{"obs_a": int(r.obs_a), "obs_b": int(r.obs_b), "quantity": r.quantity,
+               "T_K": float(r.T_K), "value_si": float(r.value_si)} for r in grp.head(20).itertuples()]
+        out.append(judge(fid, f"files:{fa}|{fb}", measured=float(len(grp)), limit=0.0,
+                         statistic="shared points", evidence={"pairs": ev},
+                         context=f"{len(grp)} observations of {fb} duplicate {fa} (same T within "
+                                 f"{th(fid)['T_tol_K']:g} K, value within {th(fid)['rel_tol']:g})"))
+    counts = obs.groupby("fluid_id")["file_path"].nunique()
+    for fid in batch.ids:
+        if fid not in with_dups and fid in counts.index:
+            out.append(judge(fid, "", measured=0.0, limit=0.0, statistic="shared points",
+                             evidence={"files": int(counts[fid])},
+                             context=f"no duplicates across {int(counts[fid])} file(s)"))
+    return out

@@ -1,0 +1,78 @@
+"""Small statistics shared by the checks: combined uncertainties, z-or-tolerance decisions,
+weighted means and the Birge ratio.
+
+Decisions use a z-score where uncertainties exist and a stated tolerance where they do not
+(DESIGN §5); :func:`deviation_statistic` makes that choice in one place.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from pipeline.checks.points import u0
+
+
+def combined_u(*terms: float | None) -> float:
+    """Root sum of squares of standard uncertainties; None and NaN count as zero."""
+    return math.sqrt(sum(u0(t) ** 2 for t in terms))
+
+
+@dataclass(frozen=True)
+class Deviation:
+    """A deviation judged either as a z-score or as a relative deviation."""
+
+    statistic: str
+    measured: float
+    limit: float
+
+    @property
+    def ok(self) -> bool:
+        return self.measured <= self.limit
+
+
+def deviation_statistic(difference: float, reference: float, u: float, *, z_max: float,
+                        rel_tol: float) -> Deviation:
+    """``|z|`` against ``z_max`` when ``u > 0``, else ``|relative deviation|`` against ``rel_tol``."""
+    if u > 0:
+        return Deviation("|z|", abs(difference) / u, z_max)
+    return Deviation("|relative deviation|", abs(difference / reference), rel_tol)
+
+
+def weighted_mean(x: np.ndarray, u: np.ndarray) -> tuple[float, float]:
+    """Inverse-variance weighted mean and its standard uncertainty."""
+    w = 1.0 / np.asarray(u, float) ** 2
+    return float(np.sum(w * x) / np.sum(w)), float(1.0 / math.sqrt(np.sum(w)))
+
+
+def birge_ratio(x: np.ndarray, u: np.ndarray) -> float:
+    """R_B = sqrt(chi2 / (n - 1)) about the weighted mean (Birge, Phys. Rev. 40, 207 (1932))."""
+    mean, _ = weighted_mean(x, u)
+    chi2 = float(np.sum(((x - mean) / u) ** 2))
+    return math.sqrt(chi2 / (len(x) - 1))
+
+
+def birge_limit(n: int, k: float) -> float:
+    """Critical Birge ratio: 1 + k * sqrt(1 / (2 (n - 1))), the spread of R_B for consistent data."""
+    return 1.0 + k * math.sqrt(1.0 / (2.0 * (n - 1)))
+
+
+def leave_one_out_z(x: np.ndarray, u: np.ndarray) -> np.ndarray:
+    """Each value against the weighted mean of the others: (x_i - m_-i) / sqrt(u_i^2 + u(m_-i)^2)."""
+    w = 1.0 / u ** 2
+    sw, swx = w.sum(), (w * x).sum()
+    w_rest = sw - w
+    mean_rest = (swx - w * x) / w_rest
+    return (x - mean_rest) / np.sqrt(u ** 2 + 1.0 / w_rest)
+
+
+def linear_fit(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Least-squares line y = a + b x: parameters (a, b) and their covariance from the scatter."""
+    A = np.column_stack([np.ones_like(x), x])
+    params, *_ = np.linalg.lstsq(A, y, rcond=None)
+    dof = max(len(x) - 2, 1)
+    s2 = float(np.sum((y - A @ params) ** 2) / dof)
+    cov = s2 * np.linalg.inv(A.T @ A)
+    return params, cov

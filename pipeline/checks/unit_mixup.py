@@ -1,0 +1,305 @@
+"""Unit mix-up diagnosis: a file whose pressures sit off the consensus of its group by a unit
+factor or offset, or whose temperatures by a unit or scale offset, gets the likely cause named.
+
+Recipe for one (fluid, boundary, solid phase) pressure group:
+1. a robust pooled fit of all files (:mod:`pipeline.checks.consensus`), so files off by a unit
+   factor carry no weight;
+2. a file that agrees with that pooled fit (when three or more files carry weight in it) agrees
+   with the others; for any other file, a consensus: the robust fit of the *other* files'
+   inlier points (when two or more other files agree), else the published reference equation
+   of the group, else the one other file (unless it comes from a less authoritative source);
+3. the file's median normalised log-residual against the consensus, then the same after undoing
+   each hypothesis (a unit factor, a 273.15 K offset, gauge pressure, IPTS-68); the hypothesis
+   under which the median collapses explains the file.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+from pipeline.checks.consensus import poly_design, robust_fit, wagner_design
+from pipeline.checks.data import FluidData, ObsSeries
+from pipeline.checks.findings import VIOLATED, WARN, Finding, judge, skipped
+from pipeline.checks.points import SOURCE_RANK
+from pipeline.checks.registry import register_check
+
+#: pressure units and their size in Pa (the candidates of a factor mix-up)
+PRESSURE_UNITS_PA = {"Pa": 1.0, "hPa": 100.0, "kPa": 1e3, "bar": 1e5, "MPa": 1e6,
+                     "atm": 101325.0, "mmHg": 133.322, "psi": 6894.76}
+_ALIASES = {"torr": "mmHg", "Torr": "mmHg", "mbar": "hPa", "pascal": "Pa", "psia": "psi"}
+ZERO_CELSIUS_K = 273.15
+KELVIN_UNITS = {"K", "kelvin"}
+CELSIUS_UNITS = {"degC", "°C", "celsius", "degree_Celsius"}
+
+
+
+def _inv(T):
+    return 1.0 / T
+
+
+def _same(v):
+    return v
+
+
+@dataclass(frozen=True)
+class Space:
+    """How a boundary's consensus is fitted: ln p (or p) against a design in T."""
+
+    log: bool                                   # fit ln p; else p itself (steep curves)
+    x: Callable[[np.ndarray], np.ndarray]       # abscissa of lines and polynomial designs
+    wagner: bool                                # Wagner-type design when Tc is stated
+
+    def y(self, p: np.ndarray) -> np.ndarray:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.log(p) if self.log else np.asarray(p, dtype=float)
+
+    def back(self, y: np.ndarray) -> np.ndarray:
+        with np.errstate(over="ignore"):
+            return np.exp(y) if self.log else y
+
+    def floor(self, p: np.ndarray, rel_floor: float) -> float:
+        """Smallest robust scale: relative already in ln p, times the typical p otherwise."""
+        return rel_floor if self.log else rel_floor * float(np.median(np.abs(p)))
+
+    def design(self, fluid: FluidData):
+        cp = fluid.critical_point
+        if self.wagner and cp is not None and math.isfinite(cp.T_K):
+            return wagner_design(cp.T_K)
+        return poly_design(self.x)
+
+
+#: boundary -> consensus space: ln p for vapour curves, p in T for steep curves
+SPACES = {
+    "liquid-vapour": Space(True, _inv, True),
+    "solid-vapour": Space(True, _inv, False),
+    "solid-liquid": Space(False, _same, False),
+    "solid-solid": Space(False, _same, False),
+}
+
+
+@dataclass(frozen=True)
+class Hypothesis:
+    """A recording mistake and how to undo it: ``undo(T, p) -> (T, p)`` in SI."""
+
+    name: str
+    undo: Callable[[np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray]]
+
+
+def _factor(f: float) -> Callable:
+    return lambda T, p: (T, p * f)
+
+
+def _shift_T(d: float) -> Callable:
+    return lambda T, p: (T + d, p)
+
+
+def _shift_p(d: float) -> Callable:
+    return lambda T, p: (T, p + d)
+
+
+def _as_its90(T: np.ndarray, p: np.ndarray):
+    """Temperatures that were IPTS-68 values stored as ITS-90: convert them now."""
+    from pipeline.ingest.scales import ipts68_to_its90
+
+    return np.asarray(ipts68_to_its90(T), dtype=float), p
+
+
+def _converted_twice(T: np.ndarray, p: np.ndarray):
+    """ITS-90 values declared IPTS-68 were converted once too often: undo that conversion."""
+    from pipeline.ingest.scales import its90_to_ipts68
+
+    return np.asarray(its90_to_ipts68(T), dtype=float), p
+
+
+def hypotheses(value_unit: str, T_unit: str, T_scale: str, p_atm: float) -> list[Hypothesis]:
+    """The mix-ups worth testing for a file declared in ``value_unit``, ``T_unit``, ``T_scale``."""
+    declared = _ALIASES.get(value_unit, value_unit)
+    out = []
+    if declared in PRESSURE_UNITS_PA:
+        size = PRESSURE_UNITS_PA[declared]
+        for unit, pa in PRESSURE_UNITS_PA.items():
+            if unit != declared:
+                out.append(Hypothesis(f"{unit} recorded as {declared} (factor {pa / size:.6g})",
+                                      _factor(pa / size)))
+    else:  # unknown declaration: the usual factors, named by what they would mean in Pa
+        for unit, pa in PRESSURE_UNITS_PA.items():
+            if unit != "Pa":
+                out.append(Hypothesis(f"values off by a factor {pa:.6g} (e.g. {unit} recorded as Pa)",
+                                      _factor(pa)))
+        out.append(Hypothesis("values off by a factor 0.001 (e.g. Pa recorded as kPa)", _factor(1e-3)))
+    if T_unit not in CELSIUS_UNITS:
+        out.append(Hypothesis("degC recorded as K (offset 273.15 K)", _shift_T(ZERO_CELSIUS_K)))
+    if T_unit not in KELVIN_UNITS:
+        out.append(Hypothesis("K recorded as degC (offset -273.15 K)", _shift_T(-ZERO_CELSIUS_K)))
+    out.append(Hypothesis(f"gauge pressure recorded as absolute (offset {p_atm:g} Pa)", _shift_p(p_atm)))
+    out.append(Hypothesis(f"absolute pressure recorded as gauge (offset -{p_atm:g} Pa)", _shift_p(-p_atm)))
+    if T_scale == "ITS-90":
+        out.append(Hypothesis("IPTS-68 temperatures recorded as ITS-90", _as_its90))
+    elif T_scale == "IPTS-68":
+        out.append(Hypothesis("ITS-90 temperatures recorded as IPTS-68 (converted twice)",
+                              _converted_twice))
+    return out
+
+
+# -- per file ------------------------------------------------------------------------------------
+def _reference(fluid: FluidData, s: ObsSeries):
+    try:
+        from pipeline.correlations.reference import reference_curve
+
+        curve = reference_curve(fluid.fluid_id, s.boundary, "pressure", s.solid_phase)
+    except (KeyError, LookupError, ValueError):
+        return None
+    return (lambda T: np.asarray(curve.value(T), dtype=float)), "the reference equation"
+
+
+def _robust(fluid: FluidData, group: ObsSeries, th, start_w=None):
+    space = SPACES[group.boundary]
+    return robust_fit(group.T.astype(float), space.y(group.value.astype(float)), group.file_path,
+                      space.design(fluid), poly_design(space.x, 1),
+                      space.floor(group.value, th["rel_floor"]), start_w)
+
+
+def _curve_of(fluid: FluidData, group: ObsSeries, weights: np.ndarray, th):
+    """The consensus of the points with weight as a callable T -> p, or None."""
+    model, _ = _robust(fluid, group, th, start_w=weights)
+    if model is None:
+        return None
+    back = SPACES[group.boundary].back
+    return lambda T: back(model(T))
+
+
+def _consensus(fluid: FluidData, group: ObsSeries, path: str, pooled_w, th):
+    """(callable T -> p, phrase naming it) for the file at ``path``, or (None, reason)."""
+    files = group.file_path
+    others = files != path
+    inlier_files = list(dict.fromkeys(files[others & (pooled_w > 0.5)]))
+    if len(inlier_files) >= 2:
+        cons = _curve_of(fluid, group, np.where(others, pooled_w, 0.0), th)
+        if cons is not None:
+            return cons, f"the robust fit of {len(inlier_files)} other files"
+    ref = _reference(fluid, group)
+    if ref is not None:
+        return ref
+    if len(inlier_files) == 1:
+        other = inlier_files[0]
+        kind_other = group.source_kind[files == other][0]
+        kind_self = group.source_kind[~others][0]
+        if SOURCE_RANK.get(kind_other, 9) > SOURCE_RANK.get(kind_self, 9):
+            return None, f"the only other file ({other}) comes from a less authoritative source"
+        cons = _curve_of(fluid, group, (files == other).astype(float), th)
+        if cons is not None:
+            return cons, f"the other file {other}"
+    return None, "no other file or reference equation to compare with"
+
+
+def _median_z(cons, T, p, rel_u, th) -> tuple[float, float]:
+    """|median normalised ln-residual| and the share of points the consensus covers."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = np.log(p) - np.log(cons(T))
+    ok = np.isfinite(r)
+    if not ok.any() or ok.mean() < th["min_coverage"]:
+        return math.inf, float(ok.mean())
+    s = np.sqrt(rel_u[ok] ** 2 + th["rel_floor"] ** 2)
+    return float(abs(np.median(r[ok] / s))), float(ok.mean())
+
+
+def _scores(cons, s: ObsSeries, rel_u, th) -> list[tuple[float, str]]:
+    out = []
+    for h in hypotheses(str(s.value_unit[0]), str(s.T_unit[0]), str(s.T_scale[0]), th["p_atm_Pa"]):
+        T2, p2 = h.undo(s.T.astype(float), s.value.astype(float))
+        if np.all(T2 > 0) and np.all(p2 > 0):  # NaN (outside a scale's range) fails too
+            out.append((_median_z(cons, T2, p2, rel_u, th)[0], h.name))
+    return sorted(out)
+
+
+def _diagnose(fluid: FluidData, s: ObsSeries, subject: str, path: str, cons, basis: str, th) -> Finding:
+    rel_u = np.nan_to_num(np.abs(s.u_value_si / s.value))
+    before, coverage = _median_z(cons, s.T, s.value, rel_u, th)
+    stat, limit = "|median z| vs consensus", th["z_max"]
+    ev = {"consensus": basis, "n_points": int(len(s)), "coverage": coverage,
+          "median_abs_z_before": before, "observations": s.refs(limit=5)}
+    if before <= limit:
+        return judge(fluid.fluid_id, subject, measured=before, limit=limit, statistic=stat,
+                     evidence=ev, context=f"{path} agrees with {basis}")
+    scores = _scores(cons, s, rel_u, th)
+    after, best = scores[0] if scores else (math.inf, None)
+    ev["hypotheses"] = {name: score for score, name in scores}
+    where = (f"outside the range of {basis}" if math.isinf(before)
+             else f"off {basis} (|median z| = {before:.3g} > {limit:g})")
+    measured = before if math.isfinite(before) else None
+    if best is not None and after <= limit and after <= th["collapse"] * before:
+        ev["diagnosis"] = best
+        return Finding(fluid.fluid_id, subject, VIOLATED,
+                       f"{path}: values look like {best}: the file lies {where}; corrected, "
+                       f"|median z| = {after:.3g}", measured, limit, stat, ev)
+    ev["diagnosis"] = None
+    return Finding(fluid.fluid_id, subject, WARN,
+                   f"{path} lies {where} but no unit or scale mix-up explains it (best: {best}, "
+                   f"|median z| = {after:.3g})", measured, limit, stat, ev)
+
+
+def _screen(fluid: FluidData, group: ObsSeries, pooled, pooled_w, th):
+    """The pooled consensus when three or more files carry weight in it, else None.
+
+    A file agreeing with the robust fit of the whole group (in which a minority of wrong files
+    has no weight) agrees with the others; only files off it need a leave-one-out consensus.
+    """
+    if pooled is None or len(set(group.file_path[pooled_w > 0.5])) < 3:
+        return None
+    back = SPACES[group.boundary].back
+    return lambda T: back(pooled(T))
+
+
+def _group_findings(fluid: FluidData, group: ObsSeries, th) -> list[Finding]:
+    several = len(set(group.file_path)) > 1
+    pooled, pooled_w = _robust(fluid, group, th) if several else (None, None)
+    if pooled_w is None:
+        pooled_w = np.ones(len(group))
+    screen = _screen(fluid, group, pooled, pooled_w, th)
+    n_files = len(set(group.file_path))
+    out = []
+    for path, s in group.by_file().items():
+        subject = f"file:{path}|{group.boundary}" + (f":{group.solid_phase}" if group.solid_phase else "")
+        if len(s) < th["min_points"]:
+            out.append(skipped(fluid.fluid_id, subject, f"{len(s)} points: too few to diagnose"))
+            continue
+        if screen is not None:
+            rel_u = np.nan_to_num(np.abs(s.u_value_si / s.value))
+            if _median_z(screen, s.T, s.value, rel_u, th)[0] <= th["z_max"]:
+                out.append(_diagnose(fluid, s, subject, path, screen,
+                                     f"the robust fit of all {n_files} files", th))
+                continue
+        cons, basis = _consensus(fluid, group, path, pooled_w, th)
+        if cons is None:
+            out.append(skipped(fluid.fluid_id, subject, basis))
+            continue
+        out.append(_diagnose(fluid, s, subject, path, cons, basis, th))
+    return out
+
+
+@register_check("data.unit-mixup", tags=("data", "units", "sources"),
+                purpose="A file off the consensus by a unit factor or offset gets the mix-up named.")
+def unit_mixup(fluid: FluidData, th):
+    """Each file's pressures are compared with the consensus of its group (a robust fit of the
+    other files, else the published reference equation): r = ln p − ln p_cons(T), normalised
+    by sqrt(u_rel^2 + rel_floor^2); the file is off when |median z| > z_max. Then each
+    hypothesis is undone and the median recomputed: pressure units (kPa, bar, MPa, atm, mmHg,
+    psi, hPa recorded as the declared unit: a factor), °C recorded as K (a 273.15 K offset),
+    gauge recorded as absolute (an offset of one atmosphere, p_atm_Pa), IPTS-68 recorded as
+    ITS-90 (the small ITS-90 − IPTS-68 difference, R. L. Rusby, J. Chem. Thermodyn. 23, 1153
+    (1991), from memory). A hypothesis explains the file when the median collapses below z_max
+    and below collapse times its first value; the message names it, e.g. "values look like kPa
+    recorded as Pa (factor 1000)". An off file no hypothesis explains is a warning.
+
+    Usual causes: a column header with the wrong unit, a spreadsheet that converted units
+    twice, a gauge reading, temperatures on the old scale.
+    """
+    out = []
+    for boundary, solid, quantity in fluid.groups():
+        if quantity == "pressure" and boundary in SPACES:
+            out.extend(_group_findings(fluid, fluid.series(boundary, "pressure", solid), th))
+    return out

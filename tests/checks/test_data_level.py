@@ -1,0 +1,120 @@
+"""data.monotonic, data.ranges, data.outliers, data.duplicates over stacked fluids."""
+
+import numpy as np
+
+from check_fixtures import by_subject, co2, sample_series, single, stack, water, water_observations
+from pipeline.checks import CheckBatch
+from pipeline.checks.data_level import duplicates, monotonic, outliers, ranges
+from pipeline.checks.thresholds import Thresholds
+from pipeline.correlations import reference_curve
+
+LV = reference_curve("water", "liquid-vapour", "pressure")  # IAPWS SR1-86
+
+
+def _run(fn, check_id, *fluids):
+    return fn(CheckBatch({f.fluid_id: f for f in fluids}), Thresholds.load().view(check_id))
+
+
+def _lab_file(values=None, T=np.arange(300.0, 401.0, 10.0), **kw):
+    frame = sample_series(LV, T, boundary="liquid-vapour", source_id="lab-c", **kw)
+    if values is not None:
+        frame["value_si"] = values
+    return frame
+
+
+def test_pressures_rising_with_temperature_pass_for_every_file_of_every_fluid():
+    """SR1-86 water tables and Span-Wagner CO2 vapour pressures rise with T in every file."""
+    found = _run(monotonic, "data.monotonic", water(), co2())
+    assert {f.fluid_id for f in found} == {"water", "carbon-dioxide"}
+    assert all(f.status == "pass" for f in found)
+
+
+def test_a_falling_step_fails_and_names_the_rows():
+    """A lab file where the 350 K value is entered 5 % below the 340 K one fails with both obs ids."""
+    lab = _lab_file()
+    lab.loc[5, "value_si"] = lab.loc[4, "value_si"] * 0.95
+    obs = stack(water_observations(), lab)
+    found = by_subject(_run(monotonic, "data.monotonic", water(observations=obs)))
+    bad = found["file:memory/lab-c.csv|liquid-vapour"]
+    assert bad.status == "violated" and bad.measured == 1
+    assert found["file:memory/sr1-86-table.csv|liquid-vapour"].status == "pass"
+
+
+def test_a_fall_within_the_uncertainty_passes():
+    """A 0.01 % dip with u = 0.1 % per point is noise, not a falling curve."""
+    lab = _lab_file(u_rel=1e-3)
+    lab.loc[5, "value_si"] = lab.loc[4, "value_si"] * 0.9999
+    obs = stack(water_observations(), lab)
+    found = by_subject(_run(monotonic, "data.monotonic", water(observations=obs)))
+    assert found["file:memory/lab-c.csv|liquid-vapour"].status == "pass"
+
+
+def test_values_in_physical_ranges_pass():
+    """Published water and CO2 data are positive and inside every bound."""
+    assert all(f.status == "pass" for f in _run(ranges, "data.ranges", water(), co2()))
+
+
+def test_negative_pressure_and_vapour_pressure_above_pc_fail():
+    """p = −5 Pa, and 30 MPa on the water liquid-vapour curve (pc = 22.064 MPa, IAPWS-95), are out of range."""
+    obs = stack(water_observations(), single("liquid-vapour", "pressure", 300.0, -5.0, file="memory/bad.csv"),
+                single("liquid-vapour", "pressure", 640.0, 30e6, file="memory/bad.csv"))
+    f = by_subject(_run(ranges, "data.ranges", water(observations=obs)))["liquid-vapour/pressure"]
+    assert f.status == "violated" and f.measured == 2
+    rules = {r for o in f.evidence["out_of_range"] for r in o["rules"]}
+    assert rules == {"value <= 0", "vapour pressure above pc"}
+
+
+def test_saturated_vapour_denser_than_critical_fails():
+    """ρ'' = 400 kg/m3 exceeds ρc = 322 kg/m3 (IAPWS-95): impossible on the saturation curve."""
+    obs = stack(water_observations(), single("liquid-vapour", "rho_vapour", 600.0, 400.0))
+    f = by_subject(_run(ranges, "data.ranges", water(observations=obs)))["liquid-vapour/rho_vapour"]
+    assert f.status == "violated"
+
+
+def _with_residuals(z):
+    obs = water_observations()
+    lv = obs["boundary"] == "liquid-vapour"
+    obs.loc[lv, "fit_id"] = "water-lv-fit"
+    obs.loc[lv, "z"] = z(lv.sum())
+    return obs
+
+
+def test_small_residuals_have_no_outliers():
+    """Residuals within |z| <= 2 of the fit give a passing outlier check."""
+    found = _run(outliers, "data.outliers", water(observations=_with_residuals(lambda n: np.linspace(-2, 2, n))))
+    assert [f.status for f in found] == ["pass"]
+
+
+def test_a_gross_outlier_is_reported_as_a_warning_candidate():
+    """One point at z = +9.1 (an 8 % excursion) violates |z| <= 3 and is named by obs id."""
+    def z(n):
+        out = np.zeros(n)
+        out[3] = 9.1
+        return out
+    (f,) = _run(outliers, "data.outliers", water(observations=_with_residuals(z)))
+    assert f.status == "violated" and f.measured == 9.1
+    assert len(f.evidence["outliers"]) == 1 and "z = +9.1" in f.message
+
+
+def test_fitter_flagged_point_counts_even_below_the_limit():
+    """A point the fitter flagged (is_outlier) is reported although its |z| = 2.5 < 3."""
+    obs = _with_residuals(lambda n: np.full(n, 0.5))
+    obs.loc[obs.index[obs["boundary"] == "liquid-vapour"][0], ["z", "is_outlier"]] = [2.5, True]
+    (f,) = _run(outliers, "data.outliers", water(observations=obs))
+    assert f.status == "violated"
+
+
+def test_distinct_files_have_no_duplicates():
+    """The water fixture's files sample SR1-86 at different temperatures: no shared points."""
+    found = _run(duplicates, "data.duplicates", water())
+    assert [f.status for f in found] == ["pass"]
+
+
+def test_a_table_entered_twice_under_two_files_is_flagged():
+    """The SR1-86 table copied into a second file shares all 19 points with the first."""
+    obs = water_observations()
+    copy = obs[obs["file_path"] == "memory/sr1-86-table.csv"].copy()
+    copy["file_path"], copy["source_id"] = "memory/copy.csv", "compilation"
+    found = by_subject(_run(duplicates, "data.duplicates", water(observations=stack(obs, copy))))
+    f = found["files:memory/copy.csv|memory/sr1-86-table.csv"]
+    assert f.status == "violated" and f.measured == 19
