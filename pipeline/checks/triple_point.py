@@ -146,8 +146,12 @@ def slopes(fluid: FluidData, th):
         if expected is None:
             continue
         value, u, ev_h = expected
-        dev = deviation_statistic(ratio - value, value, u if math.isfinite(u) else 0.0,
-                                  z_max=th["z_max"], rel_tol=th["rel_tol"])
+        # the slopes of two fitted curves differentiated at their end point are not known
+        # better than slope_rel_u (relative, standard); combined with u of the enthalpies
+        u_slopes = th.get("slope_rel_u", 1e-3) * value
+        u = math.hypot(u, u_slopes) if math.isfinite(u) else u_slopes
+        dev = deviation_statistic(ratio - value, value, u, z_max=th["z_max"],
+                                  rel_tol=th["rel_tol"])
         out.append(judge(fluid.fluid_id, f"{tp.label}|ratio", measured=dev.measured,
                          limit=dev.limit, statistic=dev.statistic, evidence={**ev, **ev_h,
                                                                             "expected": value},
