@@ -1,0 +1,193 @@
+"""What changed between two releases, and which sources caused it.
+
+Values are matched by ``value_id`` (stable across releases). A constant that changed reports
+old and new value and uncertainty and the change in units of the combined standard
+uncertainty, z = (new - old) / sqrt(u_old^2 + u_new^2). A curve that changed (form,
+coefficients or range) reports the largest such z over a grid of :data:`CURVE_GRID` points of
+the common range, with u from each curve's covariance (``Curve.u``), and the largest relative
+change. The causes come from the two provenance records: sources and raw entities that are used
+in one release and not the other, raw files whose content hash changed, and candidates whose
+stated value changed.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field
+
+import duckdb
+import numpy as np
+
+from pipeline.correlations import Curve
+from pipeline.errors import PublishError
+
+CURVE_GRID = 33
+
+
+@dataclass
+class ValueChange:
+    value_id: str
+    change: str                       # added | removed | changed
+    kind: str                         # constant | curve
+    unit: str
+    old: float | None = None
+    new: float | None = None
+    u_old: float | None = None
+    u_new: float | None = None
+    z: float | None = None
+    relative: float | None = None
+    detail: str = ""
+    causes: list[str] = field(default_factory=list)
+    sources_added: list[str] = field(default_factory=list)
+    sources_removed: list[str] = field(default_factory=list)
+
+
+@dataclass
+class ReleaseDiff:
+    release_a: str
+    release_b: str
+    changes: list[ValueChange]
+    unchanged: int
+
+    def asdict(self) -> dict:
+        return asdict(self)
+
+    def count(self, change: str) -> int:
+        return sum(c.change == change for c in self.changes)
+
+    def asstr(self) -> str:
+        return (f"{self.release_a} -> {self.release_b}: {self.count('added')} added, "
+                f"{self.count('removed')} removed, {self.count('changed')} changed, "
+                f"{self.unchanged} unchanged")
+
+
+def _load(con: duckdb.DuckDBPyConnection, release_id: str) -> dict[str, dict]:
+    if con.execute("SELECT count(*) FROM release WHERE release_id = ?", [release_id]).fetchone()[0] == 0:
+        known = [r[0] for r in con.execute("SELECT release_id FROM release ORDER BY created_at")
+                 .fetchall()]
+        raise PublishError(f"no release {release_id!r} in the store; known: "
+                           f"{', '.join(known) or 'none'}")
+    out: dict[str, dict] = {}
+    for table, kind in (("release_constant", "constant"), ("release_curve", "curve")):
+        cur = con.execute(f"SELECT * FROM {table} WHERE release_id = ? ORDER BY value_id",
+                          [release_id])
+        names = [d[0] for d in cur.description]
+        for row in cur.fetchall():
+            rec = dict(zip(names, row))
+            out[rec["value_id"]] = {"kind": kind, "row": rec}
+    cur = con.execute("SELECT value_id, was_attributed_to, was_derived_from FROM "
+                      "release_provenance WHERE release_id = ?", [release_id])
+    for value_id, attributed, derived in cur.fetchall():
+        if value_id in out:
+            out[value_id]["attributed"] = attributed
+            out[value_id]["derived"] = derived
+    return out
+
+
+def _curve(row: dict) -> Curve:
+    return Curve(form=row["form"], params=tuple(row["params"]),
+                 ref={"T_ref_K": row["T_ref_K"], "exponents": tuple(row["exponents"])},
+                 covariance=row["covariance"], T_min_K=row["T_min_K"], T_max_K=row["T_max_K"])
+
+
+def _entity_key(e: dict) -> tuple:
+    return (e["entity"], e["entity_id"], e["file_path"] or "")
+
+
+def causes(a: dict, b: dict) -> tuple[list[str], list[str], list[str]]:
+    """(causes in words, sources newly used, sources no longer used) between two records."""
+    used_a = {s["source_id"] for s in a.get("attributed", []) if s["used"]}
+    used_b = {s["source_id"] for s in b.get("attributed", []) if s["used"]}
+    ents_a = {_entity_key(e): e for e in a.get("derived", [])}
+    ents_b = {_entity_key(e): e for e in b.get("derived", [])}
+    out = []
+    for key in sorted(set(ents_a) | set(ents_b)):
+        ea, eb = ents_a.get(key), ents_b.get(key)
+        where = f"{key[0]} {key[1]}" + (f" ({key[2]})" if key[2] else "")
+        src = (eb or ea)["source_id"]
+        who = f" from {src}" if src else ""
+        if ea is None or not ea["used"]:
+            if eb is not None and eb["used"]:
+                out.append(f"now uses {where}{who}")
+            continue
+        if eb is None or not eb["used"]:
+            note = f": {eb['note']}" if eb is not None and eb["note"] else ""
+            out.append(f"no longer uses {where}{who}{note}")
+            continue
+        if ea["file_sha256"] != eb["file_sha256"]:
+            out.append(f"{where}{who}: file content changed "
+                       f"({(ea['file_sha256'] or '-')[:12]} -> {(eb['file_sha256'] or '-')[:12]})")
+        elif ea["value_si"] != eb["value_si"] or ea["u_si"] != eb["u_si"]:
+            out.append(f"{where}{who}: candidate {ea['value_si']!r} ± {ea['u_si']!r} -> "
+                       f"{eb['value_si']!r} ± {eb['u_si']!r}")
+        elif ea["row_numbers"] != eb["row_numbers"]:
+            out.append(f"{where}{who}: rows changed")
+    return out, sorted(used_b - used_a), sorted(used_a - used_b)
+
+
+def _z(old, new, u_old, u_new) -> float | None:
+    comb = math.hypot(u_old or 0.0, u_new or 0.0)
+    return (new - old) / comb if comb > 0 else None
+
+
+def _compare_curves(ra: dict, rb: dict) -> tuple[float | None, float | None, str]:
+    ca, cb = _curve(ra), _curve(rb)
+    lo, hi = max(ca.T_min_K, cb.T_min_K), min(ca.T_max_K, cb.T_max_K)
+    if not lo < hi:
+        return None, None, "the two curves' ranges do not overlap"
+    T = np.linspace(lo, hi, CURVE_GRID)
+    va, vb = ca.value(T), cb.value(T)
+    ua, ub = np.nan_to_num(ca.u(T)), np.nan_to_num(cb.u(T))
+    comb = np.hypot(ua, ub)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = np.where(comb > 0, (vb - va) / comb, np.nan)
+        rel = np.abs(vb / va - 1.0)
+    i = int(np.nanargmax(np.abs(z))) if np.isfinite(z).any() else None
+    detail = (f"{ra['form']} -> {rb['form']}, range {ra['T_min_K']:.6g}-{ra['T_max_K']:.6g} K -> "
+              f"{rb['T_min_K']:.6g}-{rb['T_max_K']:.6g} K")
+    if i is not None:
+        detail += f"; largest |z| at {T[i]:.6g} K"
+    return (float(z[i]) if i is not None else None,
+            float(np.nanmax(rel)) if np.isfinite(rel).any() else None, detail)
+
+
+_CURVE_KEYS = ("form", "params", "exponents", "T_ref_K", "T_min_K", "T_max_K", "covariance")
+
+
+def diff_releases(con: duckdb.DuckDBPyConnection, release_a: str, release_b: str) -> ReleaseDiff:
+    """Values added, removed and changed from ``release_a`` to ``release_b`` (store tables)."""
+    a, b = _load(con, release_a), _load(con, release_b)
+    changes, unchanged = [], 0
+    for vid in sorted(set(a) | set(b)):
+        va, vb = a.get(vid), b.get(vid)
+        kind = (vb or va)["kind"]
+        row = (vb or va)["row"]
+        if va is None or vb is None:
+            change = ValueChange(vid, "added" if va is None else "removed", kind, row["unit"])
+            if kind == "constant":
+                change.new = row["value_si"] if va is None else None
+                change.old = row["value_si"] if vb is None else None
+            change.causes, change.sources_added, change.sources_removed = causes(va or {}, vb or {})
+            changes.append(change)
+            continue
+        ra, rb = va["row"], vb["row"]
+        if kind == "constant":
+            if ra["value_si"] == rb["value_si"] and ra["u_si"] == rb["u_si"]:
+                unchanged += 1
+                continue
+            change = ValueChange(vid, "changed", kind, rb["unit"], ra["value_si"], rb["value_si"],
+                                 ra["u_si"], rb["u_si"],
+                                 _z(ra["value_si"], rb["value_si"], ra["u_si"], rb["u_si"]),
+                                 abs(rb["value_si"] / ra["value_si"] - 1.0)
+                                 if ra["value_si"] else None,
+                                 f"{ra['method']} -> {rb['method']}: {rb['method_detail']}")
+        else:
+            if all(ra[k] == rb[k] for k in _CURVE_KEYS):
+                unchanged += 1
+                continue
+            z, rel, detail = _compare_curves(ra, rb)
+            change = ValueChange(vid, "changed", kind, rb["unit"], z=z, relative=rel,
+                                 detail=detail)
+        change.causes, change.sources_added, change.sources_removed = causes(va, vb)
+        changes.append(change)
+    return ReleaseDiff(release_a, release_b, changes, unchanged)

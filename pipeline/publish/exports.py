@@ -1,0 +1,276 @@
+"""Exports of a release: Parquet, CSV and JSON of each table, and manifest.json.
+
+Layout of ``<root>/<release>/``: ``<table>.parquet``, ``<table>.csv``, ``<table>.json`` for the
+tables ``release``, ``constants``, ``curves``, ``provenance``, and ``manifest.json``
+(``{"release_id", "fingerprint", "files": [{"path", "sha256", "bytes"}]}``, written last).
+
+The files are a deterministic function of the rows (no timestamps, fixed column order, rows
+sorted by value_id, floats written as their shortest round-trip text), so equal inputs give
+byte-identical files. CSV cells of list and struct columns hold sort-keyed compact JSON; an
+empty cell is NULL only in a nullable column.
+
+:func:`write_release_folder` writes into a temporary folder beside the final one, validates
+every file - the JSON document against ``schemas/release-<table>.schema.json``; the Parquet and
+CSV files by reading them back and comparing every row with the rows written (and those rows
+against the same schema) - and only then renames the folder into place (an atomic rename).
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import json
+import os
+import shutil
+from dataclasses import dataclass
+from pathlib import Path
+
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from pipeline.errors import PublishError
+from pipeline.ingest.contract import schema_errors
+
+MANIFEST = "manifest.json"
+FORMATS = ("parquet", "csv", "json")
+
+_STR, _F64, _I32, _I64, _BOOL = pa.string(), pa.float64(), pa.int32(), pa.int64(), pa.bool_()
+
+
+def _f(name: str, typ: pa.DataType, nullable: bool = False) -> pa.Field:
+    return pa.field(name, typ, nullable=nullable)
+
+
+_SOURCE = pa.struct([_f("source_id", _STR), _f("kind", _STR, True), _f("citation", _STR, True),
+                     _f("doi", _STR, True), _f("used", _BOOL)])
+_ENTITY = pa.struct([_f("entity", _STR), _f("entity_id", _STR), _f("source_id", _STR, True),
+                     _f("file_sha256", _STR, True), _f("file_path", _STR, True),
+                     _f("row_numbers", pa.list_(_I64)), _f("obs_ids", pa.list_(_I64)),
+                     _f("value_si", _F64, True), _f("u_si", _F64, True), _f("used", _BOOL),
+                     _f("note", _STR)])
+_FINDING = pa.struct([_f("check_id", _STR), _f("subject", _STR), _f("status", _STR),
+                      _f("message", _STR)])
+
+#: table -> Arrow schema (column order = the store's table; nullable = NULL allowed)
+SCHEMAS: dict[str, pa.Schema] = {
+    "release": pa.schema([
+        _f("release_id", _STR), _f("fingerprint", _STR), _f("pipeline_version", _STR),
+        _f("with_failed_checks", _BOOL), _f("checks_failed", _I32), _f("checks_errored", _I32),
+        _f("checks_warned", _I32), _f("n_constants", _I32), _f("n_curves", _I32),
+        _f("n_provenance", _I32), _f("policy_sha256", _STR), _f("policy_json", _STR),
+        _f("decisions_json", _STR)]),
+    "constants": pa.schema([
+        _f("release_id", _STR), _f("value_id", _STR), _f("fluid_id", _STR), _f("point", _STR),
+        _f("property", _STR), _f("value_si", _F64), _f("u_si", _F64, True), _f("unit", _STR),
+        _f("method", _STR), _f("method_detail", _STR), _f("n_candidates", _I32),
+        _f("n_used", _I32), _f("birge_ratio", _F64, True), _f("source_ids", pa.list_(_STR)),
+        _f("check_status", _STR)]),
+    "curves": pa.schema([
+        _f("release_id", _STR), _f("value_id", _STR), _f("curve_id", _STR), _f("fluid_id", _STR),
+        _f("boundary", _STR), _f("solid_phase", _STR), _f("quantity", _STR), _f("unit", _STR),
+        _f("form", _STR), _f("form_citation", _STR), _f("link", _STR),
+        _f("T_ref_K", _F64, True), _f("reference_value_si", _F64),
+        _f("param_names", pa.list_(_STR)), _f("params", pa.list_(_F64)),
+        _f("exponents", pa.list_(_F64)), _f("covariance", pa.list_(pa.list_(_F64)), True),
+        _f("T_min_K", _F64), _f("T_max_K", _F64), _f("n_points", _I32), _f("n_used", _I32),
+        _f("n_flagged", _I32), _f("weighted_rms", _F64, True), _f("reduced_chi2", _F64, True),
+        _f("input_hash", _STR), _f("check_status", _STR)]),
+    "provenance": pa.schema([
+        _f("release_id", _STR), _f("value_id", _STR), _f("fluid_id", _STR),
+        _f("value_kind", _STR), _f("method", _STR), _f("fit_id", _STR, True),
+        _f("was_generated_by", _STR), _f("was_attributed_to", pa.list_(_SOURCE)),
+        _f("was_derived_from", pa.list_(_ENTITY)), _f("checks", pa.list_(_FINDING)),
+        _f("decision_ids", pa.list_(_STR))]),
+}
+#: table -> store table it fills
+STORE_TABLES = {"release": "release", "constants": "release_constant",
+                "curves": "release_curve", "provenance": "release_provenance"}
+JSON_SCHEMAS = {"release": "release-info.schema.json",
+                "constants": "release-constants.schema.json",
+                "curves": "release-curves.schema.json",
+                "provenance": "release-provenance.schema.json"}
+MANIFEST_SCHEMA = "release-manifest.schema.json"
+
+
+def arrow_table(table: str, rows: list[dict]) -> pa.Table:
+    """The rows of one export table as Arrow with its fixed schema."""
+    schema = SCHEMAS[table]
+    return pa.Table.from_pylist([{f.name: r[f.name] for f in schema} for r in rows], schema=schema)
+
+
+# --- text forms -----------------------------------------------------------------------------
+
+def _json_text(value) -> str:
+    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
+                      allow_nan=False)
+
+
+def _cell(value, typ: pa.DataType) -> str:
+    if value is None:
+        return ""
+    if pa.types.is_list(typ) or pa.types.is_struct(typ):
+        return _json_text(value)
+    if pa.types.is_boolean(typ):
+        return "true" if value else "false"
+    if pa.types.is_floating(typ):
+        return repr(float(value))
+    return str(value)
+
+
+def _uncell(text: str, field: pa.Field):
+    if text == "" and field.nullable:
+        return None
+    typ = field.type
+    if pa.types.is_list(typ) or pa.types.is_struct(typ):
+        return json.loads(text)
+    if pa.types.is_boolean(typ):
+        return {"true": True, "false": False}[text]
+    if pa.types.is_floating(typ):
+        return float(text)
+    if pa.types.is_integer(typ):
+        return int(text)
+    return text
+
+
+def csv_bytes(table: str, rows: list[dict]) -> bytes:
+    schema = SCHEMAS[table]
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(schema.names)
+    for r in rows:
+        writer.writerow([_cell(r[f.name], f.type) for f in schema])
+    return buf.getvalue().encode("utf-8")
+
+
+def read_csv_rows(table: str, data: bytes) -> list[dict]:
+    schema = SCHEMAS[table]
+    reader = csv.reader(io.StringIO(data.decode("utf-8"), newline=""))
+    header = next(reader)
+    if header != schema.names:
+        raise PublishError(f"{table}.csv header {header} is not {schema.names}")
+    return [{f.name: _uncell(v, f) for f, v in zip(schema, line)} for line in reader]
+
+
+def json_document(release_id: str, table: str, rows: list[dict]) -> dict:
+    return {"release_id": release_id, "table": table, "columns": SCHEMAS[table].names,
+            "rows": [{f.name: r[f.name] for f in SCHEMAS[table]} for r in rows]}
+
+
+def json_bytes(document: dict) -> bytes:
+    return (json.dumps(document, sort_keys=True, indent=1, ensure_ascii=False, allow_nan=False)
+            + "\n").encode("utf-8")
+
+
+def parquet_bytes(table: str, rows: list[dict]) -> bytes:
+    sink = pa.BufferOutputStream()
+    pq.write_table(arrow_table(table, rows), sink, compression="zstd", write_statistics=True)
+    return sink.getvalue().to_pybytes()
+
+
+# --- validation ------------------------------------------------------------------------------
+
+def _check_schema(document, schema_name: str, what: str) -> None:
+    problems = schema_errors(document, schema_name)
+    if problems:
+        where, msg = problems[0]
+        raise PublishError(f"{what} does not match {schema_name} at {where}: {msg} "
+                           f"({len(problems)} problem(s))")
+
+
+def validate_folder(folder: Path, release_id: str, tables: dict[str, list[dict]]) -> None:
+    """Every file of an export folder against the schemas and against the rows written."""
+    for table, rows in tables.items():
+        expected = json_document(release_id, table, rows)
+        for fmt in FORMATS:
+            path = folder / f"{table}.{fmt}"
+            if fmt == "json":
+                doc = json.loads(path.read_text("utf-8"))
+                _check_schema(doc, JSON_SCHEMAS[table], path.name)
+                back = doc["rows"]
+            elif fmt == "csv":
+                back = read_csv_rows(table, path.read_bytes())
+            else:
+                back = pq.read_table(path).to_pylist()
+            if fmt != "json":
+                _check_schema({**expected, "rows": back}, JSON_SCHEMAS[table], path.name)
+            if back != expected["rows"]:
+                bad = next(i for i, (a, b) in enumerate(zip(back, expected["rows"])) if a != b) \
+                    if len(back) == len(expected["rows"]) else "count"
+                raise PublishError(f"{path.name} does not read back as written (row {bad})")
+    manifest = json.loads((folder / MANIFEST).read_text("utf-8"))
+    _check_schema(manifest, MANIFEST_SCHEMA, MANIFEST)
+    for entry in manifest["files"]:
+        data = (folder / entry["path"]).read_bytes()
+        if hashlib.sha256(data).hexdigest() != entry["sha256"] or len(data) != entry["bytes"]:
+            raise PublishError(f"{entry['path']} does not match its manifest entry")
+
+
+# --- writing -----------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class ExportResult:
+    folder: Path
+    manifest: dict
+    written: bool     # False when an identical folder was already in place
+
+
+def _write_files(folder: Path, release_id: str, fingerprint: str,
+                 tables: dict[str, list[dict]]) -> dict:
+    files = {}
+    for table, rows in tables.items():
+        files[f"{table}.parquet"] = parquet_bytes(table, rows)
+        files[f"{table}.csv"] = csv_bytes(table, rows)
+        files[f"{table}.json"] = json_bytes(json_document(release_id, table, rows))
+    entries = []
+    for name in sorted(files):
+        (folder / name).write_bytes(files[name])
+        entries.append({"path": name, "sha256": hashlib.sha256(files[name]).hexdigest(),
+                        "bytes": len(files[name])})
+    manifest = {"release_id": release_id, "fingerprint": fingerprint, "files": entries}
+    (folder / MANIFEST).write_bytes(json_bytes(manifest))
+    return manifest
+
+
+def prepare_release_folder(root: Path, release_id: str, fingerprint: str,
+                           tables: dict[str, list[dict]]) -> tuple[Path, dict]:
+    """Write and validate the exports in a temporary folder under ``root``; return it."""
+    root.mkdir(parents=True, exist_ok=True)
+    tmp = root / f".tmp-{release_id}-{os.getpid()}"
+    if tmp.exists():
+        shutil.rmtree(tmp)
+    tmp.mkdir()
+    try:
+        manifest = _write_files(tmp, release_id, fingerprint, tables)
+        validate_folder(tmp, release_id, tables)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return tmp, manifest
+
+
+def existing_folder_matches(final: Path, manifest: dict) -> bool:
+    """True when ``final`` already holds this release (same manifest); False when absent.
+
+    Releases are immutable: a folder of the same name with other content is an error.
+    """
+    if not final.exists():
+        return False
+    try:
+        have = json.loads((final / MANIFEST).read_text("utf-8"))
+    except (OSError, json.JSONDecodeError):
+        have = None
+    if have != manifest:
+        raise PublishError("an export folder of this release exists with other content; "
+                           "releases are immutable (remove it or publish another name)",
+                           file=str(final))
+    return True
+
+
+def commit_release_folder(tmp: Path, final: Path, already: bool) -> bool:
+    """Rename the validated folder into place (atomic), or drop it when ``already`` there."""
+    if already:
+        shutil.rmtree(tmp, ignore_errors=True)
+        return False
+    os.rename(tmp, final)
+    return True

@@ -1,0 +1,186 @@
+"""Everything a release is made from, read from the store in a few set-based queries.
+
+:func:`load_inputs` returns :class:`ReleaseInputs`, plain JSON-safe data: fluids, sources,
+current fixed points and stated constants, enthalpy observations, current fitted curves with
+the raw rows behind each, and the findings of the check run the release rests on (with the
+ids their evidence names). The release content is a pure function of these inputs, the policy
+and the decisions, so the fingerprint - SHA-256 of their sort-keyed JSON - decides the content:
+equal fingerprints give equal files. The check run id itself is kept out of the fingerprint
+(a re-run of the checks with equal findings changes nothing).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import duckdb
+
+from pipeline import __version__
+from pipeline.errors import PublishError
+
+ENTHALPY_QUANTITIES = ("h_fusion", "h_vaporization", "h_sublimation")
+BAD_STATUSES = ("fail", "error")
+
+
+def _clean(value: Any) -> Any:
+    """JSON-safe copy: non-finite floats -> None, tuples -> lists."""
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {k: _clean(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_clean(v) for v in value]
+    return value
+
+
+def _rows(con: duckdb.DuckDBPyConnection, sql: str, params: list | None = None) -> list[dict]:
+    cur = con.execute(sql, params or [])
+    names = [d[0] for d in cur.description]
+    return [_clean(dict(zip(names, r))) for r in cur.fetchall()]
+
+
+def evidence_refs(evidence: Any) -> dict[str, list]:
+    """Ids a finding's evidence names: fixed points, observations, fits, discrepant sources and
+    stated constants (``"basis": "stated NAME (SOURCE)"``), found at any depth."""
+    fp, obs, fits, stated = set(), set(), set(), set()
+    discrepant: list[str] = []
+
+    def walk(node: Any) -> None:
+        if isinstance(node, dict):
+            for key, val in node.items():
+                if key == "fp_ids" and isinstance(val, list):
+                    fp.update(int(v) for v in val if isinstance(v, (int, float)))
+                elif key in ("fp_id", "obs_id") and isinstance(val, (int, float)):
+                    (fp if key == "fp_id" else obs).add(int(val))
+                elif key == "obs_ids" and isinstance(val, list):
+                    obs.update(int(v) for v in val if isinstance(v, (int, float)))
+                elif key == "fit_id" and isinstance(val, str):
+                    fits.add(val)
+                elif key == "basis" and isinstance(val, str) and val.startswith("stated "):
+                    name, _, rest = val[len("stated "):].partition(" (")
+                    stated.add((name, rest.rstrip(")")))
+                else:
+                    walk(val)
+        elif isinstance(node, list):
+            for item in node:
+                walk(item)
+
+    walk(evidence)
+    if isinstance(evidence, dict) and isinstance(evidence.get("discrepant"), list):
+        discrepant = sorted(str(s) for s in evidence["discrepant"])
+    return {"fp_ids": sorted(fp), "obs_ids": sorted(obs), "fit_ids": sorted(fits),
+            "discrepant": discrepant, "stated": sorted([n, s] for n, s in stated)}
+
+
+@dataclass
+class ReleaseInputs:
+    """The store's content a release is made from (JSON-safe lists of row dicts)."""
+
+    check_run_id: str
+    pipeline_version: str = __version__
+    fluids: list[dict] = field(default_factory=list)
+    sources: dict[str, dict] = field(default_factory=dict)
+    raw_files: dict[int, dict] = field(default_factory=dict)
+    fixed_points: list[dict] = field(default_factory=list)
+    constants: list[dict] = field(default_factory=list)
+    enthalpy_observations: list[dict] = field(default_factory=list)
+    fits: list[dict] = field(default_factory=list)
+    fit_rows: dict[str, list[dict]] = field(default_factory=dict)
+    checks: list[dict] = field(default_factory=list)
+
+    def counts(self) -> dict[str, int]:
+        """Findings of the check run per status."""
+        out: dict[str, int] = {}
+        for c in self.checks:
+            out[c["status"]] = out.get(c["status"], 0) + 1
+        return out
+
+    def bad_checks(self) -> list[dict]:
+        return [c for c in self.checks if c["status"] in BAD_STATUSES]
+
+    def fingerprint_doc(self, policy: dict, decisions: dict) -> dict:
+        """Everything the content depends on (not the check run id)."""
+        return {"pipeline_version": self.pipeline_version, "fluids": self.fluids,
+                "sources": self.sources,
+                "raw_files": {str(k): v for k, v in sorted(self.raw_files.items())},
+                "fixed_points": self.fixed_points, "constants": self.constants,
+                "enthalpy_observations": self.enthalpy_observations, "fits": self.fits,
+                "fit_rows": self.fit_rows, "checks": self.checks, "policy": policy,
+                "decisions": decisions}
+
+    def fingerprint(self, policy: dict, decisions: dict) -> str:
+        doc = json.dumps(self.fingerprint_doc(policy, decisions), sort_keys=True,
+                         separators=(",", ":"), allow_nan=False)
+        return hashlib.sha256(doc.encode("utf-8")).hexdigest()
+
+
+def latest_check_run(con: duckdb.DuckDBPyConnection) -> str:
+    """The newest finished check run; :class:`PublishError` when the store has none."""
+    row = con.execute("SELECT run_id FROM run WHERE kind = 'check' AND finished_at IS NOT NULL "
+                      "ORDER BY started_at DESC, run_id DESC LIMIT 1").fetchone()
+    if row is None:
+        raise PublishError("the store holds no finished check run; run 'fluidledger check' "
+                           "before publishing (a release rests on a check run)")
+    return row[0]
+
+
+_FITS = """
+SELECT fit_id, fluid_id, boundary, solid_phase, quantity, form, curve_json, n_points, n_used,
+       n_flagged, weighted_rms, reduced_chi2, input_hash, fit_run_id
+FROM fit WHERE is_current AND status = 'fitted' ORDER BY fit_id
+"""
+_FIT_ROWS = """
+SELECT r.fit_id, o.file_id,
+       CASE WHEN r.excluded_by IS NOT NULL THEN 'excluded' WHEN r.is_outlier THEN 'outlier'
+            WHEN r.z IS NULL THEN 'outside' ELSE 'used' END AS role,
+       coalesce(r.excluded_by, '') AS excluded_by,
+       list(o.row_number ORDER BY o.row_number, o.obs_id) AS row_numbers,
+       list(o.obs_id ORDER BY o.row_number, o.obs_id) AS obs_ids
+FROM fit_residual r
+JOIN fit f ON f.fit_id = r.fit_id AND f.is_current AND f.status = 'fitted'
+JOIN observation o ON o.obs_id = r.obs_id
+GROUP BY ALL ORDER BY r.fit_id, o.file_id, role, excluded_by
+"""
+
+
+def load_inputs(con: duckdb.DuckDBPyConnection, check_run_id: str | None = None) -> ReleaseInputs:
+    """Read the inputs of a release from an open store (the latest check run by default)."""
+    run_id = check_run_id or latest_check_run(con)
+    inp = ReleaseInputs(check_run_id=run_id)
+    inp.fluids = _rows(con, "SELECT fluid_id, name, formula, cas_rn, molar_mass_kg_mol "
+                            "FROM fluid ORDER BY fluid_id")
+    inp.sources = {r.pop("source_id"): r for r in _rows(
+        con, "SELECT source_id, kind, citation, doi, license FROM source ORDER BY source_id")}
+    inp.fixed_points = _rows(con, """
+        SELECT fp_id, fluid_id, kind, phases, T_K, u_T_K, p_Pa, u_p_Pa, rho_kg_m3, u_rho_kg_m3,
+               source_id, file_id, entry_number
+        FROM fixed_point_current ORDER BY fp_id""")
+    inp.constants = _rows(con, """
+        SELECT const_id, fluid_id, name, value_si, u_si, si_unit, source_id, file_id, entry_number
+        FROM stated_constant_current ORDER BY const_id""")
+    inp.enthalpy_observations = _rows(con, """
+        SELECT obs_id, fluid_id, boundary, solid_phase, quantity, T_K, u_T_K, value_si,
+               u_value_si, source_id, file_id, row_number
+        FROM observation_current WHERE list_contains(?, quantity) ORDER BY obs_id""",
+                                      [list(ENTHALPY_QUANTITIES)])
+    inp.fits = _rows(con, _FITS)
+    for fit in inp.fits:
+        fit["curve"] = json.loads(fit.pop("curve_json"))
+    for row in _rows(con, _FIT_ROWS):
+        inp.fit_rows.setdefault(row.pop("fit_id"), []).append(row)
+    file_ids = {r["file_id"] for r in inp.fixed_points + inp.constants + inp.enthalpy_observations}
+    file_ids |= {r["file_id"] for rows in inp.fit_rows.values() for r in rows}
+    if file_ids:
+        for r in _rows(con, "SELECT file_id, sha256, path, source_id FROM raw_file "
+                            "WHERE list_contains(?, file_id) ORDER BY file_id", [sorted(file_ids)]):
+            inp.raw_files[int(r.pop("file_id"))] = r
+    for r in _rows(con, "SELECT check_id, fluid_id, subject, status, message, evidence_json "
+                        "FROM check_result WHERE run_id = ? ORDER BY check_id, fluid_id, subject",
+                   [run_id]):
+        r["refs"] = evidence_refs(json.loads(r.pop("evidence_json") or "{}"))
+        inp.checks.append(r)
+    return inp

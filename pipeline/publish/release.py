@@ -1,0 +1,303 @@
+"""Releases: build the content from the inputs, refuse or mark failures, write it everywhere.
+
+Recipe of :func:`publish`:
+
+1. read the inputs (:func:`pipeline.publish.inputs.load_inputs`): the release rests on the
+   latest check run; none -> :class:`PublishError`;
+2. refuse (:class:`ReleaseRefused`, exit code 1) when a finding of that run failed or errored,
+   unless ``allow_failures`` - then the release is marked ``with_failed_checks``;
+3. fingerprint the inputs; the release id is the given name or ``r-<12 hex of the fingerprint>``;
+   an existing release of that id must have the same fingerprint (releases are immutable);
+4. build the content (:func:`build_content`): recommended constants, curves, one provenance
+   record per value - a pure function of inputs, policy and decisions;
+5. write the exports into a temporary folder and validate them; write the published DuckDB
+   file as a temporary file;
+6. one store transaction: the release rows (if new), a release_publication row, the SQL macros;
+7. rename the export folder into place and swap the published file in (``os.replace``).
+
+A re-publish of unchanged inputs adds only a publication row; the files come out identical.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+import shutil
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+
+import duckdb
+
+from pipeline import __version__
+from pipeline.correlations import Curve
+from pipeline.errors import EXIT_CHECK_FAILED, PublishError
+from pipeline.ingest.stage import new_run_id, utcnow
+from pipeline.publish import exports, provenance as prov, published, sqlmacros
+from pipeline.publish.inputs import ReleaseInputs, load_inputs
+from pipeline.publish.policy import NO_DECISIONS, Decisions, Policy
+from pipeline.publish.recommend import Recommendation, recommend_all
+
+RELEASE_NAME = re.compile(r"^[a-z0-9][a-z0-9._-]{0,63}$")
+CURVE_UNITS = {"pressure": "Pa", "rho_liquid": "kg/m^3", "rho_vapour": "kg/m^3"}
+
+
+class ReleaseRefused(PublishError):
+    """The check run a release would rest on has failed or errored findings (exit code 1)."""
+
+    exit_code = EXIT_CHECK_FAILED
+
+
+@dataclass
+class PublishResult:
+    """What a publish did: the release, whether it was new, where it went, what is missing."""
+
+    release_id: str
+    fingerprint: str
+    check_run_id: str
+    created: bool
+    with_failed_checks: bool
+    checks_failed: int
+    checks_errored: int
+    n_constants: int
+    n_curves: int
+    export_dir: str
+    published_file: str
+    exports_written: bool
+    unresolved: list[dict] = field(default_factory=list)
+
+    def asdict(self) -> dict:
+        return asdict(self)
+
+    def asstr(self) -> str:
+        state = "made" if self.created else "re-published (unchanged)"
+        lines = [f"release {self.release_id} {state}: {self.n_constants} constants, "
+                 f"{self.n_curves} curves, fingerprint {self.fingerprint[:16]}..., resting on "
+                 f"check run {self.check_run_id}"]
+        if self.with_failed_checks:
+            lines.append(f"  MARKED: published with {self.checks_failed} failed and "
+                         f"{self.checks_errored} errored findings (--allow-failures)")
+        lines.append(f"  exports: {self.export_dir}"
+                     + ("" if self.exports_written else " (already in place, identical)"))
+        lines.append(f"  published file: {self.published_file}")
+        for u in self.unresolved:
+            lines.append(f"  no value: {u['fluid_id']} {u['property']}: {u['reason']}")
+        return "\n".join(lines)
+
+
+def _constant_row(r: Recommendation, release_id: str, status: str) -> dict:
+    return {"release_id": release_id, "value_id": r.value_id, "fluid_id": r.fluid_id,
+            "point": r.point, "property": r.prop, "value_si": float(r.value), "u_si": r.u,
+            "unit": r.unit, "method": r.method, "method_detail": r.detail,
+            "n_candidates": len(r.used) + len(r.left_out), "n_used": len(r.used),
+            "birge_ratio": r.birge_ratio,
+            "source_ids": sorted({c.source_id for c in r.used if c.source_id}),
+            "check_status": status}
+
+
+def _fit_decision_ids(inputs: ReleaseInputs, fit_ids) -> list[str]:
+    """Issue 8: curation decisions that excluded points of these fits (fit_residual.excluded_by)."""
+    return sorted({r["excluded_by"] for f in fit_ids for r in inputs.fit_rows.get(f, [])
+                   if r["excluded_by"]})
+
+
+def _constant_record(inputs: ReleaseInputs, r: Recommendation, policy: Policy,
+                     checks: prov.CheckIndex) -> prov.Record:
+    entities = []
+    for c in r.used:
+        entities.append({**c.entities[0], "used": True, "note": c.entities[0]["note"]
+                         or "used"})
+        entities += list(c.entities[1:])
+    for c, why in r.left_out:
+        entities.append({**c.entities[0], "used": False, "note": why})
+    refs = prov.Refs(subjects=frozenset({r.key}))
+    for c in r.used:
+        refs = refs | c.refs
+    fits = sorted({c.fit_id for c in r.used if c.fit_id})
+    activity = (f"fluidledger publish: recommendation by policy {policy.sha256[:12]} "
+                f"({r.method}: {r.detail})")
+    return prov.Record(r.value_id, r.fluid_id, "constant", r.method,
+                       fits[0] if len(fits) == 1 else None, activity, entities,
+                       checks.bearing(r.fluid_id, refs),
+                       list(r.decision_ids) + _fit_decision_ids(inputs, fits))  # issue 8
+
+
+def _curve_rows(inputs: ReleaseInputs, fit: dict, release_id: str,
+                checks: prov.CheckIndex) -> tuple[dict, prov.Record]:
+    curve = Curve.from_dict(fit["curve"])
+    form = curve.correlation_form
+    exps = list(curve.ref["exponents"])
+    sqlmacros.check_curve_fits(len(curve.params), len(exps), curve.form)
+    key = fit["boundary"] + (f":{fit['solid_phase']}" if fit["solid_phase"] else "")
+    value_id = f"{fit['fluid_id']}/curve:{key}/{fit['quantity']}"
+    bearing = checks.bearing(fit["fluid_id"], prov.fit_refs(inputs, fit))
+    cov = [list(row) for row in curve.covariance] if curve.covariance is not None else None
+    if cov is not None and not all(math.isfinite(v) for row in cov for v in row):
+        cov = None
+    row = {"release_id": release_id, "value_id": value_id, "curve_id": fit["fit_id"],
+           "fluid_id": fit["fluid_id"], "boundary": fit["boundary"],
+           "solid_phase": fit["solid_phase"], "quantity": fit["quantity"],
+           "unit": CURVE_UNITS[fit["quantity"]], "form": curve.form,
+           "form_citation": form.citation, "link": form.link, "T_ref_K": curve.ref["T_ref_K"],
+           "reference_value_si": float(curve.reference_value),
+           "param_names": list(sqlmacros.param_names(form, len(curve.params))), "params": list(curve.params),
+           "exponents": exps, "covariance": cov, "T_min_K": curve.T_min_K,
+           "T_max_K": curve.T_max_K, "n_points": fit["n_points"], "n_used": fit["n_used"],
+           "n_flagged": fit["n_flagged"], "weighted_rms": fit["weighted_rms"],
+           "reduced_chi2": fit["reduced_chi2"], "input_hash": fit["input_hash"],
+           "check_status": prov.worst_status(c["status"] for c in bearing)}
+    record = prov.Record(value_id, fit["fluid_id"], "curve", "fitted", fit["fit_id"],
+                         f"fluidledger fit run {fit['fit_run_id']} (form {curve.form})",
+                         prov.fit_entities(inputs, fit), bearing,
+                         _fit_decision_ids(inputs, [fit["fit_id"]]))  # issue 8
+    return row, record
+
+
+@dataclass
+class Content:
+    """The tables of a release (rows sorted by value_id) and what could not be recommended."""
+
+    tables: dict[str, list[dict]]
+    unresolved: list[dict]
+
+
+def build_content(inputs: ReleaseInputs, policy: Policy, decisions: Decisions,
+                  release_id: str, fingerprint: str) -> Content:
+    """The release tables: a pure function of the inputs, the policy and the decisions."""
+    checks = prov.CheckIndex(inputs.checks)
+    recs, unresolved = recommend_all(inputs, policy, decisions, checks)
+    constants, curves, records = [], [], []
+    for r in recs:
+        record = _constant_record(inputs, r, policy, checks)
+        constants.append(_constant_row(r, release_id,
+                                       prov.worst_status(c["status"] for c in record.checks)))
+        records.append(record)
+    for fit in inputs.fits:
+        row, record = _curve_rows(inputs, fit, release_id, checks)
+        curves.append(row)
+        records.append(record)
+    curves.sort(key=lambda r: r["value_id"])
+    records.sort(key=lambda r: r.value_id)
+    counts = inputs.counts()
+    release = {"release_id": release_id, "fingerprint": fingerprint,
+               "pipeline_version": inputs.pipeline_version,
+               "with_failed_checks": bool(inputs.bad_checks()),
+               "checks_failed": counts.get("fail", 0), "checks_errored": counts.get("error", 0),
+               "checks_warned": counts.get("warn", 0), "n_constants": len(constants),
+               "n_curves": len(curves), "n_provenance": len(records),
+               "policy_sha256": policy.sha256,
+               "policy_json": json.dumps(policy.asdict(), sort_keys=True),
+               "decisions_json": json.dumps(decisions.asdict(), sort_keys=True)}
+    tables = {"release": [release], "constants": constants, "curves": curves,
+              "provenance": [rec.row(inputs, release_id) for rec in records]}
+    return Content(tables, unresolved)
+
+
+def _refusal(inputs: ReleaseInputs) -> ReleaseRefused:
+    bad = inputs.bad_checks()
+    sample = "; ".join(f"{c['check_id']} {c['fluid_id']}"
+                       + (f" {c['subject']}" if c["subject"] else "") + f" ({c['status']})"
+                       for c in bad[:5])
+    more = f" and {len(bad) - 5} more" if len(bad) > 5 else ""
+    return ReleaseRefused(f"check run {inputs.check_run_id} has {len(bad)} failed or errored "
+                          f"finding(s): {sample}{more}; fix them, or publish with "
+                          "--allow-failures to make a release marked as such")
+
+
+def publish(con: duckdb.DuckDBPyConnection, store_path: Path, *, name: str | None = None,
+            allow_failures: bool = False, out: Path | None = None,
+            policy: Policy | None = None, decisions: Decisions = NO_DECISIONS) -> PublishResult:
+    """Make (or re-publish) a release from the store open on ``con`` (writable).
+
+    Parameters
+    ----------
+    con : duckdb connection
+        The working store, opened for writing (the publish holds its lock throughout).
+    store_path : path
+        Where the store lives; the output root defaults to its folder.
+    name : str, optional
+        Release name (lower-case slug); default ``r-`` + 12 hex digits of the fingerprint.
+    allow_failures : bool
+        Publish although the check run has failed or errored findings; the release is marked.
+    out : path, optional
+        Output root: ``<out>/<release>/`` for the exports and ``<out>/published.duckdb``.
+    policy, decisions
+        Recommendation policy (default: the package's policy.toml) and curation decisions.
+    """
+    policy = policy or Policy.load()
+    if name is not None and not RELEASE_NAME.match(name):
+        raise PublishError(f"release name {name!r} must be a lower-case slug "
+                           f"({RELEASE_NAME.pattern})", key="--release")
+    root = Path(out) if out is not None else Path(store_path).parent
+    run_id = new_run_id("publish")
+    params = {"release": name, "allow_failures": allow_failures, "out": str(root)}
+    con.execute("INSERT INTO run VALUES (?, 'publish', ?, NULL, ?, ?, 'running', NULL)",
+                [run_id, utcnow(), __version__,
+                 json.dumps(params, sort_keys=True)])
+    try:
+        result = _publish(con, root, run_id, name, allow_failures, policy, decisions)
+    except ReleaseRefused as err:
+        _finish(con, run_id, "failed", {"refused": str(err)})
+        raise
+    except BaseException as err:
+        _finish(con, run_id, "error", {"error": f"{type(err).__name__}: {err}"})
+        raise
+    _finish(con, run_id, "ok" if result.created else "no-changes", result.asdict())
+    return result
+
+
+def _finish(con, run_id: str, status: str, summary: dict) -> None:
+    con.execute("UPDATE run SET finished_at = ?, status = ?, summary_json = ? WHERE run_id = ?",
+                [utcnow(), status, json.dumps(summary, sort_keys=True, default=str), run_id])
+
+
+def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisions):
+    inputs = load_inputs(con)
+    if inputs.bad_checks() and not allow_failures:
+        raise _refusal(inputs)
+    fingerprint = inputs.fingerprint(policy.asdict(), decisions.asdict())
+    release_id = name or f"r-{fingerprint[:12]}"
+    row = con.execute("SELECT fingerprint, check_run_id, created_at FROM release "
+                      "WHERE release_id = ?", [release_id]).fetchone()
+    if row is not None and row[0] != fingerprint:
+        raise PublishError(f"release {release_id} exists with other inputs (fingerprint "
+                           f"{row[0][:12]} vs {fingerprint[:12]}); releases are immutable: "
+                           "publish under another name", key="--release")
+    content = build_content(inputs, policy, decisions, release_id, fingerprint)
+    now = utcnow()
+    extra = {"check_run_id": row[1] if row else inputs.check_run_id,
+             "created_at": row[2] if row else now, "publish_run_id": run_id}
+    final_dir = root / release_id
+    target = root / published.PUBLISHED_NAME
+    tmp_dir, manifest = exports.prepare_release_folder(root, release_id, fingerprint,
+                                                       content.tables)
+    publication = {"release_id": release_id, "published_at": now, "publish_run_id": run_id,
+                   "export_dir": str(final_dir)}
+    try:
+        already = exports.existing_folder_matches(final_dir, manifest)
+        tmp_pub = published.build_published_file(target, content.tables, extra, publication)
+        con.execute("BEGIN TRANSACTION")
+        try:
+            if row is None:
+                published.insert_release_rows(con, content.tables, extra)
+            con.execute("INSERT INTO release_publication VALUES "
+                        "(nextval('release_publication_seq'), ?, ?, ?, ?, ?)",
+                        [release_id, now, run_id, str(final_dir), str(target)])
+            sqlmacros.install_macros(con)
+            sqlmacros.comment_view_columns(con, sqlmacros.CURATED_VIEWS)
+            con.execute("COMMIT")
+        except BaseException:
+            con.execute("ROLLBACK")
+            tmp_pub.unlink(missing_ok=True)
+            raise
+    except BaseException:
+        shutil.rmtree(tmp_dir, ignore_errors=True)
+        raise
+    written = exports.commit_release_folder(tmp_dir, final_dir, already)
+    published.swap_in(tmp_pub, target)
+    counts = inputs.counts()
+    return PublishResult(release_id, fingerprint, inputs.check_run_id, row is None,
+                         bool(inputs.bad_checks()), counts.get("fail", 0),
+                         counts.get("error", 0), len(content.tables["constants"]),
+                         len(content.tables["curves"]), str(final_dir), str(target), written,
+                         content.unresolved)

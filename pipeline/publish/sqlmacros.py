@@ -1,0 +1,270 @@
+"""SQL macros that evaluate curated curves with plain SQL (no Python UDFs).
+
+Every correlation form of :data:`pipeline.correlations.FORMS` gets an SQL expression generated
+from its definition: a *linear* form is ``link(P0, sum_i a_i phi_i(T))`` with the basis phi_i of
+its family (:data:`BASIS_SQL`, looked up along the class hierarchy) and the link of the form
+(``exp(P0 + S)`` for the log link, ``P0 (1 + S)`` for the identity link), exactly as
+:meth:`pipeline.correlations.LinearForm.evaluate` computes it; the three nonlinear forms have
+their equation written out (:data:`NONLINEAR_SQL`). A form without an SQL expression is an
+error at publish time, so a new form cannot be released without one.
+
+Coefficients live in ``curated_curves`` (``params``, ``exponents`` as DOUBLE lists, 1-based in
+SQL); the sum is unrolled over :data:`MAX_TERMS` terms, unused ones contributing
+``0 * phi(exponent 0)``. Macros persist in the DuckDB file and work from the plain ``duckdb``
+client; their parameter names never equal a column name of ``curated_curves`` (DuckDB would
+refuse the binding), and every name inside them (table aliases, CTEs, their columns) starts
+with ``fl_`` so that an argument expression such as ``c.fluid_id`` is never captured by a name
+of the macro body.
+
+The saturation temperature mirrors :meth:`pipeline.correlations.Curve.inverse`: the form is
+evaluated in its fit space on the same 129-point grid, the first sign change is bracketed, and
+60 bisection steps follow, in a recursive CTE.
+
+Macros (all NULL outside the curve's validity range or when no curve exists):
+
+``fl_vapour_pressure(fluid, temperature_K)`` [Pa]; ``fl_saturation_temperature(fluid,
+pressure_Pa)`` [K]; ``fl_melting_pressure(fluid, temperature_K, phase := '')`` [Pa];
+``fl_sublimation_pressure(fluid, temperature_K, phase := '')`` [Pa];
+``fl_saturated_liquid_density(fluid, temperature_K)`` and
+``fl_saturated_vapour_density(fluid, temperature_K)`` [kg/m^3];
+``fl_curve_value(fluid, boundary, phase, quantity, temperature_K)`` and
+``fl_curve_inverse(fluid, boundary, phase, quantity, value)`` for any curve;
+``fl_form_value(form, params, exponents, T_ref_K, temperature_K)`` for raw coefficients.
+"""
+
+from __future__ import annotations
+
+import re
+
+import duckdb
+
+from pipeline.correlations import FORMS, CorrelationForm, LinearForm
+from pipeline.correlations.base import TauPowerBasis
+from pipeline.correlations.melting import (IapwsMelting, MeltingPolynomial, MeltingSimonSum,
+                                           SimonGlatzel)
+from pipeline.correlations.sublimation import IapwsSublimation
+from pipeline.correlations.vapour_pressure import Antoine, AntoineExtended
+from pipeline.errors import PublishError
+
+MAX_TERMS = 8
+"""Sum terms unrolled in SQL; a curve with more is refused at publish time."""
+
+GRID_POINTS = 129     # as Curve.inverse(n_grid=129)
+BISECTION_STEPS = 60  # as pipeline.correlations.base.bracketed_inverse(n_iter=60)
+RANGE_RTOL = 1e-12    # as pipeline.correlations.base._RANGE_RTOL
+
+# Names used inside the expressions: P = params, E = exponents, R = T_ref_K, X = temperature_K
+_P, _E, _R, _X = "p_list", "e_list", "t_ref", "t_k"
+
+# basis phi_i(T) with {e} the i-th exponent, per family of linear forms (class -> template)
+BASIS_SQL: dict[type, str] = {
+    MeltingPolynomial: "pow({x} / {r} - 1, {e})",
+    MeltingSimonSum: "(pow({x} / {r}, {e}) - 1)",
+    IapwsMelting: "(1 - pow({x} / {r}, {e}))",
+    IapwsSublimation: "pow({x} / {r}, {e} - 1)",
+}
+_TAU_PREFACTOR = "({r} / {x}) * pow(1 - {x} / {r}, {e})"
+_TAU_PLAIN = "pow(1 - {x} / {r}, {e})"
+
+# nonlinear forms: the whole equation ({p1}.. are parameters, {e1} the first exponent)
+NONLINEAR_SQL: dict[type, str] = {
+    AntoineExtended: "exp({p1} - {p2} / ({x} + {p3}) + {p4} * ln({x}) + {p5} * pow({x}, {e1}))",
+    Antoine: "exp({p1} - {p2} / ({x} + {p3}))",
+    SimonGlatzel: "({p1} + {p2} * (pow({x} / {r}, {p3}) - 1))",
+}
+
+NONLINEAR_PARAM_NAMES: dict[type, tuple[str, ...]] = {
+    AntoineExtended: ("A", "B_K", "C_K", "D", "E"),
+    Antoine: ("A", "B_K", "C_K"),
+    SimonGlatzel: ("ref_Pa", "a_Pa", "c"),
+}
+
+_IDENT = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+
+
+def ident(name: str) -> str:
+    """An SQL identifier from code (table, view, column, macro name), validated."""
+    if not _IDENT.match(name):
+        raise ValueError(f"not a plain SQL identifier: {name!r}")
+    return name
+
+
+def text_literal(text: str) -> str:
+    """A quoted SQL string literal for fixed documentation text (COMMENT ON takes no parameters)."""
+    return "'" + str(text).replace("'", "''") + "'"
+
+
+def param_names(form: CorrelationForm, n_params: int) -> tuple[str, ...]:
+    """Names of a curve's parameters, in order (the SQL list positions 1..n)."""
+    if isinstance(form, LinearForm):
+        first = "ln_ref" if form.link == "log" else "ref"
+        return (first,) + tuple(f"a{i}" for i in range(1, n_params))
+    for cls in type(form).__mro__:
+        if cls in NONLINEAR_PARAM_NAMES:
+            return NONLINEAR_PARAM_NAMES[cls][:n_params]
+    return tuple(f"p{i}" for i in range(1, n_params + 1))
+
+
+def _basis_template(form: CorrelationForm) -> str:
+    if isinstance(form, TauPowerBasis):
+        return _TAU_PREFACTOR if form.prefactor else _TAU_PLAIN
+    for cls in type(form).__mro__:
+        if cls in BASIS_SQL:
+            return BASIS_SQL[cls]
+    raise PublishError(f"correlation form {form.name!r} has no SQL basis expression; add its "
+                       "family to pipeline.publish.sqlmacros.BASIS_SQL")
+
+
+def form_sql(form: CorrelationForm) -> str:
+    """SQL expression of ``form`` in p_list, e_list, t_ref and t_k (the macro's parameters)."""
+    fmt = {"x": _X, "r": _R}
+    if isinstance(form, LinearForm):
+        basis = _basis_template(form)
+        terms = " + ".join(
+            f"coalesce({_P}[{i + 2}], 0) * "
+            + basis.format(e=f"coalesce({_E}[{i + 1}], 0)", **fmt)
+            for i in range(MAX_TERMS))
+        if form.link == "log":
+            return f"exp({_P}[1] + ({terms}))"
+        return f"({_P}[1] * (1 + ({terms})))"
+    for cls in type(form).__mro__:
+        if cls in NONLINEAR_SQL:
+            params = {f"p{i}": f"{_P}[{i}]" for i in range(1, 6)}
+            return NONLINEAR_SQL[cls].format(e1=f"{_E}[1]", **params, **fmt)
+    raise PublishError(f"correlation form {form.name!r} has no SQL expression; add it to "
+                       "pipeline.publish.sqlmacros.NONLINEAR_SQL")
+
+
+def form_value_macro() -> str:
+    """``fl_form_value``: a CASE over every registered form (forms with one expression share it)."""
+    by_sql: dict[str, list[str]] = {}
+    for name in sorted(FORMS):
+        by_sql.setdefault(form_sql(FORMS[name]), []).append(name)
+    branches = "\n    ".join(
+        "WHEN form_name IN (" + ", ".join(text_literal(n) for n in names) + f") THEN {sql}"
+        for sql, names in by_sql.items())
+    return (f"CREATE OR REPLACE MACRO fl_form_value(form_name, {_P}, {_E}, {_R}, {_X}) AS "
+            f"CASE\n    {branches}\n    END")
+
+
+def _in_range(t: str) -> str:
+    return (f"{t} >= fl_c.T_min_K - {RANGE_RTOL!r} * abs(fl_c.T_min_K) AND "
+            f"{t} <= fl_c.T_max_K + {RANGE_RTOL!r} * abs(fl_c.T_max_K)")
+
+
+_CURVE = ("FROM curated_curves fl_c WHERE fl_c.fluid_id = fluid AND fl_c.boundary = bnd "
+          "AND fl_c.solid_phase = phase AND fl_c.quantity = qty")
+_FIT_SPACE = "CASE WHEN fl_c.link = 'log' THEN (CASE WHEN {v} > 0 THEN ln({v}) END) ELSE {v} END"
+
+
+def _g(t: str) -> str:
+    """Fit-space value of the curve c at temperature expression t (extrapolated)."""
+    v = f"fl_form_value(fl_c.form, fl_c.params, fl_c.exponents, fl_c.T_ref_K, {t})"
+    return _FIT_SPACE.format(v=v)
+
+
+def macro_statements() -> list[tuple[str, str, str]]:
+    """(name, CREATE statement, comment) of every macro, in dependency order."""
+    last = GRID_POINTS - 1
+    curve_value = (
+        "CREATE OR REPLACE MACRO fl_curve_value(fluid, bnd, phase, qty, temperature_K) AS ("
+        f"SELECT CASE WHEN {_in_range('temperature_K')} THEN fl_form_value(fl_c.form, fl_c.params, "
+        f"fl_c.exponents, fl_c.T_ref_K, temperature_K) END {_CURVE})")
+    target = _FIT_SPACE.format(v="target_value")
+    curve_inverse = f"""CREATE OR REPLACE MACRO fl_curve_inverse(fluid, bnd, phase, qty, target_value) AS (
+  WITH RECURSIVE
+  fl_cc AS (SELECT fl_c.* {_CURVE}),
+  fl_grid AS (
+    SELECT fl_k, CASE WHEN fl_k = {last} THEN fl_c.T_max_K
+                 ELSE fl_k * ((fl_c.T_max_K - fl_c.T_min_K) / {last}) + fl_c.T_min_K END AS fl_t
+    FROM fl_cc fl_c, range({GRID_POINTS}) fl_r(fl_k)),
+  fl_gd AS (SELECT fl_k, fl_t, {_g('fl_t')} - ({target}) AS fl_d FROM fl_grid, fl_cc fl_c),
+  fl_bracket AS (
+    SELECT arg_min(fl_a.fl_t, fl_a.fl_k) AS fl_lo, arg_min(fl_b.fl_t, fl_a.fl_k) AS fl_hi,
+           arg_min(fl_a.fl_d, fl_a.fl_k) AS fl_dlo
+    FROM fl_gd fl_a JOIN fl_gd fl_b ON fl_b.fl_k = fl_a.fl_k + 1
+    WHERE fl_a.fl_d * fl_b.fl_d <= 0 AND isfinite(fl_a.fl_d) AND isfinite(fl_b.fl_d)),
+  fl_bisect(fl_step, fl_lo, fl_hi, fl_dlo) AS (
+    SELECT 0, fl_lo, fl_hi, fl_dlo FROM fl_bracket
+    UNION ALL
+    SELECT fl_step + 1,
+           CASE WHEN fl_dlo * fl_dmid <= 0 THEN fl_lo ELSE fl_mid END,
+           CASE WHEN fl_dlo * fl_dmid <= 0 THEN fl_mid ELSE fl_hi END,
+           CASE WHEN fl_dlo * fl_dmid <= 0 THEN fl_dlo ELSE fl_dmid END
+    FROM (SELECT fl_step, fl_lo, fl_hi, fl_dlo, 0.5 * (fl_lo + fl_hi) AS fl_mid,
+                 {_g('0.5 * (fl_lo + fl_hi)')} - ({target}) AS fl_dmid
+          FROM fl_bisect, fl_cc fl_c WHERE fl_step < {BISECTION_STEPS}))
+  SELECT 0.5 * (fl_lo + fl_hi) FROM fl_bisect WHERE fl_step = {BISECTION_STEPS})"""
+    named = [
+        ("fl_vapour_pressure", "fluid, temperature_K",
+         "fl_curve_value(fluid, 'liquid-vapour', '', 'pressure', temperature_K)",
+         "Vapour pressure [Pa] of a fluid at temperature_K [K] from the curated liquid-vapour "
+         "curve; NULL outside its validity range."),
+        ("fl_saturation_temperature", "fluid, pressure_Pa",
+         "fl_curve_inverse(fluid, 'liquid-vapour', '', 'pressure', pressure_Pa)",
+         "Saturation temperature [K] of a fluid at pressure_Pa [Pa]: the curated vapour-pressure "
+         "curve inverted by grid bracketing and 60 bisection steps; NULL when the pressure is "
+         "outside the curve's range."),
+        ("fl_melting_pressure", "fluid, temperature_K, phase := ''",
+         "fl_curve_value(fluid, 'solid-liquid', phase, 'pressure', temperature_K)",
+         "Melting pressure [Pa] at temperature_K [K] of the solid phase (polymorph label such "
+         "as Ih, III; empty for a fluid with one solid); NULL outside the validity range."),
+        ("fl_sublimation_pressure", "fluid, temperature_K, phase := ''",
+         "fl_curve_value(fluid, 'solid-vapour', phase, 'pressure', temperature_K)",
+         "Sublimation pressure [Pa] at temperature_K [K] of the solid phase (empty for a fluid "
+         "with one solid); NULL outside the validity range."),
+        ("fl_saturated_liquid_density", "fluid, temperature_K",
+         "fl_curve_value(fluid, 'liquid-vapour', '', 'rho_liquid', temperature_K)",
+         "Saturated liquid density [kg/m^3] at temperature_K [K]; NULL outside the validity range."),
+        ("fl_saturated_vapour_density", "fluid, temperature_K",
+         "fl_curve_value(fluid, 'liquid-vapour', '', 'rho_vapour', temperature_K)",
+         "Saturated vapour density [kg/m^3] at temperature_K [K]; NULL outside the validity range."),
+    ]
+    out = [
+        ("fl_form_value", form_value_macro(),
+         "Value of a correlation form (curated_curves.form) with parameters, exponents and "
+         "reference temperature [K] at temperature_K [K], without range limits: Pa or kg/m^3."),
+        ("fl_curve_value", curve_value,
+         "Value of the curated curve (fluid, boundary, solid phase, quantity) at temperature_K "
+         "[K]: Pa or kg/m^3; NULL outside its validity range."),
+        ("fl_curve_inverse", curve_inverse,
+         "Temperature [K] at which the curated curve (fluid, boundary, solid phase, quantity) "
+         "takes target_value, lowest root within the validity range; NULL when none."),
+    ]
+    for name, args, body, comment in named:
+        out.append((name, f"CREATE OR REPLACE MACRO {ident(name)}({args}) AS {body}", comment))
+    return out
+
+
+MACRO_NAMES = tuple(name for name, _, _ in macro_statements())
+
+
+def check_curve_fits(n_params: int, n_exponents: int, form: str) -> None:
+    """Refuse a curve with more sum terms than the SQL expressions unroll."""
+    if n_exponents > MAX_TERMS or n_params > MAX_TERMS + 1:
+        raise PublishError(f"curve of form {form!r} has {n_params} parameters; the SQL macros "
+                           f"unroll at most {MAX_TERMS} terms (raise MAX_TERMS)")
+
+
+def install_macros(con: duckdb.DuckDBPyConnection) -> None:
+    """Create (or replace) every macro with its COMMENT in the database of ``con``."""
+    for name, statement, comment in macro_statements():
+        con.execute(statement)
+        con.execute(f"COMMENT ON MACRO {ident(name)} IS {text_literal(comment)}")
+
+
+def comment_view_columns(con: duckdb.DuckDBPyConnection, views: dict[str, str]) -> None:
+    """Give each column of a view the comment of the same column of its base table."""
+    for view, table in views.items():
+        rows = con.execute("SELECT column_name, comment FROM duckdb_columns() "
+                           "WHERE table_name = ? AND comment IS NOT NULL", [table]).fetchall()
+        have = {r[0] for r in con.execute("SELECT column_name FROM duckdb_columns() "
+                                          "WHERE table_name = ?", [view]).fetchall()}
+        for column, comment in rows:
+            if column in have:
+                con.execute(f"COMMENT ON COLUMN {ident(view)}.{ident(column)} IS "
+                            f"{text_literal(comment)}")
+
+
+CURATED_VIEWS = {"curated_constants": "release_constant", "curated_curves": "release_curve",
+                 "curated_provenance": "release_provenance", "curated_release": "release"}
