@@ -1,0 +1,152 @@
+"""Writing a report folder: results.json (schema-validated), junit.xml, summary.md,
+report.html, the ``latest`` pointer, and the plot cache.
+
+``results.json`` follows ``schemas/nightly-results.schema.json``: a ``nightly`` block (the
+nightly run record) beside the check run's ``run`` block and ``results``, which are
+exactly those of ``check-results.schema.json`` (referenced, not copied). ``junit.xml`` is the
+check stage's JUnit writer applied to the same check run, so its counts match the results.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import logging
+import os
+import secrets
+from dataclasses import dataclass
+from functools import lru_cache
+from pathlib import Path
+from typing import Any, Mapping
+
+from pipeline.checks.render import junit_xml
+from pipeline.checks.results import CheckRun
+from pipeline.errors import EXIT_INTERNAL, FluidLedgerError
+from pipeline.report.html import ReportPage, render_html
+from pipeline.report.summary import render_summary
+
+log = logging.getLogger(__name__)
+
+SCHEMA = "nightly-results.schema.json"
+CHECK_SCHEMA = "check-results.schema.json"
+FILES = {"html": "report.html", "results": "results.json", "junit": "junit.xml",
+         "summary": "summary.md", "log": "nightly.log"}
+
+
+class ReportSchemaError(FluidLedgerError):
+    """The results document does not match its schema: a bug, not a user error (exit 3)."""
+
+    exit_code = EXIT_INTERNAL
+
+
+@lru_cache(maxsize=1)
+def _validator():
+    import jsonschema
+    from referencing import Registry, Resource
+
+    from pipeline.ingest.contract import load_schema
+
+    nightly, check = load_schema(SCHEMA), load_schema(CHECK_SCHEMA)
+    registry = Registry().with_resources(
+        [(s["$id"], Resource.from_contents(s)) for s in (nightly, check)])
+    return jsonschema.Draft202012Validator(nightly, registry=registry)
+
+
+def validate_results(document: Mapping[str, Any]) -> None:
+    """Raise :class:`ReportSchemaError` unless ``document`` matches the nightly results schema."""
+    errors = sorted(_validator().iter_errors(document), key=lambda err: list(err.absolute_path))
+    if errors:
+        first = errors[0]
+        where = "/".join(str(p) for p in first.absolute_path) or "(top)"
+        raise ReportSchemaError(f"nightly results do not match {SCHEMA} at {where}: "
+                                f"{first.message} ({len(errors)} problem(s))")
+
+
+def results_document(nightly: Mapping[str, Any], check_run: CheckRun) -> dict:
+    checks = check_run.asdict()
+    return {"nightly": dict(nightly), "run": checks["run"], "results": checks["results"]}
+
+
+def _atomic_write(path: Path, data: str | bytes) -> None:
+    tmp = path.with_name(f".{path.name}.{secrets.token_hex(4)}.tmp")
+    if isinstance(data, bytes):
+        tmp.write_bytes(data)
+    else:
+        tmp.write_text(data, encoding="utf-8")
+    os.replace(tmp, path)
+
+
+def write_report(folder: Path, nightly: Mapping[str, Any], page: ReportPage) -> dict[str, str]:
+    """Write results.json (validated first), junit.xml, summary.md and report.html."""
+    folder.mkdir(parents=True, exist_ok=True)
+    paths = {k: folder / v for k, v in FILES.items()}
+    document = results_document(nightly, page.check_run)
+    validate_results(document)
+    _atomic_write(paths["results"], json.dumps(document, indent=1, allow_nan=False) + "\n")
+    _atomic_write(paths["junit"], junit_xml(page.check_run))
+    _atomic_write(paths["summary"], render_summary(nightly, str(paths["html"])))
+    _atomic_write(paths["html"], render_html(page))
+    return {k: str(p) for k, p in paths.items()}
+
+
+def update_latest(reports: Path, run_id: str) -> str:
+    """Point ``reports/latest`` at ``run_id``: a relative symlink, replaced atomically; where
+    symlinks cannot be made, a text file holding the run id. Returns the kind made."""
+    latest = reports / "latest"
+    tmp = reports / f".latest-{secrets.token_hex(4)}"
+    try:
+        os.symlink(run_id, tmp, target_is_directory=True)
+        if latest.is_dir() and not latest.is_symlink():
+            raise OSError(f"{latest} is a real directory; not replaced")
+        os.replace(tmp, latest)
+        return "symlink"
+    except (OSError, NotImplementedError) as err:
+        if tmp.is_symlink():
+            tmp.unlink()
+        log.info("reports/latest as a text file (%s)", err)
+        if latest.is_symlink():
+            latest.unlink()
+        if latest.is_dir():
+            return "unchanged"
+        _atomic_write(latest, run_id + "\n")
+        return "file"
+
+
+def source_hash(*modules) -> str:
+    """SHA-256 over the source files of ``modules`` (a change of code invalidates caches)."""
+    h = hashlib.sha256()
+    for m in modules:
+        h.update(Path(m.__file__).read_bytes())
+    return h.hexdigest()
+
+
+@dataclass
+class PlotCache:
+    """PNG files keyed by a hash of everything a plot shows, under ``reports/.cache/plots``."""
+
+    folder: Path
+    enabled: bool = True
+
+    def path(self, key: str) -> Path:
+        return self.folder / f"{key}.png"
+
+    def get(self, key: str) -> bytes | None:
+        p = self.path(key)
+        if self.enabled and p.is_file():
+            return p.read_bytes()
+        return None
+
+    def put(self, key: str, png: bytes) -> None:
+        self.folder.mkdir(parents=True, exist_ok=True)
+        _atomic_write(self.path(key), png)
+
+    def prune(self, keep: set[str]) -> int:
+        """Delete cached plots whose key is not in ``keep``; returns how many."""
+        if not self.folder.is_dir():
+            return 0
+        gone = 0
+        for p in self.folder.glob("*.png"):
+            if p.stem not in keep:
+                p.unlink(missing_ok=True)
+                gone += 1
+        return gone

@@ -1,0 +1,113 @@
+"""What changed between nightly runs: a discrepant source breaks the clean fluid, then leaves."""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import duckdb
+import pytest
+
+from nightly_fixtures import (ARGON_BATCHES, DISCREPANT_ARGON, add_batch, copy_demo, next_second,
+                              nightly)
+from pipeline.cli import main
+from pipeline.report.history import run_history
+
+
+@pytest.fixture(scope="module")
+def scenario(tmp_path_factory):
+    """Argon only (the clean fluid): a clean run, a run with a discrepant Tc source added, a
+    run after it was removed."""
+    tmp = tmp_path_factory.mktemp("nightly-argon")
+    raw = copy_demo(tmp, ARGON_BATCHES)
+    clean = nightly(tmp, raw)
+    batch = add_batch(raw, "lit-argon-critical-discrepant", DISCREPANT_ARGON)
+    next_second()
+    broken = nightly(tmp, raw)
+    shutil.rmtree(batch)
+    next_second()
+    fixed = nightly(tmp, raw)
+    return {"tmp": tmp, "raw": raw, "clean": clean, "broken": broken, "fixed": fixed}
+
+
+def test_clean_argon_passes_and_publishes(scenario):
+    """Argon alone passes every check (exit 0) and the run publishes a release."""
+    clean = scenario["clean"]
+    assert (clean.verdict, clean.exit_code) == ("pass", 0)
+    assert clean.counts["fail"] == 0 and clean.counts["error"] == 0
+    assert clean.publish["status"] in ("published", "skipped")
+    if clean.publish["status"] == "skipped":   # only while the publish stage is absent
+        assert clean.publish["reason"] == "publish skipped: stage unavailable"
+    else:
+        assert clean.publish["release_id"]
+
+
+def test_a_discrepant_source_is_a_new_failure(scenario):
+    """Adding a second argon Tc 0.5 K off makes the next run exit 1 and list
+    sources.agreement argon as a new failure, without publishing."""
+    broken = scenario["broken"]
+    assert (broken.verdict, broken.exit_code) == ("fail", 1)
+    new = [(t["check_id"], t["fluid_id"], t["before"], t["after"])
+           for t in broken.changes["new_failures"]]
+    assert ("sources.agreement", "argon", "skip", "fail") in new or \
+           ("sources.agreement", "argon", "pass", "fail") in new
+    assert broken.previous_run_id == scenario["clean"].run_id
+    assert broken.publish["status"] == "skipped"
+    summary = Path(broken.report["summary"]).read_text()
+    assert "New failures" in summary and "sources.agreement" in summary
+    assert broken.stages["ingest"].detail["loaded"] == ["lit-argon-critical-discrepant"]
+
+
+def test_only_the_changed_fluid_is_rechecked(scenario):
+    """The added batch touches argon only: argon is re-checked, the other fluids' results are
+    reused from the previous run."""
+    check = scenario["broken"].stages["check"].detail
+    assert check["rechecked"] == ["argon"]
+    assert check["n_reused"] == 3
+    assert check["reused_from"] == [scenario["clean"].check_run_id]
+
+
+def test_removing_the_source_lists_the_failure_as_fixed(scenario):
+    """Removing the batch again brings argon back to passing: listed as fixed, exit 0."""
+    fixed = scenario["fixed"]
+    assert fixed.exit_code == 0
+    assert [(t["check_id"], t["fluid_id"], t["before"]) for t in fixed.changes["fixed"]] == [
+        ("sources.agreement", "argon", "fail")]
+    assert not fixed.changes["new_failures"]
+    assert "Fixed (1)" in Path(fixed.report["summary"]).read_text()
+    # the fit of the critical point is back to the clean run's: same fits as the first run
+    assert fixed.stages["ingest"].detail["removed"]
+
+
+def test_the_report_shows_a_citation_with_markup_as_text(scenario):
+    """The discrepant source's citation holds <script>: the report escapes it."""
+    html = Path(scenario["broken"].report["html"]).read_text()
+    assert "&lt;script&gt;alert(&#x27;pwned&#x27;)&lt;/script&gt;" in html
+    assert "<script>alert" not in html and "<script" not in html
+    assert "argon &amp; its critical point" in html
+
+
+def test_history_lists_the_status_movements(scenario):
+    """history shows argon's sources.agreement moving to fail and back, run by run."""
+    with duckdb.connect(str(scenario["tmp"] / "store.duckdb"), read_only=True) as con:
+        entries = run_history(con, fluids=["argon"], limit=10)
+    assert [e.run_id for e in entries] == [scenario[k].check_run_id
+                                           for k in ("fixed", "broken", "clean")]
+    moved = {e.run_id: [(t.check_id, t.before, t.after) for t in e.transitions]
+             for e in entries}
+    assert ("sources.agreement", "fail", "pass") in moved[scenario["fixed"].check_run_id] or \
+           ("sources.agreement", "fail", "skip") in moved[scenario["fixed"].check_run_id]
+    assert any(c == "sources.agreement" and a == "fail"
+               for c, _, a in moved[scenario["broken"].check_run_id])
+    assert entries[0].nightly_run_id == scenario["fixed"].run_id
+
+
+def test_history_command_prints_transitions(scenario, capsys):
+    """`fluidledger history --fluid argon` prints 'sources.agreement argon: fail -> ...'."""
+    code = main(["history", "--store", str(scenario["tmp"] / "store.duckdb"), "--fluid",
+                 "argon", "--limit", "2"])
+    out = capsys.readouterr().out
+    assert code == 0
+    assert "sources.agreement argon: fail -> " in out
+    assert f"(run {scenario['fixed'].check_run_id})" in out
+    assert scenario["clean"].check_run_id not in out   # --limit 2 leaves the oldest out
