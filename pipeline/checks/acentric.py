@@ -25,9 +25,7 @@ def omega_from_curve(fluid: FluidData, th):
     if not fitted.covers(T, th["max_extrapolation_K"]):
         return None, (f"vapour-pressure fit {fitted.T_min_K:.6g}-{fitted.T_max_K:.6g} K does not "
                       f"cover 0.7 Tc = {T:.6g} K")
-    p = float(fitted.value(T, extrapolate=True))
-    slope = float(fitted.slope(T, extrapolate=True))
-    u_fit = float(fitted.u(T, extrapolate=True))
+    p, slope, u_fit = fitted.near(T)
     omega = -math.log10(p / cp.p_Pa) - 1.0
     d_omega_dTc = -T_REDUCED * slope / (p * LN10)
     u = math.sqrt((u_fit / (p * LN10)) ** 2 + (u0(cp.u_p_Pa) / (cp.p_Pa * LN10)) ** 2

@@ -86,10 +86,11 @@ def _file_sign(fluid: FluidData, path: str, s: ObsSeries, sign: int, basis: str,
     t = float(np.clip(sign * b / se, -_T_CLAMP, _T_CLAMP)) if se > 0 else math.copysign(_T_CLAMP, sign * b)
     context = (f"{path}: {len(s)} melting points, slope {b:.4g} Pa/K (t = {t:.3g}); {basis} so "
                f"the slope must be {_SIGN_WORD[sign]}")
+    wrong = t < -th["t_min"]
     return judge(fluid.fluid_id, subject, measured=t, limit=-th["t_min"], upper=False,
                  statistic="t = sign*slope/u(slope)", context=context,
                  evidence={"slope_Pa_K": b, "u_slope_Pa_K": se, "expected_sign": sign,
-                           "observations": s.refs()})
+                           "n_points": len(s), "observations": s.refs() if wrong else []})
 
 
 def _melting_findings(fluid: FluidData, solid_phase: str, th) -> list[Finding]:
@@ -155,14 +156,14 @@ def _clapeyron_point(fluid: FluidData, key, fitted: FittedCurve, T: float, th, t
     first, second = PHASES_OF[boundary]
     rho = {ph: density(fluid, ph, boundary, solid_phase, T, th["T_tol_K"]) for ph in (first, second)}
     if boundary == "solid-vapour" and rho["vapour"] is None and th["ideal_gas_vapour"]:
-        rho["vapour"] = ideal_gas_density(fluid, float(fitted.value(T, extrapolate=True)), T)
+        rho["vapour"] = ideal_gas_density(fluid, fitted.near(T)[0], T)
     if any(r is None for r in rho.values()):
         return None
     dv, u_dv = delta_v(fluid.molar_mass, rho[first], rho[second])
     clap = h.value / (T * dv)
     stated = all(math.isfinite(x.u) and x.u > 0 for x in (h, rho[first], rho[second]))
     u_clap = abs(clap) * math.hypot(h.u / h.value, u_dv / dv) if stated else 0.0
-    slope = float(fitted.slope(T, extrapolate=True))
+    slope = fitted.near(T)[1]
     dev = deviation_statistic(slope - clap, clap, u_clap, z_max=th["z_max"], rel_tol=th["rel_tol"])
     return dev, {"T_K": T, "slope_fit_Pa_K": slope, "slope_clapeyron_Pa_K": clap,
                  "u_clapeyron_Pa_K": u_clap, "ratio": slope / clap, "delta_h": h.evidence(),

@@ -46,8 +46,7 @@ def curve_end(fluid: FluidData, th):
         return out + [skipped(fluid.fluid_id, "p(Tc)", "the critical point states no pressure")]
     if gap > th["max_gap_fraction"]:
         return out + [skipped(fluid.fluid_id, "p(Tc)", "fit ends too far below Tc to evaluate p_vap(Tc)")]
-    p = float(fitted.value(Tc, extrapolate=True))
-    slope, u_fit = float(fitted.slope(Tc, extrapolate=True)), float(fitted.u(Tc, extrapolate=True))
+    p, slope, u_fit = fitted.near(Tc)
     u = combined_u(cp.u_p_Pa, slope * u0(cp.u_T_K), u_fit)
     dev = deviation_statistic(p - pc, pc, u, z_max=th["z_max"], rel_tol=th["rel_tol"])
     out.append(judge(fluid.fluid_id, "p(Tc)", measured=dev.measured, limit=dev.limit,

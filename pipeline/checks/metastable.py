@@ -35,8 +35,10 @@ def _side(fluid: FluidData, tp, curves: dict, side: str, th):
     worst = int(np.argmin(margin))
     return judge(fluid.fluid_id, subject, measured=float(margin[worst]), limit=-th["rel_tol"],
                  upper=False, statistic=f"min ({names[high]} - {names[low]})/{names[low]}",
-                 evidence={"T_K": T[ok].tolist(), f"{names[high]}_Pa": p_high[ok].tolist(),
-                           f"{names[low]}_Pa": p_low[ok].tolist(), "Tt_K": tp.T_K},
+                 evidence={"Tt_K": tp.T_K, "T_range_K": [float(T[ok].min()), float(T[ok].max())],
+                           "n_points": int(ok.sum()), "worst_T_K": float(T[ok][worst]),
+                           f"worst_{names[high]}_Pa": float(p_high[ok][worst]),
+                           f"worst_{names[low]}_Pa": float(p_low[ok][worst])},
                  context=f"{side} Tt = {tp.T_K:.6g} K ({phase}), {int(ok.sum())} points "
                          f"{T[ok].min():.5g}-{T[ok].max():.5g} K: {names[high]} must exceed "
                          f"{names[low]}; at {T[ok][worst]:.5g} K {p_high[ok][worst]:.5g} vs "

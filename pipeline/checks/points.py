@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Iterable
 
 FLUID_PHASES = ("vapour", "liquid")
@@ -42,6 +43,7 @@ def order_phases(phases: Iterable[str]) -> tuple[str, ...]:
     return tuple(p for p in FLUID_PHASES if p in phases) + tuple(sorted(phases - set(FLUID_PHASES)))
 
 
+@lru_cache(maxsize=4096)
 def parse_phases(text: str) -> tuple[str, ...]:
     """``"vapour,liquid,Ih"`` -> ``("vapour", "liquid", "Ih")`` in canonical order."""
     return order_phases(p.strip() for p in str(text).split(",") if p.strip())

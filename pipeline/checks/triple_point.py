@@ -27,9 +27,7 @@ def _on_curve(fluid: FluidData, tp: StatedPoint, a: str, b: str, th) -> Finding:
         return skipped(fluid.fluid_id, subject,
                        f"{curve_label(key)} fit range {fitted.T_min_K:.6g}-{fitted.T_max_K:.6g} K "
                        f"does not reach Tt = {Tt:.6g} K")
-    p = float(fitted.value(Tt, extrapolate=True))
-    slope = float(fitted.slope(Tt, extrapolate=True))
-    u_fit = float(fitted.u(Tt, extrapolate=True))
+    p, slope, u_fit = fitted.near(Tt)
     u = combined_u(tp.u_p_Pa, slope * u0(tp.u_T_K), u_fit)
     dT = (p - pt) / slope if slope else math.nan
     evidence = {**tp.evidence(), **fitted.evidence(), "p_curve_Pa": p, "slope_Pa_K": slope,
@@ -74,8 +72,7 @@ def _slopes_at(fluid: FluidData, tp: StatedPoint, th):
             return None, f"no fitted {name} curve"
         if not fitted.covers(tp.T_K, th["max_extrapolation_K"]):
             return None, f"{name} fit does not reach Tt = {tp.T_K:.6g} K"
-    s_vap = float(vap.slope(tp.T_K, extrapolate=True))
-    s_sub = float(sub.slope(tp.T_K, extrapolate=True))
+    s_vap, s_sub = vap.near(tp.T_K)[1], sub.near(tp.T_K)[1]
     return (solid, skey[1], s_vap, s_sub), None
 
 

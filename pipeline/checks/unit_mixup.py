@@ -221,10 +221,11 @@ def _diagnose(fluid: FluidData, s: ObsSeries, subject: str, path: str, cons, bas
     before, coverage = _median_z(cons, s.T, s.value, rel_u, th)
     stat, limit = "|median z| vs consensus", th["z_max"]
     ev = {"consensus": basis, "n_points": int(len(s)), "coverage": coverage,
-          "median_abs_z_before": before, "observations": s.refs(limit=5)}
+          "median_abs_z_before": before}
     if before <= limit:
         return judge(fluid.fluid_id, subject, measured=before, limit=limit, statistic=stat,
                      evidence=ev, context=f"{path} agrees with {basis}")
+    ev["observations"] = s.refs(limit=5)
     scores = _scores(cons, s, rel_u, th)
     after, best = scores[0] if scores else (math.inf, None)
     ev["hypotheses"] = {name: score for score, name in scores}

@@ -55,7 +55,8 @@ def run(args) -> int:
         if not fluids:
             raise CheckError(f"the store {store.path} holds no fluids; run 'fluidledger ingest' first")
         result = run_checks(fluids, checks=args.check, tags=args.tag, thresholds=thresholds,
-                            con=store.con, parameters={**_parameters(args), "decisions": decisions.path},
+                            con=store.con,
+                            parameters={**_parameters(args), "decisions": decisions.path},
                             postprocessors=(*POSTPROCESSORS, waivers))  # issue 8
     if args.json:
         write_json(result, args.json)

@@ -97,7 +97,8 @@ def _spec_exclude_observations(a) -> dict:
 def _exclude_source(p) -> None:
     p.add_argument("--fluid", required=True)
     p.add_argument("--source", required=True)
-    p.add_argument("--constant", help="only this constant (e.g. Tc); default: all the source's data")
+    p.add_argument("--constant",
+                   help="only this constant (e.g. Tc); default: all the source's data")
     p.add_argument("--point", help="fixed point of the constant, e.g. triple:Ih,III,liquid")
 
 

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import json
 
-from pipeline.decisions.apply import resolve_all
+from pipeline.decisions.apply import resolve_all, touch_text
 from pipeline.decisions.store import add_decisions_argument, load_decisions
 from pipeline.store import open_store, resolve_store_path
 from pipeline.textout import print_table
@@ -23,11 +23,6 @@ def add_arguments(p) -> None:
     add_decisions_argument(p)
     p.add_argument("--json", metavar="PATH", help="also write the listing as JSON ('-': stdout)")
     p.add_argument("--csv", action="store_true", help="print CSV instead of a table")
-
-
-def _touches(counts: dict) -> str:
-    parts = [f"{n} {k[:-1] if n == 1 else k}" for k, n in counts.items() if n]
-    return ", ".join(parts) or "nothing"
 
 
 def _listing(decisions, store_path) -> list[dict]:
@@ -55,7 +50,7 @@ def run(args) -> int:
         if not args.quiet:
             print(f"no decisions in {decisions.path}")
         return 0
-    table = [(r["state"].upper(), r["id"], r["kind"], r["who"], r["when"], _touches(r["touches"]),
+    table = [(r["state"].upper(), r["id"], r["kind"], r["who"], r["when"], touch_text(r["touches"]),
               r["what"] + (f" -- {r['reason']}" if r["reason"] else ""), r["why"]) for r in rows]
     if args.quiet:
         table = [t for t in table if t[0] in ("DANGLING", "LAPSED")]

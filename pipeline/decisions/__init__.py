@@ -34,5 +34,6 @@ from pipeline.decisions.store import (
 
 __all__ = [
     "ACTIONS", "DEFAULT_PATH", "Decision", "DecisionSet", "DecisionsError", "Touch", "WaiverStep",
-    "add_decisions_argument", "exclusions_for_fit", "load_decisions", "publish_decisions", "report_rows", "resolve_all", "with_threshold_overrides",
+    "add_decisions_argument", "exclusions_for_fit", "load_decisions", "publish_decisions",
+    "report_rows", "resolve_all", "with_threshold_overrides",
 ]

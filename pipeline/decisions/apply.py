@@ -2,7 +2,8 @@
 
 What the stages call:
 
-- :func:`exclusions_for_fit` — ``obs_id -> decision id`` for :func:`pipeline.fitting.stage.run_fit`;
+- :func:`exclusions_for_fit` — ``obs_id -> decision id`` for
+  :func:`pipeline.fitting.stage.run_fit`;
 - :class:`WaiverStep` — a check post-processor: a waived warn/fail finding becomes ``waived``
   with its decision id, unless the waiver lapsed (expired, or the check's input hash changed),
   then the finding keeps its status and the lapse is noted;
@@ -58,7 +59,6 @@ class Resolved:
     """What a reference points at now: observation ids, or why it dangles."""
 
     obs_ids: tuple[int, ...] = ()
-    files: tuple[str, ...] = ()
     dangling: str | None = None
 
 
@@ -95,11 +95,11 @@ def _resolve_rows(con, ref: ExcludeObservations) -> Resolved:
         what = f" {ref.quantity}" if ref.quantity else ""
         return Resolved(dangling=f"row(s) {_rows_text(missing)} of {ref.file} hold no{what} "
                                  f"observation in the current file{q}")
-    return Resolved(tuple(o for o, _ in found), (ref.file,))
+    return Resolved(tuple(o for o, _ in found))
 
 
 def _resolve_filter(con, ref: ExcludeObservations) -> Resolved:
-    sql = ("SELECT obs_id, file_path FROM observation_current WHERE fluid_id = ? AND source_id = ? "
+    sql = ("SELECT obs_id FROM observation_current WHERE fluid_id = ? AND source_id = ? "
            "AND boundary = ?")
     params: list[Any] = [ref.fluid, ref.source, ref.boundary]
     for cond, value in (("solid_phase = ?", ref.solid_phase), ("T_K >= ?", ref.T_min_K),
@@ -109,7 +109,7 @@ def _resolve_filter(con, ref: ExcludeObservations) -> Resolved:
     found = con.execute(sql + " ORDER BY obs_id", params).fetchall()
     if not found:
         return Resolved(dangling="the filter matches no current observation")
-    return Resolved(tuple(o for o, _ in found), tuple(sorted({f for _, f in found})))
+    return Resolved(tuple(o for (o,) in found))
 
 
 def _source_presence(con, fluid: str, source: str) -> dict[str, int]:
@@ -146,12 +146,12 @@ def resolve_observations(con, decision: Decision) -> Resolved:
     if decision.kind == "exclude_source" and action.constant is None:
         if not fluid_known(con, action.fluid):
             return Resolved(dangling=f"fluid {action.fluid} is not in the store")
-        found = con.execute("SELECT obs_id, file_path FROM observation_current WHERE fluid_id = ? "
+        found = con.execute("SELECT obs_id FROM observation_current WHERE fluid_id = ? "
                             "AND source_id = ? ORDER BY obs_id",
                             [action.fluid, action.source]).fetchall()
         if not found and not any(_source_presence(con, action.fluid, action.source).values()):
             return Resolved(dangling=f"source {action.source} has no data for {action.fluid}")
-        return Resolved(tuple(o for o, _ in found), tuple(sorted({f for _, f in found})))
+        return Resolved(tuple(o for (o,) in found))
     return Resolved()
 
 
@@ -393,7 +393,8 @@ def _fits_excluding(con, decision_id: str) -> tuple[list[str], set[int]]:
 def _values(con, decision_id: str) -> list[str]:
     if not _has_table(con, "release_provenance"):
         return []
-    rows = con.execute("SELECT value_id FROM curated_provenance WHERE list_contains(decision_ids, ?) "
+    rows = con.execute("SELECT value_id FROM curated_provenance WHERE "
+                       "list_contains(decision_ids, ?) "
                        "ORDER BY value_id", [decision_id]).fetchall()
     return [r[0] for r in rows]
 
@@ -485,9 +486,21 @@ def resolve_all(con, decisions: DecisionSet | Sequence[Decision], *,
     return [t for _, t in sorted(enumerate(out), key=lambda p: (rank[p[1].state], p[0]))]
 
 
+def touch_text(counts: dict[str, int]) -> str:
+    """``1 observation, 1 fit, 2 values`` (or ``nothing``)."""
+    parts = [f"{n} {k[:-1] if n == 1 else k}" for k, n in counts.items() if n]
+    return ", ".join(parts) or "nothing"
+
+
 def report_rows(con, decisions: DecisionSet | Sequence[Decision], *,
                 today: date | None = None, check_run_id: str | None = None) -> list[dict]:
-    """Rows of the report's decisions section (applied, lapsed, dangling), most urgent first:
-    id, kind, state, reason, who, when, why, what, fluid, touch counts and the touched items."""
-    return [t.asdict() for t in resolve_all(con, decisions, today=today,
-                                            check_run_id=check_run_id)]
+    """Rows of the report's decisions section, most urgent first (dangling, lapsed, pending,
+    applied, idle): flat text columns ``state, id, action, what, touches, note, why, who,
+    when``. ``state`` reads ``applied`` for a decision in force."""
+    rows = []
+    for t in resolve_all(con, decisions, today=today, check_run_id=check_run_id):
+        d = t.decision
+        rows.append({"state": "applied" if t.state == "active" else t.state, "id": d.id,
+                     "action": d.kind, "what": d.describe(), "touches": touch_text(t.counts()),
+                     "note": t.reason, "why": d.why, "who": d.who, "when": d.when.isoformat()})
+    return rows

@@ -91,7 +91,8 @@ def coerce_value(text: str, default: Any) -> Any:
         low = text.strip().lower()
         if low in _TRUE or low in _FALSE:
             return low in _TRUE
-        raise DecisionsError(f"expected true or false, got {text!r}", key="override_threshold.value")
+        raise DecisionsError(f"expected true or false, got {text!r}",
+                             key="override_threshold.value")
     if isinstance(default, (int, float)):
         try:
             number = float(text)

@@ -11,13 +11,13 @@ empty cell is NULL only in a nullable column.
 
 :func:`write_release_folder` writes into a temporary folder beside the final one, validates
 every file - the JSON document against ``schemas/release-<table>.schema.json``; the Parquet and
-CSV files by reading them back and comparing every row with the rows written (and those rows
-against the same schema) - and only then renames the folder into place (an atomic rename).
+CSV files by reading them back and comparing every row with the JSON rows - and only then renames the folder into place (an atomic rename).
 """
 
 from __future__ import annotations
 
 import csv
+import functools
 import hashlib
 import io
 import json
@@ -26,11 +26,12 @@ import shutil
 from dataclasses import dataclass
 from pathlib import Path
 
+import jsonschema
 import pyarrow as pa
 import pyarrow.parquet as pq
 
 from pipeline.errors import PublishError
-from pipeline.ingest.contract import schema_errors
+from pipeline.ingest.contract import load_schema
 
 MANIFEST = "manifest.json"
 FORMATS = ("parquet", "csv", "json")
@@ -170,36 +171,57 @@ def parquet_bytes(table: str, rows: list[dict]) -> bytes:
 
 # --- validation ------------------------------------------------------------------------------
 
-def _check_schema(document, schema_name: str, what: str) -> None:
-    problems = schema_errors(document, schema_name)
-    if problems:
-        where, msg = problems[0]
-        raise PublishError(f"{what} does not match {schema_name} at {where}: {msg} "
-                           f"({len(problems)} problem(s))")
+def _inline_refs(node, defs):
+    """The schema with local ``#/$defs/...`` references replaced by their targets (the release
+    schemas are not recursive); spares the validator a reference lookup per value."""
+    if isinstance(node, dict):
+        if set(node) >= {"$ref"} and str(node["$ref"]).startswith("#/$defs/"):
+            target = _inline_refs(defs[node["$ref"].split("/")[-1]], defs)
+            rest = {k: _inline_refs(v, defs) for k, v in node.items() if k != "$ref"}
+            return {**target, **rest} if rest else target
+        return {k: _inline_refs(v, defs) for k, v in node.items() if k != "$defs"}
+    if isinstance(node, list):
+        return [_inline_refs(v, defs) for v in node]
+    return node
+
+
+@functools.lru_cache(maxsize=None)
+def _validator(schema_name: str) -> jsonschema.Draft202012Validator:
+    schema = load_schema(schema_name)
+    return jsonschema.Draft202012Validator(_inline_refs(schema, schema.get("$defs", {})))
+
+
+def check_schema(document, schema_name: str, what: str) -> None:
+    """Raise :class:`PublishError` naming the first violation of ``schema_name``."""
+    validator = _validator(schema_name)
+    if validator.is_valid(document):
+        return
+    errors = sorted(validator.iter_errors(document), key=lambda e: list(e.absolute_path))
+    where = ".".join(str(p) for p in errors[0].absolute_path) or "(top level)"
+    raise PublishError(f"{what} does not match {schema_name} at {where}: {errors[0].message} "
+                       f"({len(errors)} problem(s))")
 
 
 def validate_folder(folder: Path, release_id: str, tables: dict[str, list[dict]]) -> None:
-    """Every file of an export folder against the schemas and against the rows written."""
+    """Every file of an export folder: the JSON document against its schema, the Parquet and
+    CSV files by reading them back and comparing every row with the JSON rows (so they satisfy
+    the same schema), and the manifest's hashes and sizes."""
     for table, rows in tables.items():
         expected = json_document(release_id, table, rows)
-        for fmt in FORMATS:
+        doc = json.loads((folder / f"{table}.json").read_text("utf-8"))
+        check_schema(doc, JSON_SCHEMAS[table], f"{table}.json")
+        if doc != expected:
+            raise PublishError(f"{table}.json does not read back as written")
+        for fmt in ("csv", "parquet"):
             path = folder / f"{table}.{fmt}"
-            if fmt == "json":
-                doc = json.loads(path.read_text("utf-8"))
-                _check_schema(doc, JSON_SCHEMAS[table], path.name)
-                back = doc["rows"]
-            elif fmt == "csv":
-                back = read_csv_rows(table, path.read_bytes())
-            else:
-                back = pq.read_table(path).to_pylist()
-            if fmt != "json":
-                _check_schema({**expected, "rows": back}, JSON_SCHEMAS[table], path.name)
-            if back != expected["rows"]:
-                bad = next(i for i, (a, b) in enumerate(zip(back, expected["rows"])) if a != b) \
-                    if len(back) == len(expected["rows"]) else "count"
+            back = read_csv_rows(table, path.read_bytes()) if fmt == "csv" else \
+                pq.read_table(path).to_pylist()
+            if back != doc["rows"]:
+                bad = next((i for i, (a, b) in enumerate(zip(back, doc["rows"])) if a != b),
+                           "count")
                 raise PublishError(f"{path.name} does not read back as written (row {bad})")
     manifest = json.loads((folder / MANIFEST).read_text("utf-8"))
-    _check_schema(manifest, MANIFEST_SCHEMA, MANIFEST)
+    check_schema(manifest, MANIFEST_SCHEMA, MANIFEST)
     for entry in manifest["files"]:
         data = (folder / entry["path"]).read_bytes()
         if hashlib.sha256(data).hexdigest() != entry["sha256"] or len(data) != entry["bytes"]:

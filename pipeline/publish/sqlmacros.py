@@ -13,8 +13,8 @@ SQL); the sum is unrolled over :data:`MAX_TERMS` terms, unused ones contributing
 ``0 * phi(exponent 0)``. Macros persist in the DuckDB file and work from the plain ``duckdb``
 client; their parameter names never equal a column name of ``curated_curves`` (DuckDB would
 refuse the binding), and every name inside them (table aliases, CTEs, their columns) starts
-with ``fl_`` so that an argument expression such as ``c.fluid_id`` is never captured by a name
-of the macro body.
+with ``fl__`` (reserved: do not give your own tables or aliases such names) so that an argument
+expression such as ``c.fluid_id`` is never captured by a name of the macro body.
 
 The saturation temperature mirrors :meth:`pipeline.correlations.Curve.inverse`: the form is
 evaluated in its fit space on the same 129-point grid, the first sign change is bracketed, and
@@ -148,18 +148,18 @@ def form_value_macro() -> str:
 
 
 def _in_range(t: str) -> str:
-    return (f"{t} >= fl_c.T_min_K - {RANGE_RTOL!r} * abs(fl_c.T_min_K) AND "
-            f"{t} <= fl_c.T_max_K + {RANGE_RTOL!r} * abs(fl_c.T_max_K)")
+    return (f"{t} >= fl__c.T_min_K - {RANGE_RTOL!r} * abs(fl__c.T_min_K) AND "
+            f"{t} <= fl__c.T_max_K + {RANGE_RTOL!r} * abs(fl__c.T_max_K)")
 
 
-_CURVE = ("FROM curated_curves fl_c WHERE fl_c.fluid_id = fluid AND fl_c.boundary = bnd "
-          "AND fl_c.solid_phase = phase AND fl_c.quantity = qty")
-_FIT_SPACE = "CASE WHEN fl_c.link = 'log' THEN (CASE WHEN {v} > 0 THEN ln({v}) END) ELSE {v} END"
+_CURVE = ("FROM curated_curves fl__c WHERE fl__c.fluid_id = fluid AND fl__c.boundary = bnd "
+          "AND fl__c.solid_phase = phase AND fl__c.quantity = qty")
+_FIT_SPACE = "CASE WHEN fl__c.link = 'log' THEN (CASE WHEN {v} > 0 THEN ln({v}) END) ELSE {v} END"
 
 
 def _g(t: str) -> str:
     """Fit-space value of the curve c at temperature expression t (extrapolated)."""
-    v = f"fl_form_value(fl_c.form, fl_c.params, fl_c.exponents, fl_c.T_ref_K, {t})"
+    v = f"fl_form_value(fl__c.form, fl__c.params, fl__c.exponents, fl__c.T_ref_K, {t})"
     return _FIT_SPACE.format(v=v)
 
 
@@ -168,33 +168,33 @@ def macro_statements() -> list[tuple[str, str, str]]:
     last = GRID_POINTS - 1
     curve_value = (
         "CREATE OR REPLACE MACRO fl_curve_value(fluid, bnd, phase, qty, temperature_K) AS ("
-        f"SELECT CASE WHEN {_in_range('temperature_K')} THEN fl_form_value(fl_c.form, fl_c.params, "
-        f"fl_c.exponents, fl_c.T_ref_K, temperature_K) END {_CURVE})")
+        f"SELECT CASE WHEN {_in_range('temperature_K')} THEN fl_form_value(fl__c.form, fl__c.params, "
+        f"fl__c.exponents, fl__c.T_ref_K, temperature_K) END {_CURVE})")
     target = _FIT_SPACE.format(v="target_value")
     curve_inverse = f"""CREATE OR REPLACE MACRO fl_curve_inverse(fluid, bnd, phase, qty, target_value) AS (
   WITH RECURSIVE
-  fl_cc AS (SELECT fl_c.* {_CURVE}),
-  fl_grid AS (
-    SELECT fl_k, CASE WHEN fl_k = {last} THEN fl_c.T_max_K
-                 ELSE fl_k * ((fl_c.T_max_K - fl_c.T_min_K) / {last}) + fl_c.T_min_K END AS fl_t
-    FROM fl_cc fl_c, range({GRID_POINTS}) fl_r(fl_k)),
-  fl_gd AS (SELECT fl_k, fl_t, {_g('fl_t')} - ({target}) AS fl_d FROM fl_grid, fl_cc fl_c),
-  fl_bracket AS (
-    SELECT arg_min(fl_a.fl_t, fl_a.fl_k) AS fl_lo, arg_min(fl_b.fl_t, fl_a.fl_k) AS fl_hi,
-           arg_min(fl_a.fl_d, fl_a.fl_k) AS fl_dlo
-    FROM fl_gd fl_a JOIN fl_gd fl_b ON fl_b.fl_k = fl_a.fl_k + 1
-    WHERE fl_a.fl_d * fl_b.fl_d <= 0 AND isfinite(fl_a.fl_d) AND isfinite(fl_b.fl_d)),
-  fl_bisect(fl_step, fl_lo, fl_hi, fl_dlo) AS (
-    SELECT 0, fl_lo, fl_hi, fl_dlo FROM fl_bracket
+  fl__cc AS (SELECT fl__c.* {_CURVE}),
+  fl__grid AS (
+    SELECT fl__k, CASE WHEN fl__k = {last} THEN fl__c.T_max_K
+                 ELSE fl__k * ((fl__c.T_max_K - fl__c.T_min_K) / {last}) + fl__c.T_min_K END AS fl__t
+    FROM fl__cc fl__c, range({GRID_POINTS}) fl__r(fl__k)),
+  fl__gd AS (SELECT fl__k, fl__t, {_g('fl__t')} - ({target}) AS fl__d FROM fl__grid, fl__cc fl__c),
+  fl__bracket AS (
+    SELECT arg_min(fl__a.fl__t, fl__a.fl__k) AS fl__lo, arg_min(fl__b.fl__t, fl__a.fl__k) AS fl__hi,
+           arg_min(fl__a.fl__d, fl__a.fl__k) AS fl__dlo
+    FROM fl__gd fl__a JOIN fl__gd fl__b ON fl__b.fl__k = fl__a.fl__k + 1
+    WHERE fl__a.fl__d * fl__b.fl__d <= 0 AND isfinite(fl__a.fl__d) AND isfinite(fl__b.fl__d)),
+  fl__bisect(fl__step, fl__lo, fl__hi, fl__dlo) AS (
+    SELECT 0, fl__lo, fl__hi, fl__dlo FROM fl__bracket
     UNION ALL
-    SELECT fl_step + 1,
-           CASE WHEN fl_dlo * fl_dmid <= 0 THEN fl_lo ELSE fl_mid END,
-           CASE WHEN fl_dlo * fl_dmid <= 0 THEN fl_mid ELSE fl_hi END,
-           CASE WHEN fl_dlo * fl_dmid <= 0 THEN fl_dlo ELSE fl_dmid END
-    FROM (SELECT fl_step, fl_lo, fl_hi, fl_dlo, 0.5 * (fl_lo + fl_hi) AS fl_mid,
-                 {_g('0.5 * (fl_lo + fl_hi)')} - ({target}) AS fl_dmid
-          FROM fl_bisect, fl_cc fl_c WHERE fl_step < {BISECTION_STEPS}))
-  SELECT 0.5 * (fl_lo + fl_hi) FROM fl_bisect WHERE fl_step = {BISECTION_STEPS})"""
+    SELECT fl__step + 1,
+           CASE WHEN fl__dlo * fl__dmid <= 0 THEN fl__lo ELSE fl__mid END,
+           CASE WHEN fl__dlo * fl__dmid <= 0 THEN fl__mid ELSE fl__hi END,
+           CASE WHEN fl__dlo * fl__dmid <= 0 THEN fl__dlo ELSE fl__dmid END
+    FROM (SELECT fl__step, fl__lo, fl__hi, fl__dlo, 0.5 * (fl__lo + fl__hi) AS fl__mid,
+                 {_g('0.5 * (fl__lo + fl__hi)')} - ({target}) AS fl__dmid
+          FROM fl__bisect, fl__cc fl__c WHERE fl__step < {BISECTION_STEPS}))
+  SELECT 0.5 * (fl__lo + fl__hi) FROM fl__bisect WHERE fl__step = {BISECTION_STEPS})"""
     named = [
         ("fl_vapour_pressure", "fluid, temperature_K",
          "fl_curve_value(fluid, 'liquid-vapour', '', 'pressure', temperature_K)",
@@ -253,11 +253,14 @@ def install_macros(con: duckdb.DuckDBPyConnection) -> None:
         con.execute(f"COMMENT ON MACRO {ident(name)} IS {text_literal(comment)}")
 
 
-def comment_view_columns(con: duckdb.DuckDBPyConnection, views: dict[str, str]) -> None:
-    """Give each column of a view the comment of the same column of its base table."""
-    for view, table in views.items():
-        rows = con.execute("SELECT column_name, comment FROM duckdb_columns() "
-                           "WHERE table_name = ? AND comment IS NOT NULL", [table]).fetchall()
+def comment_view_columns(con: duckdb.DuckDBPyConnection,
+                         views: dict[str, tuple[str, ...]]) -> None:
+    """Give each column of a view the comment of the same column of its base tables."""
+    for view, tables in views.items():
+        rows = con.execute("SELECT column_name, first(comment ORDER BY list_position(?, "
+                           "table_name)) FROM duckdb_columns() WHERE list_contains(?, table_name) "
+                           "AND comment IS NOT NULL GROUP BY column_name",
+                           [list(tables), list(tables)]).fetchall()
         have = {r[0] for r in con.execute("SELECT column_name FROM duckdb_columns() "
                                           "WHERE table_name = ?", [view]).fetchall()}
         for column, comment in rows:
@@ -266,5 +269,6 @@ def comment_view_columns(con: duckdb.DuckDBPyConnection, views: dict[str, str]) 
                             f"{text_literal(comment)}")
 
 
-CURATED_VIEWS = {"curated_constants": "release_constant", "curated_curves": "release_curve",
-                 "curated_provenance": "release_provenance", "curated_release": "release"}
+CURATED_VIEWS = {"curated_constants": ("release_constant",), "curated_curves": ("release_curve",),
+                 "curated_provenance": ("release_provenance",),
+                 "curated_release": ("release", "release_publication")}

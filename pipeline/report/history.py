@@ -17,7 +17,7 @@ import json
 from dataclasses import dataclass, field
 from typing import Iterable, Sequence
 
-#: Status order from worst to best; the status of a (check, fluid) pair is the worst of its subjects.
+#: Status order, worst first; a (check, fluid) pair has the worst status of its subjects.
 STATUS_RANK = ("fail", "error", "warn", "waived", "pass", "skip")
 FAILING = frozenset({"fail", "error"})
 

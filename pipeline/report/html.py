@@ -33,7 +33,8 @@ VERDICT_TEXT = {
 _CSS = """
 body{font-family:system-ui,-apple-system,"Segoe UI",sans-serif;margin:0 auto;max-width:1180px;
 padding:0 18px 40px;color:#1b1b1b;line-height:1.4}
-h1{font-size:1.5em;margin:18px 0 6px}h2{border-bottom:1px solid #ccc;padding-bottom:3px;margin-top:34px}
+h1{font-size:1.5em;margin:18px 0 6px}
+h2{border-bottom:1px solid #ccc;padding-bottom:3px;margin-top:34px}
 h3{margin:18px 0 6px}.verdict{padding:12px 16px;border-radius:6px;font-size:1.25em;font-weight:600}
 .v-pass{background:#e3f4e3;color:#185c18}.v-fail{background:#fbe3e3;color:#8a1616}
 .v-error,.v-input-error{background:#f6e3f6;color:#6a1470}
@@ -227,7 +228,7 @@ def decisions_html(decisions: Sequence[Mapping[str, Any]] | None) -> str:
         return "".join(out)
     if not decisions:
         return out[0] + '<p class="muted">no decisions in force</p>'
-    keys = sorted({k for d in decisions for k in d})
+    keys = list(dict.fromkeys(k for d in decisions for k in d))   # the rows' column order
     rows = [[e(fmt(d.get(k))) for k in keys] for d in decisions]
     return out[0] + _table(keys, rows)
 
@@ -277,7 +278,7 @@ def _fluid(page: ReportPage, fid: str) -> str:
                          e(fmt(f.reduced_chi2, 3) if f.status == "fitted" else f.reason or "")])
         out.append("<h3>Fits</h3>" + _table(
             ["group", "status", "form", "used/points", "flagged", "T range [K]",
-             "value at T_ref (&plusmn; u, k=1)", "reduced chi2 / reason"], rows, num=(3, 4)))
+             "value at T_ref (± u, k=1)", "reduced chi2 / reason"], rows, num=(3, 4)))
     if sec.fixed_points:
         rows = [[e(p.kind), e(p.phases), fmt(p.T_K, 7), fmt(p.u_T_K, 3), fmt(p.p_Pa, 7),
                  fmt(p.u_p_Pa, 3), e(p.source_id)] for p in sec.fixed_points]

@@ -127,7 +127,8 @@ def _curve_arrays(spec: CurveSpec, n: int = 200) -> tuple[np.ndarray, np.ndarray
 
 
 def _limits(values: list[np.ndarray], log: bool) -> tuple[float, float] | None:
-    v = np.concatenate([np.asarray(a, dtype=float).ravel() for a in values]) if values else np.zeros(0)
+    v = (np.concatenate([np.asarray(a, dtype=float).ravel() for a in values]) if values
+         else np.zeros(0))
     v = v[np.isfinite(v) & ((v > 0) if log else True)]
     if not len(v):
         return None

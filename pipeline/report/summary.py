@@ -22,10 +22,11 @@ def _transition(t: Mapping[str, Any]) -> str:
 
 
 def _value(v: Mapping[str, Any]) -> str:
-    if v.get("shift_u") is not None:
+    size = f" ({v['shift_u']:+.2g} u)" if v.get("shift_u") is not None else ""
+    if v.get("before") is not None and v.get("after") is not None:
         return (f"{v['fluid_id']} {v['name']}: {v['before']:.6g} -> {v['after']:.6g} "
-                f"{v.get('unit', '')} ({v['shift_u']:+.2g} u)")
-    return f"{v['fluid_id']} {v['name']}: {v.get('note', 'changed')}"
+                f"{v.get('unit', '')}{size}")
+    return f"{v['fluid_id']} {v['name']}: {v.get('note') or 'changed'}{size}"
 
 
 def render_summary(nightly: Mapping[str, Any], report_html: str) -> str:

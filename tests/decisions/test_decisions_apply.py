@@ -20,7 +20,6 @@ from pipeline.decisions import (
 )
 from pipeline.decisions.apply import latest_check_run
 from pipeline.decisions.edit import add_decision
-from pipeline.fitting.stage import run_fit
 from pipeline.ingest.stage import run_ingest
 from pipeline.store import open_store
 from tests.conftest import write_batch
@@ -29,6 +28,13 @@ from tests.conftest import write_batch
 @pytest.fixture()
 def demo(tmp_path_factory, tmp_path):
     return demo_copy(tmp_path_factory, tmp_path)
+
+
+def resolve_all_demo(demo, **kw):
+    """What the demo's decisions touch now."""
+    with open_store(demo.store, read_only=True) as s:
+        return resolve_all(s.con, load_decisions(demo.decisions), **kw)
+
 
 
 def _exclude_row_16(demo) -> None:
@@ -150,11 +156,6 @@ def test_changing_the_waived_checks_inputs_makes_it_fail_again(demo, capsys):
     assert "waiver LAPSED (the check's inputs changed" in out
     (state,) = [t.state for t in resolve_all_demo(demo)]
     assert state == "lapsed"
-
-
-def resolve_all_demo(demo, **kw):
-    with open_store(demo.store, read_only=True) as s:
-        return resolve_all(s.con, load_decisions(demo.decisions), **kw)
 
 
 def test_an_expired_waiver_lapses(demo, capsys):

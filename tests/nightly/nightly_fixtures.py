@@ -55,6 +55,27 @@ def add_batch(raw: Path, name: str, manifest: str, files: dict[str, str] | None 
     return folder
 
 
+def cli(argv: list[str]) -> int:
+    """``fluidledger ARGV`` in this process, leaving the logging set-up as it was (the CLI
+    points the root logger at the current, soon closed, captured stderr)."""
+    import logging
+
+    from pipeline.cli import main
+
+    root = logging.getLogger()
+    handlers, level = list(root.handlers), root.level
+    try:
+        return main(argv)
+    finally:
+        for h in root.handlers:
+            if h not in handlers:
+                root.removeHandler(h)
+        for h in handlers:
+            if h not in root.handlers:
+                root.addHandler(h)
+        root.setLevel(level)
+
+
 def next_second() -> None:
     """Wait for the UTC clock to enter a new second.
 

@@ -8,9 +8,8 @@ from pathlib import Path
 import duckdb
 import pytest
 
-from nightly_fixtures import (ARGON_BATCHES, DISCREPANT_ARGON, add_batch, copy_demo, next_second,
-                              nightly)
-from pipeline.cli import main
+from nightly_fixtures import (ARGON_BATCHES, DISCREPANT_ARGON, add_batch, cli, copy_demo,
+                              next_second, nightly)
 from pipeline.report.history import run_history
 
 
@@ -104,10 +103,67 @@ def test_history_lists_the_status_movements(scenario):
 
 def test_history_command_prints_transitions(scenario, capsys):
     """`fluidledger history --fluid argon` prints 'sources.agreement argon: fail -> ...'."""
-    code = main(["history", "--store", str(scenario["tmp"] / "store.duckdb"), "--fluid",
+    code = cli(["history", "--store", str(scenario["tmp"] / "store.duckdb"), "--fluid",
                  "argon", "--limit", "2"])
     out = capsys.readouterr().out
     assert code == 0
     assert "sources.agreement argon: fail -> " in out
     assert f"(run {scenario['fixed'].check_run_id})" in out
     assert scenario["clean"].check_run_id not in out   # --limit 2 leaves the oldest out
+
+
+SHIFTED_ARGON = """
+format_version = 1
+
+[source]
+id = "lab-argon-shifted"
+kind = "measurement"
+citation = "Invented test campaign: argon vapour pressures 0.25 % above the reference"
+
+[[table]]
+file = "vp.csv"
+fluid = "argon"
+boundary = "liquid-vapour"
+temperature = { column = "T", unit = "K" }
+pressure = { column = "p", unit = "kPa" }
+[table.uncertainty]
+temperature = { value = 0.002, unit = "K" }
+pressure = { relative = 0.001 }
+"""
+
+
+def test_a_changed_fit_lists_its_reference_value_in_units_of_u(scenario):
+    """New argon data 0.25 % high move the vapour-pressure curve, and the clean run lists it
+    from the publish stage's release diff with its change in units of u (changes the store)."""
+    from pipeline.correlations import reference_curve
+
+    curve = reference_curve("argon", "liquid-vapour", "pressure")
+    rows = "\n".join(f"{T:.3f},{1.0025 * curve.value(T) / 1e3:.6f}"
+                     for T in (90.0, 100.0, 110.0, 120.0, 130.0, 140.0))
+    add_batch(scenario["raw"], "lab-argon-shifted", SHIFTED_ARGON, {"vp.csv": "T,p\n" + rows})
+    next_second()
+    moved = nightly(scenario["tmp"], scenario["raw"])
+    assert moved.publish["status"] == "published"     # a clean run: the release diff is used
+    assert "publish stage's diff" in moved.changes["values_basis"]
+    (v,) = [v for v in moved.changes["values"] if "liquid-vapour" in v["group"]
+            and "pressure" in v["group"]]
+    assert v["fluid_id"] == "argon" and v["shift_u"] is not None and v["shift_u"] != 0
+    assert "Changed values" in Path(moved.report["summary"]).read_text()
+
+
+def test_fit_value_changes_give_the_shift_in_units_of_u(scenario):
+    """From the fits (the basis when no new release is made): the vapour-pressure fit's p at
+    T_ref before and after, the change, and the change over the earlier standard
+    uncertainty."""
+    from pipeline.report.changes import fit_value_changes
+
+    with duckdb.connect(str(scenario["tmp"] / "store.duckdb"), read_only=True) as con:
+        ids = [r[0] for r in con.execute(
+            "SELECT fit_id FROM fit WHERE fluid_id = 'argon' AND boundary = 'liquid-vapour' "
+            "AND quantity = 'pressure' ORDER BY fitted_at").fetchall()]
+        assert len(ids) >= 2
+        group = "liquid-vapour/-/pressure"
+        (v,) = fit_value_changes(con, {"argon": {group: ids[0]}}, {"argon": {group: ids[-1]}})
+    assert v["delta"] != 0 and v["delta"] == pytest.approx(v["after"] - v["before"])
+    assert v["u"] > 0 and v["shift_u"] == pytest.approx(v["delta"] / v["u"])
+    assert (v["fit_before"], v["fit_after"]) == (ids[0], ids[-1])

@@ -11,8 +11,7 @@ import duckdb
 import jsonschema
 import pytest
 
-from nightly_fixtures import add_batch, copy_demo, nightly
-from pipeline.cli import main
+from nightly_fixtures import add_batch, cli, copy_demo, nightly
 from pipeline.errors import CheckError
 from pipeline.ingest.contract import load_schema
 from pipeline.report.files import ReportSchemaError, validate_results
@@ -144,7 +143,7 @@ def test_the_nightly_run_row_keeps_the_summary(demo):
 def test_exit_zero_reports_failures_but_exits_0(demo, capsys):
     """With --exit-zero the CLI exits 0 although checks fail and prints the report path."""
     tmp = demo["tmp"]
-    code = main(["nightly", "--store", str(tmp / "store.duckdb"), "--raw", str(demo["raw"]),
+    code = cli(["nightly", "--store", str(tmp / "store.duckdb"), "--raw", str(demo["raw"]),
                  "--reports", str(tmp / "reports"), "--exit-zero"])
     out = capsys.readouterr().out
     assert code == 0

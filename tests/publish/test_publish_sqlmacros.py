@@ -232,3 +232,36 @@ def test_an_older_duckdb_cli_opens_the_published_file(published_demo, tmp_path):
     p, t_nb, n = proc.stdout.strip().split(",")
     assert float(p) == pytest.approx(expected, rel=1e-12), version
     assert abs(float(t_nb) - 87.302) < 0.01 and int(n) > 30
+
+
+def test_macro_arguments_are_not_captured_by_names_inside_the_macros(published_demo):
+    """Arguments written as bare columns or with any table alias evaluate in the caller's scope."""
+    con = duckdb.connect(str(published_demo["file"]), read_only=True)
+    bare = con.execute("SELECT fluid_id, fl_vapour_pressure(fluid_id, 100.0) FROM "
+                       "curated_constants GROUP BY ALL ORDER BY 1").fetchall()
+    for alias in ("c", "fl_c", "cc", "x"):
+        aliased = con.execute(f"SELECT {alias}.fluid_id, fl_vapour_pressure({alias}.fluid_id, "
+                              f"100.0) FROM curated_constants {alias} GROUP BY ALL ORDER BY 1"
+                              ).fetchall()
+        assert aliased == bare
+    assert dict(bare)["argon"] == con.execute(
+        "SELECT fl_vapour_pressure('argon', 100.0)").fetchone()[0]
+    con.close()
+
+
+def test_the_published_file_documents_every_object(published_demo):
+    """Every table, column, view, view column and macro of the published file has a COMMENT."""
+    con = duckdb.connect(str(published_demo["file"]), read_only=True)
+    missing = con.execute("""
+        SELECT 'table ' || table_name FROM duckdb_tables() WHERE comment IS NULL
+        UNION ALL SELECT 'view ' || view_name FROM duckdb_views()
+            WHERE NOT internal AND comment IS NULL
+        UNION ALL SELECT 'column ' || table_name || '.' || column_name FROM duckdb_columns()
+            WHERE NOT internal AND comment IS NULL
+        UNION ALL SELECT 'macro ' || function_name FROM duckdb_functions()
+            WHERE function_type = 'macro' AND function_name LIKE 'fl_%' AND comment IS NULL
+    """).fetchall()
+    macros = con.execute("SELECT count(DISTINCT function_name) FROM duckdb_functions() "
+                         "WHERE function_type = 'macro' AND function_name LIKE 'fl_%'").fetchone()
+    con.close()
+    assert missing == [] and macros[0] == len(sqlmacros.MACRO_NAMES)
