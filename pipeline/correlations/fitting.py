@@ -394,10 +394,11 @@ def _robust_start(cands, T, z_by_link, u_by_link, base, outlier_z, trusted=None)
 
 
 def _robust_select(cands, T, z_by_link, u_by_link, base, n_terms, criterion, outlier_z,
-                   min_points, trusted=None):
+                   min_points, trusted=None, start=None):
     """Alternate model selection and outlier flagging until the used set is stable, starting
     from the robust inlier set (:func:`_robust_start`)."""
-    mask = _robust_start(cands, T, z_by_link, u_by_link, base, outlier_z, trusted)
+    mask = start if start is not None else _robust_start(cands, T, z_by_link, u_by_link, base,
+                                                         outlier_z, trusted)
     best, table, errors = _select(cands, T, z_by_link, u_by_link, mask, n_terms, criterion)
     for _ in range(MAX_OUTLIER_ROUNDS):
         if best is None:
@@ -547,10 +548,11 @@ def _outcome(best: _Best, mask, flags, T, z_by_link, u_by_link, table, criterion
         criterion=criterion, fit_space="ln(value)" if form.link == "log" else "value")
 
 
-def _stage(cands, T, y, u_eff, base, n_terms, criterion, outlier_z, min_points, trusted=None):
+def _stage(cands, T, y, u_eff, base, n_terms, criterion, outlier_z, min_points, trusted=None,
+           start=None):
     z_by_link, u_by_link = _fit_space_arrays(cands, y, u_eff)
     best, mask, table, errors = _robust_select(cands, T, z_by_link, u_by_link, base, n_terms,
-                                               criterion, outlier_z, min_points, trusted)
+                                               criterion, outlier_z, min_points, trusted, start)
     return best, mask, table, errors, z_by_link, u_by_link
 
 
@@ -631,19 +633,20 @@ def fit_curve(candidate_forms: str | Sequence[str], T, y, u_y, u_T, ref: dict, *
     if base.sum() < min_points:
         return _skip(n, SkipCode.TOO_FEW_POINTS, f"too few points: {int(base.sum())} usable "
                      f"of {n}, at least {min_points} needed", flags, criterion)
+    trusted = None if trusted is None else np.asarray(trusted, dtype=bool)
+    start = None
     if any(f.increasing for f in forms):
-        # judged on the robust inliers: a grossly wrong file must not veto the whole group
+        # judged on the robust inliers: a grossly wrong file must not veto the whole group;
+        # the same inlier set starts stage 1 below (same inputs), so it is computed once
         zs, us = _fit_space_arrays(cands, y, u_y)
-        trusted = None if trusted is None else np.asarray(trusted, dtype=bool)
-        ok = _robust_start(cands, T, zs, us, base, outlier_z, trusted)
-        reason = _monotonic_reason(T[ok], y[ok], u_y[ok], u_T[ok])
+        start = _robust_start(cands, T, zs, us, base, outlier_z, trusted)
+        reason = _monotonic_reason(T[start], y[start], u_y[start], u_T[start])
         if reason:
             return _skip(n, SkipCode.NON_MONOTONIC, reason, flags, criterion)
 
     # Stage 1: u_y only, to get the slope; stage 2: u_eff with u_T carried through the slope.
-    trusted = None if trusted is None else np.asarray(trusted, dtype=bool)
     args = (n_terms, criterion, outlier_z, min_points, trusted)
-    best, mask, table, errors, zl, ul = _stage(cands, T, y, u_y, base, *args)
+    best, mask, table, errors, zl, ul = _stage(cands, T, y, u_y, base, *args, start=start)
     if best is None:
         return _no_model(n, errors, base, flags, criterion)
     if np.any(u_T > 0):
