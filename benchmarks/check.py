@@ -28,6 +28,7 @@ import pandas as pd
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from pipeline.checks import FluidData, run_checks  # noqa: E402
+from pipeline.checks.data import fluids_from_tables  # noqa: E402
 from pipeline.correlations import REFERENCE_CONSTANTS, reference_curve  # noqa: E402
 
 BASES = ("argon", "nitrogen", "carbon-dioxide")
@@ -54,59 +55,90 @@ def _series(curve, T, rng, *, boundary, quantity="pressure", source, kind, noise
             "file_path": np.full(len(T), f"synthetic/{source}-{boundary}-{quantity}.csv")}
 
 
-def synthetic_fluid(i: int, rng: np.random.Generator, *, plant: bool) -> FluidData:
-    base = BASES[i % len(BASES)]
-    ref = REFERENCE_CONSTANTS[base]
-    sT, sp, srho = rng.uniform(0.6, 1.8), rng.uniform(0.5, 2.0), rng.uniform(0.8, 1.2)
-    factor = {"p": sp, "rho": srho}
-    curves = {k: scaled(reference_curve(base, k[0], k[2], k[1]), sT, factor[SCALE_OF[k[2]]]) for k in CURVE_KEYS}
-    tp = ref["triple_points"][0]
-    Tt, pt, Tc, pc, rhoc = tp["T_K"] * sT, tp["p_Pa"] * sp, ref["Tc_K"] * sT, ref["pc_Pa"] * sp, ref["rhoc_kg_m3"] * srho
-    lv, sv, sl = curves[CURVE_KEYS[0]], curves[CURVE_KEYS[3]], curves[CURVE_KEYS[4]]
-    parts = [_series(lv, np.linspace(Tt + 1, Tc - 1, 50), rng, boundary="liquid-vapour", source=f"std-{i}", kind="standard"),
-             _series(lv, np.linspace(Tt + 2, Tc - 2, 45), rng, boundary="liquid-vapour", source=f"lit-{i}", kind="literature"),
-             _series(lv, np.linspace(Tt + 3, 0.9 * Tc, 40), rng, boundary="liquid-vapour", source=f"lab-{i}",
-                     kind="measurement", scale=1e-3 if plant else 1.0),
-             _series(sv, np.linspace(sv.T_min_K, Tt - 0.5, 30), rng, boundary="solid-vapour", source=f"sub-{i}", kind="literature"),
-             _series(sl, np.linspace(Tt + 0.5, sl.T_max_K, 30), rng, boundary="solid-liquid", source=f"melt-{i}", kind="literature")]
-    Tcrit = np.linspace(0.95 * Tc, 0.998 * Tc, 20)
+def _observations(i, curves, pts, rng, plant: bool) -> pd.DataFrame:
+    """Seven files: three vapour-pressure campaigns, sublimation, melting, densities."""
+    Tt, Tc = pts["Tt"], pts["Tc"]
+    lv, sv, sl = (curves[k] for k in (CURVE_KEYS[0], CURVE_KEYS[3], CURVE_KEYS[4]))
+    LV = "liquid-vapour"
+    parts = [
+        _series(lv, np.linspace(Tt + 1, Tc - 1, 50), rng, boundary=LV, source=f"std-{i}", kind="standard"),
+        _series(lv, np.linspace(Tt + 2, Tc - 2, 45), rng, boundary=LV, source=f"lit-{i}", kind="literature"),
+        _series(lv, np.linspace(Tt + 3, 0.9 * Tc, 40), rng, boundary=LV, source=f"lab-{i}", kind="measurement",
+                scale=1e-3 if plant else 1.0),
+        _series(sv, np.linspace(sv.T_min_K, Tt - 0.5, 30), rng, boundary="solid-vapour", source=f"sub-{i}",
+                kind="literature"),
+        _series(sl, np.linspace(Tt + 0.5, sl.T_max_K, 30), rng, boundary="solid-liquid", source=f"melt-{i}",
+                kind="literature"),
+    ]
+    T_near_critical = np.linspace(0.95 * Tc, 0.998 * Tc, 20)
     for q in ("rho_liquid", "rho_vapour"):
-        parts.append(_series(curves[("liquid-vapour", "", q)], Tcrit, rng, boundary="liquid-vapour", quantity=q,
+        parts.append(_series(curves[(LV, "", q)], T_near_critical, rng, boundary=LV, quantity=q,
                              source=f"dens-{i}", kind="literature"))
-    rho_l = float(curves[CURVE_KEYS[1]].value(Tt))
-    for q, v in (("rho_solid", 1.15 * rho_l), ("rho_liquid", rho_l)):
-        parts.append({"boundary": ["solid-liquid"], "quantity": [q], "T_K": [Tt], "value_si": [v], "u_value_si": [0.5],
-                      "source_id": [f"dens-{i}"], "source_kind": ["literature"], "file_path": [f"synthetic/dens-{i}-solid.csv"]})
+    for q, v in (("rho_solid", 1.15 * pts["rho_l"]), ("rho_liquid", pts["rho_l"])):
+        parts.append({"boundary": ["solid-liquid"], "quantity": [q], "T_K": [Tt], "value_si": [v],
+                      "u_value_si": [0.5], "source_id": [f"dens-{i}"], "source_kind": ["literature"],
+                      "file_path": [f"synthetic/dens-{i}-solid.csv"]})
     obs = pd.concat([pd.DataFrame(p) for p in parts], ignore_index=True)
     obs["obs_id"] = np.arange(1, len(obs) + 1) + 1000 * i
     pressure = obs["quantity"].to_numpy() == "pressure"
     obs["fit_id"] = np.where(pressure, obs["boundary"].to_numpy() + f"-{i}", None)
     obs["z"] = np.where(pressure, np.clip(rng.normal(0, 0.7, len(obs)), -2.5, 2.5), np.nan)
-    u = {"u_T": 0.01 * sT, "u_p": 1e-4}
-    fixed = [dict(kind="triple", phases="vapour,liquid,solid", T_K=Tt, u_T_K=u["u_T"], p_Pa=pt, u_p_Pa=pt * 1e-4,
-                  source_id=f"std-{i}", source_kind="standard"),
-             dict(kind="triple", phases="vapour,liquid,solid", T_K=Tt + 0.003, u_T_K=u["u_T"], p_Pa=pt * 1.00005,
-                  u_p_Pa=pt * 1e-4, source_id=f"lit-{i}", source_kind="literature"),
-             dict(kind="critical", phases="liquid,vapour", T_K=Tc, u_T_K=u["u_T"], p_Pa=pc, u_p_Pa=pc * 1e-4,
-                  rho_kg_m3=rhoc, u_rho_kg_m3=rhoc * 1e-3, source_id=f"std-{i}", source_kind="standard"),
-             dict(kind="critical", phases="liquid,vapour", T_K=Tc - 0.004, u_T_K=u["u_T"], p_Pa=pc * 0.99995,
-                  u_p_Pa=pc * 1e-4, rho_kg_m3=rhoc, u_rho_kg_m3=rhoc * 1e-3, source_id=f"lit-{i}",
-                  source_kind="literature")]
-    omega = -math.log10(float(lv.value(0.7 * Tc, extrapolate=True)) / pc) - 1
-    M = ref["molar_mass_kg_mol"]
-    dv = M * (1 / float(curves[CURVE_KEYS[2]].value(Tt)) - 1 / rho_l)   # Clapeyron-consistent Δh_vap
-    constants = [dict(name="acentric_factor", value_si=omega + rng.normal(0, 1e-3), u_si=2e-3, si_unit="1",
-                      source_id=f"lit-{i}", source_kind="literature"),
-                 dict(name="h_vaporization_triple", value_si=Tt * dv * float(lv.slope(Tt)), u_si=np.nan,
-                      si_unit="J/mol", source_id=f"std-{i}", source_kind="standard")]
-    return FluidData.build(f"synthetic-{i:05d}", ref["molar_mass_kg_mol"], observations=obs,
-                           fixed_points=fixed, constants=constants, curves=curves)
+    return obs
+
+
+def _fixed_points(i, pts, sT) -> list[dict]:
+    """Triple and critical points from a standard and a slightly different literature source."""
+    u_T = 0.01 * sT
+    rows = []
+    for source, kind, dT, fp in ((f"std-{i}", "standard", 0.0, 1.0), (f"lit-{i}", "literature", 0.003, 1.00005)):
+        rows.append(dict(kind="triple", phases="vapour,liquid,solid", T_K=pts["Tt"] + dT, u_T_K=u_T,
+                         p_Pa=pts["pt"] * fp, u_p_Pa=pts["pt"] * 1e-4, source_id=source, source_kind=kind))
+        rows.append(dict(kind="critical", phases="liquid,vapour", T_K=pts["Tc"] - dT, u_T_K=u_T,
+                         p_Pa=pts["pc"] / fp, u_p_Pa=pts["pc"] * 1e-4, rho_kg_m3=pts["rhoc"],
+                         u_rho_kg_m3=pts["rhoc"] * 1e-3, source_id=source, source_kind=kind))
+    return rows
+
+
+def _constants(i, curves, pts, M, rng) -> list[dict]:
+    """A stated acentric factor, and Δh_vap at Tt consistent with Clapeyron."""
+    lv = curves[CURVE_KEYS[0]]
+    omega = -math.log10(float(lv.value(0.7 * pts["Tc"], extrapolate=True)) / pts["pc"]) - 1
+    dv = M * (1 / float(curves[CURVE_KEYS[2]].value(pts["Tt"])) - 1 / pts["rho_l"])
+    return [dict(name="acentric_factor", value_si=omega + rng.normal(0, 1e-3), u_si=2e-3, si_unit="1",
+                 source_id=f"lit-{i}", source_kind="literature"),
+            dict(name="h_vaporization_triple", value_si=pts["Tt"] * dv * float(lv.slope(pts["Tt"])),
+                 u_si=np.nan, si_unit="J/mol", source_id=f"std-{i}", source_kind="standard")]
+
+
+def synthetic_fluid(i: int, rng: np.random.Generator, *, plant: bool) -> dict:
+    """Tables of one synthetic fluid: observations, fixed points, constants, curves."""
+    base = BASES[i % len(BASES)]
+    ref = REFERENCE_CONSTANTS[base]
+    sT, sp, srho = rng.uniform(0.6, 1.8), rng.uniform(0.5, 2.0), rng.uniform(0.8, 1.2)
+    factor = {"p": sp, "rho": srho}
+    curves = {k: scaled(reference_curve(base, k[0], k[2], k[1]), sT, factor[SCALE_OF[k[2]]])
+              for k in CURVE_KEYS}
+    tp = ref["triple_points"][0]
+    pts = {"Tt": tp["T_K"] * sT, "pt": tp["p_Pa"] * sp, "Tc": ref["Tc_K"] * sT, "pc": ref["pc_Pa"] * sp,
+           "rhoc": ref["rhoc_kg_m3"] * srho}
+    pts["rho_l"] = float(curves[CURVE_KEYS[1]].value(pts["Tt"]))
+    fid = f"synthetic-{i:05d}"
+    obs = _observations(i, curves, pts, rng, plant).assign(fluid_id=fid)
+    fixed = [dict(r, fluid_id=fid) for r in _fixed_points(i, pts, sT)]
+    constants = [dict(r, fluid_id=fid) for r in _constants(i, curves, pts, ref["molar_mass_kg_mol"], rng)]
+    return {"fluid": (fid, ref["molar_mass_kg_mol"]), "obs": obs, "fixed": fixed, "constants": constants,
+            "curves": curves}
 
 
 def build(n: int, seed: int = 7) -> dict[str, FluidData]:
+    """n synthetic fluids, stacked and split once (as the store loader does)."""
     rng = np.random.default_rng(seed)
-    fluids = [synthetic_fluid(i, rng, plant=(i % 100 == 0)) for i in range(n)]
-    return {f.fluid_id: f for f in fluids}
+    parts = [synthetic_fluid(i, rng, plant=(i % 100 == 0)) for i in range(n)]
+    fluids = pd.DataFrame([p["fluid"] for p in parts], columns=["fluid_id", "molar_mass_kg_mol"])
+    return fluids_from_tables(fluids, pd.concat([p["obs"] for p in parts], ignore_index=True),
+                              pd.DataFrame([r for p in parts for r in p["fixed"]]),
+                              pd.DataFrame([r for p in parts for r in p["constants"]]),
+                              {p["fluid"][0]: p["curves"] for p in parts})
 
 
 def timed(n: int) -> tuple[float, object]:

@@ -699,7 +699,7 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
          store_path, curation: Curation) -> dict:
     from pipeline.checks.engine import _utc
     from pipeline.report.changes import status_changes
-    from pipeline.report.files import FILES, write_report
+    from pipeline.report.files import FILES, ValidatedItems, write_report
 
     prev = previous_state(con, result.run_id)
     result.previous_run_id = prev.run_id
@@ -738,7 +738,9 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
     result.duration_s = time.perf_counter() - t0
     result.report = {"dir": str(folder), **{k: str(folder / v) for k, v in FILES.items()}}
     page.nightly = result.asdict()
-    write_report(folder, page.nightly, page)
+    memo = ValidatedItems(None if opts.full else opts.reports / ".cache" /
+                          f"valid-results-{ValidatedItems.schema_key()}.txt")
+    write_report(folder, page.nightly, page, memo=memo)
     report.duration_s = time.perf_counter() - t_report   # the run row gets the full time
     state = {f: {"data": data_fp.get(f), "check": check_fp[f], "check_run": check_run.run_id,
                  "fits": fits_now.get(f, {})} for f in selected}

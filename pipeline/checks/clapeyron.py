@@ -189,7 +189,8 @@ def magnitude(fluid: FluidData, th):
     h_*_triple constants at the triple point) and both densities are found (fits, or
     observations within T_tol_K), the fitted slope is compared: z = (slope − Clapeyron) / u,
     u from the enthalpy and density uncertainties when all three are stated;
-    |slope/Clapeyron − 1| <= rel_tol otherwise. On sublimation curves the vapour density may be the ideal-gas value p M/(R T).
+    |slope/Clapeyron − 1| <= rel_tol otherwise. On sublimation curves the vapour density may be
+    the ideal-gas value p M/(R T).
     The worst point of each curve is reported, all points in the evidence.
 
     Usual causes of a failure: enthalpies in J/kg stored as J/mol (a factor of the molar mass);

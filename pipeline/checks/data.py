@@ -214,7 +214,8 @@ class FluidData:
     def curve(self, boundary: str, solid_phase: str = "", quantity: str = "pressure") -> FittedCurve | None:
         return self.curves.get((boundary, solid_phase, quantity))
 
-    def curve_between(self, a: str, b: str, quantity: str = "pressure") -> tuple[CurveKey, FittedCurve | None]:
+    def curve_between(self, a: str, b: str,
+                      quantity: str = "pressure") -> tuple[CurveKey, FittedCurve | None]:
         """The curve separating phases ``a`` and ``b`` (key of the first spelling tried, curve or None)."""
         boundary, labels = boundary_between(a, b)
         for label in labels:
@@ -280,11 +281,15 @@ class FluidData:
 
         ``curves`` values may be :class:`FittedCurve` or bare correlation curves.
         """
-        fits = {tuple(k): c if isinstance(c, FittedCurve) else FittedCurve(c, fit_id=f"{fluid_id}:{'/'.join(k)}")
-                for k, c in (curves or {}).items()}
         return cls(fluid_id, float(molar_mass), normalise_observations(observations),
                    _frame(fixed_points, FIXED_POINT_COLUMNS, "fp_id"),
-                   _frame(constants, CONSTANT_COLUMNS, "const_id"), fits)
+                   _frame(constants, CONSTANT_COLUMNS, "const_id"), _fitted(fluid_id, curves))
+
+
+def _fitted(fluid_id: str, curves: Mapping[CurveKey, Any] | None) -> dict[CurveKey, FittedCurve]:
+    """Curves as FittedCurve (bare correlation curves get a descriptive fit id)."""
+    return {tuple(k): c if isinstance(c, FittedCurve) else FittedCurve(c, fit_id=f"{fluid_id}:{'/'.join(k)}")
+            for k, c in (curves or {}).items()}
 
 
 def _records(frame: pd.DataFrame) -> list[dict]:
@@ -475,13 +480,27 @@ def load_fluid_data(con, fluid_ids: Iterable[str] | None = None) -> dict[str, Fl
             known = [r[0] for r in con.execute("SELECT fluid_id FROM fluid ORDER BY 1").fetchall()]
             raise CheckError(f"unknown fluid(s) {', '.join(missing)}; the store holds: "
                              f"{', '.join(known) or '(none)'}")
-    # normalise the stacked tables once, then split per fluid (per-fluid pandas work is slow)
-    obs = _split(normalise_observations(_query(con, _Q_OBS, "o", ids), keep=("fluid_id",)))
-    fixed = _split(_frame(_query(con, _Q_FIXED, "p", ids), FIXED_POINT_COLUMNS, "fp_id", ("fluid_id",)))
-    consts = _split(_frame(_query(con, _Q_CONST, "c", ids), CONSTANT_COLUMNS, "const_id", ("fluid_id",)))
-    fits = _fits(_query(con, _Q_FITS, "", ids))
+    return fluids_from_tables(fluids, _query(con, _Q_OBS, "o", ids), _query(con, _Q_FIXED, "p", ids),
+                              _query(con, _Q_CONST, "c", ids), _fits(_query(con, _Q_FITS, "", ids)))
+
+
+def fluids_from_tables(fluids: pd.DataFrame, observations: pd.DataFrame, fixed_points: pd.DataFrame,
+                       constants: pd.DataFrame,
+                       curves: Mapping[str, Mapping[CurveKey, Any]]) -> dict[str, FluidData]:
+    """FluidData for every row of ``fluids`` (fluid_id, molar_mass_kg_mol) from stacked tables.
+
+    The tables carry a ``fluid_id`` column and the columns of :data:`OBS_COLUMNS`,
+    :data:`FIXED_POINT_COLUMNS`, :data:`CONSTANT_COLUMNS` (missing ones get defaults); they are
+    normalised once and then split per fluid, which is much faster than per-fluid pandas work.
+    ``curves`` maps a fluid id to its curves (FittedCurve or bare curves).
+    """
+    obs = _split(normalise_observations(observations, keep=("fluid_id",)))
+    fixed = _split(_frame(fixed_points, FIXED_POINT_COLUMNS, "fp_id", ("fluid_id",)))
+    consts = _split(_frame(constants, CONSTANT_COLUMNS, "const_id", ("fluid_id",)))
     empty = {"obs": normalise_observations(None), "fixed": _frame(None, FIXED_POINT_COLUMNS, "fp_id"),
              "consts": _frame(None, CONSTANT_COLUMNS, "const_id")}
-    return {fid: FluidData(fid, float(mm), obs.get(fid, empty["obs"]), fixed.get(fid, empty["fixed"]),
-                           consts.get(fid, empty["consts"]), fits.get(fid, {}))
-            for fid, mm in zip(fluids["fluid_id"], fluids["molar_mass_kg_mol"])}
+    out = {}
+    for fid, mm in zip(fluids["fluid_id"], fluids["molar_mass_kg_mol"]):
+        out[fid] = FluidData(fid, float(mm), obs.get(fid, empty["obs"]), fixed.get(fid, empty["fixed"]),
+                             consts.get(fid, empty["consts"]), _fitted(fid, curves.get(fid)))
+    return out

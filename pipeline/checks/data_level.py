@@ -3,6 +3,8 @@ with T, values in physical ranges, residual outliers, duplicates across files.""
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 import pandas as pd
 
@@ -15,11 +17,6 @@ _COLUMNS = ("fluid_id", "boundary", "solid_phase", "quantity", "obs_id", "file_p
             "row_number", "T_K", "value_si", "u_value_si", "fit_id", "z", "is_outlier")
 
 
-def _columns(frame: pd.DataFrame) -> dict[str, np.ndarray]:
-    """The stacked frame as numpy arrays (per-row work stays out of pandas)."""
-    return {c: frame[c].to_numpy() for c in _COLUMNS if c in frame}
-
-
 def _ref(cols: dict, i: int) -> dict:
     """Evidence entry of row ``i``: obs id, file, row, T, value."""
     return {"obs_id": int(cols["obs_id"][i]), "file": str(cols["file_path"][i]),
@@ -27,19 +24,19 @@ def _ref(cols: dict, i: int) -> dict:
             "value_si": float(cols["value_si"][i])}
 
 
-def _segments(frame: pd.DataFrame, keys: list[str], order: list[str] = ()):
-    """The frame grouped by ``keys`` (sorted by ``order`` within a group), its columns, group
-    codes, and each group's start and end row (groups are numbered in order of appearance)."""
+def _segments(frame: pd.DataFrame, keys: list[str], order: list[str] = (), extra: tuple[str, ...] = ()):
+    """Rows grouped by ``keys`` (sorted by ``order`` within a group): the columns (``_COLUMNS``
+    and ``extra``) as sorted numpy arrays, group codes, and each group's start and end row."""
     codes = frame.groupby(keys, sort=False).ngroup().to_numpy()
     sort_keys = [frame[c].to_numpy() for c in reversed(list(order))] + [codes]
     idx = np.lexsort(sort_keys) if order else np.argsort(codes, kind="stable")
-    s = frame.take(idx).reset_index(drop=True)
+    cols = {c: frame[c].to_numpy()[idx] for c in _COLUMNS + tuple(extra) if c in frame}
     g = codes[idx]
     starts = np.flatnonzero(np.r_[True, g[1:] != g[:-1]]) if len(g) else np.zeros(0, dtype=int)
-    return s, _columns(s), g, starts, np.r_[starts[1:], len(g)].astype(int)
+    return cols, g, starts, np.r_[starts[1:], len(g)].astype(int)
 
 
-def _per_row(th, key: str, fluid_ids: pd.Series) -> np.ndarray:
+def _per_row(th, key: str, fluid_ids: np.ndarray) -> np.ndarray:
     """Threshold ``key`` for every row, from the per-fluid values."""
     codes, uniques = pd.factorize(fluid_ids)
     return th.array(key, uniques)[codes]
@@ -65,11 +62,11 @@ def monotonic(batch: CheckBatch, th):
         if len(obs) else obs
     if sel.empty:
         return []
-    s, cols, g, starts, ends = _segments(sel, ["fluid_id", "boundary", "solid_phase", "file_path"], ["T_K"])
+    cols, g, starts, ends = _segments(sel, ["fluid_id", "boundary", "solid_phase", "file_path"], ["T_K"])
     T, p = cols["T_K"].astype(float), cols["value_si"].astype(float)
     u = np.nan_to_num(cols["u_value_si"].astype(float))
-    z, rel = _per_row(th, "z_max", s["fluid_id"]), _per_row(th, "rel_tol", s["fluid_id"])
-    min_dT = _per_row(th, "min_dT_K", s["fluid_id"])
+    z, rel = _per_row(th, "z_max", cols["fluid_id"]), _per_row(th, "rel_tol", cols["fluid_id"])
+    min_dT = _per_row(th, "min_dT_K", cols["fluid_id"])
     same = g[1:] == g[:-1]
     allowed = np.maximum(z[1:] * np.hypot(u[1:], u[:-1]), rel[1:] * np.abs(p[:-1]))
     fall_at = np.flatnonzero(same & (np.diff(T) > min_dT[1:]) & (np.diff(p) < -allowed))
@@ -80,7 +77,8 @@ def monotonic(batch: CheckBatch, th):
         text = "; ".join(f"obs {q['from']['obs_id']} -> {q['to']['obs_id']} ({q['from']['T_K']:.6g} K "
                          f"{q['from']['value_si']:.6g} Pa -> {q['to']['T_K']:.6g} K "
                          f"{q['to']['value_si']:.6g} Pa)" for q in pairs[:3])
-        fid, boundary, solid, path = (cols[c][start] for c in ("fluid_id", "boundary", "solid_phase", "file_path"))
+        fid, boundary, solid, path = (cols[c][start]
+                                      for c in ("fluid_id", "boundary", "solid_phase", "file_path"))
         out.append(judge(fid, _series_subject(boundary, solid, path),
                          measured=float(len(steps)), limit=0.0, statistic="falling steps",
                          evidence={"n_points": int(end - start), "falls": pairs},
@@ -103,36 +101,49 @@ def _bounds(batch: CheckBatch) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["fluid_id", "solid_phase", "pc", "rhoc", "pt_vap", "pt_melt"])
 
 
-def _is(f, boundary=None, quantity=None, prefix=None):
-    mask = np.ones(len(f), dtype=bool)
-    if boundary:
-        mask &= (f["boundary"] == boundary).to_numpy()
-    if quantity:
-        mask &= (f["quantity"] == quantity).to_numpy()
-    if prefix:
-        mask &= f["quantity"].str.startswith(prefix).to_numpy()
-    return mask
+@dataclass(frozen=True)
+class Bound:
+    """A range rule: rows of (boundary, quantity) whose ``column`` lies beyond a bound."""
+
+    column: str                      # T_K or value_si
+    upper: bool                      # violated when above the bound (else when below)
+    bound: str                       # threshold key, or a per-row bound column (pc, pt_vap ...)
+    boundary: str | None = None      # None: every boundary
+    quantity: str | None = None      # exact quantity, a prefix ending in '_', or None: all
+    relative: bool = False           # bound column widened by rel_tol
+
+    def violated(self, cols: dict[str, np.ndarray], t: dict[str, np.ndarray]) -> np.ndarray:
+        limit = t[self.bound] if self.bound in t else cols[self.bound].astype(float)
+        if self.relative:
+            limit = limit * (1 + t["rel_tol"] if self.upper else 1 - t["rel_tol"])
+        x = cols[self.column].astype(float)
+        bad = x > limit if self.upper else x < limit
+        if self.boundary:
+            bad &= cols["boundary"] == self.boundary
+        if self.quantity:
+            q = cols["quantity"]
+            names = [n for n in pd.unique(q) if n == self.quantity or
+                     (self.quantity.endswith("_") and str(n).startswith(self.quantity))]
+            bad &= np.isin(q, names)
+        return bad
 
 
-#: rule -> vectorised test over the stacked frame ``f`` with per-row thresholds ``t``
+#: rule -> bound, tested vectorised over the stacked frame (``zero`` is a constant 0 threshold)
 RANGE_RULES = {
-    "T <= 0 K": lambda f, t: f["T_K"].to_numpy() <= 0,
-    "T above T_max_K": lambda f, t: f["T_K"].to_numpy() > t["T_max_K"],
-    "value <= 0": lambda f, t: f["value_si"].to_numpy() <= 0,
-    "pressure above p_max_Pa": lambda f, t: _is(f, quantity="pressure") & (f["value_si"].to_numpy() > t["p_max_Pa"]),
-    "density above rho_max_kg_m3": lambda f, t: _is(f, prefix="rho_") & (f["value_si"].to_numpy() > t["rho_max_kg_m3"]),
-    "enthalpy above h_max_J_mol": lambda f, t: _is(f, prefix="h_") & (f["value_si"].to_numpy() > t["h_max_J_mol"]),
-    "vapour pressure above pc": lambda f, t: _is(f, "liquid-vapour", "pressure")
-    & (f["value_si"].to_numpy() > f["pc"].to_numpy() * (1 + t["rel_tol"])),
-    "sublimation pressure above pt": lambda f, t: _is(f, "solid-vapour", "pressure")
-    & (f["value_si"].to_numpy() > f["pt_vap"].to_numpy() * (1 + t["rel_tol"])),
-    "melting pressure below pt": lambda f, t: _is(f, "solid-liquid", "pressure")
-    & (f["value_si"].to_numpy() < f["pt_melt"].to_numpy() * (1 - t["rel_tol"])),
-    "saturated vapour denser than rhoc": lambda f, t: _is(f, "liquid-vapour", "rho_vapour")
-    & (f["value_si"].to_numpy() > f["rhoc"].to_numpy() * (1 + t["rel_tol"])),
-    "saturated liquid less dense than rhoc": lambda f, t: _is(f, "liquid-vapour", "rho_liquid")
-    & (f["value_si"].to_numpy() < f["rhoc"].to_numpy() * (1 - t["rel_tol"])),
+    "T <= 0 K": Bound("T_K", False, "zero"),
+    "T above T_max_K": Bound("T_K", True, "T_max_K"),
+    "value <= 0": Bound("value_si", False, "zero"),
+    "pressure above p_max_Pa": Bound("value_si", True, "p_max_Pa", quantity="pressure"),
+    "density above rho_max_kg_m3": Bound("value_si", True, "rho_max_kg_m3", quantity="rho_"),
+    "enthalpy above h_max_J_mol": Bound("value_si", True, "h_max_J_mol", quantity="h_"),
+    "vapour pressure above pc": Bound("value_si", True, "pc", "liquid-vapour", "pressure", True),
+    "sublimation pressure above pt": Bound("value_si", True, "pt_vap", "solid-vapour", "pressure", True),
+    "melting pressure below pt": Bound("value_si", False, "pt_melt", "solid-liquid", "pressure", True),
+    "saturated vapour denser than rhoc": Bound("value_si", True, "rhoc", "liquid-vapour", "rho_vapour", True),
+    "saturated liquid less dense than rhoc": Bound("value_si", False, "rhoc", "liquid-vapour", "rho_liquid",
+                                                   True),
 }
+_BOUND_COLUMNS = ("pc", "rhoc", "pt_vap", "pt_melt")
 _RANGE_KEYS = ("T_max_K", "p_max_Pa", "rho_max_kg_m3", "h_max_J_mol", "rel_tol")
 
 
@@ -154,9 +165,11 @@ def ranges(batch: CheckBatch, th):
     if obs.empty:
         return []
     merged = obs.merge(_bounds(batch), on=["fluid_id", "solid_phase"], how="left")
-    f, cols, _, starts, ends = _segments(merged, ["fluid_id", "boundary", "solid_phase", "quantity"])
-    t = {k: _per_row(th, k, f["fluid_id"]) for k in _RANGE_KEYS}
-    broken = {name: rule(f, t) for name, rule in RANGE_RULES.items()}
+    cols, _, starts, ends = _segments(merged, ["fluid_id", "boundary", "solid_phase", "quantity"],
+                                      extra=_BOUND_COLUMNS)
+    t = {k: _per_row(th, k, cols["fluid_id"]) for k in _RANGE_KEYS}
+    t["zero"] = np.zeros(len(cols["fluid_id"]))
+    broken = {name: rule.violated(cols, t) for name, rule in RANGE_RULES.items()}
     any_bad = np.logical_or.reduce(list(broken.values()))
     out = []
     for start, end in zip(starts, ends):
@@ -164,7 +177,8 @@ def ranges(batch: CheckBatch, th):
         offenders = [{**_ref(cols, i), "rules": [n for n, m in broken.items() if m[i]]} for i in bad[:20]]
         text = "; ".join(f"obs {o['obs_id']} ({o['file']} row {o['row']}): {', '.join(o['rules'])}"
                          for o in offenders[:3])
-        fid, boundary, solid, quantity = (cols[c][start] for c in ("fluid_id", "boundary", "solid_phase", "quantity"))
+        fid, boundary, solid, quantity = (cols[c][start]
+                                          for c in ("fluid_id", "boundary", "solid_phase", "quantity"))
         subject = f"{boundary}" + (f":{solid}" if solid else "") + f"/{quantity}"
         out.append(judge(fid, subject, measured=float(len(bad)), limit=0.0,
                          statistic="values out of range",
@@ -189,8 +203,8 @@ def outliers(batch: CheckBatch, th):
     fitted = obs[obs["fit_id"].notna()] if len(obs) else obs
     if fitted.empty:
         return []
-    f, cols, _, starts, ends = _segments(fitted, ["fluid_id", "fit_id"])
-    zmax = _per_row(th, "z_max", f["fluid_id"])
+    cols, _, starts, ends = _segments(fitted, ["fluid_id", "fit_id"])
+    zmax = _per_row(th, "z_max", cols["fluid_id"])
     z = cols["z"].astype(float)
     absz = np.abs(z)
     flagged = cols["is_outlier"].astype(bool) | (absz > zmax)
@@ -212,23 +226,22 @@ def outliers(batch: CheckBatch, th):
 
 
 def _duplicate_pairs(obs: pd.DataFrame, th) -> pd.DataFrame:
-    s, cols, g, _, _ = _segments(obs, ["fluid_id", "boundary", "solid_phase", "quantity"], ["T_K"])
+    cols, g, _, _ = _segments(obs, ["fluid_id", "boundary", "solid_phase", "quantity"], ["T_K"])
     T, v, files = cols["T_K"].astype(float), cols["value_si"].astype(float), cols["file_path"]
-    T_tol, rel = _per_row(th, "T_tol_K", s["fluid_id"]), _per_row(th, "rel_tol", s["fluid_id"])
+    T_tol, rel = _per_row(th, "T_tol_K", cols["fluid_id"]), _per_row(th, "rel_tol", cols["fluid_id"])
     found = []
     for lag in range(1, int(th["max_lag"]) + 1):
-        i = np.arange(len(s) - lag)
+        i = np.arange(len(T) - lag)
         j = i + lag
         hit = (g[i] == g[j]) & (np.abs(T[j] - T[i]) <= T_tol[i]) & \
               (np.abs(v[j] - v[i]) <= rel[i] * np.abs(v[i])) & (files[i] != files[j])
         found.append(np.column_stack([i[hit], j[hit]]))
-    pairs = np.concatenate(found) if found else np.zeros((0, 2), dtype=int)
-    a, b = s.iloc[pairs[:, 0]].reset_index(drop=True), s.iloc[pairs[:, 1]].reset_index(drop=True)
-    first = np.where(a["file_path"] < b["file_path"], a["file_path"], b["file_path"])
-    second = np.where(a["file_path"] < b["file_path"], b["file_path"], a["file_path"])
-    return pd.DataFrame({"fluid_id": a["fluid_id"], "file_a": first, "file_b": second,
-                         "obs_a": a["obs_id"], "obs_b": b["obs_id"], "T_K": a["T_K"],
-                         "value_si": a["value_si"], "quantity": a["quantity"]})
+    a, b = np.concatenate(found).T if found else (np.zeros(0, dtype=int),) * 2
+    first = np.where(files[a] < files[b], files[a], files[b])
+    second = np.where(files[a] < files[b], files[b], files[a])
+    return pd.DataFrame({"fluid_id": cols["fluid_id"][a], "file_a": first, "file_b": second,
+                         "obs_a": cols["obs_id"][a], "obs_b": cols["obs_id"][b], "T_K": T[a],
+                         "value_si": v[a], "quantity": cols["quantity"][a]})
 
 
 @register_check("data.duplicates", tags=("data", "sources"), severity="warn", vectorised=True,

@@ -15,7 +15,6 @@ import logging
 import secrets
 import time
 import traceback
-from dataclasses import dataclass
 from contextlib import contextmanager
 from datetime import datetime, timezone
 from typing import Callable, Iterable, Mapping, Sequence
@@ -225,7 +224,7 @@ def store_run(con, run: CheckRun) -> None:
         con.execute(f"INSERT INTO check_result ({cols}) SELECT {cols} FROM fl_check_results")
         con.unregister("fl_check_results")
         con.execute("COMMIT")
-    except Exception:
+    except BaseException:  # any interruption: leave the store as it was, then re-raise
         con.execute("ROLLBACK")
         raise
 

@@ -29,8 +29,9 @@ def _entries(fluid: FluidData):
         groups.setdefault((f"constant|{r['name']}", r["name"], r["si_unit"]), []).append(
             (r["value_si"], r["u_si"], r["source_id"], r["source_kind"]))
     for (subject, name, unit), rows in groups.items():
-        x, u, sources, kinds = (np.array(c, dtype=float if i < 2 else object) for i, c in enumerate(zip(*rows)))
-        yield subject, name, unit, x, u, sources, kinds
+        x, u, sources, kinds = zip(*rows)
+        yield (subject, name, unit, np.array(x, dtype=float), np.array(u, dtype=float),
+               np.array(sources, dtype=object), np.array(kinds, dtype=object))
 
 
 def _discrepant(z: np.ndarray, sources, kinds, z_max: float) -> list[str]:

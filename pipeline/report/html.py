@@ -87,6 +87,14 @@ class ReportPage:
     decisions: Sequence[Mapping[str, Any]] | None = None
     fluid_order: Sequence[str] = field(default_factory=list)
 
+    def results_of(self, fluid_id: str) -> list[CheckResult]:
+        """The check results of one fluid (grouped once for all fluids)."""
+        if getattr(self, "_by_fluid", None) is None:
+            self._by_fluid: dict[str, list[CheckResult]] = {}
+            for r in self.check_run.results:
+                self._by_fluid.setdefault(r.fluid_id, []).append(r)
+        return self._by_fluid.get(fluid_id, [])
+
 
 def _status(s: str) -> str:
     return f'<span class="s-{e(s)}">{e(s)}</span>'
@@ -239,7 +247,7 @@ DECISIONS_SECTION: Callable[[Sequence[Mapping[str, Any]] | None], str] = decisio
 
 def _fluid(page: ReportPage, fid: str) -> str:
     sec = page.sections[fid]
-    results = [r for r in page.check_run.results if r.fluid_id == fid]
+    results = page.results_of(fid)
     counts = {s: sum(r.status == s for r in results) for s in STATUS_ORDER}
     count_text = ", ".join(f"{counts[s]} {s}" for s in STATUS_ORDER if counts[s])
     title = sec.name + (f" ({sec.formula})" if sec.formula else "")

@@ -12,7 +12,6 @@ from check_fixtures import (
     co2,
     co2_melting_file,
     constant,
-    stack,
     th,
     water,
 )
@@ -118,3 +117,14 @@ def test_magnitude_uses_a_z_score_when_every_uncertainty_is_stated():
     f = by_subject(magnitude(water(constants=consts), th("clapeyron.magnitude")))["curve:solid-liquid:Ih"]
     assert f.statistic == "|z|" and f.status == "pass"
     assert f.measured < 1
+
+
+def test_fixture_values_agree_with_the_iapws_package():
+    """ρ(ice Ih, Tt) (R10-06), ρ'(Tt) and Δh at Tt (IAPWS-95) of the fixtures match the iapws package."""
+    import iapws  # a test dependency (pyproject [test])
+    ice = iapws._Ice(273.16, 611.657e-6)            # R10-06 at (273.16 K, 611.657 Pa); p in MPa
+    liquid, vapour = iapws.IAPWS95(T=273.16, x=0), iapws.IAPWS95(T=273.16, x=1)
+    assert ice["rho"] == pytest.approx(RHO_ICE_IH_TT, abs=1e-3)
+    assert liquid.rho == pytest.approx(999.793, abs=1e-3)
+    assert (liquid.h - ice["h"]) * 1e3 * 0.018015268 == pytest.approx(H_FUS_TT, rel=1e-6)
+    assert (vapour.h - liquid.h) * 1e3 * 0.018015268 == pytest.approx(H_VAP_TT, rel=1e-6)

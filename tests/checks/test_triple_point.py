@@ -3,7 +3,6 @@
 import pytest
 
 from check_fixtures import (
-    PT_WATER,
     TT_WATER,
     WATER_ICE_TRIPLES,
     by_subject,

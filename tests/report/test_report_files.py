@@ -39,3 +39,50 @@ def test_plot_cache_round_trip_disable_and_prune(tmp_path):
     assert PlotCache(tmp_path / "plots", enabled=False).get("a") is None
     assert cache.prune({"b"}) == 1
     assert cache.get("a") is None and cache.get("b") == b"png-b"
+
+
+def _document(results):
+    import json
+
+    nightly = {"run_id": "nightly-x", "kind": "nightly", "started_at": "t", "finished_at": "t",
+               "duration_s": 1.0, "pipeline_version": "0", "parameters": {}, "verdict": "pass",
+               "exit_code": 0, "no_changes": False, "previous_run_id": None,
+               "check_run_id": "check-x", "counts": {},
+               "stages": {s: {"status": "ok", "duration_s": 0.0, "text": "", "detail": {}}
+                          for s in ("ingest", "fit", "check")},
+               "changes": {"new_failures": [], "fixed": [], "changed": [], "values": [],
+                           "values_basis": ""},
+               "publish": {"status": "skipped", "release_id": None, "reason": None},
+               "report": {}}
+    run = {"run_id": "check-x", "kind": "check", "started_at": "2026-01-01T00:00:00Z",
+           "finished_at": "2026-01-01T00:00:00Z", "duration_s": 0.0, "pipeline_version": "0",
+           "parameters": {}, "status": "ok", "checks": ["data.ranges"], "fluids": ["argon"],
+           "counts": dict.fromkeys(("pass", "warn", "fail", "skip", "error", "waived"), 0)}
+    return json.loads(json.dumps({"nightly": nightly, "run": run, "results": results}))
+
+
+def _result(i, status="pass"):
+    return {"check_id": "data.ranges", "fluid_id": "argon", "subject": f"s{i}",
+            "status": status, "severity": "fail", "message": "m", "measured": None,
+            "limit": None, "statistic": None, "evidence": {}, "thresholds": {},
+            "input_hash": None, "decision_id": None, "duration_s": 0.0}
+
+
+def test_validated_json_round_trips_and_memoises_valid_items(tmp_path):
+    """The text parses back to the document; valid items are remembered, and a new invalid
+    item is still refused while the memo holds the others."""
+    import json
+
+    import pytest
+
+    from pipeline.report.files import ReportSchemaError, ValidatedItems, validated_json
+
+    doc = _document([_result(i) for i in range(3)])
+    memo = ValidatedItems(tmp_path / "memo.txt")
+    assert json.loads(validated_json(doc, memo)) == doc
+    assert len((tmp_path / "memo.txt").read_text().split()) == 3
+    bad = _document([_result(i) for i in range(3)] + [_result(9, status="maybe")])
+    with pytest.raises(ReportSchemaError, match="results/3/status"):
+        validated_json(bad, ValidatedItems(tmp_path / "memo.txt"))
+    with pytest.raises(ReportSchemaError, match="results/3/status"):
+        validated_json(bad)   # without a memo every item is validated
