@@ -405,8 +405,59 @@ def verify(store_path: str | os.PathLike | None, *, releases_root: str | os.Path
         return result
     with store:
         result = verify_store(store.con, VerifyResult(store=str(store.path)))
+        published = published_releases(store.con) if releases_root is not None else []
     if releases_root is not None:
         found, releases, hashed = verify_release_manifests(releases_root)
-        result.findings += found
+        result.findings += found + verify_listed_releases(published, releases_root)
         result.releases, result.files_hashed = releases, hashed
     return result
+
+
+def published_releases(con: duckdb.DuckDBPyConnection) -> list[tuple[str, str, str]]:
+    """(release_id, fingerprint, export_dir of its latest publication) of every release the
+    store lists as published (empty for a store without the release tables)."""
+    if not {"release", "release_publication"} <= _schema(con):
+        return []
+    return con.execute(
+        "SELECT r.release_id, r.fingerprint, arg_max(p.export_dir, p.publication_seq) "
+        "FROM release r JOIN release_publication p USING (release_id) "
+        "GROUP BY ALL ORDER BY 1").fetchall()
+
+
+def verify_listed_releases(published: list[tuple[str, str, str]],
+                           root: str | os.PathLike) -> list[Finding]:
+    """Every release the store says it published into ``root`` has its folder there, with a
+    manifest naming that release and the store's fingerprint of it.
+
+    A release last published into another folder must be missing here only if ``root`` has
+    no folder of its name (a store and its releases copied elsewhere keep their recorded
+    paths; a folder of the release's name is still checked). A folder the store does not list
+    is no finding: a publish killed after renaming its folder into place and before committing
+    leaves one, and its rerun adopts it.
+    """
+    root = Path(root).resolve()
+    missing, wrong = [], []
+    for release_id, fingerprint, export_dir in published:
+        folder = root / release_id
+        if Path(export_dir).resolve() != folder and not folder.exists():
+            continue
+        try:
+            doc = json.loads((folder / MANIFEST_NAME).read_text("utf-8"))
+        except FileNotFoundError:
+            missing.append(release_id)
+            continue
+        except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+            continue            # reported by verify_release_manifests
+        if not isinstance(doc, dict) or (doc.get("release_id"), doc.get("fingerprint")) != \
+                (release_id, fingerprint):
+            wrong.append(release_id)
+    findings = []
+    if missing:
+        findings.append(Finding("release.listed", "every release the store lists as published "
+                                "here has its folder and manifest", len(missing),
+                                tuple(missing[:SAMPLE_LIMIT])))
+    if wrong:
+        findings.append(Finding("release.fingerprint", "each release folder's manifest names "
+                                "the release and the fingerprint the store holds for it",
+                                len(wrong), tuple(wrong[:SAMPLE_LIMIT])))
+    return findings

@@ -254,6 +254,43 @@ def _write_files(folder: Path, release_id: str, fingerprint: str,
     return manifest
 
 
+def process_alive(pid: int) -> bool:
+    """True when a process ``pid`` exists (it may belong to another user)."""
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def leftover_pid(name: str, prefix: str, suffix: str = "") -> int | None:
+    """The PID in a temporary name ``<prefix>...-<pid><suffix>`` (or ``.<pid><suffix>``)."""
+    if not (name.startswith(prefix) and name.endswith(suffix)):
+        return None
+    stem = name[len(prefix):len(name) - len(suffix)] if suffix else name[len(prefix):]
+    digits = stem.rsplit("-", 1)[-1].rsplit(".", 1)[-1]
+    return int(digits) if digits.isdigit() else None
+
+
+def remove_leftovers(root: Path) -> list[Path]:
+    """Remove temporary release folders under ``root`` whose writing process is gone.
+
+    A publish killed before its rename leaves ``.tmp-<release>-<pid>``; a folder of a live
+    process (another publish into the same root) is left alone. Returns what was removed.
+    """
+    removed = []
+    if not root.is_dir():
+        return removed
+    for path in root.iterdir():
+        pid = leftover_pid(path.name, ".tmp-")
+        if pid is not None and path.is_dir() and pid != os.getpid() and not process_alive(pid):
+            shutil.rmtree(path, ignore_errors=True)
+            removed.append(path)
+    return removed
+
+
 def prepare_release_folder(root: Path, release_id: str, fingerprint: str,
                            tables: dict[str, list[dict]]) -> tuple[Path, dict]:
     """Write and validate the exports in a temporary folder under ``root``; return it."""

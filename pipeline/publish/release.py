@@ -11,11 +11,19 @@ Recipe of :func:`publish`:
 4. build the content (:func:`build_content`): recommended constants, curves, one provenance
    record per value - a pure function of inputs, policy and decisions;
 5. write the exports into a temporary folder and validate them; write the published DuckDB
-   file as a temporary file;
-6. one store transaction: the release rows (if new), a release_publication row, the SQL macros;
-7. rename the export folder into place and swap the published file in (``os.replace``).
+   file as a temporary file (temporary files left by a killed publish are removed first);
+6. rename the export folder into place (an atomic rename; a folder already there must hold
+   the same manifest);
+7. one store transaction: the release rows (if new), a release_publication row, the SQL macros;
+8. swap the published file in (``os.replace``).
 
 A re-publish of unchanged inputs adds only a publication row; the files come out identical.
+
+The order makes every crash recoverable by running the publish again: killed before 6, only
+temporary files remain; between 6 and 7, the folder is a complete, verifiable release that
+the store does not list yet, and the rerun adopts it (same manifest); between 7 and 8 the
+store lists the release while readers still see the previous published file, and the rerun
+republishes it. :mod:`pipeline.crashpoints` names these places for the tests.
 """
 
 from __future__ import annotations
@@ -31,6 +39,7 @@ import duckdb
 
 from pipeline import __version__
 from pipeline.correlations import Curve
+from pipeline.crashpoints import crash_point
 from pipeline.errors import EXIT_CHECK_FAILED, PublishError
 from pipeline.ingest.stage import new_run_id, utcnow
 from pipeline.publish import exports, provenance as prov, published, sqlmacros
@@ -269,32 +278,44 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
              "created_at": row[2] if row else now, "publish_run_id": run_id}
     final_dir = root / release_id
     target = root / published.PUBLISHED_NAME
+    exports.remove_leftovers(root)
+    published.remove_leftovers(target)
     tmp_dir, manifest = exports.prepare_release_folder(root, release_id, fingerprint,
                                                        content.tables)
+    crash_point("publish:exports-written")
     publication = {"release_id": release_id, "published_at": now, "publish_run_id": run_id,
                    "export_dir": str(final_dir)}
+    tmp_pub = None
     try:
         already = exports.existing_folder_matches(final_dir, manifest)
         tmp_pub = published.build_published_file(target, content.tables, extra, publication)
-        con.execute("BEGIN TRANSACTION")
-        try:
-            if row is None:
-                published.insert_release_rows(con, content.tables, extra)
-            con.execute("INSERT INTO release_publication VALUES "
-                        "(nextval('release_publication_seq'), ?, ?, ?, ?, ?)",
-                        [release_id, now, run_id, str(final_dir), str(target)])
-            sqlmacros.install_macros(con)
-            sqlmacros.comment_view_columns(con, sqlmacros.CURATED_VIEWS)
-            con.execute("COMMIT")
-        except BaseException:
-            con.execute("ROLLBACK")
-            tmp_pub.unlink(missing_ok=True)
-            raise
+        crash_point("publish:file-built")
+        written = exports.commit_release_folder(tmp_dir, final_dir, already)
     except BaseException:
         shutil.rmtree(tmp_dir, ignore_errors=True)
+        if tmp_pub is not None:
+            tmp_pub.unlink(missing_ok=True)
         raise
-    written = exports.commit_release_folder(tmp_dir, final_dir, already)
+    crash_point("publish:folder-renamed")
+    con.execute("BEGIN TRANSACTION")
+    try:
+        if row is None:
+            published.insert_release_rows(con, content.tables, extra)
+        con.execute("INSERT INTO release_publication VALUES "
+                    "(nextval('release_publication_seq'), ?, ?, ?, ?, ?)",
+                    [release_id, now, run_id, str(final_dir), str(target)])
+        sqlmacros.install_macros(con)
+        sqlmacros.comment_view_columns(con, sqlmacros.CURATED_VIEWS)
+        con.execute("COMMIT")
+    except BaseException:
+        con.execute("ROLLBACK")
+        tmp_pub.unlink(missing_ok=True)
+        if written:      # the store does not list it: take back the folder this run added
+            shutil.rmtree(final_dir, ignore_errors=True)
+        raise
+    crash_point("publish:store-committed")
     published.swap_in(tmp_pub, target)
+    crash_point("publish:swapped")
     counts = inputs.counts()
     return PublishResult(release_id, fingerprint, inputs.check_run_id, row is None,
                          bool(inputs.bad_checks()), counts.get("fail", 0),

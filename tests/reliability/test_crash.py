@@ -11,14 +11,7 @@ an uninterrupted run (ids and run ids aside). DuckDB's ``debug_checkpoint_abort`
 (``before_header``, ``before_truncate``, ``after_free_list_write``) simulates a crash inside a
 checkpoint after an ingest.
 
-Reusable for other stages (e.g. a publish kill test)::
-
-    outcome = kill_cli(["publish", ...], store, trigger=grown_to(0.5, final_size))
-    assert outcome.killed
-    assert_store_recovers(store)        # opens, migrates, verify finds nothing
-
-``kill_cli`` runs ``python -m pipeline.cli ARGV --store STORE -q`` from the repository root and
-SIGKILLs it the first time ``trigger(probe)`` is true; ``snapshot(store)`` gives comparable content.
+The kill-and-recover helpers live in ``crashkit.py`` (shared with the publish kill test).
 """
 
 from __future__ import annotations
@@ -28,9 +21,7 @@ import shutil
 import signal
 import subprocess
 import sys
-import tempfile
 import textwrap
-import time
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
@@ -40,16 +31,13 @@ import pytest
 
 from pipeline.cli import main
 from pipeline.store import open_store
-from pipeline.verify import verify
 from tests.conftest import FLUIDS_TOML
+from tests.reliability.crashkit import (REPO, Probe, after_commit, assert_store_recovers, creating,
+                                        exists, file_size, grown_to, kill_cli, snapshot)
 
-REPO = Path(__file__).resolve().parents[2]
 ROWS = int(os.environ.get("FLUIDLEDGER_CRASH_ROWS", "150000"))
 BATCHES = 3
 BAD_EVERY = 9973  # every so many rows a cell that must be quarantined
-# columns that identify a load rather than describe content: ignored when comparing stores
-VOLATILE = {"obs_id", "file_id", "fp_id", "const_id", "q_id", "ingest_run_id", "updated_run_id",
-            "ingested_at", "superseded_by", "superseded_run_id"}
 
 BATCH_TOML = """format_version = 1
 
@@ -95,115 +83,6 @@ def write_big_raw(root: Path, *, batches: int = BATCHES, rows: int = ROWS) -> Pa
     return root
 
 
-def _content(con, view: str, order: bool) -> tuple:
-    cols = [r[0] for r in con.execute(f"DESCRIBE {view}").fetchall() if r[0] not in VOLATILE]
-    select = ", ".join(f'"{c}"' for c in cols)
-    if order:
-        return tuple(con.execute(f"SELECT {select} FROM {view} ORDER BY ALL").fetchall())
-    n, digest = con.execute(f"SELECT count(*), sum(hash({select})::HUGEINT) FROM {view}"
-                            ).fetchone()
-    return (n, int(digest or 0))
-
-
-def snapshot(store: Path) -> dict:
-    """Comparable content of a store: current files, sources, and digests of current rows."""
-    with open_store(store, read_only=True) as s:
-        con = s.con
-        return {
-            "raw_file_current": _content(con, "raw_file_current", order=True),
-            "source": _content(con, "source", order=True),
-            "observation_current": _content(con, "observation_current", order=False),
-            "quarantine_current": _content(con, "quarantine_current", order=True),
-            "fixed_point_current": _content(con, "fixed_point_current", order=True),
-        }
-
-
-def assert_store_recovers(store: Path) -> None:
-    """The store opens writable (migrating if needed) and ``fluidledger verify`` passes."""
-    if store.exists():
-        open_store(store).close()
-        code = main(["verify", "--store", str(store), "--no-releases", "-q"])
-        assert code == 0, verify(store).asstr()
-
-
-@dataclass
-class Probe:
-    """What a trigger may look at while the process runs (sizes in bytes, -1 when absent)."""
-
-    elapsed_s: float
-    db_bytes: int
-    wal_bytes: int
-    creating: bool      # a new store is being built under its temporary name
-
-
-@dataclass
-class KillOutcome:
-    killed: bool
-    returncode: int
-    elapsed_s: float
-    probe: Probe
-    stderr: str = ""     # the tail of the process's stderr, to explain an early exit
-
-
-def _size(path: Path) -> int:
-    try:
-        return path.stat().st_size
-    except FileNotFoundError:
-        return -1
-
-
-def kill_cli(argv: list[str], store: Path, trigger: Callable[[Probe], bool], *,
-             timeout_s: float = 120.0) -> KillOutcome:
-    """Run ``fluidledger ARGV --store STORE -q`` and SIGKILL it when ``trigger`` first holds."""
-    env = {**os.environ, "PYTHONPATH": str(REPO)}
-    with tempfile.TemporaryFile() as err:
-        proc = subprocess.Popen([sys.executable, "-m", "pipeline.cli", *argv, "--store",
-                                 str(store), "-q"], cwd=REPO, env=env,
-                                stdout=subprocess.DEVNULL, stderr=err)
-        wal = store.with_name(store.name + ".wal")
-        start = time.monotonic()
-        try:
-            while True:
-                probe = Probe(time.monotonic() - start, _size(store), _size(wal),
-                              any(store.parent.glob(f".{store.name}.creating-*")))
-                if proc.poll() is not None:
-                    err.seek(0)
-                    tail = err.read()[-2000:].decode("utf-8", "replace")
-                    return KillOutcome(False, proc.returncode, probe.elapsed_s, probe, tail)
-                if trigger(probe):
-                    os.kill(proc.pid, signal.SIGKILL)
-                    proc.wait()
-                    return KillOutcome(True, proc.returncode, probe.elapsed_s, probe)
-                if probe.elapsed_s > timeout_s:
-                    raise AssertionError(f"{argv} ran past {timeout_s} s")
-                time.sleep(0.001)
-        finally:
-            if proc.poll() is None:
-                proc.kill()
-                proc.wait()
-
-
-def exists(probe: Probe) -> bool:
-    """Trigger as soon as the store file exists."""
-    return probe.db_bytes > 0
-
-
-def creating(probe: Probe) -> bool:
-    """Trigger while a new store is being built under its temporary name."""
-    return probe.creating
-
-
-def grown_to(fraction: float, final_bytes: int) -> Callable[[Probe], bool]:
-    """Trigger once the store file reaches ``fraction`` of the size an uninterrupted run ends at."""
-    return lambda probe: probe.db_bytes >= fraction * final_bytes
-
-
-def after_commit(wal_bytes: int, db_bytes: int) -> Callable[[Probe], bool]:
-    """Trigger once the WAL holds a commit's bytes and the store file grows past the size it had
-    then: the process has moved on to the next batch, so the commit is complete."""
-    return lambda probe: probe.wal_bytes >= wal_bytes and probe.db_bytes > db_bytes
-
-
 @dataclass
 class Reference:
     """An uninterrupted run: its snapshot and the store/WAL sizes at each batch commit."""
@@ -239,7 +118,7 @@ def big(tmp_path_factory) -> Reference:
         if wal1 > wal0 > 0 and db0 > grown:
             commits.append((db1, wal1))
             grown = db1
-    return Reference(raw, snapshot(store), _size(store), commits, start_bytes)
+    return Reference(raw, snapshot(store), file_size(store), commits, start_bytes)
 
 
 def committed_batches(store: Path) -> int:
