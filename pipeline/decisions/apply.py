@@ -27,6 +27,7 @@ from datetime import date
 from typing import Any, Iterable, Sequence
 
 from pipeline.decisions.model import Decision, DecisionSet, ExcludeObservations, WaiveCheck
+from pipeline.store.runs import latest_check_run_id as latest_check_run
 
 log = logging.getLogger(__name__)
 
@@ -364,14 +365,6 @@ class Touch:
 def _has_table(con, name: str) -> bool:
     return con.execute("SELECT count(*) FROM information_schema.tables WHERE table_name = ?",
                        [name]).fetchone()[0] > 0
-
-
-def latest_check_run(con) -> str | None:
-    """Run id of the latest finished check run (None before the first)."""
-    # started_at has whole seconds; rowid (insertion order) separates runs of the same second
-    row = con.execute("SELECT run_id FROM run WHERE kind = 'check' AND finished_at IS NOT NULL "
-                      "ORDER BY started_at DESC, rowid DESC LIMIT 1").fetchone()
-    return row[0] if row else None
 
 
 def _observations(con, obs_ids: Sequence[int]) -> list[dict]:

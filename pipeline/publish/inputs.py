@@ -21,6 +21,7 @@ import duckdb
 
 from pipeline import __version__
 from pipeline.errors import PublishError
+from pipeline.store.runs import latest_check_run_id
 
 ENTHALPY_QUANTITIES = ("h_fusion", "h_vaporization", "h_sublimation")
 BAD_STATUSES = ("fail", "error")
@@ -120,12 +121,11 @@ class ReleaseInputs:
 
 def latest_check_run(con: duckdb.DuckDBPyConnection) -> str:
     """The newest finished check run; :class:`PublishError` when the store has none."""
-    row = con.execute("SELECT run_id FROM run WHERE kind = 'check' AND finished_at IS NOT NULL "
-                      "ORDER BY started_at DESC, run_id DESC LIMIT 1").fetchone()
-    if row is None:
+    run_id = latest_check_run_id(con)
+    if run_id is None:
         raise PublishError("the store holds no finished check run; run 'fluidledger check' "
                            "before publishing (a release rests on a check run)")
-    return row[0]
+    return run_id
 
 
 _FITS = """

@@ -72,3 +72,16 @@ def test_second_writer_gets_busy_error(store_path):
     finally:
         holder.kill()
         holder.wait()
+
+
+def test_latest_check_run_breaks_a_same_second_tie_by_insertion_order(store_path):
+    """Check runs started in the same second: the one inserted last is the latest, whatever
+    its random run-id suffix (publish and decisions rest on it)."""
+    from pipeline.store.runs import latest_check_run_id
+
+    with open_store(store_path) as s:
+        assert latest_check_run_id(s.con) is None
+        for run_id in ("check-20261202T101010-ffffff", "check-20261202T101010-000000"):
+            s.con.execute("INSERT INTO run VALUES (?, 'check', TIMESTAMP '2026-12-02 10:10:10', "
+                          "TIMESTAMP '2026-12-02 10:10:10', '0', '{}', 'ok', NULL)", [run_id])
+        assert latest_check_run_id(s.con) == "check-20261202T101010-000000"
