@@ -18,13 +18,16 @@ Recipe (:func:`run_nightly`):
    (:func:`pipeline.report.history.transitions`) and changed recommended values.
 5. **publish** -- only when nothing failed, errored or failed to ingest, through
    :func:`publish_adapter`; otherwise the reason is recorded.
-6. **report** -- ``reports/<run-id>/`` with report.html, results.json, junit.xml, summary.md
+6. **verify** -- :func:`pipeline.verify.verify_connection` (what ``fluidledger verify`` does)
+   over the run's own connection and the releases in the store's folder; a finding makes the
+   verdict ``error``.
+7. **report** -- ``reports/<run-id>/`` with report.html, results.json, junit.xml, summary.md
    and nightly.log; ``reports/latest`` points to it.
 
 A ``run`` row (kind ``nightly``) holds the parameters and the result record plus the
 per-fluid state the next run compares with. Exit codes: 0 pass (warnings allowed), 1 a check
-failed (0 with ``exit_zero``), 2 a batch could not be ingested, 3 a check raised or an
-internal error.
+failed (0 with ``exit_zero``), 2 a batch could not be ingested, 3 a check raised, the
+publish failed, verify found damage, or an internal error.
 """
 
 from __future__ import annotations
@@ -631,8 +634,31 @@ def run_log(path: Path, verbose: bool):
             h.setLevel(lvl)
 
 
-def _verdict(counts: Mapping[str, int], ingest: Stage, publish: dict) -> str:
+def _verify(con, store_path, run_id: str) -> Stage:
+    """``fluidledger verify`` inside the run: the store rules over the run's own connection,
+    the release manifests in the store's folder (where the run publishes) and every release
+    the store lists as published there."""
+    from dataclasses import asdict
+
+    from pipeline.verify import verify_connection
+
+    t0 = time.perf_counter()
+    res = verify_connection(con, str(store_path), Path(store_path).parent, running=(run_id,))
+    head = (f"{len(res.rules_run)} store rules, {len(res.releases)} release(s) with "
+            f"{res.files_hashed} files hashed")
+    text = f"{head}: OK" if res.ok else (f"{head}: {len(res.findings)} finding(s): "
+                                         + "; ".join(f.asstr() for f in res.findings[:3]))
+    detail = {"rules": len(res.rules_run), "releases": len(res.releases),
+              "files_hashed": res.files_hashed, "findings": [asdict(f) for f in res.findings],
+              "notes": res.notes}
+    return Stage("ok" if res.ok else "failed", time.perf_counter() - t0, text, detail)
+
+
+def _verdict(counts: Mapping[str, int], ingest: Stage, publish: dict,
+             verify: Stage | None = None) -> str:
     if counts.get("error") or publish.get("status") == "failed":
+        return "error"
+    if verify is not None and verify.status == "failed":
         return "error"
     if ingest.detail.get("errors"):
         return "input-error"
@@ -728,7 +754,9 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
     log.info("publish: %s", pub_stage.text)
     values, basis = _value_changes(con, prev, pub, selected, fits_now)
     result.changes.update(values=values, values_basis=basis)
-    result.verdict = _verdict(result.counts, ingest, pub)
+    verify = result.stages["verify"] = _verify(con, store_path, result.run_id)
+    (log.info if verify.status == "ok" else log.error)("verify: %s", verify.text)
+    result.verdict = _verdict(result.counts, ingest, pub, verify)
     code = VERDICT_EXIT[result.verdict]
     result.exit_code = EXIT_OK if opts.exit_zero and code == EXIT_CHECK_FAILED else code
     t_report = time.perf_counter()

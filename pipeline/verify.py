@@ -269,11 +269,13 @@ def _read_everything(con: duckdb.DuckDBPyConnection, have: set[str], result: Ver
 
 
 def verify_store(con: duckdb.DuckDBPyConnection, result: VerifyResult, *,
-                 rules: tuple[Rule, ...] = STORE_RULES, read_all: bool = True) -> VerifyResult:
+                 rules: tuple[Rule, ...] = STORE_RULES, read_all: bool = True,
+                 running: tuple[str, ...] = ()) -> VerifyResult:
     """Run ``rules`` (default: every store rule) over ``con``; record findings, notes and counts.
 
     ``read_all=False`` skips the schema comparison, the full read of every table and the notes
-    (for callers that check a few rules often, such as the fuzz tests).
+    (for callers that check a few rules often, such as the fuzz tests). ``running`` names runs
+    that are still going (the caller's own), so they are not noted as interrupted.
     """
     have = _schema(con)
     if read_all:
@@ -292,6 +294,8 @@ def verify_store(con: duckdb.DuckDBPyConnection, result: VerifyResult, *,
         for run_id, kind in con.execute(
                 "SELECT run_id, kind FROM run WHERE finished_at IS NULL ORDER BY started_at"
         ).fetchall():
+            if run_id in running:
+                continue
             result.notes.append(f"{kind} run {run_id} never finished (process interrupted); "
                                 "its committed batches are complete, the rest was rolled back")
     return result
@@ -404,11 +408,22 @@ def verify(store_path: str | os.PathLike | None, *, releases_root: str | os.Path
         result.findings.append(Finding("storage.open", f"expected a readable store: {err}"))
         return result
     with store:
-        result = verify_store(store.con, VerifyResult(store=str(store.path)))
-        published = published_releases(store.con) if releases_root is not None else []
+        return verify_connection(store.con, str(store.path), releases_root)
+
+
+def verify_connection(con: duckdb.DuckDBPyConnection, store_label: str,
+                      releases_root: str | os.PathLike | None = None, *,
+                      running: tuple[str, ...] = ()) -> VerifyResult:
+    """Every store rule over an open connection, then (with ``releases_root``) the release
+    manifests there and the releases the store lists as published there.
+
+    Only reads; the nightly job runs it on its own (writable) connection, naming its own run
+    in ``running``.
+    """
+    result = verify_store(con, VerifyResult(store=store_label), running=running)
     if releases_root is not None:
         found, releases, hashed = verify_release_manifests(releases_root)
-        result.findings += found + verify_listed_releases(published, releases_root)
+        result.findings += found + verify_listed_releases(published_releases(con), releases_root)
         result.releases, result.files_hashed = releases, hashed
     return result
 

@@ -1,8 +1,9 @@
 """``fluidledger nightly``: ingest, refit what changed, check, publish when clean, report.
 
 Exit codes: 0 every check passed (warnings allowed; also when checks fail with ``--exit-zero``),
-1 a check failed, 2 a usage error or a raw batch that could not be ingested, 3 a check raised
-or an internal error, 75 the store is busy.
+1 a check failed, 2 a usage error or a raw batch that could not be ingested, 3 a check raised,
+the publish failed, the verify stage found the store or a release damaged, or an internal
+error; 75 the store is busy.
 """
 
 from __future__ import annotations
@@ -13,8 +14,8 @@ from pathlib import Path
 NAME = "nightly"
 HELP = ("Run the nightly job: ingest new or changed batches, refit the fluids whose data "
         "changed, run every check (reusing results of unchanged fluids), publish a release "
-        "when nothing failed, and write reports/<run-id>/ (report.html, results.json, "
-        "junit.xml, summary.md, nightly.log).")
+        "when nothing failed, verify the store and its releases, and write "
+        "reports/<run-id>/ (report.html, results.json, junit.xml, summary.md, nightly.log).")
 
 
 def add_arguments(p) -> None:

@@ -189,6 +189,12 @@ def _stages(n: Mapping[str, Any]) -> str:
     if errors:
         extra = "<h3>Batches that could not be ingested</h3><ul>" + "".join(
             f"<li><code>{e(x['batch'])}</code>: {e(x['error'])}</li>" for x in errors) + "</ul>"
+    findings = n["stages"].get("verify", {}).get("detail", {}).get("findings", [])
+    if findings:
+        extra += "<h3>Integrity findings (verify)</h3><ul>" + "".join(
+            f"<li><code>{e(f['rule'])}</code>: {e(f['message'])} [{int(f['count'])}]"
+            + (f" (e.g. {e('; '.join(f['samples']))})" if f.get("samples") else "") + "</li>"
+            for f in findings) + "</ul>"
     return "<h3>Stages</h3>" + _table(["stage", "status", "seconds", "what happened"], rows,
                                       num=(2,)) + extra
 

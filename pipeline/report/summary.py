@@ -50,6 +50,11 @@ def render_summary(nightly: Mapping[str, Any], report_html: str) -> str:
     if errors:
         lines += ["", f"Batches not ingested ({len(errors)}):"]
         lines += _items(errors, lambda x: f"`{x['batch']}`: {x['error']}")
+    findings = nightly["stages"].get("verify", {}).get("detail", {}).get("findings", [])
+    if findings:
+        lines += ["", f"Integrity findings of the verify stage ({len(findings)}):"]
+        lines += _items(findings, lambda f: f"`{f['rule']}`: {f['message']} [{f['count']}]"
+                        + (f" (e.g. {'; '.join(f['samples'])})" if f.get("samples") else ""))
     if ch["new_failures"]:
         lines += ["", f"New failures ({len(ch['new_failures'])}):"]
         lines += _items(ch["new_failures"], _transition)

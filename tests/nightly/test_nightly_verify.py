@@ -1,0 +1,43 @@
+"""The nightly job runs verify: a damaged release or store makes the run an error (exit 3)."""
+
+from __future__ import annotations
+
+import pytest
+
+from nightly_fixtures import ARGON_BATCHES, copy_demo, nightly
+
+
+@pytest.fixture(scope="module")
+def runs(tmp_path_factory):
+    """A clean argon run (it publishes), then a run after a release file was changed."""
+    tmp = tmp_path_factory.mktemp("nightly-verify")
+    raw = copy_demo(tmp, ARGON_BATCHES)
+    clean = nightly(tmp, raw)
+    release = tmp / clean.publish["release_id"]
+    csv = release / "constants.csv"
+    csv.write_bytes(csv.read_bytes().replace(b"150.687", b"150.786"))   # a quiet wrong digit
+    damaged = nightly(tmp, raw)
+    return {"tmp": tmp, "clean": clean, "damaged": damaged}
+
+
+def test_a_clean_run_verifies_its_new_release(runs):
+    """The verify stage ran every store rule and hashed the files of the release just made."""
+    stage = runs["clean"].stages["verify"]
+    assert stage.status == "ok" and stage.detail["findings"] == []
+    assert stage.detail["releases"] == 1 and stage.detail["files_hashed"] >= 12
+    assert stage.detail["rules"] > 20
+    assert runs["clean"].exit_code == 0
+
+
+def test_a_changed_release_file_is_an_integrity_error(runs):
+    """The next run finds the changed file by its SHA-256: verdict error, exit 3, and the
+    finding is in results, summary and report."""
+    damaged = runs["damaged"]
+    stage = damaged.stages["verify"]
+    assert stage.status == "failed"
+    assert [f["rule"] for f in stage.detail["findings"]] == ["release.hash"]
+    assert (damaged.verdict, damaged.exit_code) == ("error", 3)
+    summary = (runs["tmp"] / "reports" / damaged.run_id / "summary.md").read_text()
+    assert "Integrity findings of the verify stage (1)" in summary and "release.hash" in summary
+    html = (runs["tmp"] / "reports" / damaged.run_id / "report.html").read_text()
+    assert "Integrity findings (verify)" in html
