@@ -1,7 +1,9 @@
 """Normalise a staged CSV table: parse numbers, convert units and scales, route faults.
 
-Everything here is set-based SQL over the staged table plus one vectorised numpy pass for
-temperature-scale conversion; unit factors come from pint once per column
+Everything here is set-based SQL over the staged table, the temperature-scale conversion
+included (generated from the same coefficients as the numpy functions of
+:mod:`pipeline.ingest.scales`, and equal to them to the last bit); unit factors come from pint
+once per column
 (:mod:`pipeline.ingest.units`). Each row gets either normalised values or a ``fault``
 (reason code and the column at fault); the loader sends faulty rows to quarantine.
 
@@ -17,10 +19,9 @@ from dataclasses import dataclass
 
 import duckdb
 import numpy as np
-import pyarrow as pa
 
 from pipeline.ingest.contract import TableSpec
-from pipeline.ingest.scales import to_its90
+from pipeline.ingest.scales import get_scale, ipts68_to_its90_sql
 from pipeline.ingest.units import conversion
 
 # quantity -> (pint quantity kind, SI unit, physical upper bound in SI)
@@ -84,29 +85,56 @@ def _plan(spec: TableSpec, molar_mass: float) -> tuple[list[Column], dict[str, d
     return cols, rules
 
 
-def _parse_sql(staged: str, cols: list[Column], spec: TableSpec) -> str:
+def _parse_sql(staged: str, cols: list[Column], spec: TableSpec, duplicates: str) -> str:
     """Parse every mapped cell once. ``plain_<key>``: the cell is an ordinary finite number in
     the declared decimal style (no unit, no thousands separator, no underscore); ``si_<key>``:
-    its value in SI (NaN/inf kept so that the fault CASE can name them)."""
+    its value in SI (NaN/inf kept so that the fault CASE can name them); ``dup``: the row
+    repeats an earlier one (its number is in the table ``duplicates``)."""
     nulls = ", ".join("'" + v.replace("'", "''") + "'" for v in spec.null_values)
     other = "." if spec.decimal == "," else ","
-    parts, derived = ["row_number"], []
+    cells, parts, derived = ["row_number"], ["row_number"], []
     for c in cols:
-        cell = f"trim({ident(c.column)})"
-        empty = f"({ident(c.column)} IS NULL OR {cell} = ''" + (
-            f" OR {cell} IN ({nulls}))" if nulls else ")")
+        # the innermost query trims each cell once; the next one parses it
+        cells += [f"{ident(c.column)} AS txt_{c.key}", f"trim({ident(c.column)}) AS cell_{c.key}"]
+        cell = f"cell_{c.key}"
+        empty = f"(txt_{c.key} IS NULL OR {cell} = ''" + (f" OR {cell} IN ({nulls}))" if nulls
+                                                          else ")")
         raw = f"TRY_CAST(replace({cell}, ',', '.') AS DOUBLE)" if spec.decimal == "," else \
             f"TRY_CAST({cell} AS DOUBLE)"
-        parts += [f"{ident(c.column)} AS txt_{c.key}", f"{empty} AS empty_{c.key}",
+        parts += [f"txt_{c.key}", f"{cell}", f"{empty} AS empty_{c.key}",
                   f"CASE WHEN contains({cell}, '_') OR contains({cell}, '{other}') THEN NULL "
                   f"ELSE {raw} END AS num_{c.key}"]
         # computed one level up, so that a CSV column named like an alias (num_T) cannot
-        # shadow it: the outer query sees only the columns made here
-        derived += [f"coalesce(isfinite(num_{c.key}) OR regexp_matches(trim(txt_{c.key}), "
-                    f"'^[+-]?[0-9.,]+([eE][+-]?[0-9]+)?$'), false) AS plain_{c.key}",
+        # shadow it: the outer queries see only the columns made here. The pattern is
+        # matched only for cells that parsed to a non-finite number (1e999 -> inf).
+        derived += [f"CASE WHEN num_{c.key} IS NULL THEN false WHEN isfinite(num_{c.key}) "
+                    f"THEN true ELSE coalesce(regexp_matches(cell_{c.key}, "
+                    f"'^[+-]?[0-9.,]+([eE][+-]?[0-9]+)?$'), false) END AS plain_{c.key}",
                     f"num_{c.key} * {c.factor!r} + {c.offset!r} AS si_{c.key}"]
-    parts.append("hash(" + ", ".join(ident(c.column) for c in cols) + ") AS row_hash")
-    return f"SELECT *, {', '.join(derived)} FROM (SELECT {', '.join(parts)} FROM {staged})"
+    parts.append(f"row_number IN (SELECT row_number FROM {duplicates}) AS dup")
+    cell_cols = ", ".join(f"cell_{c.key}" for c in cols)
+    return (f"SELECT * EXCLUDE ({cell_cols}), {', '.join(derived)} FROM "
+            f"(SELECT {', '.join(parts)} FROM (SELECT {', '.join(cells)} FROM {staged}))")
+
+
+def _duplicates_sql(staged: str, cols: list[Column]) -> str:
+    """Row numbers of rows whose mapped cells repeat an earlier row's (all but the first)."""
+    key = "hash(" + ", ".join(ident(c.column) for c in cols) + ")"
+    return (f"WITH h AS (SELECT row_number, {key} AS row_hash FROM {staged}), "
+            "d AS (SELECT row_hash, min(row_number) AS first_row FROM h GROUP BY row_hash "
+            "HAVING count(*) > 1) "
+            "SELECT h.row_number FROM h JOIN d USING (row_hash) WHERE h.row_number > d.first_row")
+
+
+def _scaled_sql(query: str, scale: str) -> str:
+    """``query`` with ``si_T`` converted from ``scale`` to ITS-90 (layers of SQL arithmetic)."""
+    if scale == "ITS-90":
+        return query
+    layers, result = SQL_CONVERSIONS[scale]("si_T")
+    for layer in layers:
+        query = f"SELECT *, {layer} FROM ({query})"
+    helpers = ", ".join(layer.rsplit(" AS ", 1)[1] for layer in layers)
+    return f"SELECT * EXCLUDE ({helpers}) REPLACE ({result} AS si_T) FROM ({query})"
 
 
 def _fault_sql(cols: list[Column]) -> str:
@@ -136,45 +164,38 @@ def _fault_sql(cols: list[Column]) -> str:
 
 def normalise(con: duckdb.DuckDBPyConnection, staged: str, spec: TableSpec,
               molar_mass: float, out: str) -> dict[str, dict]:
-    """Create temp table ``out`` with SI columns ``si_<key>``, texts and ``fault``.
+    """Create temp table ``out``: ``row_number``, and per mapped column ``txt_<key>`` (the cell
+    as written), ``empty_<key>`` and ``si_<key>`` (its SI value), and ``fault``.
 
-    Returns the uncertainty rules per quantity key for the loader. Duplicate rows are found
-    by a hash of their mapped cells (grouped once, then joined), not by a window sort.
+    Returns the uncertainty rules per quantity key for the loader. Two statements: the row
+    numbers of duplicate rows (a hash of their mapped cells, grouped once - not a window
+    sort), then one pass that parses, converts units and the temperature scale (SQL
+    arithmetic generated from the published coefficients, :mod:`pipeline.ingest.scales`)
+    and names each row's first fault.
     """
     cols, rules = _plan(spec, molar_mass)
-    parsed = f"{out}_parsed"
-    con.execute(f"CREATE OR REPLACE TEMP TABLE {parsed} AS {_parse_sql(staged, cols, spec)}")
-    scale = spec.temperature.scale
-    if scale != "ITS-90":
-        _convert_scale(con, parsed, scale)
+    duplicates = f"{out}_dups"
+    con.execute(f"CREATE OR REPLACE TEMP TABLE {duplicates} AS {_duplicates_sql(staged, cols)}")
+    scale = get_scale(spec.temperature.scale).name
+    if scale != "ITS-90" and scale not in SQL_CONVERSIONS:
+        raise AssertionError(f"no SQL conversion for the supported scale {scale}")
+    parsed = _scaled_sql(_parse_sql(staged, cols, spec, duplicates), scale)
     col = spec.temperature.column.replace("'", "''")
     # a finite temperature that the scale conversion turned into NaN is out of its range; this
     # wins over the generic "finite number became non-finite" arm of _fault_sql
     scale_arm = (f"WHEN isfinite(num_T) AND isnan(si_T) THEN 'out-of-scale-range|{col}' "
                  if scale != "ITS-90" else "")
+    kept = ", ".join(f"{kind}_{c.key}" for c in cols for kind in ("txt", "empty", "si"))
     con.execute(
         f"CREATE OR REPLACE TEMP TABLE {out} AS "
-        f"WITH dups AS (SELECT row_hash, min(row_number) AS first_row FROM {parsed} "
-        "GROUP BY row_hash HAVING count(*) > 1), "
-        f"marked AS (SELECT p.*, coalesce(p.row_number > d.first_row, false) AS dup "
-        f"FROM {parsed} p LEFT JOIN dups d USING (row_hash)), "
-        f"faulted AS (SELECT *, {_fault_sql(cols)} AS fault FROM marked) "
-        f"SELECT * EXCLUDE (fault), CASE {scale_arm}WHEN true THEN fault END AS fault FROM faulted")
-    con.execute(f"DROP TABLE {parsed}")
+        f"SELECT row_number, {kept}, CASE {scale_arm}WHEN true THEN fault END AS fault FROM "
+        f"(SELECT *, {_fault_sql(cols)} AS fault FROM ({parsed}))")
+    con.execute(f"DROP TABLE {duplicates}")
     return rules
 
 
-def _convert_scale(con: duckdb.DuckDBPyConnection, out: str, scale: str) -> None:
-    """Convert si_T from ``scale`` to ITS-90 with the published difference functions (numpy)."""
-    data = con.execute(f"SELECT row_number, si_T FROM {out} WHERE si_T > 0 AND isfinite(si_T)"
-                       ).fetchnumpy()
-    T = np.asarray(data["si_T"], dtype=float)
-    converted = to_its90(T, scale) if T.size else T
-    con.register("fl_scale_map", pa.table({"row_number": np.asarray(data["row_number"]),
-                                            "T90": np.asarray(converted, dtype=float)}))
-    con.execute(f"UPDATE {out} SET si_T = m.T90 FROM fl_scale_map m "
-                f"WHERE {out}.row_number = m.row_number")
-    con.unregister("fl_scale_map")
+#: scale -> SQL conversion to ITS-90 (layers, result), for every non-identity scale
+SQL_CONVERSIONS = {"IPTS-68": ipts68_to_its90_sql}
 
 
 def uncertainty_sql(key: str, rules: dict[str, dict]) -> str:

@@ -191,6 +191,54 @@ def its90_to_ipts68(T90_K: np.ndarray) -> np.ndarray:
     return T90 - its90_minus_ipts68(T90)
 
 
+def _double(value: float) -> str:
+    """A SQL DOUBLE literal of exactly ``value`` (a plain decimal literal would be DECIMAL)."""
+    text = repr(float(value))
+    return text if "e" in text or "inf" in text or "nan" in text else text + "e0"
+
+
+def _horner_sql(coeffs: tuple[float, ...], var: str) -> str:
+    """``sum c_i var^i`` in Horner form, in the order numpy's ``polyval`` evaluates it."""
+    expr = _double(coeffs[-1])
+    for c in reversed(coeffs[:-1]):
+        expr = f"({_double(c)} + {var} * {expr})"
+    return expr
+
+
+def _difference_sql(col: str) -> str:
+    """SQL of :func:`_difference` for a column ``col`` already clipped into the domain."""
+    zero = _double(ZERO_CELSIUS_K)
+    a = _horner_sql(A_COEFFS, f"(({col} - 40.0e0) / 40.0e0)")
+    b = _horner_sql(B_COEFFS, f"(({col} - {zero}) / 630.0e0)")
+    c = _horner_sql(C_COEFFS, f"({col} - {zero})")
+    return (f"CASE WHEN {col} < {_double(T_SWITCH_AB_K)} THEN {a} "
+            f"WHEN {col} <= {_double(T_SWITCH_BC_K)} THEN {b} ELSE {c} END")
+
+
+def ipts68_to_its90_sql(col: str, prefix: str = "fl_t90_") -> tuple[list[str], str]:
+    """:func:`ipts68_to_its90` as SQL over the DOUBLE column ``col`` (IPTS-68 [K]).
+
+    Returns ``(layers, result)``: each layer is one ``<expression> AS <name>`` to add in its
+    own ``SELECT *, layer FROM (...)`` around the previous query (each iterate is a column, so
+    no expression repeats the one before it), and ``result`` is the expression of T90 over the
+    last layer. The arithmetic is the numpy code's, step for step (same Horner order, same
+    clipping, :data:`FIXED_POINT_ITERATIONS` passes), so both give the same doubles; values
+    that are not positive and finite pass through unchanged (they are another fault), and
+    finite values outside 13.81 K <= T68 <= 1337.58 K become NaN.
+    """
+    layers, previous = [], col
+    for i in range(1, FIXED_POINT_ITERATIONS + 1):
+        clipped, iterate = f"{prefix}c{i}", f"{prefix}i{i}"
+        layers.append(f"least(greatest({previous}, {_double(T90_MIN_K)}), "
+                      f"{_double(T90_EDGE_K)}) AS {clipped}")
+        layers.append(f"{col} + ({_difference_sql(clipped)}) AS {iterate}")
+        previous = iterate
+    result = (f"CASE WHEN {col} > 0 AND isfinite({col}) THEN (CASE WHEN {col} >= "
+              f"{_double(T68_MIN_K)} AND {col} <= {_double(T68_MAX_K)} THEN {previous} "
+              f"ELSE CAST('nan' AS DOUBLE) END) ELSE {col} END")
+    return layers, result
+
+
 def _identity(T_K: np.ndarray) -> np.ndarray:
     return np.array(T_K, dtype=np.float64, copy=True)
 

@@ -205,3 +205,33 @@ def test_registry_describes_each_scale():
     assert repr(ipts68) == "<Scale IPTS-68 -> ITS-90 for 13.81 K <= T <= 1337.58 K>"
     T90 = np.array([100.0, 500.0])
     np.testing.assert_allclose(ipts68.to_its90(ipts68.from_its90(T90)), T90, atol=1e-8)
+
+
+def test_sql_conversion_equals_the_numpy_conversion_bit_for_bit():
+    """The ingest converts IPTS-68 in SQL (generated from the same coefficients); over a dense
+    grid, the switch points, the domain ends and beyond it, the doubles are identical to
+    ipts68_to_its90 (common practice: one implementation checked against the other); values
+    that are not positive and finite pass through for the reader's other faults."""
+    import duckdb
+    import pyarrow as pa
+
+    from pipeline.ingest.scales import T68_MAX_K, T68_MIN_K, ipts68_to_its90_sql
+
+    grid = np.linspace(10.0, 1340.0, 400_001)
+    edges = np.array([T68_MIN_K, T68_MAX_K, np.nextafter(T68_MIN_K, 0),
+                      np.nextafter(T68_MAX_K, 2e3), 73.15, 903.765, 83.8058, 273.16, 1e308])
+    T = np.concatenate([grid, edges])
+    layers, result = ipts68_to_its90_sql("x")
+    query = "SELECT x FROM t"
+    for layer in layers:
+        query = f"SELECT *, {layer} FROM ({query})"
+    con = duckdb.connect()
+    con.register("t", pa.table({"x": np.concatenate([T, [np.nan, np.inf, -5.0, 0.0]])}))
+    got = con.execute(f"SELECT {result} AS y FROM ({query})").fetchnumpy()["y"]
+    expected = ipts68_to_its90(T)
+    assert np.array_equal(got[:T.size], expected, equal_nan=True)
+    assert np.isnan(got[T.size]) and got[T.size + 1] == np.inf
+    assert list(got[T.size + 2:]) == [-5.0, 0.0]
+    con.register("n", pa.table({"x": pa.array([None], type=pa.float64())}))
+    query_n = query.replace("FROM t", "FROM n", 1)
+    assert con.execute(f"SELECT {result} FROM ({query_n})").fetchall() == [(None,)]
