@@ -10,8 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from pipeline.correlations.base import (LinearForm, NonlinearForm, dpower, power, register_form,
-                                        weighted_linear_solve)
+from pipeline.correlations.base import LinearForm, NonlinearForm, dpower, power, register_form
 
 R14_CITATION = ("IAPWS R14-08(2011), Revised Release on the Pressure along the Melting and "
                 "Sublimation Curves of Ordinary Water Substance")
@@ -218,18 +217,30 @@ class SimonGlatzel(NonlinearForm):
         return np.stack([np.ones_like(T), tc - 1.0, P[:, 1:2] * tc * np.log(theta)], axis=-1)
 
     def initial_params(self, T, z, w, T_ref, exps):
-        """Profile (pt, a) over c on a log grid and keep the smallest chi-square."""
-        best, best_chi2 = None, np.inf
-        theta = T / T_ref
-        for c in np.geomspace(0.05, 200.0, 81):
-            X = np.stack([np.ones_like(T), theta**c - 1.0], axis=1)
-            beta, _, rank = weighted_linear_solve(X, z, np.sqrt(w))
-            if rank < 2:
-                continue
-            chi2 = np.sum(w * (z - X @ beta) ** 2)
-            if chi2 < best_chi2:
-                best, best_chi2 = np.array([beta[0], beta[1], c]), chi2
-        return best if best is not None else np.array([np.min(z), np.ptp(z), 1.0])
+        """Profile (pt, a) over c on a log grid and keep the smallest chi-square.
+
+        For a fixed c the model is linear, ``z = pt + a g`` with ``g = theta^c - 1``, so the
+        weighted fit has a closed form; all 81 grid values are solved at once (centred sums:
+        ``a = S_gz / S_gg``, ``pt = z_bar - a g_bar``, ``chi2 = S_zz - S_gz^2 / S_gg``). A grid
+        value whose ``g`` is constant to round-off (rank 1) is skipped.
+        """
+        c = np.geomspace(0.05, 200.0, 81)[:, None]
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            g = (T / T_ref)[None, :] ** c - 1.0
+            W = np.sum(w)
+            z_bar = np.sum(w * z) / W
+            g_bar = (g @ w) / W
+            dg = g - g_bar[:, None]
+            dz = z - z_bar
+            S_gg = (dg * dg) @ w
+            S_gz = dg @ (w * dz)
+            a = S_gz / S_gg
+            chi2 = np.sum(w * dz * dz) - S_gz * a
+            usable = np.isfinite(chi2) & np.isfinite(a) & (S_gg > 1e-26 * ((g * g) @ w))
+        if not np.any(usable):
+            return np.array([np.min(z), np.ptp(z), 1.0])
+        i = int(np.argmin(np.where(usable, chi2, np.inf)))
+        return np.array([z_bar - a[i] * g_bar[i], a[i], float(c[i, 0])])
 
     def bounds(self, T, T_ref):
         return np.array([-np.inf, -np.inf, 1e-6]), np.array([np.inf, np.inf, 1e4])

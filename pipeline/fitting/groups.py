@@ -35,39 +35,45 @@ class Reference:
     source_id: str
 
 
-def _best(points: pd.DataFrame) -> pd.Series | None:
-    if points.empty:
-        return None
-    ranked = points.assign(rank=points["source_kind"].map(SOURCE_RANK).fillna(9),
-                           u=points["u_T_K"].fillna(float("inf")))
-    return ranked.sort_values(["rank", "u", "fp_id"]).iloc[0]
+def _best(points: list[dict]) -> dict | None:
+    """The point of the best-ranked source kind, then the smallest u(T), then the first id."""
+    def key(r: dict) -> tuple:
+        u = r.get("u_T_K")
+        return (SOURCE_RANK.get(r.get("source_kind"), 9),
+                float("inf") if u is None or pd.isna(u) else float(u), r["fp_id"])
+
+    return min(points, key=key) if points else None
 
 
-def _to_reference(row: pd.Series | None) -> Reference | None:
+def _to_reference(row: dict | None) -> Reference | None:
     if row is None:
         return None
     rho = row.get("rho_kg_m3")
     return Reference(int(row["fp_id"]), row["kind"], float(row["T_K"]), float(row["p_Pa"]),
-                     None if pd.isna(rho) else float(rho), row["source_id"])
+                     None if rho is None or pd.isna(rho) else float(rho), row["source_id"])
 
 
-def reference_point(fixed: pd.DataFrame, boundary: str, solid_phase: str) -> Reference | None:
+def reference_point(fixed: pd.DataFrame | list[dict], boundary: str,
+                    solid_phase: str) -> Reference | None:
     """The anchoring point: the critical point for liquid-vapour groups; for a solid boundary
     the triple point of that solid with liquid (melting) or vapour (sublimation), preferring
     the one that also holds vapour (melting) or liquid (sublimation), else the lowest in T.
-    Among several sources the best-ranked kind, then the smallest u(T) wins."""
+    Among several sources the best-ranked kind, then the smallest u(T) wins.
+
+    ``fixed``: the fluid's fixed points, a DataFrame or its records (the fit stage passes
+    records, split per fluid once)."""
+    points = fixed.to_dict("records") if isinstance(fixed, pd.DataFrame) else fixed
     if boundary == "liquid-vapour":
-        return _to_reference(_best(fixed[fixed["kind"] == "critical"]))
+        return _to_reference(_best([r for r in points if r["kind"] == "critical"]))
     solid = solid_phase or "solid"
     other = "liquid" if boundary == "solid-liquid" else "vapour"
     third = "vapour" if other == "liquid" else "liquid"
-    triples = fixed[fixed["kind"] == "triple"]
-    has = triples["phases"].str.split(",").apply(lambda ph: solid in ph and other in ph)
-    candidates = triples[has]
-    if candidates.empty:
+    candidates = [r for r in points if r["kind"] == "triple"
+                  and {solid, other} <= set(str(r["phases"]).split(","))]
+    if not candidates:
         return None
-    with_third = candidates[candidates["phases"].str.split(",").apply(lambda ph: third in ph)]
-    if not with_third.empty:
+    with_third = [r for r in candidates if third in str(r["phases"]).split(",")]
+    if with_third:
         return _to_reference(_best(with_third))
-    lowest = candidates[candidates["T_K"] == candidates["T_K"].min()]
-    return _to_reference(_best(lowest))
+    lowest = min(r["T_K"] for r in candidates)
+    return _to_reference(_best([r for r in candidates if r["T_K"] == lowest]))

@@ -216,10 +216,14 @@ def run_fit(con: duckdb.DuckDBPyConnection, *, fluids: list[str] | None = None,
         "SELECT fluid_id, boundary, solid_phase, quantity, input_hash FROM fit WHERE is_current"
     ).fetchall())
     result, writer = FitRunResult(run_id), _Writer(run_id)
+    points: dict[str, list[dict]] = {}
+    for record in fixed.to_dict("records"):      # split per fluid once, as plain records
+        points.setdefault(record["fluid_id"], []).append(record)
     for key, g in obs.groupby(["fluid_id", "boundary", "solid_phase", "quantity"], sort=True):
         if (key[1], key[3]) not in FIT_PLAN and key[3] != "pressure":
             continue  # single-point properties (densities, enthalpies on solid boundaries)
-        result.groups.append(_fit_group(key, g, fixed, settings, exclusions, current, full, writer))
+        result.groups.append(_fit_group(key, g, points.get(key[0], []), settings, exclusions,
+                                        current, full, writer))
     writer.write(con)
     status = "ok" if result.changed else "no-changes"
     con.execute("UPDATE run SET finished_at = ?, status = ?, summary_json = ? WHERE run_id = ?",
@@ -231,7 +235,7 @@ def _fit_group(key, g, fixed, settings, exclusions, current, full, writer) -> Gr
     fluid, boundary, phase, quantity = key
     res = GroupResult(fluid, boundary, phase, quantity, "skipped", n_points=len(g))
     plan = FIT_PLAN.get((boundary, quantity))
-    ref = reference_point(fixed[fixed["fluid_id"] == fluid], boundary, phase) if plan else None
+    ref = reference_point(fixed, boundary, phase) if plan else None
     forms = list(plan[1]) if plan else []
     excluded = {int(o): exclusions[int(o)] for o in g["obs_id"] if int(o) in exclusions}
     digest = _hash_inputs(g, ref, forms, settings, excluded)
