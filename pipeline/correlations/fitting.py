@@ -348,6 +348,35 @@ def _select(cands, T, z_by_link, u_by_link, mask, n_terms, criterion):
     return best, table, errors
 
 
+IRLS_TOL = 1e-10              # relative change of the coefficients that ends the iteration
+IRLS_MAX_ITER = 200
+
+
+def soft_l1_linear(A: np.ndarray, z: np.ndarray, b0: np.ndarray) -> np.ndarray:
+    """Coefficients ``b`` minimising ``sum rho(r_i^2)``, ``r = A b - z``, with the soft-L1 loss
+    ``rho(s) = 2 (sqrt(1 + s) - 1)`` (scipy's ``soft_l1`` with ``f_scale`` = 1), for a linear
+    model, by iteratively reweighted least squares from ``b0``.
+
+    The loss is convex in ``b``, so the minimum is unique; each step solves the weighted
+    problem with ``w_i = rho'(r_i^2) = (1 + r_i^2)^(-1/2)`` and does not increase the loss
+    (Holland & Welsch, "Robust regression using iteratively reweighted least-squares",
+    Commun. Stat. Theory Methods 6, 813-827 (1977); citation from memory). About 20 steps
+    reach a relative change of 1e-10 on vapour-pressure data, three times faster than a
+    general trust-region solve of the same problem (benchmarks/fit.py).
+    """
+    b = np.asarray(b0, dtype=float)
+    for _ in range(IRLS_MAX_ITER):
+        r = A @ b - z
+        sw = (1.0 + r * r) ** -0.25            # square root of the IRLS weight
+        b_new = np.linalg.lstsq(A * sw[:, None], z * sw, rcond=None)[0]
+        if not np.all(np.isfinite(b_new)):
+            return b
+        if np.linalg.norm(b_new - b) <= IRLS_TOL * np.linalg.norm(b_new):
+            return b_new
+        b = b_new
+    return b
+
+
 ROBUST_START_TERMS = 3        # terms of the robust starting fit (small: it must not chase outliers)
 
 
@@ -356,8 +385,8 @@ def _robust_start(cands, T, z_by_link, u_by_link, base, outlier_z, trusted=None)
     wrong unit, a series on the wrong scale) cannot drag the first least-squares fit onto
     itself and get good points flagged instead.
 
-    Each linear candidate is fitted with ``ROBUST_START_TERMS`` terms by ``least_squares``
-    with the soft-L1 loss on the normalised residuals; the candidate with the smallest median
+    Each linear candidate is fitted with ``ROBUST_START_TERMS`` terms with the soft-L1 loss
+    on the normalised residuals (:func:`soft_l1_linear`); the candidate with the smallest median
     |z| wins. Points whose |z| exceeds ``outlier_z`` times the robust scale of the residuals
     (1.4826 MAD, at least 1) start outside the fit; the least-squares rounds that follow may
     take them back in. Returns ``base`` unchanged when no linear candidate can be fitted.
@@ -383,9 +412,8 @@ def _robust_start(cands, T, z_by_link, u_by_link, base, outlier_z, trusted=None)
         A = X / u_z[:, None]
         zn = z / u_z
         b0 = np.linalg.lstsq(A[fit_on], zn[fit_on], rcond=None)[0]
-        res = least_squares(lambda b: A[fit_on] @ b - zn[fit_on], b0, jac=lambda b: A[fit_on],
-                            loss="soft_l1", f_scale=1.0, method="trf", x_scale="jac")
-        r = np.abs(A @ res.x - zn)
+        b = soft_l1_linear(A[fit_on], zn[fit_on], b0)
+        r = np.abs(A @ b - zn)
         med = float(np.median(r[fit_on]))
         if med < best_med:
             scale = max(1.0, 1.4826 * med)
