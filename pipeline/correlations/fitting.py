@@ -364,17 +364,26 @@ def soft_l1_linear(A: np.ndarray, z: np.ndarray, b0: np.ndarray) -> np.ndarray:
     reach a relative change of 1e-10 on vapour-pressure data, three times faster than a
     general trust-region solve of the same problem (benchmarks/fit.py).
     """
-    b = np.asarray(b0, dtype=float)
+    norms = np.linalg.norm(A, axis=0)
+    norms[(norms == 0.0) | ~np.isfinite(norms)] = 1.0
+    As = A / norms                              # equilibrated columns; solve for c = b * norms
+    c = np.asarray(b0, dtype=float) * norms
     for _ in range(IRLS_MAX_ITER):
-        r = A @ b - z
-        sw = (1.0 + r * r) ** -0.25            # square root of the IRLS weight
-        b_new = np.linalg.lstsq(A * sw[:, None], z * sw, rcond=None)[0]
-        if not np.all(np.isfinite(b_new)):
-            return b
-        if np.linalg.norm(b_new - b) <= IRLS_TOL * np.linalg.norm(b_new):
-            return b_new
-        b = b_new
-    return b
+        r = As @ c - z
+        w = 1.0 / np.sqrt(1.0 + r * r)         # the IRLS weight
+        Aw = As * w[:, None]
+        try:                                    # normal equations of the small weighted problem
+            c_new = np.linalg.solve(As.T @ Aw, Aw.T @ z)
+        except np.linalg.LinAlgError:
+            sw = np.sqrt(w)
+            c_new = np.linalg.lstsq(As * sw[:, None], z * sw, rcond=None)[0]
+        if not np.all(np.isfinite(c_new)):
+            break
+        done = np.linalg.norm(c_new - c) <= IRLS_TOL * np.linalg.norm(c_new)
+        c = c_new
+        if done:
+            break
+    return c / norms
 
 
 ROBUST_START_TERMS = 3        # terms of the robust starting fit (small: it must not chase outliers)
@@ -689,3 +698,10 @@ def fit_curve(candidate_forms: str | Sequence[str], T, y, u_y, u_T, ref: dict, *
             return _no_model(n, errors2, base, flags, criterion)
         best, mask, table, zl, ul = best2, mask2, table2, zl2, ul2
     return _outcome(best, mask, flags, T, zl, ul, table, criterion)
+
+
+def fit_call(call: tuple) -> FitOutcome:
+    """:func:`fit_curve` on ``(args, kwargs)``: a module-level function of this light module,
+    so that worker processes fitting many groups import only the correlations package."""
+    args, kwargs = call
+    return fit_curve(*args, **kwargs)

@@ -4,7 +4,8 @@ Recipe: (1) read every current observation of the fitted quantities and every st
 point with two set-based queries; (2) per (fluid, boundary, solid phase, quantity) group,
 pick the reference point and candidate forms (:mod:`pipeline.fitting.groups`), hash the
 inputs, and skip the group when the hash equals that of its current fit; (3) fit with
-:func:`pipeline.correlations.fitting.fit_curve`; (4) write all new fits and residuals in one
+:func:`pipeline.correlations.fitting.fit_curve` (in spawned worker processes, one per CPU,
+when many groups are to be fitted: :func:`fit_workers`); (4) write all new fits and residuals in one
 transaction (bulk inserts through Arrow), marking the superseded fits not current.
 """
 
@@ -13,6 +14,7 @@ from __future__ import annotations
 import hashlib
 import json
 import math
+import os
 from dataclasses import asdict, dataclass, field
 
 import duckdb
@@ -21,7 +23,8 @@ import pandas as pd
 import pyarrow as pa
 
 from pipeline import __version__
-from pipeline.correlations.fitting import fit_curve
+from pipeline.correlations.fitting import fit_call
+from pipeline.errors import FitError
 from pipeline.fitting.groups import FIT_PLAN, FITTED_QUANTITIES, SOURCE_RANK, reference_point
 from pipeline.ingest.stage import new_run_id, utcnow
 
@@ -199,9 +202,11 @@ class _Writer:
 
 def run_fit(con: duckdb.DuckDBPyConnection, *, fluids: list[str] | None = None,
             settings: FitSettings = FitSettings(), full: bool = False,
-            exclusions: dict[int, str] | None = None, run_id: str | None = None) -> FitRunResult:
+            exclusions: dict[int, str] | None = None, run_id: str | None = None,
+            workers: int | None = None) -> FitRunResult:
     """Fit every group with data (restricted to ``fluids``); refit only changed groups unless
-    ``full``. ``exclusions`` maps obs_id -> curation decision id (points left out of fits)."""
+    ``full``. ``exclusions`` maps obs_id -> curation decision id (points left out of fits).
+    ``workers``: processes that fit the groups (default: :func:`fit_workers`)."""
     run_id = run_id or new_run_id("fit")
     exclusions = exclusions or {}
     con.execute("INSERT INTO run VALUES (?, 'fit', ?, NULL, ?, ?, 'running', NULL)",
@@ -219,11 +224,16 @@ def run_fit(con: duckdb.DuckDBPyConnection, *, fluids: list[str] | None = None,
     points: dict[str, list[dict]] = {}
     for record in fixed.to_dict("records"):      # split per fluid once, as plain records
         points.setdefault(record["fluid_id"], []).append(record)
+    jobs = []
     for key, g in obs.groupby(["fluid_id", "boundary", "solid_phase", "quantity"], sort=True):
         if (key[1], key[3]) not in FIT_PLAN and key[3] != "pressure":
             continue  # single-point properties (densities, enthalpies on solid boundaries)
-        result.groups.append(_fit_group(key, g, points.get(key[0], []), settings, exclusions,
-                                        current, full, writer))
+        jobs.append(_prepare(key, g, points.get(key[0], []), settings, exclusions, current,
+                             full))
+    todo = [j for j in jobs if j.call is not None]
+    outcomes = dict(zip(map(id, todo), _fit_all([j.call for j in todo],
+                                                fit_workers(len(todo), workers))))
+    result.groups = [_finish(j, outcomes.get(id(j)), writer) for j in jobs]
     writer.write(con)
     status = "ok" if result.changed else "no-changes"
     con.execute("UPDATE run SET finished_at = ?, status = ?, summary_json = ? WHERE run_id = ?",
@@ -231,17 +241,29 @@ def run_fit(con: duckdb.DuckDBPyConnection, *, fluids: list[str] | None = None,
     return result
 
 
-def _fit_group(key, g, fixed, settings, exclusions, current, full, writer) -> GroupResult:
+@dataclass
+class _Job:
+    """One group on its way through the stage: prepared, fitted (maybe elsewhere), written."""
+
+    res: GroupResult
+    key: tuple
+    digest: str
+    g: pd.DataFrame
+    excluded: dict
+    call: tuple | None = None       # (args, kwargs) of fit_curve; None: nothing to fit
+
+
+def _prepare(key, g, fixed, settings, exclusions, current, full) -> _Job:
     fluid, boundary, phase, quantity = key
     res = GroupResult(fluid, boundary, phase, quantity, "skipped", n_points=len(g))
     plan = FIT_PLAN.get((boundary, quantity))
     ref = reference_point(fixed, boundary, phase) if plan else None
     forms = list(plan[1]) if plan else []
     excluded = {int(o): exclusions[int(o)] for o in g["obs_id"] if int(o) in exclusions}
-    digest = _hash_inputs(g, ref, forms, settings, excluded)
-    if not full and current.get(key) == digest:
-        res.status, res.fit_id = "unchanged", _fit_id(key, digest)
-        return res
+    job = _Job(res, key, _hash_inputs(g, ref, forms, settings, excluded), g, excluded)
+    if not full and current.get(key) == job.digest:
+        res.status, res.fit_id = "unchanged", _fit_id(key, job.digest)
+        return job
     if plan is None:
         res.reason = f"no correlation form is defined for {quantity} on the {boundary} boundary"
     elif ref is None:
@@ -249,19 +271,29 @@ def _fit_group(key, g, fixed, settings, exclusions, current, full, writer) -> Gr
             f"triple point of {phase or 'solid'} with {'liquid' if boundary == 'solid-liquid' else 'vapour'}"
         res.reason = f"no stated {point} to anchor the correlation"
     if res.reason:
-        res.fit_id = writer.add(key, digest, g, None, res.reason, [], {})
-        return res
+        return job
     use = g[~g["obs_id"].isin(list(excluded))]
     y = use["value_si"].to_numpy(float)
     u_y = use["u_value_si"].to_numpy(float)
     u_y = np.where(np.isfinite(u_y) & (u_y > 0), u_y, settings.default_relative_u * np.abs(y))
     u_T = np.nan_to_num(use["u_T_K"].to_numpy(float), nan=0.0)
     rank = use["source_kind"].map(SOURCE_RANK).fillna(9).to_numpy()
-    outcome = fit_curve(forms, use["T_K"].to_numpy(float), y, u_y, u_T, {"T_ref_K": ref.T_K},
-                        outlier_z=settings.outlier_z, min_points=settings.min_points,
-                        criterion=settings.criterion, above_reference="exclude",
-                        trusted=rank == rank.min())
-    res.fit_id = writer.add(key, digest, g, outcome, None, list(excluded), excluded)
+    job.call = ((forms, use["T_K"].to_numpy(float), y, u_y, u_T, {"T_ref_K": ref.T_K}),
+                dict(outlier_z=settings.outlier_z, min_points=settings.min_points,
+                     criterion=settings.criterion, above_reference="exclude",
+                     trusted=rank == rank.min()))
+    return job
+
+
+def _finish(job: _Job, outcome, writer: _Writer) -> GroupResult:
+    res = job.res
+    if res.status == "unchanged":
+        return res
+    if outcome is None:
+        res.fit_id = writer.add(job.key, job.digest, job.g, None, res.reason, [], {})
+        return res
+    res.fit_id = writer.add(job.key, job.digest, job.g, outcome, None, list(job.excluded),
+                            job.excluded)
     if outcome.fitted:
         res.status, res.form = "fitted", outcome.form
         res.n_used, res.n_flagged = outcome.n_used, outcome.n_flagged
@@ -269,3 +301,40 @@ def _fit_group(key, g, fixed, settings, exclusions, current, full, writer) -> Gr
     else:
         res.reason = outcome.skipped_reason
     return res
+
+
+PARALLEL_MIN_FITS = 200
+"""With ``workers`` left automatic, groups are fitted in worker processes from this many on
+(below it, starting the processes costs more than it saves)."""
+WORKERS_ENV = "FLUIDLEDGER_FIT_WORKERS"
+
+
+def fit_workers(n_jobs: int, workers: int | None = None) -> int:
+    """How many processes fit ``n_jobs`` groups: ``workers`` when given, else the variable
+    ``FLUIDLEDGER_FIT_WORKERS``, else one per CPU (at most 8) from PARALLEL_MIN_FITS groups."""
+    if workers is None and os.environ.get(WORKERS_ENV, "").strip():
+        try:
+            workers = int(os.environ[WORKERS_ENV])
+        except ValueError:
+            raise FitError(f"{WORKERS_ENV} must be a whole number of processes, got "
+                           f"{os.environ[WORKERS_ENV]!r}") from None
+    if workers is None:
+        workers = min(os.cpu_count() or 1, 8) if n_jobs >= PARALLEL_MIN_FITS else 1
+    return max(1, min(int(workers), max(n_jobs, 1)))
+
+
+def _fit_all(calls: list[tuple], workers: int) -> list:
+    """Outcomes of ``calls`` in order; in ``workers`` spawned processes when more than one.
+
+    fit_curve is deterministic, so the outcomes do not depend on where they were computed
+    (tests/fitting compares one process with two). Spawned, not forked: the parent holds
+    DuckDB's threads, which a fork must not copy.
+    """
+    if workers <= 1 or len(calls) < 2:
+        return [fit_call(c) for c in calls]
+    from concurrent.futures import ProcessPoolExecutor
+    from multiprocessing import get_context
+
+    chunk = max(1, len(calls) // (workers * 8))
+    with ProcessPoolExecutor(max_workers=workers, mp_context=get_context("spawn")) as pool:
+        return list(pool.map(fit_call, calls, chunksize=chunk))

@@ -159,3 +159,37 @@ def test_a_file_in_the_wrong_unit_is_flagged_not_fitted(raw_root, store_path):
             "JOIN observation_current o USING (obs_id) JOIN fit f USING (fit_id) "
             "WHERE f.is_current GROUP BY 1").fetchall())
     assert flagged == {"ref-argon": 0, "lab-argon": 20}
+
+
+def test_worker_processes_give_the_same_fits_as_one_process(tmp_path, monkeypatch):
+    """The demo data fitted in two spawned worker processes and in this process: the same fit
+    rows (ids, forms, parameters, statistics) and the same residual rows (common practice:
+    a parallel path checked against the serial one)."""
+    import shutil
+    from pathlib import Path
+
+    from pipeline.errors import FitError
+    from pipeline.fitting.stage import fit_workers
+
+    raw = Path(__file__).resolve().parents[2] / "raw"
+    one, two = tmp_path / "one.duckdb", tmp_path / "two.duckdb"
+    with open_store(one) as s:
+        assert not run_ingest(s.con, [raw]).errors
+    shutil.copyfile(one, two)
+    rows = {}
+    for path, workers in ((one, 1), (two, 2)):
+        with open_store(path) as s:
+            result = run_fit(s.con, workers=workers)
+            rows[workers] = (
+                s.con.execute("SELECT fit_id, status, form, params_json, covariance_json, n_used, "
+                              "n_flagged, reduced_chi2, bic FROM fit ORDER BY fit_id").fetchall(),
+                s.con.execute("SELECT fit_id, obs_id, residual_si, z, is_outlier FROM "
+                              "fit_residual ORDER BY fit_id, obs_id").fetchall())
+        assert result.count("fitted") > 10
+    assert rows[1] == rows[2]
+    assert fit_workers(10) == 1 and fit_workers(10, 3) == 3 and fit_workers(1, 4) == 1
+    monkeypatch.setenv("FLUIDLEDGER_FIT_WORKERS", "2")
+    assert fit_workers(10) == 2
+    monkeypatch.setenv("FLUIDLEDGER_FIT_WORKERS", "two")
+    with pytest.raises(FitError, match="whole number"):
+        fit_workers(10)
