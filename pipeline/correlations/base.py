@@ -368,9 +368,16 @@ def covariance_from_jacobian(J: np.ndarray, rcond: float = 1e-13) -> tuple[np.nd
     return ((Vt.T / s**2) @ Vt) / np.outer(norms, norms), rank
 
 
-def _equilibrated_svd(A: np.ndarray, rcond: float):
+def column_norms(A: np.ndarray) -> np.ndarray:
+    """Euclidean norm of each column of ``A`` (1 for zero or non-finite columns), to
+    equilibrate a design matrix before solving."""
     norms = np.linalg.norm(A, axis=0)
     norms[(norms == 0.0) | ~np.isfinite(norms)] = 1.0
+    return norms
+
+
+def _equilibrated_svd(A: np.ndarray, rcond: float):
+    norms = column_norms(A)
     U, s, Vt = np.linalg.svd(A / norms, full_matrices=False)
     rank = int(np.sum(s > rcond * s[0])) if s.size and s[0] > 0 else 0
     return U, s, Vt, norms, rank

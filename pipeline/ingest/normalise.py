@@ -131,9 +131,9 @@ def _scaled_sql(query: str, scale: str) -> str:
     if scale == "ITS-90":
         return query
     layers, result = SQL_CONVERSIONS[scale]("si_T")
-    for layer in layers:
-        query = f"SELECT *, {layer} FROM ({query})"
-    helpers = ", ".join(layer.rsplit(" AS ", 1)[1] for layer in layers)
+    for expression, name in layers:
+        query = f"SELECT *, {expression} AS {name} FROM ({query})"
+    helpers = ", ".join(name for _, name in layers)
     return f"SELECT * EXCLUDE ({helpers}) REPLACE ({result} AS si_T) FROM ({query})"
 
 

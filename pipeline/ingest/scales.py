@@ -215,13 +215,14 @@ def _difference_sql(col: str) -> str:
             f"WHEN {col} <= {_double(T_SWITCH_BC_K)} THEN {b} ELSE {c} END")
 
 
-def ipts68_to_its90_sql(col: str, prefix: str = "fl_t90_") -> tuple[list[str], str]:
+def ipts68_to_its90_sql(col: str, prefix: str = "fl_t90_"
+                        ) -> tuple[list[tuple[str, str]], str]:
     """:func:`ipts68_to_its90` as SQL over the DOUBLE column ``col`` (IPTS-68 [K]).
 
-    Returns ``(layers, result)``: each layer is one ``<expression> AS <name>`` to add in its
-    own ``SELECT *, layer FROM (...)`` around the previous query (each iterate is a column, so
-    no expression repeats the one before it), and ``result`` is the expression of T90 over the
-    last layer. The arithmetic is the numpy code's, step for step (same Horner order, same
+    Returns ``(layers, result)``: each layer is one ``(expression, name)`` to add in its own
+    ``SELECT *, expression AS name FROM (...)`` around the previous query (each iterate is a
+    column, so no expression repeats the one before it), and ``result`` is the expression of
+    T90 over the last layer. The arithmetic is the numpy code's, step for step (same Horner order, same
     clipping, :data:`FIXED_POINT_ITERATIONS` passes), so both give the same doubles; values
     that are not positive and finite pass through unchanged (they are another fault), and
     finite values outside 13.81 K <= T68 <= 1337.58 K become NaN.
@@ -229,9 +230,9 @@ def ipts68_to_its90_sql(col: str, prefix: str = "fl_t90_") -> tuple[list[str], s
     layers, previous = [], col
     for i in range(1, FIXED_POINT_ITERATIONS + 1):
         clipped, iterate = f"{prefix}c{i}", f"{prefix}i{i}"
-        layers.append(f"least(greatest({previous}, {_double(T90_MIN_K)}), "
-                      f"{_double(T90_EDGE_K)}) AS {clipped}")
-        layers.append(f"{col} + ({_difference_sql(clipped)}) AS {iterate}")
+        layers.append((f"least(greatest({previous}, {_double(T90_MIN_K)}), "
+                       f"{_double(T90_EDGE_K)})", clipped))
+        layers.append((f"{col} + ({_difference_sql(clipped)})", iterate))
         previous = iterate
     result = (f"CASE WHEN {col} > 0 AND isfinite({col}) THEN (CASE WHEN {col} >= "
               f"{_double(T68_MIN_K)} AND {col} <= {_double(T68_MAX_K)} THEN {previous} "

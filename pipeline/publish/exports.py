@@ -274,21 +274,33 @@ def leftover_pid(name: str, prefix: str, suffix: str = "") -> int | None:
     return int(digits) if digits.isdigit() else None
 
 
-def remove_leftovers(root: Path) -> list[Path]:
-    """Remove temporary release folders under ``root`` whose writing process is gone.
-
-    A publish killed before its rename leaves ``.tmp-<release>-<pid>``; a folder of a live
-    process (another publish into the same root) is left alone. Returns what was removed.
+def remove_dead_leftovers(folder: Path, prefix: str, suffixes: tuple[str, ...] = ("",), *,
+                          folders: bool) -> list[Path]:
+    """Remove the entries of ``folder`` named ``<prefix>...<pid><suffix>`` - folders when
+    ``folders``, else files - whose writing process ``pid`` is gone (what a killed publish
+    leaves); those of live processes, another publish into the same folder, are left alone.
+    Returns what was removed.
     """
     removed = []
-    if not root.is_dir():
+    if not folder.is_dir():
         return removed
-    for path in root.iterdir():
-        pid = leftover_pid(path.name, ".tmp-")
-        if pid is not None and path.is_dir() and pid != os.getpid() and not process_alive(pid):
+    for path in folder.iterdir():
+        suffix = next((x for x in suffixes if path.name.endswith(x)), None)
+        pid = leftover_pid(path.name, prefix, suffix) if suffix is not None else None
+        if pid is None or pid == os.getpid() or path.is_dir() != folders or process_alive(pid):
+            continue
+        if folders:
             shutil.rmtree(path, ignore_errors=True)
-            removed.append(path)
+        else:
+            path.unlink(missing_ok=True)
+        removed.append(path)
     return removed
+
+
+def remove_leftovers(root: Path) -> list[Path]:
+    """Remove temporary release folders ``.tmp-<release>-<pid>`` under ``root`` left by a
+    publish killed before its rename (see :func:`remove_dead_leftovers`)."""
+    return remove_dead_leftovers(root, ".tmp-", folders=True)
 
 
 def prepare_release_folder(root: Path, release_id: str, fingerprint: str,

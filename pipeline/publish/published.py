@@ -71,19 +71,11 @@ def temporary_path(target: Path) -> Path:
 def remove_leftovers(target: Path) -> list[Path]:
     """Remove temporary published files beside ``target`` whose writing process is gone
     (a publish killed while building one leaves ``.published.duckdb.<pid>.tmp``)."""
-    from pipeline.publish.exports import leftover_pid, process_alive
+    from pipeline.publish.exports import remove_dead_leftovers
 
     target = Path(target)
-    removed = []
-    if not target.parent.is_dir():
-        return removed
-    for path in target.parent.glob(f".{target.name}.*.tmp*"):
-        suffix = ".tmp.wal" if path.name.endswith(".tmp.wal") else ".tmp"
-        pid = leftover_pid(path.name, f".{target.name}.", suffix)
-        if pid is not None and pid != os.getpid() and not process_alive(pid):
-            path.unlink(missing_ok=True)
-            removed.append(path)
-    return removed
+    return remove_dead_leftovers(target.parent, f".{target.name}.", (".tmp.wal", ".tmp"),
+                                 folders=False)
 
 
 def build_published_file(target: Path, tables: dict[str, list[dict]], release_extra: dict,

@@ -223,8 +223,8 @@ def test_sql_conversion_equals_the_numpy_conversion_bit_for_bit():
     T = np.concatenate([grid, edges])
     layers, result = ipts68_to_its90_sql("x")
     query = "SELECT x FROM t"
-    for layer in layers:
-        query = f"SELECT *, {layer} FROM ({query})"
+    for expression, name in layers:
+        query = f"SELECT *, {expression} AS {name} FROM ({query})"
     con = duckdb.connect()
     con.register("t", pa.table({"x": np.concatenate([T, [np.nan, np.inf, -5.0, 0.0]])}))
     got = con.execute(f"SELECT {result} AS y FROM ({query})").fetchnumpy()["y"]
