@@ -22,7 +22,7 @@ from pipeline.checks.physics import (
     delta_v,
     density,
     enthalpy,
-    ideal_gas_density,
+    vapour_density_estimate,
 )
 from pipeline.checks.points import SINGLE_SOLID
 from pipeline.checks.registry import register_check
@@ -58,6 +58,30 @@ def expected_melting_sign(fluid: FluidData, solid_phase: str, th):
     if diff == 0 or abs(diff) <= th["density_z"] * u:
         return None, (f"ρ_solid − ρ_liquid = {diff:.4g} ± {u:.2g} kg/m3 does not fix the sign")
     return (1 if diff > 0 else -1, evidence), None
+
+
+def sign_from_triple_point(fluid: FluidData, solid_phase: str, series: ObsSeries):
+    """The melting slope's sign from where the melting data lie, or (None, reason).
+
+    Melting pressures never fall below the triple point where the melting curve starts (the
+    lowest-pressure triple point of that solid with the liquid: with the vapour where there is
+    one). So a melting series lying at temperatures above that point's Tt rises, one below it
+    falls (ice Ih), whatever the densities.
+    """
+    label = solid_phase or SINGLE_SOLID
+    starts = [tp for tp in fluid.triple_points
+              if "liquid" in tp.phases and label in tp.phases and np.isfinite(tp.T_K)]
+    if not starts or not len(series):
+        return None, "no triple point of that solid with the liquid to start the melting curve"
+    start = min(starts, key=lambda tp: (not tp.has_vapour,
+                                        tp.p_Pa if np.isfinite(tp.p_Pa) else np.inf))
+    T_mid = float(np.median(series.T))
+    tol = max(0.01, 3.0 * (start.u_T_K if np.isfinite(start.u_T_K) else 0.0))
+    if abs(T_mid - start.T_K) <= tol:
+        return None, f"the melting data lie at the triple-point temperature {start.T_K:.6g} K"
+    sign = 1 if T_mid > start.T_K else -1
+    return (sign, {"basis": "position of the melting data", "start": start.label,
+                   "Tt_K": start.T_K, "median_T_K": T_mid}), None
 
 
 def _grid(fitted: FittedCurve, n: int) -> np.ndarray:
@@ -98,10 +122,17 @@ def _melting_findings(fluid: FluidData, solid_phase: str, th) -> list[Finding]:
     fitted = fluid.curve(*key)
     files = fluid.series("solid-liquid", "pressure", solid_phase).by_file()
     expected, reason = expected_melting_sign(fluid, solid_phase, th)
+    by_position, _ = sign_from_triple_point(fluid, solid_phase,
+                                            fluid.series("solid-liquid", "pressure", solid_phase))
     if expected is not None:
         sign, evidence = expected
         d = evidence["rho_solid_minus_liquid_kg_m3"]
         basis = f"ρ_solid − ρ_liquid = {d:.4g} kg/m3 at {evidence['T_K']:.6g} K"
+    elif by_position is not None:
+        sign, evidence = by_position
+        where = "above" if sign > 0 else "below"
+        basis = (f"the melting data lie {where} the {evidence['start']} temperature "
+                 f"{evidence['Tt_K']:.6g} K and melting pressures rise away from it")
     elif fitted is not None and len(files) > 1:
         slope = np.asarray(fitted.slope(_grid(fitted, int(th["n_grid"]))), dtype=float)
         sign, evidence = int(np.sign(np.nanmedian(slope))), {"basis": "fitted curve"}
@@ -109,7 +140,7 @@ def _melting_findings(fluid: FluidData, solid_phase: str, th) -> list[Finding]:
     else:
         return [skipped(fluid.fluid_id, f"curve:{curve_label(key)}", reason)]
     out = []
-    if fitted is not None and "rho_solid_minus_liquid_kg_m3" in evidence:
+    if fitted is not None and evidence.get("basis") != "fitted curve":
         out.append(_fitted_sign(fluid, key, fitted, sign, basis, evidence, th))
     elif fitted is not None:
         out.append(skipped(fluid.fluid_id, f"curve:{curve_label(key)}", reason))
@@ -129,9 +160,12 @@ def slope_sign(fluid: FluidData, th):
 
     Densities come from rho_solid / rho_liquid observations on the melting curve (within
     density_T_tol_K of the triple point), or the fitted saturated-liquid density at the
-    triple point. The sign is tested on the fitted melting curve (every grid point) and on each
-    source file's own melting series (least-squares slope, t = sign*b/u(b) >= -t_min), so a
-    single bad file is named; without densities the files are compared with the fitted curve.
+    triple point. Without densities the sign follows from where the melting data lie: melting
+    pressures never fall below the triple point where the curve starts, so data above that
+    point's temperature must rise and data below it fall. Failing both, a fluid with several
+    files compares each with the fitted curve of all. The sign is tested on the fitted melting
+    curve (every grid point) and on each source file's own melting series (least-squares
+    slope, t = sign*b/u(b) >= -t_min), so a single bad file is named.
 
     Usual causes of a failure: a file with T and p columns swapped or sorted wrongly; a
     melting series of another solid phase; solid and liquid density columns interchanged.
@@ -155,18 +189,22 @@ def _clapeyron_point(fluid: FluidData, key, fitted: FittedCurve, T: float, th, t
         return None
     first, second = PHASES_OF[boundary]
     rho = {ph: density(fluid, ph, boundary, solid_phase, T, th["T_tol_K"]) for ph in (first, second)}
+    point, _ = fluid.at(key, T)
+    if point is None:
+        return None
     if boundary == "solid-vapour" and rho["vapour"] is None and th["ideal_gas_vapour"]:
-        rho["vapour"] = ideal_gas_density(fluid, fitted.near(T)[0], T)
+        rho["vapour"] = vapour_density_estimate(fluid, point.value, T)
     if any(r is None for r in rho.values()):
         return None
     dv, u_dv = delta_v(fluid.molar_mass, rho[first], rho[second])
     clap = h.value / (T * dv)
     stated = all(math.isfinite(x.u) and x.u > 0 for x in (h, rho[first], rho[second]))
     u_clap = abs(clap) * math.hypot(h.u / h.value, u_dv / dv) if stated else 0.0
-    slope = fitted.near(T)[1]
-    dev = deviation_statistic(slope - clap, clap, u_clap, z_max=th["z_max"], rel_tol=th["rel_tol"])
-    return dev, {"T_K": T, "slope_fit_Pa_K": slope, "slope_clapeyron_Pa_K": clap,
-                 "u_clapeyron_Pa_K": u_clap, "ratio": slope / clap, "delta_h": h.evidence(),
+    u = math.hypot(u_clap, point.u_slope)
+    dev = deviation_statistic(point.slope - clap, clap, u, z_max=th["z_max"], rel_tol=th["rel_tol"])
+    return dev, {"T_K": T, "slope_fit_Pa_K": point.slope, "u_slope_fit_Pa_K": point.u_slope,
+                 "slope_clapeyron_Pa_K": clap, "u_clapeyron_Pa_K": u_clap,
+                 "ratio": point.slope / clap, "delta_h": h.evidence(),
                  **{f"rho_{ph}": r.evidence() for ph, r in rho.items()}}
 
 

@@ -21,11 +21,20 @@ from typing import Any, Iterable, Mapping, Sequence
 import numpy as np
 import pandas as pd
 
+from pipeline.checks.budget import (
+    Budget,
+    CurveBudget,
+    CurvePoint,
+    curve_budget,
+    default_budget,
+    reach,
+)
 from pipeline.checks.points import (
     StatedPoint,
     boundary_between,
     consensus_constant,
     consensus_points,
+    curve_label,
 )
 from pipeline.errors import CheckError
 
@@ -94,20 +103,50 @@ class FittedCurve:
             return np.zeros_like(np.asarray(T, dtype=float))
         return np.nan_to_num(self.curve.u(T, extrapolate=extrapolate), nan=0.0)
 
+    def slope_u(self, T: float) -> float:
+        """Standard uncertainty of the slope at ``T`` from the covariance (0 without one).
+
+        Delta method on d(slope)/d(params), the parameter Jacobian differentiated in T by
+        central differences (one-sided where the form ends, e.g. at a reference temperature).
+        """
+        cov = getattr(self.curve, "covariance", None)
+        if cov is None:
+            return 0.0
+        T = self._end(T)
+        h = 1e-5 * max(abs(T), 1.0)
+        J = {d: np.asarray(self.curve.jacobian(T + d * h), dtype=float) for d in (-1, 0, 1)}
+        for lo, hi in ((-1, 1), (-1, 0), (0, 1)):
+            dJ = (J[hi] - J[lo]) / ((hi - lo) * h)
+            if np.all(np.isfinite(dJ)):
+                var = float(dJ @ np.asarray(cov, dtype=float) @ dJ)
+                return math.sqrt(max(var, 0.0))
+        return 0.0
+
+    def _end(self, T: float) -> float:
+        """``T`` where the form is defined there, else the nearest end of the fitted range."""
+        if math.isfinite(float(self.value(T, extrapolate=True))):
+            return T
+        return min(max(T, self.T_min_K), self.T_max_K)
+
     def near(self, T: float) -> tuple[float, float, float]:
         """(value, slope, u) at a single T just outside (or inside) the fitted range.
 
         The form's own extrapolation is used where it is defined; where it is not (a fractional
-        power of 1 − T/T_ref a rounding error past T_ref), the curve is continued linearly from
-        the nearest end of its range. Callers bound how far from the range T may lie.
+        power of 1 − T/T_ref a rounding error past T_ref), the curve is continued from the
+        nearest end of its range: along Clausius-Clapeyron (ln p linear in 1/T) for forms
+        fitted in ln p, linearly for the others (melting curves). The uncertainty is that at
+        the end. Callers bound how far from the range T may lie.
         """
-        value = float(self.value(T, extrapolate=True))
-        slope = float(self.slope(T, extrapolate=True))
-        if math.isfinite(value) and math.isfinite(slope):
-            return value, slope, float(self.u(T, extrapolate=True))
-        end = min(max(T, self.T_min_K), self.T_max_K)
+        end = self._end(T)
         v_end, s_end = float(self.value(end, extrapolate=True)), float(self.slope(end, extrapolate=True))
-        return v_end + s_end * (T - end), s_end, float(self.u(end, extrapolate=True))
+        u_end = float(self.u(end, extrapolate=True))
+        if end == T:
+            return v_end, s_end, u_end
+        if getattr(self.curve.correlation_form, "link", "") == "log" and v_end > 0:
+            b = -end ** 2 * s_end / v_end          # d ln p / d(1/T) at the end
+            value = v_end * math.exp(b * (1.0 / T - 1.0 / end))
+            return value, -value * b / T ** 2, u_end * value / v_end
+        return v_end + s_end * (T - end), s_end, u_end
 
     def evidence(self) -> dict:
         return {"fit_id": self.fit_id, "form": self.form or getattr(self.curve, "form", None),
@@ -171,6 +210,8 @@ class FluidData:
     fixed_points: pd.DataFrame              # FIXED_POINT_COLUMNS
     constants: pd.DataFrame                 # CONSTANT_COLUMNS
     curves: dict[CurveKey, FittedCurve] = field(default_factory=dict)
+    cas_rn: str = ""                        # CAS registry number: identity for reference equations
+    budget: Budget = field(default_factory=default_budget)
 
     def __repr__(self) -> str:
         return (f"<FluidData {self.fluid_id}: {len(self.observations)} observations, "
@@ -210,6 +251,52 @@ class FluidData:
                                                 {k: v[index] for k, v in self._columns.items()})
         return self._series_cache[key]
 
+    # -- the uncertainty budget ----------------------------------------------------------------
+    _BUDGET_CACHES = ("fixed_point_records", "constant_records", "triple_points", "critical_point",
+                      "_curve_budgets")
+
+    def use_budget(self, budget: Budget) -> None:
+        """Judge this fluid with ``budget`` (the run's uncertainty defaults and policy)."""
+        if budget != self.budget:
+            self.budget = budget
+            for name in self._BUDGET_CACHES:
+                self.__dict__.pop(name, None)
+
+    @cached_property
+    def _curve_budgets(self) -> dict[CurveKey, CurveBudget]:
+        return {}
+
+    def curve_budget(self, key: CurveKey) -> CurveBudget:
+        """Floor of the fitted curve ``key``'s uncertainty from the files it was fitted to."""
+        if key not in self._curve_budgets:
+            fitted = self.curves[key]
+            self._curve_budgets[key] = curve_budget(
+                self.series(key[0], key[2], key[1]),
+                lambda T: fitted.value(T, extrapolate=True), self.budget.uncertainty,
+                self.budget.extrapolation)
+        return self._curve_budgets[key]
+
+    def at(self, key: CurveKey, T: float) -> tuple[CurvePoint | None, str]:
+        """The fitted curve ``key`` at ``T`` with its full budget, or (None, why not).
+
+        Honours the one extrapolation policy: a curve is not evaluated further beyond its data
+        than the policy allows; the reason names the policy.
+        """
+        fitted = self.curves.get(key)
+        label = curve_label(key)
+        if fitted is None:
+            return None, f"no fitted {label} curve"
+        r = reach(fitted.T_min_K, fitted.T_max_K, T, self.budget.extrapolation, label)
+        if not r.ok:
+            return None, r.reason
+        value, slope, u_cov = fitted.near(T)
+        if not (math.isfinite(value) and math.isfinite(slope)):
+            return None, f"the {label} fit's form is undefined at T = {T:.6g} K"
+        floor = self.curve_budget(key).floor_rel(T)
+        u = math.hypot(u_cov, floor * abs(value))
+        u_slope = math.hypot(fitted.slope_u(T), floor * abs(slope))
+        return CurvePoint(T, value, slope, u, u_slope, u_cov, floor, r.beyond_K), ""
+
     # -- curves --------------------------------------------------------------------------------
     def curve(self, boundary: str, solid_phase: str = "", quantity: str = "pressure") -> FittedCurve | None:
         return self.curves.get((boundary, solid_phase, quantity))
@@ -230,13 +317,34 @@ class FluidData:
     # -- stated values -------------------------------------------------------------------------
     @cached_property
     def fixed_point_records(self) -> list[dict]:
-        """Stated fixed points as dicts (one per source statement)."""
-        return _records(self.fixed_points)
+        """Stated fixed points as dicts (one per source statement), every stated value with a
+        standard uncertainty: its own, else the budget's default (named in ``u_defaulted``)."""
+        model = self.budget.uncertainty
+        out = []
+        for r in _records(self.fixed_points):
+            r["u_defaulted"] = []
+            for col in ("T_K", "p_Pa", "rho_kg_m3"):
+                u, defaulted = model.stated(r["kind"], col, r[col], r["u_" + col], r["source_kind"])
+                r["u_" + col] = u
+                if defaulted:
+                    r["u_defaulted"].append(col)
+            out.append(r)
+        return out
 
     @cached_property
     def constant_records(self) -> list[dict]:
-        """Stated constants as dicts (one per source statement)."""
-        return _records(self.constants)
+        """Stated constants as dicts (one per source statement), with the budget's default
+        uncertainty where none is stated (``u_defaulted``)."""
+        model = self.budget.uncertainty
+        out = []
+        for r in _records(self.constants):
+            try:
+                r["u_si"], r["u_defaulted"] = model.stated("constant", r["name"], r["value_si"],
+                                                           r["u_si"], r["source_kind"])
+            except KeyError:  # a constant the budget has no default for keeps what it states
+                r["u_defaulted"] = False
+            out.append(r)
+        return out
 
     @cached_property
     def triple_points(self) -> list[StatedPoint]:
@@ -276,14 +384,16 @@ class FluidData:
     # -- construction from memory --------------------------------------------------------------
     @classmethod
     def build(cls, fluid_id: str, molar_mass: float, *, observations=None, fixed_points=None,
-              constants=None, curves: Mapping[CurveKey, Any] | None = None) -> "FluidData":
+              constants=None, curves: Mapping[CurveKey, Any] | None = None,
+              cas_rn: str = "") -> "FluidData":
         """A fluid from in-memory data; missing columns get the defaults of ``*_COLUMNS``.
 
         ``curves`` values may be :class:`FittedCurve` or bare correlation curves.
         """
         return cls(fluid_id, float(molar_mass), normalise_observations(observations),
                    _frame(fixed_points, FIXED_POINT_COLUMNS, "fp_id"),
-                   _frame(constants, CONSTANT_COLUMNS, "const_id"), _fitted(fluid_id, curves))
+                   _frame(constants, CONSTANT_COLUMNS, "const_id"), _fitted(fluid_id, curves),
+                   cas_rn=cas_rn)
 
 
 def _fitted(fluid_id: str, curves: Mapping[CurveKey, Any] | None) -> dict[CurveKey, FittedCurve]:
@@ -397,7 +507,7 @@ class CheckBatch:
 
 
 # -- the store ---------------------------------------------------------------------------------
-_Q_FLUIDS = "SELECT fluid_id, molar_mass_kg_mol FROM fluid WHERE {f} ORDER BY fluid_id"
+_Q_FLUIDS = "SELECT fluid_id, molar_mass_kg_mol, cas_rn FROM fluid WHERE {f} ORDER BY fluid_id"
 _Q_OBS = """
 SELECT o.fluid_id, o.obs_id, o.boundary, o.solid_phase, o.quantity, o.T_K, o.u_T_K, o.value_si,
        o.u_value_si, o.source_id, coalesce(s.kind, 'unknown') AS source_kind, o.file_path,
@@ -500,7 +610,9 @@ def fluids_from_tables(fluids: pd.DataFrame, observations: pd.DataFrame, fixed_p
     empty = {"obs": normalise_observations(None), "fixed": _frame(None, FIXED_POINT_COLUMNS, "fp_id"),
              "consts": _frame(None, CONSTANT_COLUMNS, "const_id")}
     out = {}
-    for fid, mm in zip(fluids["fluid_id"], fluids["molar_mass_kg_mol"]):
+    cas = fluids["cas_rn"] if "cas_rn" in fluids else [""] * len(fluids)
+    for fid, mm, cas_rn in zip(fluids["fluid_id"], fluids["molar_mass_kg_mol"], cas):
         out[fid] = FluidData(fid, float(mm), obs.get(fid, empty["obs"]), fixed.get(fid, empty["fixed"]),
-                             consts.get(fid, empty["consts"]), _fitted(fid, curves.get(fid)))
+                             consts.get(fid, empty["consts"]), _fitted(fid, curves.get(fid)),
+                             cas_rn="" if cas_rn is None or cas_rn != cas_rn else str(cas_rn))
     return out

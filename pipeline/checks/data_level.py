@@ -88,17 +88,21 @@ def monotonic(batch: CheckBatch, th):
 
 
 def _bounds(batch: CheckBatch) -> pd.DataFrame:
-    """Per fluid (and solid): pc, ρc, pt of the vapour triple point, lowest melting pt."""
+    """Per fluid (and solid): pc, ρc, pt of the vapour triple point, lowest melting pt, and
+    (for the liquid-vapour rows, solid_phase "") Tt of any vapour-liquid-solid triple point."""
     rows = []
     for f in batch:
         cp = f.critical_point
+        any_vtp = f.vapour_triple_point()
         for solid in {""} | {k[1] for k in f.groups() if k[0] in ("solid-liquid", "solid-vapour")}:
             label = solid or "solid"
             vtp = f.vapour_triple_point(label)
             melt = [tp.p_Pa for tp in f.triple_points if "liquid" in tp.phases and label in tp.phases]
             rows.append((f.fluid_id, solid, cp.p_Pa if cp else np.nan, cp.rho_kg_m3 if cp else np.nan,
-                         vtp.p_Pa if vtp else np.nan, min(melt) if melt else np.nan))
-    return pd.DataFrame(rows, columns=["fluid_id", "solid_phase", "pc", "rhoc", "pt_vap", "pt_melt"])
+                         vtp.p_Pa if vtp else np.nan, np.nanmin(melt) if np.isfinite(melt).any() else np.nan,
+                         any_vtp.T_K if any_vtp is not None and solid == "" else np.nan))
+    return pd.DataFrame(rows, columns=["fluid_id", "solid_phase", "pc", "rhoc", "pt_vap", "pt_melt",
+                                       "Tt_vap"])
 
 
 @dataclass(frozen=True)
@@ -110,12 +114,14 @@ class Bound:
     bound: str                       # threshold key, or a per-row bound column (pc, pt_vap ...)
     boundary: str | None = None      # None: every boundary
     quantity: str | None = None      # exact quantity, a prefix ending in '_', or None: all
-    relative: bool = False           # bound column widened by rel_tol
+    relative: bool = False           # bound column widened by the threshold ``tolerance``
+    tolerance: str = "rel_tol"       # threshold key of the relative widening
 
     def violated(self, cols: dict[str, np.ndarray], t: dict[str, np.ndarray]) -> np.ndarray:
         limit = t[self.bound] if self.bound in t else cols[self.bound].astype(float)
         if self.relative:
-            limit = limit * (1 + t["rel_tol"] if self.upper else 1 - t["rel_tol"])
+            tol = t[self.tolerance]
+            limit = limit * (1 + tol if self.upper else 1 - tol)
         x = cols[self.column].astype(float)
         bad = x > limit if self.upper else x < limit
         if self.boundary:
@@ -142,9 +148,11 @@ RANGE_RULES = {
     "saturated vapour denser than rhoc": Bound("value_si", True, "rhoc", "liquid-vapour", "rho_vapour", True),
     "saturated liquid less dense than rhoc": Bound("value_si", False, "rhoc", "liquid-vapour", "rho_liquid",
                                                    True),
+    "liquid-vapour below the triple-point temperature": Bound("T_K", False, "Tt_vap", "liquid-vapour",
+                                                              None, True, "T_rel_tol"),
 }
-_BOUND_COLUMNS = ("pc", "rhoc", "pt_vap", "pt_melt")
-_RANGE_KEYS = ("T_max_K", "p_max_Pa", "rho_max_kg_m3", "h_max_J_mol", "rel_tol")
+_BOUND_COLUMNS = ("pc", "rhoc", "pt_vap", "pt_melt", "Tt_vap")
+_RANGE_KEYS = ("T_max_K", "p_max_Pa", "rho_max_kg_m3", "h_max_J_mol", "rel_tol", "T_rel_tol")
 
 
 @register_check("data.ranges", tags=("data",), vectorised=True,
@@ -155,6 +163,9 @@ def ranges(batch: CheckBatch, th):
     points bound them further: a vapour pressure cannot exceed pc, a sublimation pressure pt,
     a melting pressure cannot lie below the pt where that melting curve starts, and a
     saturated vapour is less dense, a saturated liquid denser, than ρc (all within rel_tol).
+    Below the vapour-liquid-solid triple point the liquid is not stable, so a liquid-vapour
+    observation at T < Tt (1 − T_rel_tol) is flagged: usually sublimation data filed as vapour
+    pressure (a deliberate supercooled-liquid measurement is waived by a curation decision).
     One result per (boundary, solid phase, quantity) group names the rows out of range and the
     rule each breaks.
 

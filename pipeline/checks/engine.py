@@ -22,6 +22,7 @@ from typing import Callable, Iterable, Mapping, Sequence
 import pandas as pd
 
 from pipeline import __version__
+from pipeline.checks.budget import Budget
 from pipeline.checks.data import CheckBatch, FluidData
 from pipeline.checks.findings import SKIP, VIOLATED, Finding, Status
 from pipeline.checks.registry import CheckSpec, select_checks
@@ -175,6 +176,8 @@ def run_checks(fluids: Mapping[str, FluidData] | Sequence[FluidData] | CheckBatc
         batch = batch.subset(wanted)
     specs = select_checks(checks, tags)
     thresholds = thresholds or Thresholds.load()
+    for fid, fluid in batch.fluids.items():   # one uncertainty budget for every check
+        fluid.use_budget(Budget.from_thresholds(thresholds, fid))
     run_id, started, t0 = new_run_id(), _utc(), time.perf_counter()
     results: list[CheckResult] = []
     with _frozen_heap():

@@ -3,6 +3,8 @@ metastable, so the stable curve there has the lower pressure."""
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from pipeline.checks.data import FluidData
@@ -16,33 +18,46 @@ SIDES = {
     "below": (-1, "vap", "sub", "supercooled liquid"),
     "above": (+1, "sub", "vap", "superheated solid"),
 }
+NAMES = {"vap": "p_vap", "sub": "p_sub"}
 
 
-def _side(fluid: FluidData, tp, curves: dict, side: str, th):
+def _side(fluid: FluidData, tp, keys: dict, side: str, th):
     sign, high, low, phase = SIDES[side]
     n, w = int(th["n_points"]), th["window_fraction"]
-    T = tp.T_K * (1 + sign * w * np.linspace(1.0 / n, 1.0, n))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        p_high = np.asarray(curves[high].value(T, extrapolate=True), dtype=float)
-        p_low = np.asarray(curves[low].value(T, extrapolate=True), dtype=float)
-    ok = np.isfinite(p_high) & np.isfinite(p_low) & (p_low > 0)
     subject = f"{tp.label}|{side}"
-    names = {"vap": "p_vap", "sub": "p_sub"}
-    if not ok.any():
-        return skipped(fluid.fluid_id, subject,
-                       f"the curves cannot be extended {side} Tt (a form undefined there)")
-    margin = (p_high[ok] - p_low[ok]) / p_low[ok]
-    worst = int(np.argmin(margin))
-    return judge(fluid.fluid_id, subject, measured=float(margin[worst]), limit=-th["rel_tol"],
-                 upper=False, statistic=f"min ({names[high]} - {names[low]})/{names[low]}",
-                 evidence={"Tt_K": tp.T_K, "T_range_K": [float(T[ok].min()), float(T[ok].max())],
-                           "n_points": int(ok.sum()), "worst_T_K": float(T[ok][worst]),
-                           f"worst_{names[high]}_Pa": float(p_high[ok][worst]),
-                           f"worst_{names[low]}_Pa": float(p_low[ok][worst])},
-                 context=f"{side} Tt = {tp.T_K:.6g} K ({phase}), {int(ok.sum())} points "
-                         f"{T[ok].min():.5g}-{T[ok].max():.5g} K: {names[high]} must exceed "
-                         f"{names[low]}; at {T[ok][worst]:.5g} K {p_high[ok][worst]:.5g} vs "
-                         f"{p_low[ok][worst]:.5g} Pa")
+    rows, reasons = [], []
+    for T in tp.T_K * (1 + sign * w * np.linspace(1.0 / n, 1.0, n)):
+        a, why_a = fluid.at(keys[high], float(T))
+        b, why_b = fluid.at(keys[low], float(T))
+        if a is None or b is None:
+            reasons.append(why_a or why_b)
+            continue
+        u = math.hypot(a.u, b.u)
+        rows.append((float(T), a.value, b.value, u, (a.value - b.value) / u if u > 0 else math.nan,
+                     (a.value - b.value) / b.value))
+    if not rows:
+        return skipped(fluid.fluid_id, subject, f"the curves cannot be extended {side} Tt = "
+                                                f"{tp.T_K:.6g} K: {reasons[0]}")
+    T, p_high, p_low, u, z, margin = (np.array(c) for c in zip(*rows))
+    use_z = bool(np.all(np.isfinite(z)))
+    stat = z if use_z else margin
+    worst = int(np.argmin(stat))
+    statistic = (f"min ({NAMES[high]} - {NAMES[low]})/u" if use_z
+                 else f"min ({NAMES[high]} - {NAMES[low]})/{NAMES[low]}")
+    limit = -th["z_max"] if use_z else -th["rel_tol"]
+    return judge(fluid.fluid_id, subject, measured=float(stat[worst]), limit=limit,
+                 upper=False, statistic=statistic,
+                 evidence={"Tt_K": tp.T_K, "T_range_K": [float(T.min()), float(T.max())],
+                           "n_points": len(rows), "not_evaluated": len(reasons),
+                           "worst_T_K": float(T[worst]),
+                           f"worst_{NAMES[high]}_Pa": float(p_high[worst]),
+                           f"worst_{NAMES[low]}_Pa": float(p_low[worst]),
+                           "worst_u_difference_Pa": float(u[worst]),
+                           "worst_relative_margin": float(margin[worst])},
+                 context=f"{side} Tt = {tp.T_K:.6g} K ({phase}), {len(rows)} points "
+                         f"{T.min():.5g}-{T.max():.5g} K: {NAMES[high]} must exceed "
+                         f"{NAMES[low]}; at {T[worst]:.5g} K {p_high[worst]:.5g} vs "
+                         f"{p_low[worst]:.5g} Pa (u of the difference {u[worst]:.2g} Pa)")
 
 
 @register_check("metastable.extensions", tags=("metastable", "triple-point", "curves"),
@@ -52,9 +67,11 @@ def extensions(fluid: FluidData, th):
     liquid there is supercooled (metastable), and a metastable phase has the higher chemical
     potential, hence the higher vapour pressure: for T < Tt, p_vap(T) > p_sub(T). Above Tt the
     roles swap (a superheated solid): p_sub(T) > p_vap(T). Both fitted curves are extended
-    (extrapolate=True) over Tt (1 -/+ window_fraction) and their order is tested at n_points
-    temperatures; the smallest relative margin is reported. A side where a curve's form is
-    undefined (a non-integer power of 1 − T/Tt above Tt) is skipped.
+    over Tt (1 -/+ window_fraction), at n_points temperatures, but only as far as the one
+    extrapolation policy allows (a curve is never evaluated far from its data); the order is
+    tested as z = (p_high − p_low)/u with u from both curves' budgets, so two curves that meet
+    at Tt within their uncertainty do not fail just beside it. A side where a curve's form is
+    undefined or the policy forbids every point is skipped with the reason.
 
     Usual causes of a failure: vaporization and sublimation fits that do not meet at the triple
     point; a curvature forced by a few distant points; sublimation data of another solid phase.
@@ -64,12 +81,12 @@ def extensions(fluid: FluidData, th):
         if not (tp.has_vapour and "liquid" in tp.phases):
             continue
         solid = next(p for p in tp.phases if p not in ("vapour", "liquid"))
-        _, vap = fluid.curve_between("vapour", "liquid")
+        vkey, vap = fluid.curve_between("vapour", "liquid")
         skey, sub = fluid.curve_between("vapour", solid)
         if vap is None or sub is None:
-            missing = "liquid-vapour" if vap is None else curve_label(skey)
+            missing = curve_label(vkey) if vap is None else curve_label(skey)
             out.append(skipped(fluid.fluid_id, f"{tp.label}|below", f"no fitted {missing} curve"))
             continue
-        curves = {"vap": vap, "sub": sub}
-        out.extend(_side(fluid, tp, curves, side, th) for side in SIDES)
+        keys = {"vap": vkey, "sub": skey}
+        out.extend(_side(fluid, tp, keys, side, th) for side in SIDES)
     return out

@@ -14,7 +14,7 @@ from typing import Iterable
 import numpy as np
 
 from pipeline.checks.data import FluidData
-from pipeline.checks.points import SINGLE_SOLID, solid_label
+from pipeline.checks.points import SINGLE_SOLID, curve_label, solid_label  # noqa: F401 (re-exported)
 
 R_GAS = 8.314462618  # molar gas constant [J/(mol K)] (CODATA 2018, exact since the 2019 SI)
 
@@ -44,10 +44,10 @@ def _from_curve(fluid: FluidData, key, T: float) -> Looked | None:
     fitted = fluid.curve(*key)
     if fitted is None or not fitted.covers(T):
         return None
-    value = float(fitted.value(T))
-    if not math.isfinite(value):
+    point, _ = fluid.at(key, T)
+    if point is None:
         return None
-    return Looked(value, float(fitted.u(T)), f"fit {fitted.fit_id} ({key[0]} {key[2]})")
+    return Looked(point.value, point.u, f"fit {fitted.fit_id} ({key[0]} {key[2]})")
 
 
 def _from_observations(fluid: FluidData, key, T: float, T_tol_K: float) -> Looked | None:
@@ -57,7 +57,10 @@ def _from_observations(fluid: FluidData, key, T: float, T_tol_K: float) -> Looke
     i = int(np.argmin(np.abs(s.T - T)))
     if abs(s.T[i] - T) > T_tol_K:
         return None
-    return Looked(float(s.value[i]), float(s.u_value_si[i]),
+    value, u = float(s.value[i]), float(s.u_value_si[i])
+    if not (math.isfinite(u) and u > 0):   # the budget's default for its source kind
+        u = abs(value) * fluid.budget.uncertainty.observed_rel(key[2], str(s.source_kind[i]))
+    return Looked(value, u,
                   f"observation {int(s.obs_id[i])} ({s.file_path[i]} row {int(s.row_number[i])}, "
                   f"T = {s.T[i]:.6g} K)", int(s.obs_id[i]))
 
@@ -102,9 +105,31 @@ def density(fluid: FluidData, phase: str, boundary: str, solid_phase: str, T: fl
                    T_tol_K)
 
 
-def ideal_gas_density(fluid: FluidData, p: float, T: float) -> Looked:
-    """ρ = p M / (R T) [kg/m^3]: the vapour at sublimation pressures, when nothing is stored."""
-    return Looked(p * fluid.molar_mass / (R_GAS * T), math.nan, f"ideal gas at p = {p:.6g} Pa")
+def vapour_density_estimate(fluid: FluidData, p: float, T: float) -> Looked:
+    """ρ = p M / (Z R T) [kg/m^3] of a vapour at low pressure, when nothing is stored.
+
+    Z = 1 + B p / (R T), with the second virial coefficient from the corresponding-states
+    correlation B pc/(R Tc) = B0 + ω B1, B0 = 0.083 − 0.422/Tr^1.6, B1 = 0.139 − 0.172/Tr^4.2
+    (K. S. Pitzer, R. F. Curl, J. Am. Chem. Soc. 79, 2369 (1957), in the form of M. M. Abbott,
+    from memory) when the critical point is stated (ω from a stated acentric factor, else 0);
+    the ideal gas otherwise. Its standard uncertainty is half the correction (at least 1 %),
+    10 % for the bare ideal gas.
+    """
+    cp = fluid.critical_point
+    if cp is None or not (math.isfinite(cp.T_K) and math.isfinite(cp.p_Pa)):
+        return Looked(p * fluid.molar_mass / (R_GAS * T), 0.1 * p * fluid.molar_mass / (R_GAS * T),
+                      f"ideal gas at p = {p:.6g} Pa")
+    omega = fluid.constant("acentric_factor")
+    w = omega[0] if omega else 0.0
+    Tr = T / cp.T_K
+    B = (0.083 - 0.422 / Tr ** 1.6 + w * (0.139 - 0.172 / Tr ** 4.2)) * R_GAS * cp.T_K / cp.p_Pa
+    Z = 1.0 + B * p / (R_GAS * T)
+    if not (0.5 < Z <= 1.5):   # outside the virial range: the ideal gas, loosely
+        return Looked(p * fluid.molar_mass / (R_GAS * T), 0.1 * p * fluid.molar_mass / (R_GAS * T),
+                      f"ideal gas at p = {p:.6g} Pa")
+    rho = p * fluid.molar_mass / (Z * R_GAS * T)
+    return Looked(rho, rho * max(abs(Z - 1.0) / 2.0, 0.01),
+                  f"virial estimate at p = {p:.6g} Pa (Z = {Z:.4f})")
 
 
 def enthalpy(fluid: FluidData, boundary: str, solid_phase: str, T: float, T_tol_K: float,
@@ -116,7 +141,7 @@ def enthalpy(fluid: FluidData, boundary: str, solid_phase: str, T: float, T_tol_
     """
     quantity, constant = ENTHALPY_OF[boundary]
     if triple_T is not None and abs(T - triple_T) <= T_tol_K:
-        stated = fluid.constant(constant)
+        stated = fluid.constant(constant)   # u: stated, else the budget's default
         if stated is not None:
             return Looked(stated[0], stated[1], f"stated {constant} ({', '.join(stated[2])})")
     return look_up(fluid, quantity, [(boundary, solid_phase)], T, T_tol_K)
@@ -132,13 +157,6 @@ def delta_v(molar_mass: float, rho_first: Looked, rho_second: Looked) -> tuple[f
 
 def _u(looked: Looked) -> float:
     return 0.0 if not math.isfinite(looked.u) else looked.u
-
-
-def curve_label(key) -> str:
-    """``liquid-vapour``, ``solid-liquid:Ih``, ``liquid-vapour/rho_liquid`` for a curve key."""
-    boundary, solid, quantity = key
-    label = boundary + (f":{solid}" if solid else "")
-    return label if quantity == "pressure" else f"{label}/{quantity}"
 
 
 def solid_of(phases: Iterable[str]) -> str | None:

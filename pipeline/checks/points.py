@@ -109,6 +109,13 @@ class StatedPoint:
                 "fp_ids": list(self.fp_ids)}
 
 
+def curve_label(key) -> str:
+    """``liquid-vapour``, ``solid-liquid:Ih``, ``liquid-vapour/rho_liquid`` for a curve key."""
+    boundary, solid, quantity = key
+    label = boundary + (f":{solid}" if solid else "")
+    return label if quantity == "pressure" else f"{label}/{quantity}"
+
+
 def u0(u: float | None) -> float:
     """An uncertainty with 'not stated' (None, NaN) read as zero."""
     return 0.0 if u is None or not math.isfinite(u) else float(u)
@@ -134,7 +141,9 @@ def _best_ranked(rows: list[dict]) -> list[dict]:
 def consensus_points(records: Iterable[dict], kind: str) -> list[StatedPoint]:
     """One :class:`StatedPoint` per distinct phase set of ``kind`` (triple | critical).
 
-    ``records`` are fixed-point rows as dicts (``DataFrame.to_dict("records")``).
+    ``records`` are fixed-point rows as dicts. Each quantity (T, p, rho) is the consensus of
+    the best-ranked sources that state it, so a temperature-only point from a standard and a
+    pressure from a compilation combine.
     """
     groups: dict[tuple[str, ...], list[dict]] = {}
     for r in records:
@@ -142,14 +151,21 @@ def consensus_points(records: Iterable[dict], kind: str) -> list[StatedPoint]:
             groups.setdefault(parse_phases(r["phases"]), []).append(r)
     out = []
     for phases in sorted(groups):
-        best = _best_ranked(groups[phases])
-        cols = {}
+        cols, used = {}, []
         for col in ("T_K", "p_Pa", "rho_kg_m3"):
+            rows = [r for r in groups[phases] if _finite(r[col])]
+            best = _best_ranked(rows) if rows else []
             cols[col], cols["u_" + col] = consensus([r[col] for r in best], [r["u_" + col] for r in best])
+            used += [r for r in best if r not in used]
         out.append(StatedPoint(kind, phases, cols["T_K"], cols["u_T_K"], cols["p_Pa"],
                                cols["u_p_Pa"], cols["rho_kg_m3"], cols["u_rho_kg_m3"],
-                               tuple(r["source_id"] for r in best), tuple(int(r["fp_id"]) for r in best)))
+                               tuple(dict.fromkeys(r["source_id"] for r in used)),
+                               tuple(int(r["fp_id"]) for r in used)))
     return out
+
+
+def _finite(x) -> bool:
+    return x is not None and isinstance(x, (int, float)) and math.isfinite(x)
 
 
 def consensus_constant(records: Iterable[dict], name: str) -> tuple[float, float, tuple[str, ...]] | None:

@@ -24,14 +24,16 @@ def _entries(fluid: FluidData):
             name = crit if r["kind"] == "critical" else trip
             if name:
                 groups.setdefault((f"{key}|{name}", name, unit), []).append(
-                    (r[col], r["u_" + col], r["source_id"], r["source_kind"]))
+                    (r[col], r["u_" + col], r["source_id"], r["source_kind"],
+                     col in r.get("u_defaulted", ())))
     for r in fluid.constant_records:
         groups.setdefault((f"constant|{r['name']}", r["name"], r["si_unit"]), []).append(
-            (r["value_si"], r["u_si"], r["source_id"], r["source_kind"]))
+            (r["value_si"], r["u_si"], r["source_id"], r["source_kind"], bool(r.get("u_defaulted"))))
     for (subject, name, unit), rows in groups.items():
-        x, u, sources, kinds = zip(*rows)
+        x, u, sources, kinds, defaulted = zip(*rows)
         yield (subject, name, unit, np.array(x, dtype=float), np.array(u, dtype=float),
-               np.array(sources, dtype=object), np.array(kinds, dtype=object))
+               np.array(sources, dtype=object), np.array(kinds, dtype=object),
+               np.array(defaulted, dtype=bool))
 
 
 def _discrepant(z: np.ndarray, sources, kinds, z_max: float) -> list[str]:
@@ -45,9 +47,9 @@ def _discrepant(z: np.ndarray, sources, kinds, z_max: float) -> list[str]:
     return [str(sources[i]) for i in bad[:1]] if bad else []
 
 
-def _judge_entry(fluid: FluidData, subject, name, unit, x, u, sources, kinds, th):
-    listing = [{"source": str(s), "kind": str(k), "value": float(v), "u": float(w)}
-               for s, k, v, w in zip(sources, kinds, x, u)]
+def _judge_entry(fluid: FluidData, subject, name, unit, x, u, sources, kinds, defaulted, th):
+    listing = [{"source": str(s), "kind": str(k), "value": float(v), "u": float(w),
+                "u_is_default": bool(d)} for s, k, v, w, d in zip(sources, kinds, x, u, defaulted)]
     if np.all(np.isfinite(u) & (u > 0)):
         rb, limit = birge_ratio(x, u), birge_limit(len(x), th["birge_k"])
         mean, u_mean = weighted_mean(x, u)
@@ -81,16 +83,18 @@ def agreement(fluid: FluidData, th):
     compared with 1 + birge_k sqrt(1/(2(n − 1))), the spread expected of R_B for consistent
     data; each value's normalised residual against the weighted mean of the others,
     z_i = (x_i − m_-i)/sqrt(u_i^2 + u(m_-i)^2), names the discrepant source (of two, the one from
-    the less authoritative kind of source). Without uncertainties the spread about the median
-    is compared with rel_tol.
+    the less authoritative kind of source). A value stated without an uncertainty takes the
+    budget's default for its quantity and source kind (thresholds.toml ["uncertainty"]; the
+    evidence marks it), so the test is always a Birge ratio; only a constant the budget has no
+    default for falls back to its spread about the median against rel_tol.
 
     Usual causes of a failure: a value on another temperature scale; an old value superseded by
     a newer evaluation; a unit slip (kPa for MPa); a copying error.
     """
     out = []
-    for subject, name, unit, x, u, sources, kinds in _entries(fluid):
+    for subject, name, unit, x, u, sources, kinds, defaulted in _entries(fluid):
         ok = np.isfinite(x)
         if ok.sum() >= 2:
             out.append(_judge_entry(fluid, subject, name, unit, x[ok], u[ok], sources[ok],
-                                    kinds[ok], th))
+                                    kinds[ok], defaulted[ok], th))
     return out

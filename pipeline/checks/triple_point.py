@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
+
 from pipeline.checks.data import FluidData
 from pipeline.checks.findings import Finding, judge, skipped
 from pipeline.checks.physics import curve_label, delta_v, density, enthalpy
@@ -15,34 +17,61 @@ from pipeline.checks.stats import combined_u, deviation_statistic
 STEEP = {"solid-liquid", "solid-solid"}
 
 
-def _on_curve(fluid: FluidData, tp: StatedPoint, a: str, b: str, th) -> Finding:
-    key, fitted = fluid.curve_between(a, b)
-    subject = f"{tp.label}|{curve_label(key)}"
-    if fitted is None:
-        return skipped(fluid.fluid_id, subject, f"no fitted {a}-{b} curve ({key[0]})")
-    if not math.isfinite(tp.p_Pa):
-        return skipped(fluid.fluid_id, subject, f"{tp.label} states no pressure")
-    Tt, pt = tp.T_K, tp.p_Pa
-    if not fitted.covers(Tt, th["max_extrapolation_K"]):
-        return skipped(fluid.fluid_id, subject,
-                       f"{curve_label(key)} fit range {fitted.T_min_K:.6g}-{fitted.T_max_K:.6g} K "
-                       f"does not reach Tt = {Tt:.6g} K")
-    p, slope, u_fit = fitted.near(Tt)
-    u = combined_u(tp.u_p_Pa, slope * u0(tp.u_T_K), u_fit)
-    dT = (p - pt) / slope if slope else math.nan
-    evidence = {**tp.evidence(), **fitted.evidence(), "p_curve_Pa": p, "slope_Pa_K": slope,
-                "u_fit_Pa": u_fit, "u_combined_Pa": u, "T_curve_minus_Tt_K": -dT}
-    context = (f"{curve_label(key)} at Tt = {Tt:.6g} K gives {p:.6g} Pa vs pt = {pt:.6g} Pa "
-               f"(the curve passes pt at Tt {-dT * 1e3:+.3g} mK)")
-    if u > 0:
-        dev = deviation_statistic(p - pt, pt, u, z_max=th["z_max"], rel_tol=th["rel_tol"])
-        return judge(fluid.fluid_id, subject, measured=dev.measured, limit=dev.limit,
-                     statistic=dev.statistic, context=context, evidence=evidence)
-    if key[0] in STEEP:
+def _context(label: str, Tt: float, p: float, pt: float, what: str, dT: float) -> str:
+    return (f"{label} at Tt = {Tt:.6g} K gives {p:.6g} Pa vs {what} = {pt:.6g} Pa "
+            f"(the curve passes it at Tt {-dT * 1e3:+.3g} mK)")
+
+
+def _on_curve(fluid: FluidData, tp: StatedPoint, key, point, th) -> Finding:
+    """The curve ``key`` at Tt against the stated pt."""
+    subject, label = f"{tp.label}|{curve_label(key)}", curve_label(key)
+    Tt, pt, slope = tp.T_K, tp.p_Pa, point.slope
+    u = combined_u(tp.u_p_Pa, slope * u0(tp.u_T_K), point.u)
+    dT = (point.value - pt) / slope if slope else math.nan
+    evidence = {**tp.evidence(), **fluid.curves[key].evidence(), "p_curve_Pa": point.value,
+                "slope_Pa_K": slope, "u_fit_Pa": point.u, "u_combined_Pa": u,
+                "curve": point.evidence(), "T_curve_minus_Tt_K": -dT}
+    context = _context(label, Tt, point.value, pt, "pt", dT)
+    if key[0] in STEEP and not u > 0:
         return judge(fluid.fluid_id, subject, measured=abs(dT), limit=th["T_tol_K"],
                      statistic="|T_curve(pt) - Tt| [K]", context=context, evidence=evidence)
-    return judge(fluid.fluid_id, subject, measured=abs(p - pt) / pt, limit=th["rel_tol"],
-                 statistic="|relative deviation|", context=context, evidence=evidence)
+    dev = deviation_statistic(point.value - pt, pt, u, z_max=th["z_max"], rel_tol=th["rel_tol"])
+    return judge(fluid.fluid_id, subject, measured=dev.measured, limit=dev.limit,
+                 statistic=dev.statistic, context=context, evidence=evidence)
+
+
+def _curves_meet(fluid: FluidData, tp: StatedPoint, found: dict, th) -> list[Finding]:
+    """A temperature-only triple point: each curve at Tt against the others' weighted mean.
+
+    Without a stated pt the curves can still be tested against each other: they must meet at
+    Tt. Each curve's u includes dp/dT u(Tt), so a steep melting curve weighs almost nothing in
+    the others' mean and is itself judged along T.
+    """
+    out = []
+    u = {k: math.hypot(pt.u, pt.slope * u0(tp.u_T_K)) for k, pt in found.items()}
+    for key, point in found.items():
+        others = [k for k in found if k != key and u[k] > 0]
+        subject = f"{tp.label}|{curve_label(key)}"
+        if not others:
+            out.append(skipped(fluid.fluid_id, subject, f"{tp.label} states no pressure and no "
+                                                        "other curve reaches Tt to compare with"))
+            continue
+        w = np.array([1.0 / u[k] ** 2 for k in others])
+        mean = float(np.sum(w * [found[k].value for k in others]) / w.sum())
+        u_mean = 1.0 / math.sqrt(w.sum())
+        uc = math.hypot(u[key], u_mean)
+        dT = (point.value - mean) / point.slope if point.slope else math.nan
+        names = ", ".join(curve_label(k) for k in others)
+        dev = deviation_statistic(point.value - mean, mean, uc, z_max=th["z_max"],
+                                  rel_tol=th["rel_tol"])
+        out.append(judge(fluid.fluid_id, subject, measured=dev.measured, limit=dev.limit,
+                         statistic=dev.statistic,
+                         evidence={**tp.evidence(), "p_curve_Pa": point.value,
+                                   "curve": point.evidence(), "p_others_Pa": mean,
+                                   "u_others_Pa": u_mean, "others": names, "u_combined_Pa": uc},
+                         context=_context(curve_label(key), tp.T_K, point.value, mean,
+                                          f"the other curves ({names}; no stated pt)", dT)))
+    return out
 
 
 @register_check("triple-point.on-curves", tags=("triple-point", "curves"),
@@ -52,32 +81,51 @@ def on_curves(fluid: FluidData, th):
     there passes through it: p_vap(Tt) = p_sub(Tt) = p_melt(Tt) = pt (for a solid-solid-liquid
     point, both melting curves and the solid-solid curve).
 
-    For vapour and sublimation curves the test is z = (p(Tt) - pt) / u with
-    u^2 = u_pt^2 + (dp/dT u_Tt)^2 + u_fit(Tt)^2. Melting curves are steep (MPa/K), so the same
-    z is read along the steep direction and the message gives T_curve(pt) - Tt; without
-    uncertainties that temperature difference is compared with T_tol_K.
+    The test is z = (p(Tt) - pt) / u with u^2 = u_pt^2 + (dp/dT u_Tt)^2 + u_fit(Tt)^2, all from
+    the one uncertainty budget: stated values without an uncertainty take the documented
+    default of their source kind, and u_fit never falls below the correlated part of the best
+    file the curve was fitted to (points of one file or one equation are not independent), so
+    hundreds of points sampled from one equation do not shrink it. Melting curves are steep
+    (MPa/K), so the same z is read along the steep direction: the message gives
+    T_curve(pt) - Tt. A triple point stated by temperature alone (common in compilations) is
+    tested by comparing the curves with each other at Tt. A curve is evaluated at Tt only
+    within the extrapolation policy; otherwise the result is a skip naming it.
 
     Usual causes of a failure: a fit whose reference point (ln pt) drifted because of a bad
     data set near Tt; a triple point stated on another temperature scale; a curve fitted to
     the wrong solid phase; a stated pt taken from a different equation of state.
     """
-    return [_on_curve(fluid, tp, a, b, th) for tp in fluid.triple_points for a, b in tp.pairs()]
+    out = []
+    for tp in fluid.triple_points:
+        found = {}
+        for a, b in tp.pairs():
+            key, _ = fluid.curve_between(a, b)
+            point, reason = fluid.at(key, tp.T_K)
+            if point is None:
+                out.append(skipped(fluid.fluid_id, f"{tp.label}|{curve_label(key)}", reason))
+            else:
+                found[key] = point
+        if math.isfinite(tp.p_Pa):
+            out.extend(_on_curve(fluid, tp, key, point, th) for key, point in found.items())
+        else:
+            out.extend(_curves_meet(fluid, tp, found, th))
+    return out
 
 
-def _slopes_at(fluid: FluidData, tp: StatedPoint, th):
+def _slopes_at(fluid: FluidData, tp: StatedPoint):
     solid = next(p for p in tp.phases if p not in ("vapour", "liquid"))
-    (_, vap), (skey, sub) = fluid.curve_between("vapour", "liquid"), fluid.curve_between("vapour", solid)
-    for name, fitted in (("liquid-vapour", vap), (curve_label(skey), sub)):
-        if fitted is None:
-            return None, f"no fitted {name} curve"
-        if not fitted.covers(tp.T_K, th["max_extrapolation_K"]):
-            return None, f"{name} fit does not reach Tt = {tp.T_K:.6g} K"
-    s_vap, s_sub = vap.near(tp.T_K)[1], sub.near(tp.T_K)[1]
-    return (solid, skey[1], s_vap, s_sub), None
+    (vkey, _), (skey, _) = fluid.curve_between("vapour", "liquid"), fluid.curve_between("vapour", solid)
+    points = []
+    for key in (vkey, skey):
+        point, reason = fluid.at(key, tp.T_K)
+        if point is None:
+            return None, reason
+        points.append(point)
+    return (skey[1], *points), None
 
 
 def _expected_ratio(fluid: FluidData, tp: StatedPoint, solid_phase: str, th):
-    """(1 + Δh_fus/Δh_vap) * (Δv_vap/Δv_sub) and its uncertainty, or None."""
+    """(1 + Δh_fus/Δh_vap) * (Δv_vap/Δv_sub), its standard uncertainty and evidence, or None."""
     Tt, tol = tp.T_K, th["T_tol_K"]
     h_fus = enthalpy(fluid, "solid-liquid", solid_phase, Tt, tol, Tt)
     h_vap = enthalpy(fluid, "liquid-vapour", "", Tt, tol, Tt)
@@ -85,12 +133,15 @@ def _expected_ratio(fluid: FluidData, tp: StatedPoint, solid_phase: str, th):
         h_sub = enthalpy(fluid, "solid-vapour", solid_phase, Tt, tol, Tt)
         if h_sub is None or h_fus is None:
             return None
-        ratio_h, u_rel = h_sub.value / (h_sub.value - h_fus.value), math.nan
+        # ratio = h_sub / (h_sub - h_fus)
+        d = h_sub.value - h_fus.value
+        ratio_h = h_sub.value / d
+        u_h = math.hypot(u0(h_sub.u) * h_fus.value / d ** 2, u0(h_fus.u) * h_sub.value / d ** 2)
     elif h_fus is None:
         return None
     else:
         ratio_h = 1.0 + h_fus.value / h_vap.value
-        u_rel = math.hypot(u0(h_fus.u) / h_vap.value, h_fus.value * u0(h_vap.u) / h_vap.value ** 2) / ratio_h
+        u_h = math.hypot(u0(h_fus.u) / h_vap.value, h_fus.value * u0(h_vap.u) / h_vap.value ** 2)
     rho = {ph: density(fluid, ph, b, s, Tt, tol) for ph, b, s in
            (("liquid", "liquid-vapour", ""), ("vapour", "liquid-vapour", ""),
             ("solid", "solid-vapour", solid_phase))}
@@ -102,7 +153,7 @@ def _expected_ratio(fluid: FluidData, tp: StatedPoint, solid_phase: str, th):
     evidence = {"h_fusion_J_mol": h_fus.evidence() if h_fus else None,
                 "h_vaporization_J_mol": h_vap.evidence() if h_vap else None,
                 "volume_correction": correction}
-    return ratio_h * correction, u_rel * ratio_h * correction, evidence
+    return ratio_h * correction, u_h * correction, evidence
 
 
 @register_check("triple-point.slopes", tags=("triple-point", "clapeyron"),
@@ -115,9 +166,12 @@ def slopes(fluid: FluidData, th):
         (dp_sub/dT) / (dp_vap/dT) = (Δh_sub / Δh_vap) (Δv_vap / Δv_sub)
                                   ≈ 1 + Δh_fus / Δh_vap.
 
-    The order is always tested; the ratio when Δh_fus and Δh_vap (or Δh_sub) at Tt are stored
-    (stated constants or observations within T_tol_K of Tt); the volume factor is applied when
-    the three densities are stored.
+    The order is always tested (a ratio below 1 by more than z_max standard uncertainties
+    fails); the ratio when Δh_fus and Δh_vap (or Δh_sub) at Tt are stored (stated constants or
+    observations within T_tol_K of Tt); the volume factor is applied when the three densities
+    are stored. The slopes' uncertainties come from the fits' covariance (delta method) and
+    the correlated floor of their files; enthalpies without a stated uncertainty take the
+    budget's defaults. Both slopes are read within the extrapolation policy.
 
     Usual causes of a failure: sublimation and vaporization fits made from inconsistent data
     sets near Tt; a sublimation curve extrapolated far from its data; a fusion enthalpy in
@@ -128,30 +182,33 @@ def slopes(fluid: FluidData, th):
         if not (tp.has_vapour and "liquid" in tp.phases):
             continue
         subject = f"{tp.label}|order"
-        found, reason = _slopes_at(fluid, tp, th)
+        found, reason = _slopes_at(fluid, tp)
         if found is None:
             out.append(skipped(fluid.fluid_id, subject, reason))
             continue
-        solid, solid_phase, s_vap, s_sub = found
-        ratio = s_sub / s_vap
-        ev = {"T_K": tp.T_K, "slope_vap_Pa_K": s_vap, "slope_sub_Pa_K": s_sub, "ratio": ratio}
+        solid_phase, vap, sub = found
+        ratio = sub.slope / vap.slope
+        u_ratio = abs(ratio) * math.hypot(vap.u_slope / vap.slope, sub.u_slope / sub.slope)
+        ev = {"T_K": tp.T_K, "slope_vap_Pa_K": vap.slope, "slope_sub_Pa_K": sub.slope,
+              "u_slope_vap_Pa_K": vap.u_slope, "u_slope_sub_Pa_K": sub.u_slope,
+              "ratio": ratio, "u_ratio": u_ratio}
+        z_order = (ratio - 1.0) / u_ratio if u_ratio > 0 else math.copysign(math.inf, ratio - 1.0)
         out.append(judge(fluid.fluid_id, subject, measured=ratio, limit=1.0, upper=False,
-                         ok=ratio > 1.0, statistic="dp_sub/dT / dp_vap/dT", evidence=ev,
-                         context=f"slopes at Tt = {tp.T_K:.6g} K: sublimation {s_sub:.5g} Pa/K, "
-                                 f"vaporization {s_vap:.5g} Pa/K"))
+                         ok=ratio > 1.0 or z_order >= -th["z_max"],
+                         statistic="dp_sub/dT / dp_vap/dT", evidence=ev,
+                         context=f"slopes at Tt = {tp.T_K:.6g} K: sublimation {sub.slope:.5g} ± "
+                                 f"{sub.u_slope:.2g} Pa/K, vaporization {vap.slope:.5g} ± "
+                                 f"{vap.u_slope:.2g} Pa/K"))
         expected = _expected_ratio(fluid, tp, solid_phase, th)
         if expected is None:
             continue
-        value, u, ev_h = expected
-        # the slopes of two fitted curves differentiated at their end point are not known
-        # better than slope_rel_u (relative, standard); combined with u of the enthalpies
-        u_slopes = th.get("slope_rel_u", 1e-3) * value
-        u = math.hypot(u, u_slopes) if math.isfinite(u) else u_slopes
-        dev = deviation_statistic(ratio - value, value, u, z_max=th["z_max"],
-                                  rel_tol=th["rel_tol"])
+        value, u_h, ev_h = expected
+        u = math.hypot(u_h, u_ratio)
+        dev = deviation_statistic(ratio - value, value, u, z_max=th["z_max"], rel_tol=th["rel_tol"])
         out.append(judge(fluid.fluid_id, f"{tp.label}|ratio", measured=dev.measured,
-                         limit=dev.limit, statistic=dev.statistic, evidence={**ev, **ev_h,
-                                                                            "expected": value},
-                         context=f"slope ratio {ratio:.5g} vs 1 + Δh_fus/Δh_vap "
-                                 f"(volume-corrected) = {value:.5g}"))
+                         limit=dev.limit, statistic=dev.statistic,
+                         evidence={**ev, **ev_h, "expected": value, "u_expected": u_h,
+                                   "u_combined": u},
+                         context=f"slope ratio {ratio:.5g} ± {u_ratio:.2g} vs 1 + Δh_fus/Δh_vap "
+                                 f"(volume-corrected) = {value:.5g} ± {u_h:.2g}"))
     return out

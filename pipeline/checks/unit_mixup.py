@@ -23,6 +23,7 @@ import numpy as np
 
 from pipeline.checks.consensus import poly_design, robust_fit, wagner_design
 from pipeline.checks.data import FluidData, ObsSeries
+from pipeline.checks.estimates import estimate_from_constants
 from pipeline.checks.findings import VIOLATED, WARN, Finding, judge, skipped
 from pipeline.checks.points import SOURCE_RANK
 from pipeline.checks.registry import register_check
@@ -145,15 +146,92 @@ def hypotheses(value_unit: str, T_unit: str, T_scale: str, p_atm: float) -> list
     return out
 
 
-# -- per file ------------------------------------------------------------------------------------
-def _reference(fluid: FluidData, s: ObsSeries):
-    try:
-        from pipeline.correlations.reference import reference_curve
+# -- what a file is compared with -----------------------------------------------------------------
+@dataclass(frozen=True)
+class Consensus:
+    """What a file is compared with: T -> p (NaN outside its range), a phrase naming it, and
+    the relative standard uncertainty it carries (the floor of the normalised residuals)."""
 
-        curve = reference_curve(fluid.fluid_id, s.boundary, "pressure", s.solid_phase)
+    curve: Callable[[np.ndarray], np.ndarray]
+    basis: str
+    floor: float
+
+
+def _reference(fluid: FluidData, s: ObsSeries, th) -> Consensus | None:
+    """The published reference equation of the fluid, matched by its CAS number."""
+    from pipeline.correlations.reference import reference_curve, reference_fluid
+
+    slug = reference_fluid(fluid.cas_rn)
+    if slug is None:
+        return None
+    try:
+        curve = reference_curve(slug, s.boundary, "pressure", s.solid_phase)
     except (KeyError, LookupError, ValueError):
         return None
-    return (lambda T: np.asarray(curve.value(T), dtype=float)), "the reference equation"
+    return Consensus(lambda T: np.asarray(curve.value(T), dtype=float),
+                     f"the reference equation ({curve.citation.split(',')[0]})", th["rel_floor"])
+
+
+def _estimate(fluid: FluidData, s: ObsSeries, th) -> Consensus | None:
+    """Liquid-vapour only: the corresponding-states estimate from the stated constants."""
+    if s.boundary != "liquid-vapour" or s.solid_phase:
+        return None
+    cp = fluid.critical_point
+    if cp is None:
+        return None
+    omega, t_nb = fluid.constant("acentric_factor"), fluid.constant("normal_boiling_T")
+    tp = fluid.vapour_triple_point()
+    est = estimate_from_constants(cp.T_K, cp.p_Pa, omega=omega[0] if omega else None,
+                                  T_nb=t_nb[0] if t_nb else None,
+                                  triple=(tp.T_K, tp.p_Pa) if tp is not None else None)
+    if est is None:
+        return None
+    return Consensus(est, f"the corresponding-states estimate from the stated constants "
+                          f"({est.basis})", th["estimate_rel_floor"])
+
+
+def _anchors(fluid: FluidData, s: ObsSeries) -> list[tuple[str, float, float]]:
+    """Stated points that end the file's curve: (name, T, p) with p stated."""
+    out = []
+    if s.boundary == "liquid-vapour":
+        cp, tp = fluid.critical_point, fluid.vapour_triple_point()
+        out += [("the stated critical point", cp.T_K, cp.p_Pa)] if cp is not None else []
+        out += [("the stated triple point", tp.T_K, tp.p_Pa)] if tp is not None else []
+    elif s.boundary == "solid-vapour":
+        tp = fluid.vapour_triple_point(s.solid_phase or "solid")
+        out += [("the stated triple point", tp.T_K, tp.p_Pa)] if tp is not None else []
+    return [a for a in out if math.isfinite(a[1]) and math.isfinite(a[2]) and a[2] > 0]
+
+
+def _anchored(fluid: FluidData, s: ObsSeries, th) -> Consensus | None:
+    """The file's own shape shifted through a stated point that ends its curve.
+
+    A straight line in (1/T, ln p) through the file's points (Clausius-Clapeyron), evaluated at
+    the stated point's temperature when that lies within the extrapolation policy of the file,
+    is scaled to pass through the stated pressure: a unit factor then shows as a constant
+    offset of the file from it.
+    """
+    T, p = s.T.astype(float), s.value.astype(float)
+    ok = np.isfinite(T) & np.isfinite(p) & (p > 0) & (T > 0)
+    if ok.sum() < th["min_points"] or np.ptp(T[ok]) == 0:
+        return None
+    policy = fluid.budget.extrapolation
+    b, a = np.polyfit(1.0 / T[ok], np.log(p[ok]), 1)
+    lo, hi = float(T[ok].min()), float(T[ok].max())
+    for name, T_a, p_a in _anchors(fluid, s):
+        if max(lo - T_a, T_a - hi, 0.0) > policy.allowed(T_a):
+            continue
+        shift = math.log(p_a) - (a + b / T_a)
+
+        def curve(Tq, a=a, b=b, shift=shift):
+            Tq = np.asarray(Tq, dtype=float)
+            with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+                out = np.exp(a + b / Tq + shift)
+            return np.where((Tq >= lo) & (Tq <= hi), out, np.nan)
+        return Consensus(curve, f"{name} (T = {T_a:.6g} K, p = {p_a:.6g} Pa), through which "
+                                f"the file's own Clausius-Clapeyron line must pass",
+                         th["estimate_rel_floor"])
+    return None
 
 
 def _robust(fluid: FluidData, group: ObsSeries, th, start_w=None):
@@ -173,17 +251,24 @@ def _curve_of(fluid: FluidData, group: ObsSeries, weights: np.ndarray, th):
 
 
 def _consensus(fluid: FluidData, group: ObsSeries, path: str, pooled_w, th):
-    """(callable T -> p, phrase naming it) for the file at ``path``, or (None, reason)."""
+    """(Consensus, None) for the file at ``path``, or (None, reason).
+
+    In order: the robust fit of two or more other files; the reference equation (matched by
+    CAS number); the one other file (unless from a less authoritative source); for a single
+    file, the corresponding-states estimate from the stated constants, then a stated point
+    that ends its curve.
+    """
     files = group.file_path
     others = files != path
     inlier_files = list(dict.fromkeys(files[others & (pooled_w > 0.5)]))
     if len(inlier_files) >= 2:
         cons = _curve_of(fluid, group, np.where(others, pooled_w, 0.0), th)
         if cons is not None:
-            return cons, f"the robust fit of {len(inlier_files)} other files"
-    ref = _reference(fluid, group)
+            return Consensus(cons, f"the robust fit of {len(inlier_files)} other files",
+                             th["rel_floor"]), None
+    ref = _reference(fluid, group, th)
     if ref is not None:
-        return ref
+        return ref, None
     if len(inlier_files) == 1:
         other = inlier_files[0]
         kind_other = group.source_kind[files == other][0]
@@ -192,22 +277,39 @@ def _consensus(fluid: FluidData, group: ObsSeries, path: str, pooled_w, th):
             return None, f"the only other file ({other}) comes from a less authoritative source"
         cons = _curve_of(fluid, group, (files == other).astype(float), th)
         if cons is not None:
-            return cons, f"the other file {other}"
-    return None, "no other file or reference equation to compare with"
+            return Consensus(cons, f"the other file {other}", th["rel_floor"]), None
+    own = group.take(np.flatnonzero(~others))
+    for make in (_estimate, _anchored):
+        cons = make(fluid, own, th)
+        if cons is not None:
+            return cons, None
+    return None, ("no other file, reference equation or stated constants (Tc and pc with ω, "
+                  "a normal boiling point or a triple point) to compare with")
 
 
-def _median_z(cons, T, p, rel_u, th) -> tuple[float, float]:
-    """|median normalised ln-residual| and the share of points the consensus covers."""
+def _median_z(cons: Consensus, T, p, rel_u, th) -> tuple[float, float]:
+    """The larger |median normalised ln-residual| of all points and of the third of them with
+    the lowest pressures, and the share of points the consensus covers.
+
+    The low-pressure third keeps offsets in view (a gauge reading is off by one atmosphere,
+    which matters most at the lowest pressures); both are medians, so single outliers do not
+    move them.
+    """
     with np.errstate(invalid="ignore", divide="ignore"):
-        r = np.log(p) - np.log(cons(T))
+        r = np.log(p) - np.log(cons.curve(T))
     ok = np.isfinite(r)
     if not ok.any() or ok.mean() < th["min_coverage"]:
         return math.inf, float(ok.mean())
-    s = np.sqrt(rel_u[ok] ** 2 + th["rel_floor"] ** 2)
-    return float(abs(np.median(r[ok] / s))), float(ok.mean())
+    z = r[ok] / np.sqrt(rel_u[ok] ** 2 + cons.floor ** 2)
+    stat = abs(float(np.median(z)))
+    n_low = max(int(th["min_points"]), len(z) // 3)
+    if len(z) >= 2 * n_low:
+        low = z[np.argsort(p[ok], kind="stable")[:n_low]]
+        stat = max(stat, abs(float(np.median(low))))
+    return stat, float(ok.mean())
 
 
-def _scores(cons, s: ObsSeries, rel_u, th) -> list[tuple[float, str]]:
+def _scores(cons: Consensus, s: ObsSeries, rel_u, th) -> list[tuple[float, str]]:
     out = []
     for h in hypotheses(str(s.value_unit[0]), str(s.T_unit[0]), str(s.T_scale[0]), th["p_atm_Pa"]):
         T2, p2 = h.undo(s.T.astype(float), s.value.astype(float))
@@ -216,12 +318,12 @@ def _scores(cons, s: ObsSeries, rel_u, th) -> list[tuple[float, str]]:
     return sorted(out)
 
 
-def _diagnose(fluid: FluidData, s: ObsSeries, subject: str, path: str, cons, basis: str, th) -> Finding:
+def _diagnose(fluid: FluidData, s: ObsSeries, subject: str, path: str, cons: Consensus, th) -> Finding:
     rel_u = np.nan_to_num(np.abs(s.u_value_si / s.value))
     before, coverage = _median_z(cons, s.T, s.value, rel_u, th)
-    stat, limit = "|median z| vs consensus", th["z_max"]
-    ev = {"consensus": basis, "n_points": int(len(s)), "coverage": coverage,
-          "median_abs_z_before": before}
+    stat, limit, basis = "|median z| vs consensus", th["z_max"], cons.basis
+    ev = {"consensus": basis, "consensus_rel_u": cons.floor, "n_points": int(len(s)),
+          "coverage": coverage, "median_abs_z_before": before}
     if before <= limit:
         return judge(fluid.fluid_id, subject, measured=before, limit=limit, statistic=stat,
                      evidence=ev, context=f"{path} agrees with {basis}")
@@ -243,7 +345,7 @@ def _diagnose(fluid: FluidData, s: ObsSeries, subject: str, path: str, cons, bas
                    f"|median z| = {after:.3g})", measured, limit, stat, ev)
 
 
-def _screen(fluid: FluidData, group: ObsSeries, pooled, pooled_w, th):
+def _screen(fluid: FluidData, group: ObsSeries, pooled, pooled_w, th) -> Consensus | None:
     """The pooled consensus when three or more files carry weight in it, else None.
 
     A file agreeing with the robust fit of the whole group (in which a minority of wrong files
@@ -252,7 +354,9 @@ def _screen(fluid: FluidData, group: ObsSeries, pooled, pooled_w, th):
     if pooled is None or len(set(group.file_path[pooled_w > 0.5])) < 3:
         return None
     back = SPACES[group.boundary].back
-    return lambda T: back(pooled(T))
+    n_files = len(set(group.file_path))
+    return Consensus(lambda T: back(pooled(T)), f"the robust fit of all {n_files} files",
+                     th["rel_floor"])
 
 
 def _group_findings(fluid: FluidData, group: ObsSeries, th) -> list[Finding]:
@@ -261,7 +365,6 @@ def _group_findings(fluid: FluidData, group: ObsSeries, th) -> list[Finding]:
     if pooled_w is None:
         pooled_w = np.ones(len(group))
     screen = _screen(fluid, group, pooled, pooled_w, th)
-    n_files = len(set(group.file_path))
     out = []
     for path, s in group.by_file().items():
         subject = f"file:{path}|{group.boundary}" + (f":{group.solid_phase}" if group.solid_phase else "")
@@ -271,23 +374,29 @@ def _group_findings(fluid: FluidData, group: ObsSeries, th) -> list[Finding]:
         if screen is not None:
             rel_u = np.nan_to_num(np.abs(s.u_value_si / s.value))
             if _median_z(screen, s.T, s.value, rel_u, th)[0] <= th["z_max"]:
-                out.append(_diagnose(fluid, s, subject, path, screen,
-                                     f"the robust fit of all {n_files} files", th))
+                out.append(_diagnose(fluid, s, subject, path, screen, th))
                 continue
-        cons, basis = _consensus(fluid, group, path, pooled_w, th)
+        cons, reason = _consensus(fluid, group, path, pooled_w, th)
         if cons is None:
-            out.append(skipped(fluid.fluid_id, subject, basis))
+            out.append(skipped(fluid.fluid_id, subject, reason))
             continue
-        out.append(_diagnose(fluid, s, subject, path, cons, basis, th))
+        out.append(_diagnose(fluid, s, subject, path, cons, th))
     return out
 
 
 @register_check("data.unit-mixup", tags=("data", "units", "sources"),
                 purpose="A file off the consensus by a unit factor or offset gets the mix-up named.")
 def unit_mixup(fluid: FluidData, th):
-    """Each file's pressures are compared with the consensus of its group (a robust fit of the
-    other files, else the published reference equation): r = ln p − ln p_cons(T), normalised
-    by sqrt(u_rel^2 + rel_floor^2); the file is off when |median z| > z_max. Then each
+    """Each file's pressures are compared with the consensus of its group: the robust fit of
+    the other files, else the published reference equation of the fluid (found by its CAS
+    number, whatever its id), else the one other file; a fluid's only file is compared with
+    what its stated constants imply: the corresponding-states estimate (Lee-Kesler, from Tc,
+    pc and ω, or ω through the normal boiling point or the triple point; B. I. Lee,
+    M. G. Kesler, AIChE J. 21, 510 (1975)), else a stated point that ends its curve (pc at Tc,
+    pt at Tt) — always on their common temperature range only. r = ln p − ln p_cons(T),
+    normalised by sqrt(u_rel^2 + floor^2) (rel_floor for files and reference equations,
+    estimate_rel_floor for estimates); the file is off when |median z| (of all points, or of
+    the third with the lowest pressures, where offsets show most) exceeds z_max. Then each
     hypothesis is undone and the median recomputed: pressure units (kPa, bar, MPa, atm, mmHg,
     psi, hPa recorded as the declared unit: a factor), °C recorded as K (a 273.15 K offset),
     gauge recorded as absolute (an offset of one atmosphere, p_atm_Pa), IPTS-68 recorded as

@@ -18,12 +18,13 @@ from pipeline.correlations import density, melting, sublimation, vapour_pressure
 from pipeline.correlations.base import (FORMS, CorrelationForm, Curve, LinearForm,
                                         NonlinearForm, evaluate_batch, get_form, register_form)
 from pipeline.correlations.fitting import FitOutcome, fit_curve, fit_form
-from pipeline.correlations.reference import (REFERENCE_CONSTANTS, REFERENCE_CURVES,
-                                             reference_curve)
+from pipeline.correlations.reference import (REFERENCE_CAS, REFERENCE_CONSTANTS,
+                                             REFERENCE_CURVES, reference_curve,
+                                             reference_fluid)
 
 __all__ = [
     "FORMS", "CorrelationForm", "Curve", "LinearForm", "NonlinearForm", "evaluate_batch",
     "get_form", "register_form", "FitOutcome", "fit_curve", "fit_form", "REFERENCE_CONSTANTS",
-    "REFERENCE_CURVES", "reference_curve", "density", "melting", "sublimation",
+    "REFERENCE_CURVES", "REFERENCE_CAS", "reference_curve", "reference_fluid", "density", "melting", "sublimation",
     "vapour_pressure",
 ]

@@ -143,6 +143,27 @@ class IapwsMelting(_MeltingLinear):
         return np.stack([-dpower(theta, b) / T_ref for b in exps], axis=-1)
 
 
+class IapwsMeltingIII(IapwsMelting):
+    """IAPWS R14-08 melting-pressure form of ice III: one term, b = 60 (T* = 251.165 K)."""
+
+    name = "iapws-melting-iii"
+    default_exponents = (60.0,)
+
+
+class IapwsMeltingV(IapwsMelting):
+    """IAPWS R14-08 melting-pressure form of ice V: one term, b = 8 (T* = 256.164 K)."""
+
+    name = "iapws-melting-v"
+    default_exponents = (8.0,)
+
+
+class IapwsMeltingVI(IapwsMelting):
+    """IAPWS R14-08 melting-pressure form of ice VI: one term, b = 4.6 (T* = 273.31 K)."""
+
+    name = "iapws-melting-vi"
+    default_exponents = (4.6,)
+
+
 class IapwsMeltingVII(IapwsMelting):
     """IAPWS R14-08 melting-pressure form of ice VII (logarithmic).
 
@@ -249,5 +270,8 @@ class SimonGlatzel(NonlinearForm):
 MELTING_POLYNOMIAL = register_form(MeltingPolynomial())
 MELTING_SIMON_SUM = register_form(MeltingSimonSum())
 IAPWS_MELTING = register_form(IapwsMelting())
+IAPWS_MELTING_III = register_form(IapwsMeltingIII())
+IAPWS_MELTING_V = register_form(IapwsMeltingV())
+IAPWS_MELTING_VI = register_form(IapwsMeltingVI())
 IAPWS_MELTING_VII = register_form(IapwsMeltingVII())
 SIMON_GLATZEL = register_form(SimonGlatzel())

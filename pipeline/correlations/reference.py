@@ -244,6 +244,17 @@ REFERENCE_CURVES: dict[tuple[str, str, str, str], Curve] = {
 """All published curves by (fluid_id, boundary, quantity, solid_phase)."""
 
 
+#: CAS Registry Number -> the key of REFERENCE_CONSTANTS: reference equations are found by a
+#: fluid's identity, whatever slug a store gives it ("h2o", "r718", "water").
+REFERENCE_CAS = {"7732-18-5": "water", "124-38-9": "carbon-dioxide", "7727-37-9": "nitrogen",
+                 "7440-37-1": "argon"}
+
+
+def reference_fluid(cas_rn: str | None) -> str | None:
+    """The reference-equation key of the fluid with CAS number ``cas_rn``, or None."""
+    return REFERENCE_CAS.get((cas_rn or "").strip())
+
+
 def reference_curve(fluid_id: str, boundary: str, quantity: str, solid_phase: str = "") -> Curve:
     """Return the published curve for a fluid, boundary, quantity and solid phase.
 

@@ -16,8 +16,12 @@ FIT_PLAN: dict[tuple[str, str], tuple[str, tuple[str, ...]]] = {
     ("liquid-vapour", "rho_liquid"): ("critical", ("density-power", "density-log")),
     ("liquid-vapour", "rho_vapour"): ("critical", ("density-log-tc", "density-log")),
     ("solid-vapour", "pressure"): ("triple", ("sublimation-power",)),
+    # every published melting form: the IAPWS R14-08 forms of ices Ih, III, V, VI and VII keep
+    # water's curves within the release's uncertainty
     ("solid-liquid", "pressure"): ("triple", ("melting-polynomial", "melting-simon-sum",
-                                              "iapws-melting", "simon-glatzel")),
+                                              "iapws-melting", "iapws-melting-iii",
+                                              "iapws-melting-v", "iapws-melting-vi",
+                                              "iapws-melting-vii", "simon-glatzel")),
 }
 FITTED_QUANTITIES = ("pressure", "rho_liquid", "rho_vapour")
 SOURCE_RANK = {"standard": 0, "evaluated": 1, "literature": 2, "measurement": 3, "estimate": 4}

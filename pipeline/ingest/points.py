@@ -53,14 +53,19 @@ def _si(v: PointValue, kind: str, molar_mass: float) -> tuple[float, float | Non
 
 
 def fixed_point_row(spec: FixedPointSpec, entry: int, molar_mass: float, label: str):
-    """(row dict, None) for a usable entry, or (None, Rejected)."""
+    """(row dict, None) for a usable entry, or (None, Rejected).
+
+    A point may state its temperature only (compilations often give a triple-point temperature
+    without its pressure): it is stored with ``p_Pa`` NULL and still anchors fits (they fix the
+    reference temperature only) and bounds ranges; checks that need pt or pc skip or compare
+    the curves with each other instead.
+    """
     raw = json.dumps(spec.model_dump(exclude_none=True), sort_keys=True)
     where = f"{label}, fixed_point entry {entry}"
-    if spec.p is None:
-        return None, Rejected(entry, "p", "missing-pressure",
-                              f"{where}, key 'p': a {spec.kind} point needs its pressure", raw)
     T, uT = _si(spec.T, "temperature", molar_mass)
-    p, up = _si(spec.p, "pressure", molar_mass)
+    p = up = None
+    if spec.p is not None:
+        p, up = _si(spec.p, "pressure", molar_mass)
     rho = urho = None
     if spec.rho is not None:
         rho, urho = _si(spec.rho, "density", molar_mass)

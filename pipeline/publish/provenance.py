@@ -86,6 +86,13 @@ class CheckIndex:
                     out[source] = c["status"]
         return out
 
+    def status(self, fluid_id: str, check_id: str, subject: str) -> str | None:
+        """Status of one finding (``check_id``, ``subject``) of ``fluid_id``, None if absent."""
+        for c in self._by_fluid.get(fluid_id, ()):
+            if c["check_id"] == check_id and c["subject"] == subject:
+                return c["status"]
+        return None
+
     def bad(self, fluid_id: str, refs: Refs) -> list[dict]:
         return [c for c in self.bearing(fluid_id, refs) if c["status"] in BAD_STATUSES]
 

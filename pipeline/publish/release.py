@@ -131,9 +131,28 @@ def _constant_record(inputs: ReleaseInputs, r: Recommendation, policy: Policy,
                        list(r.decision_ids) + _fit_decision_ids(inputs, fits))  # issue 8
 
 
+#: statuses of critical.curve-end "p(Tc)" that let a vapour-pressure curve be published to Tc
+REACHES_TC = ("pass", "waived")
+
+
+def valid_to_tc(fit: dict, curve: Curve, checks: prov.CheckIndex) -> bool:
+    """True when a vapour-pressure fit is anchored at Tc and shown to end there.
+
+    The fit fixes Tc as its reference temperature; when ``critical.curve-end`` found that it
+    reaches Tc within the extrapolation policy and that p_vap(Tc) agrees with pc ("p(Tc)"
+    passed or was waived), the curve is published valid up to Tc, where it gives its fitted pc.
+    """
+    T_ref = curve.ref.get("T_ref_K")
+    return (fit["boundary"] == "liquid-vapour" and fit["quantity"] == "pressure"
+            and curve.correlation_form.reference_point == "critical"
+            and T_ref is not None and math.isfinite(T_ref) and T_ref > curve.T_max_K
+            and checks.status(fit["fluid_id"], "critical.curve-end", "p(Tc)") in REACHES_TC)
+
+
 def _curve_rows(inputs: ReleaseInputs, fit: dict, release_id: str,
                 checks: prov.CheckIndex) -> tuple[dict, prov.Record]:
     curve = Curve.from_dict(fit["curve"])
+    to_tc = valid_to_tc(fit, curve, checks)
     form = curve.correlation_form
     exps = list(curve.ref["exponents"])
     sqlmacros.check_curve_fits(len(curve.params), len(exps), curve.form)
@@ -151,12 +170,15 @@ def _curve_rows(inputs: ReleaseInputs, fit: dict, release_id: str,
            "reference_value_si": float(curve.reference_value),
            "param_names": list(sqlmacros.param_names(form, len(curve.params))), "params": list(curve.params),
            "exponents": exps, "covariance": cov, "T_min_K": curve.T_min_K,
-           "T_max_K": curve.T_max_K, "n_points": fit["n_points"], "n_used": fit["n_used"],
+           "T_max_K": curve.ref["T_ref_K"] if to_tc else curve.T_max_K,
+           "n_points": fit["n_points"], "n_used": fit["n_used"],
            "n_flagged": fit["n_flagged"], "weighted_rms": fit["weighted_rms"],
            "reduced_chi2": fit["reduced_chi2"], "input_hash": fit["input_hash"],
            "check_status": prov.worst_status(c["status"] for c in bearing)}
+    reach = (f"; valid to Tc = {curve.ref['T_ref_K']:.6g} K (data to {curve.T_max_K:.6g} K; "
+             "anchored at the critical point, critical.curve-end p(Tc) passed)") if to_tc else ""
     record = prov.Record(value_id, fit["fluid_id"], "curve", "fitted", fit["fit_id"],
-                         f"fluidledger fit run {fit['fit_run_id']} (form {curve.form})",
+                         f"fluidledger fit run {fit['fit_run_id']} (form {curve.form}){reach}",
                          prov.fit_entities(inputs, fit), bearing,
                          _fit_decision_ids(inputs, [fit["fit_id"]]))  # issue 8
     return row, record

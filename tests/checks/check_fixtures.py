@@ -123,7 +123,7 @@ def water(*, observations=None, fixed_points=None, constants=None, curves=None,
         fixed_points=water_fixed_points() if fixed_points is None else fixed_points,
         constants=[constant("h_fusion_triple", H_FUS_TT), constant("h_vaporization_triple", H_VAP_TT),
                    constant("h_sublimation_triple", H_SUB_TT)] if constants is None else constants,
-        curves=water_curves() if curves is None else curves)
+        curves=water_curves() if curves is None else curves, cas_rn="7732-18-5")
 
 
 def co2_curves() -> dict:
@@ -160,7 +160,7 @@ def co2(*, observations=None, fixed_points=None, curves=None, extra=()) -> Fluid
         fixed_points=[point("triple", "vapour,liquid,solid", TT_CO2, PT_CO2, source="sw1996"),
                       point("critical", "liquid,vapour", TC_CO2, PC_CO2, RHOC_CO2, source="sw1996")]
         if fixed_points is None else fixed_points,
-        curves=co2_curves() if curves is None else curves)
+        curves=co2_curves() if curves is None else curves, cas_rn="124-38-9")
 
 
 def with_range(curve, T_min=None, T_max=None):

@@ -52,13 +52,31 @@ def test_one_melting_file_with_falling_pressure_is_named():
     assert found["file:memory/lit-melting-a.csv|solid-liquid"].status == "pass"
 
 
-def test_without_densities_files_are_compared_with_the_fitted_curve():
-    """With no density stored, the reversed CO2 file is judged against the sign of the fitted curve."""
+def test_without_densities_the_sign_follows_from_the_triple_point():
+    """With no density stored, CO2 melting data lie above Tt = 216.592 K (Span & Wagner 1996),
+    so their curve must rise: the reversed file fails, the fitted curve passes."""
     fluid = co2(extra=[co2_melting_file("lit-reversed", reverse=True)])
     obs = fluid.observations[~fluid.observations["quantity"].str.startswith("rho_")]
     found = by_subject(slope_sign(co2(observations=obs), th("clapeyron.slope-sign")))
-    assert found["curve:solid-liquid"].status == "skip"
+    assert found["curve:solid-liquid"].status == "pass"
+    assert "lie above" in found["curve:solid-liquid"].message
     assert found["file:memory/lit-reversed.csv|solid-liquid"].status == "violated"
+
+
+def test_a_single_reversed_melting_file_is_caught_without_densities():
+    """The only melting file of a fluid, reversed, fails from the triple point's position alone."""
+    fluid = co2(observations=co2_melting_file("lit-reversed", reverse=True))
+    found = by_subject(slope_sign(fluid, th("clapeyron.slope-sign")))
+    assert found["file:memory/lit-reversed.csv|solid-liquid"].status == "violated"
+
+
+def test_ice_ih_melting_data_below_tt_must_fall():
+    """Ice Ih melts at 251.165-273.16 K (IAPWS R14-08): below the vapour triple point, so falling."""
+    obs = water().observations
+    obs = obs[~obs["quantity"].str.startswith("rho_")]
+    found = by_subject(slope_sign(water(observations=obs), th("clapeyron.slope-sign")))
+    f = found["curve:solid-liquid:Ih"]
+    assert f.status == "pass" and "lie below" in f.message
 
 
 def test_vapour_and_sublimation_slopes_positive_pass_and_a_falling_curve_fails():

@@ -118,3 +118,26 @@ def test_a_table_entered_twice_under_two_files_is_flagged():
     found = by_subject(_run(duplicates, "data.duplicates", water(observations=stack(obs, copy))))
     f = found["files:memory/copy.csv|memory/sr1-86-table.csv"]
     assert f.status == "violated" and f.measured == 19
+
+
+def test_vapour_pressure_below_the_triple_point_temperature_fails():
+    """Ice Ih sublimation pressures at 250-270 K (IAPWS R14-08) filed as liquid-vapour lie below
+    Tt = 273.16 K, where no liquid is stable: the rows are named (issue 12, rule 8)."""
+    sub = reference_curve("water", "solid-vapour", "pressure", "Ih")
+    misfiled = sample_series(sub, np.array([250.0, 260.0, 270.0]), boundary="liquid-vapour",
+                             source_id="misfiled")
+    obs = stack(water_observations(), misfiled)
+    found = by_subject(_run(ranges, "data.ranges", water(observations=obs)))
+    bad = found["liquid-vapour/pressure"]
+    assert bad.status == "violated" and bad.measured == 3
+    assert "liquid-vapour below the triple-point temperature" in bad.message
+    assert all(o["file"] == "memory/misfiled.csv" for o in bad.evidence["out_of_range"])
+
+
+def test_vapour_pressure_starting_at_the_triple_point_passes():
+    """IAPWS SR1-86 starts at Tt = 273.16 K: a point 0.1 K below it is within T_rel_tol (0.2 %)."""
+    lab = sample_series(lambda T: LV.value(T, extrapolate=True), np.array([273.06, 280.0, 290.0]),
+                        boundary="liquid-vapour", source_id="lab-c")
+    assert np.isfinite(lab["value_si"]).all()
+    found = by_subject(_run(ranges, "data.ranges", water(observations=stack(water_observations(), lab))))
+    assert found["liquid-vapour/pressure"].status == "pass"

@@ -21,16 +21,32 @@ VLI = "triple:vapour,liquid,Ih"
 
 
 def test_water_extensions_lie_in_the_metastable_regions():
-    """Below 273.16 K SR1-86 p_vap > R14-08 p_sub (supercooled water); above it p_sub > p_vap."""
+    """Below 273.16 K SR1-86 p_vap > R14-08 p_sub (supercooled water) by 1.3 % at 265 K; above it p_sub > p_vap."""
     found = by_subject(extensions(water(), th("metastable.extensions")))
-    assert found[f"{VLI}|below"].status == "pass" and found[f"{VLI}|above"].status == "pass"
-    assert found[f"{VLI}|below"].measured == pytest.approx(0.0133, abs=0.002)
+    below, above = found[f"{VLI}|below"], found[f"{VLI}|above"]
+    assert below.status == "pass" and above.status == "pass"
+    assert below.statistic == "min (p_vap - p_sub)/u" and below.measured > 3.0
+    assert below.evidence["worst_relative_margin"] == pytest.approx(0.0133, abs=0.002)
 
 
-def test_sublimation_form_undefined_above_tt_is_skipped():
-    """The Span-Wagner sublimation form has (1 − T/Tt)^1.9: above Tt that side is skipped."""
+def test_extension_beyond_the_extrapolation_policy_is_skipped_naming_it():
+    """A sublimation curve whose data end 20 K below Tt is not extended to Tt (policy: 5 % of T)."""
+    fluid = water()
+    curves = {k: v.curve for k, v in fluid.curves.items()}
+    sv = ("solid-vapour", "Ih", "pressure")
+    curves[sv] = with_range(curves[sv], T_max=250.0)
+    obs = fluid.observations[fluid.observations["boundary"] != "solid-vapour"]
+    found = by_subject(extensions(water(curves=curves, observations=obs), th("metastable.extensions")))
+    for side in ("below", "above"):
+        f = found[f"{VLI}|{side}"]
+        assert f.status == "skip" and "extrapolation policy" in f.message, f.message
+
+
+def test_sublimation_form_undefined_above_tt_is_continued_along_clausius_clapeyron():
+    """The Span-Wagner sublimation form has (1 − T/Tt)^1.9, undefined above Tt: it is continued
+    with ln p linear in 1/T, and the superheated-solid order still holds (common practice)."""
     found = by_subject(extensions(co2(), th("metastable.extensions")))
-    assert found["triple:vapour,liquid,solid|above"].status == "skip"
+    assert found["triple:vapour,liquid,solid|above"].status == "pass"
     assert found["triple:vapour,liquid,solid|below"].status == "pass"
 
 

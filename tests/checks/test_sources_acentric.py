@@ -52,11 +52,14 @@ def test_of_two_disagreeing_sources_the_less_authoritative_is_named():
     assert f.status == "violated" and f.evidence["discrepant"] == ["lab"]
 
 
-def test_without_uncertainties_the_spread_is_judged_by_tolerance():
-    """Triple-point pressures 611.657 and 611.654771 Pa (R14-08, IAPWS-95) agree within 0.1 %; 650 Pa does not."""
+def test_without_uncertainties_the_budget_defaults_decide():
+    """Triple-point pressures 611.657 and 611.654771 Pa (R14-08, IAPWS-95), stated without u, agree
+    within the default u of a standard (1e-4 relative); 650 Pa does not."""
     ok = water_fixed_points() + [point("triple", "vapour,liquid,Ih", 273.16, 611.654771, source="iapws-95")]
     f = by_subject(agreement(water(fixed_points=ok), th("sources.agreement")))["triple:vapour,liquid,Ih|pt"]
-    assert f.status == "pass" and f.statistic == "max |x/median - 1|"
+    assert f.status == "pass" and f.statistic == "Birge ratio"
+    assert all(v["u_is_default"] and v["u"] == pytest.approx(611.657e-4, rel=1e-3)
+               for v in f.evidence["values"])
     bad = water_fixed_points() + [point("triple", "vapour,liquid,Ih", 273.16, 650.0, source="old")]
     f = by_subject(agreement(water(fixed_points=bad), th("sources.agreement")))["triple:vapour,liquid,Ih|pt"]
     assert f.status == "violated"
@@ -91,4 +94,4 @@ def test_acentric_factor_skips_when_the_curve_does_not_reach_0_7_tc():
     curves = {k: v.curve for k, v in water().curves.items() if k[0] != "liquid-vapour"}
     (f,) = acentric_factor(water(curves=curves, constants=[constant("acentric_factor", 0.3443, unit="1")]),
                            th("acentric.factor"))
-    assert f.status == "skip" and "no fitted vapour-pressure curve" in f.message
+    assert f.status == "skip" and "no fitted liquid-vapour curve" in f.message

@@ -40,10 +40,24 @@ def test_registry_holds_every_form():
     """FORMS maps each registry name to a form object of that name."""
     expected = {"wagner-3-6", "wagner-2.5-5", "wagner-pruss-6", "wagner-type", "antoine", "antoine-extended",
                 "sublimation-power", "iapws-sublimation", "simon-glatzel", "melting-polynomial",
-                "melting-simon-sum", "iapws-melting", "iapws-melting-vii", "density-power",
+                "melting-simon-sum", "iapws-melting", "iapws-melting-iii", "iapws-melting-v",
+                "iapws-melting-vi", "iapws-melting-vii", "density-power",
                 "density-log", "density-log-tc"}
     assert set(FORMS) == expected
     assert all(form.name == name and form.citation for name, form in FORMS.items())
+
+
+@pytest.mark.parametrize("ice, form", [("III", "iapws-melting-iii"), ("V", "iapws-melting-v"),
+                                       ("VI", "iapws-melting-vi")])
+def test_ice_melting_forms_carry_the_published_exponents(ice, form):
+    """The one-term IAPWS R14-08 forms of ices III (b = 60), V (8), VI (4.6) with their default
+    exponents reproduce the release's curves (reference.py gives them as iapws-melting)."""
+    ref = REFERENCE_CURVES[("water", "solid-liquid", "pressure", ice)]
+    named = Curve(form, ref.params, {"T_ref_K": ref.ref["T_ref_K"]}, T_min_K=ref.T_min_K,
+                  T_max_K=ref.T_max_K)
+    T = interior_grid(ref)
+    assert named.ref["exponents"] == ref.ref["exponents"]
+    np.testing.assert_allclose(named.value(T), ref.value(T), rtol=1e-14)
 
 
 def test_wagner_pruss_6_equals_the_published_water_equation():

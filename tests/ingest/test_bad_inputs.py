@@ -88,8 +88,8 @@ def test_decimal_commas_quarantine_unless_declared(raw_root, store_path, capsys)
     assert code == 0 and "2 rows read, 2 loaded, 0 quarantined" in out
 
 
-def test_fixed_point_without_pressure_is_quarantined(raw_root, store_path):
-    """A triple point stated with T but no p goes to quarantine with reason missing-pressure."""
+def test_temperature_only_fixed_point_is_stored(raw_root, store_path):
+    """A triple point stated with T but no p is stored with p NULL, not quarantined (issue 12)."""
     from pipeline.store import open_store
 
     manifest = GOOD + """
@@ -101,8 +101,9 @@ T = { value = 83.8058, unit = "K", u = 0.0002 }
     write_batch(raw_root, "b1", manifest, {"vp.csv": SIMPLE_CSV})
     assert main(["ingest", str(raw_root), "--store", str(store_path), "-q"]) == 0
     with open_store(store_path) as s:
-        q = s.con.execute("SELECT reason_code, column_name, message FROM quarantine").fetchall()
+        q = s.con.execute("SELECT count(*) FROM quarantine").fetchone()[0]
+        point = s.con.execute("SELECT kind, T_K, p_Pa, u_p_Pa FROM fixed_point_current").fetchone()
         counts = s.con.execute("SELECT rows_read, rows_loaded, rows_quarantined FROM raw_file "
                                "WHERE role = 'manifest'").fetchone()
-    assert q[0][:2] == ("missing-pressure", "p") and "fixed_point entry 1" in q[0][2]
-    assert counts == (1, 0, 1)
+    assert q == 0 and counts == (1, 1, 0)
+    assert point == ("triple", 83.8058, None, None)

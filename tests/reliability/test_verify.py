@@ -24,7 +24,7 @@ p = { value = 68.89, unit = "kPa", u = 0.02 }
 [[fixed_point]]
 fluid = "argon"
 kind = "critical"
-T = { value = 150.687, unit = "K" }
+T = { value = -150.687, unit = "K" }
 
 [[constant]]
 fluid = "argon"

@@ -1,0 +1,273 @@
+"""One uncertainty budget and one extrapolation policy for every check (DESIGN §5).
+
+Real published data state uncertainties unevenly: a compilation gives Tc without one, a file of
+points evaluated from one equation carries the equation's uncertainty on every point, a lab
+campaign's points share its calibration. The checks decide with z-scores, so every number they
+compare needs an honest standard uncertainty. This module supplies it in one place:
+
+* **Defaults** (:class:`UncertaintyModel`): a stated value without an uncertainty gets the
+  documented default of its quantity and source kind, read from the ``["uncertainty"]`` table
+  of thresholds.toml (each default's reasoning and source is the comment beside it).
+* **Correlated points** (:class:`CurveBudget`): the points of one file share a systematic
+  (type B) part of their uncertainty (ISO/IEC Guide 98-3 (GUM), §5.2, correlated input
+  quantities), so a fit's uncertainty at a temperature never falls below the correlated part of
+  the best file covering it, however many points the file has; where the files scatter about
+  the fit more than their correlated parts allow, the floor is expanded by their Birge ratio
+  (R. T. Birge, Phys. Rev. 40, 207 (1932)).
+* **Slopes**: a slope carries the fit covariance (delta method on d(dp/dT)/d(params)) and the
+  same relative floor (a file's systematic relative offset scales its slope alike).
+* **Extrapolation** (:class:`ExtrapolationPolicy`): a fitted curve is evaluated at most
+  ``max(min_K, max_fraction * T)`` beyond the temperatures of its data; a check asking for more
+  gets a skip whose reason names the policy.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from functools import lru_cache
+from typing import Any, Mapping
+
+import numpy as np
+
+UNCERTAINTY_TABLE = "uncertainty"
+EXTRAPOLATION_TABLE = "extrapolation"
+#: order of the per-kind arrays in the ["uncertainty"] table
+SOURCE_KINDS = ("standard", "evaluated", "literature", "measurement", "estimate")
+#: a source kind outside SOURCE_KINDS ('unknown', a typo in old data) is treated as this one
+FALLBACK_KIND = "estimate"
+
+#: quantity of a stated value -> (key in the ["uncertainty"] table, True if relative)
+STATED_QUANTITY = {
+    ("critical", "T_K"): ("T_critical_K", False),
+    ("critical", "p_Pa"): ("p_critical_rel", True),
+    ("critical", "rho_kg_m3"): ("rho_critical_rel", True),
+    ("triple", "T_K"): ("T_triple_K", False),
+    ("triple", "p_Pa"): ("p_triple_rel", True),
+    ("triple", "rho_kg_m3"): ("rho_critical_rel", True),
+    ("constant", "acentric_factor"): ("acentric_factor_abs", False),
+    ("constant", "normal_boiling_T"): ("T_normal_boiling_K", False),
+    ("constant", "h_fusion_triple"): ("h_fusion_rel", True),
+    ("constant", "h_vaporization_triple"): ("h_vaporization_rel", True),
+    ("constant", "h_sublimation_triple"): ("h_sublimation_rel", True),
+}
+#: observation quantity -> key of its relative default (observations that state no u)
+OBSERVED_QUANTITY = {
+    "pressure": "p_observed_rel", "rho_liquid": "rho_observed_rel",
+    "rho_vapour": "rho_observed_rel", "rho_solid": "rho_observed_rel",
+    "h_vaporization": "h_vaporization_rel", "h_fusion": "h_fusion_rel",
+    "h_sublimation": "h_sublimation_rel",
+}
+
+
+def _kind_index(kind: str | None) -> int:
+    return SOURCE_KINDS.index(kind if kind in SOURCE_KINDS else FALLBACK_KIND)
+
+
+@dataclass(frozen=True)
+class UncertaintyModel:
+    """Default standard uncertainties (k = 1) per quantity and source kind, and the share of a
+    file's stated uncertainty that its points have in common (``correlated_fraction``)."""
+
+    table: Mapping[str, Any]
+
+    def default(self, key: str, kind: str | None) -> float:
+        """The default of ``key`` (a table key) for a source of ``kind``."""
+        return float(self.table[key][_kind_index(kind)])
+
+    def stated(self, what: str, name: str, value: float, u: float | None,
+               kind: str | None) -> tuple[float, bool]:
+        """(u, defaulted) for a stated value: its own u when stated (> 0), else the default.
+
+        ``what`` is ``critical``, ``triple`` or ``constant``; ``name`` the column (``T_K``,
+        ``p_Pa``, ``rho_kg_m3``) or the constant's name.
+        """
+        if u is not None and math.isfinite(u) and u > 0:
+            return float(u), False
+        if value is None or not math.isfinite(value):
+            return math.nan, False
+        key, relative = STATED_QUANTITY[(what, name)]
+        d = self.default(key, kind)
+        return (d * abs(value) if relative else d), True
+
+    def observed_rel(self, quantity: str, kind: str | None) -> float:
+        """Relative default of an observation of ``quantity`` that states no uncertainty."""
+        return self.default(OBSERVED_QUANTITY.get(quantity, "p_observed_rel"), kind)
+
+    def correlated_fraction(self, kind: str | None) -> float:
+        return float(self.table["correlated_fraction"][_kind_index(kind)])
+
+    @property
+    def birge_expansion(self) -> bool:
+        return bool(self.table.get("birge_expansion", True))
+
+
+@dataclass(frozen=True)
+class ExtrapolationPolicy:
+    """How far beyond its data a fitted curve may be evaluated: max(min_K, max_fraction * T)."""
+
+    max_fraction: float
+    min_K: float
+
+    def allowed(self, T: float) -> float:
+        """Largest distance [K] beyond the data at which the curve may be evaluated at ``T``."""
+        return max(self.min_K, self.max_fraction * abs(T))
+
+    def describe(self, T: float) -> str:
+        return (f"the extrapolation policy allows {self.allowed(T):.3g} K (extrapolation."
+                f"max_fraction = {self.max_fraction:g} of T, at least min_K = {self.min_K:g} K)")
+
+
+@dataclass(frozen=True)
+class Budget:
+    """The uncertainty model and the extrapolation policy in force for one fluid."""
+
+    uncertainty: UncertaintyModel
+    extrapolation: ExtrapolationPolicy
+
+    @classmethod
+    def from_tables(cls, uncertainty: Mapping[str, Any], extrapolation: Mapping[str, Any]) -> "Budget":
+        return cls(UncertaintyModel(dict(uncertainty)),
+                   ExtrapolationPolicy(float(extrapolation["max_fraction"]),
+                                       float(extrapolation["min_K"])))
+
+    @classmethod
+    def from_thresholds(cls, thresholds, fluid_id: str | None = None) -> "Budget":
+        return cls.from_tables(thresholds.for_check(UNCERTAINTY_TABLE, fluid_id),
+                               thresholds.for_check(EXTRAPOLATION_TABLE, fluid_id))
+
+
+@lru_cache(maxsize=1)
+def default_budget() -> Budget:
+    """The package defaults (thresholds.toml), for fluids built without a run's thresholds."""
+    from pipeline.checks.thresholds import Thresholds
+
+    return Budget.from_thresholds(Thresholds.load(severities={}))
+
+
+# -- a fitted curve's budget --------------------------------------------------------------------
+@dataclass(frozen=True)
+class FileShare:
+    """One file's contribution to a curve: its temperature span and correlated relative u."""
+
+    path: str
+    T_min_K: float
+    T_max_K: float
+    correlated_rel: float      # the systematic (type B) relative standard uncertainty
+    random_rel: float          # the rest, per point
+    n: int
+    offset_rel: float = math.nan   # weighted mean relative residual about the fit
+
+
+@dataclass(frozen=True)
+class CurveBudget:
+    """Floor of a fitted curve's relative uncertainty, from the files it was fitted to."""
+
+    files: tuple[FileShare, ...] = ()
+    birge_ratio: float = math.nan
+    expansion: float = 1.0
+    policy: ExtrapolationPolicy | None = None
+
+    def floor_rel(self, T: float) -> float:
+        """Relative floor at ``T``: the correlated part of the best file covering T (the file
+        nearest in T when none does), times the Birge expansion."""
+        if not self.files:
+            return 0.0
+        margin = self.policy.allowed(T) if self.policy else 0.0
+        covering = [f for f in self.files if f.T_min_K - margin <= T <= f.T_max_K + margin]
+        if covering:
+            best = min(f.correlated_rel for f in covering)
+        else:
+            best = min(self.files, key=lambda f: min(abs(T - f.T_min_K), abs(T - f.T_max_K))).correlated_rel
+        return best * self.expansion
+
+    def evidence(self) -> dict:
+        return {"files": [{"file": f.path, "T_range_K": [f.T_min_K, f.T_max_K],
+                           "correlated_rel_u": f.correlated_rel, "n": f.n,
+                           "offset_rel": None if math.isnan(f.offset_rel) else f.offset_rel}
+                          for f in self.files],
+                "birge_ratio": None if math.isnan(self.birge_ratio) else self.birge_ratio,
+                "expansion": self.expansion}
+
+
+def curve_budget(series, fitted_value, model: UncertaintyModel,
+                 policy: ExtrapolationPolicy) -> CurveBudget:
+    """The :class:`CurveBudget` of a fitted curve from the observations it was fitted to.
+
+    ``series`` is the group's :class:`~pipeline.checks.data.ObsSeries` (fit outliers are left
+    out), ``fitted_value`` evaluates the fit (T -> value, extrapolating).
+    """
+    keep = ~series.is_outlier.astype(bool) & np.isfinite(series.value.astype(float))
+    if not keep.any():
+        return CurveBudget(policy=policy)
+    s = series.take(np.flatnonzero(keep))
+    T, y = s.T.astype(float), s.value.astype(float)
+    u = s.u_value_si.astype(float)
+    kinds = s.source_kind
+    stated = np.isfinite(u) & (u > 0)
+    rel = np.where(stated, np.abs(u / np.where(y != 0, y, np.nan)),
+                   [model.observed_rel(s.quantity, k) for k in kinds])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        resid = y / np.asarray(fitted_value(T), dtype=float) - 1.0
+    shares = []
+    paths = s.file_path
+    for path in dict.fromkeys(paths):
+        m = paths == path
+        frac = model.correlated_fraction(kinds[m][0])
+        r = float(np.median(rel[m]))
+        corr, rand = frac * r, math.sqrt(max(1.0 - frac ** 2, 0.0)) * r
+        ok = m & np.isfinite(resid)
+        offset = float(np.mean(resid[ok])) if ok.any() else math.nan
+        shares.append(FileShare(str(path), float(T[m].min()), float(T[m].max()), corr, rand,
+                                int(m.sum()), offset))
+    birge, expansion = math.nan, 1.0
+    usable = [f for f in shares if math.isfinite(f.offset_rel) and f.correlated_rel + f.random_rel > 0]
+    if len(usable) >= 2:   # the files' scatter about their common offset (between-file chi2)
+        var = np.array([f.correlated_rel ** 2 + f.random_rel ** 2 / f.n for f in usable])
+        d = np.array([f.offset_rel for f in usable])
+        mean = float(np.sum(d / var) / np.sum(1.0 / var))
+        birge = math.sqrt(float(np.sum((d - mean) ** 2 / var)) / (len(usable) - 1))
+        if model.birge_expansion:
+            expansion = max(1.0, birge)
+    return CurveBudget(tuple(shares), birge, expansion, policy)
+
+
+@dataclass(frozen=True)
+class CurvePoint:
+    """A fitted curve evaluated at one temperature with its full budget (SI units)."""
+
+    T_K: float
+    value: float
+    slope: float
+    u: float              # standard uncertainty of the value: covariance and floor combined
+    u_slope: float        # standard uncertainty of the slope
+    u_cov: float          # the covariance part of u alone
+    floor_rel: float      # the relative floor applied
+    beyond_K: float       # distance outside the data range (0 inside)
+
+    def evidence(self) -> dict:
+        return {"T_K": self.T_K, "value": self.value, "slope": self.slope, "u": self.u,
+                "u_slope": self.u_slope, "u_covariance": self.u_cov,
+                "floor_rel": self.floor_rel, "extrapolated_K": self.beyond_K}
+
+
+@dataclass(frozen=True)
+class Reach:
+    """Whether a curve may be evaluated at T under the policy; ``reason`` when not."""
+
+    ok: bool
+    beyond_K: float
+    reason: str = ""
+    extra: dict = field(default_factory=dict)
+
+
+def reach(T_min_K: float, T_max_K: float, T: float, policy: ExtrapolationPolicy,
+          label: str) -> Reach:
+    """The policy applied to a curve fitted over [T_min_K, T_max_K] evaluated at ``T``."""
+    beyond = max(T_min_K - T, T - T_max_K, 0.0)
+    if beyond <= policy.allowed(T):
+        return Reach(True, beyond)
+    side = "below" if T < T_min_K else "above"
+    return Reach(False, beyond,
+                 f"{label} data span {T_min_K:.6g}-{T_max_K:.6g} K; T = {T:.6g} K lies "
+                 f"{beyond:.3g} K {side} them and {policy.describe(T)}")
