@@ -94,6 +94,10 @@ class UncertaintyModel:
         """Relative default of an observation of ``quantity`` that states no uncertainty."""
         return self.default(OBSERVED_QUANTITY.get(quantity, "p_observed_rel"), kind)
 
+    def observed_abs(self, quantity: str, kind: str | None) -> float:
+        """Absolute floor [SI] added to the u of an observation of ``quantity`` (pressures)."""
+        return self.default("p_observed_abs_Pa", kind) if quantity == "pressure" else 0.0
+
     def correlated_fraction(self, kind: str | None) -> float:
         return float(self.table["correlated_fraction"][_kind_index(kind)])
 

@@ -82,9 +82,11 @@ def curve_end(fluid: FluidData, th):
 def no_vle_above_tc(batch: CheckBatch, th):
     """Above the critical temperature liquid and vapour are one phase: there is no boiling and
     no vapour pressure. Every liquid-vapour observation (pressure or saturated density) must
-    have T <= Tc within its uncertainty: a point is above Tc when
-    T − Tc > max(T_tol_K, z_max sqrt(u_T^2 + u_Tc^2)). The offending observation ids, files
-    and rows are named.
+    have T <= Tc within its uncertainty: a point is above Tc when, for every stated critical
+    temperature Tc_i (each source's own, with its uncertainty or the budget's default),
+    T − Tc_i > max(T_tol_K, z_max sqrt(u_T^2 + u_Tc_i^2)): points sampled up to the critical
+    point of their own equation contradict nothing while sources differ on Tc (that is
+    sources.agreement's finding). The offending observation ids, files and rows are named.
 
     Usual causes of a failure: supercritical isotherm or dew/bubble data of a mixture filed as
     vapour pressure; a temperature column in another unit or scale; a stated Tc that is too low.
@@ -103,22 +105,34 @@ def no_vle_above_tc(batch: CheckBatch, th):
             out.append(skipped(fid, "", "no stated critical point" if cp is None
                                else "no liquid-vapour observations"))
             continue
-        excess = cols["T_K"][idx].astype(float) - cp.T_K
+        stated = [(r["T_K"], u0(r["u_T_K"]), r["source_id"]) for r in fluid.fixed_point_records
+                  if r["kind"] == "critical" and math.isfinite(r["T_K"])]
+        T = cols["T_K"][idx].astype(float)
         u = np.nan_to_num(cols["u_T_K"][idx].astype(float))
-        bad = idx[excess > np.maximum(t["T_tol_K"], t["z_max"] * np.sqrt(u ** 2 + u0(cp.u_T_K) ** 2))]
+        # above Tc means above every stated critical temperature, each by more than its margin
+        margins = [Tc_i + np.maximum(t["T_tol_K"], t["z_max"] * np.sqrt(u ** 2 + u_i ** 2))
+                   for Tc_i, u_i, _ in stated]
+        bound = np.max(margins, axis=0)
+        bad = idx[T > bound]
+        highest = max(stated, key=lambda s: s[0])
         refs = [{"obs_id": int(cols["obs_id"][i]), "file": str(cols["file_path"][i]),
                  "row": int(cols["row_number"][i]), "quantity": str(cols["quantity"][i]),
                  "T_K": float(cols["T_K"][i])} for i in bad[:20]]
         named = "; ".join(f"obs {r['obs_id']} ({r['file']} row {r['row']}, T = {r['T_K']:.6g} K)"
                           for r in refs[:5])
-        worst = float(excess.max())
+        worst = float((T - cp.T_K).max())
+        where = (f"Tc = {cp.T_K:.6g} K" if len(stated) == 1 else
+                 f"every stated Tc (consensus {cp.T_K:.6g} K, highest {highest[0]:.6g} K from "
+                 f"{highest[2]})")
         out.append(judge(fid, "", measured=float(len(bad)), limit=0.0,
                          statistic="observations above Tc",
                          evidence={"Tc_K": cp.T_K, "u_Tc_K": cp.u_T_K, "max_T_minus_Tc_K": worst,
+                                   "stated_Tc_K": [{"T_K": s[0], "u_K": s[1], "source": s[2]}
+                                                   for s in stated],
                                    "n_observations": int(len(idx)), "above": refs},
                          context=(f"{len(bad)} of {len(idx)} liquid-vapour observations above "
-                                  f"Tc = {cp.T_K:.6g} K" + (f": {named}" if named else
-                                                            f" (highest T - Tc = {worst:.4g} K)"))))
+                                  f"{where}" + (f": {named}" if named else
+                                                f" (highest T - Tc = {worst:.4g} K)"))))
     return out
 
 

@@ -199,13 +199,97 @@ def ranges(batch: CheckBatch, th):
     return out
 
 
+def _deleted_residuals(x: np.ndarray, r: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """Studentised leave-one-out residuals of r about a weighted polynomial trend in x.
+
+    Degree 2 from 7 points, 1 from 4, else the weighted mean. The deleted residual
+    e_i / (1 − h_ii) (h the hat matrix) judges each point against the trend of the others, so a
+    spike does not hide in a trend it pulled itself; its standard deviation is u_i /
+    sqrt(1 − h_ii), so it is scaled by sqrt(1 − h_ii) to keep the points at the ends of a file
+    (high leverage) on the same footing as the middle (D. A. Belsley, E. Kuh, R. E. Welsch,
+    Regression Diagnostics, Wiley (1980), from memory).
+    """
+    n = len(r)
+    degree = 2 if n >= 7 else 1 if n >= 4 else 0
+    span = float(np.ptp(x)) or 1.0
+    A = np.vander((x - x.mean()) / span, degree + 1)
+    sw = np.sqrt(w)
+    Aw = A * sw[:, None]
+    G = np.linalg.pinv(Aw.T @ Aw)
+    coef = G @ (Aw.T @ (r * sw))
+    e = r - A @ coef
+    h = np.einsum("ij,jk,ik->i", A, G, A) * w
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(h < 1.0 - 1e-9, e / np.sqrt(np.clip(1.0 - h, 1e-12, None)), e)
+
+
+def _budget_z(fluid, cols: dict, lo: int, hi: int, min_file_points: int,
+              z_max: float) -> np.ndarray:
+    """z of rows lo:hi (one fitted group of ``fluid``) about their own file's trend.
+
+    r = value / fit − 1 (relative residual about the fitted curve); within each file of
+    ``min_file_points`` or more points r is judged against the leave-one-out polynomial trend
+    of the file's other residuals (an outlier is off its own data set; a file's systematic
+    offset or a smooth drift at the end of its range is a between-source matter); u = the
+    point's stated relative u, else the budget's default for its source kind, combined with the
+    budget's absolute pressure floor.
+    """
+    curve = fluid.curve(cols["boundary"][lo], cols["solid_phase"][lo], cols["quantity"][lo])
+    T, y = cols["T_K"][lo:hi].astype(float), cols["value_si"][lo:hi].astype(float)
+    if curve is None:
+        return np.full(hi - lo, np.nan)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = y / np.asarray(curve.value(T, extrapolate=True), dtype=float) - 1.0
+    model = fluid.budget.uncertainty
+    u = cols["u_value_si"][lo:hi].astype(float)
+    kinds, files = cols["source_kind"][lo:hi], cols["file_path"][lo:hi]
+    quantity = str(cols["quantity"][lo])
+    for kind in set(kinds):
+        m = kinds == kind
+        default = model.observed_rel(quantity, kind) * np.abs(y[m])
+        u[m] = np.hypot(np.where(np.isfinite(u[m]) & (u[m] > 0), u[m], default),
+                        model.observed_abs(quantity, kind))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        u_rel = u / np.abs(y)
+    for path in set(files):
+        m = np.flatnonzero((files == path) & np.isfinite(r) & np.isfinite(u_rel) & (u_rel > 0))
+        if len(m) >= min_file_points:
+            r[m] = _file_residuals(T[m], r[m], u_rel[m], z_max)
+    return r / u_rel
+
+
+def _file_residuals(T: np.ndarray, r: np.ndarray, u_rel: np.ndarray, z_max: float) -> np.ndarray:
+    """Deleted residuals of one file, the worst point set aside while it exceeds z_max (up to a
+    third of the points), so one spike does not tilt the trend its neighbours are judged by."""
+    keep = np.ones(len(r), dtype=bool)
+    out = np.empty(len(r))
+    while True:
+        idx = np.flatnonzero(keep)
+        d = _deleted_residuals(T[idx], r[idx], 1.0 / u_rel[idx] ** 2)
+        out[idx] = d
+        z = np.abs(d / u_rel[idx])
+        worst = int(np.argmax(z))
+        if z[worst] <= z_max or (~keep).sum() + 1 > len(r) // 3 or keep.sum() <= 3:
+            return out
+        keep[idx[worst]] = False
+
+
 @register_check("data.outliers", tags=("data", "fits"), severity="warn", vectorised=True,
-                purpose="No observation sits far off its fitted curve.")
+                purpose="No observation sits far off its own file's level about the fitted curve.")
 def outliers(batch: CheckBatch, th):
-    """Every observation of a fitted group has a normalised residual z = (y − y_fit)/u from
-    the fit stage (the fitter flags points it down-weights as outliers). A point with
-    |z| > z_max, or flagged by the fitter, is reported with its file and row; it stays in the
-    store (outliers are flagged, never hidden). One result per fitted curve.
+    """An outlier is a single observation off its own data set: a typing error, a point of
+    another phase, a transient. Each observation of a fitted group gets z = (r − r_file)/u_rel,
+    with r = y/y_fit − 1 its relative residual about the fitted curve, r_file the trend of the
+    other residuals of its file at that temperature (a weighted polynomial, leave-one-out, in
+    files of min_file_points or more points: a file's systematic offset from the fit, or its
+    smooth drift at the end of its range, is a disagreement between sources, judged by
+    data.unit-mixup and sources.agreement, not an outlier) and u_rel its uncertainty in the
+    one budget: stated, else the default of its
+    source kind, combined with the budget's absolute floor for pressures (relative statements
+    do not hold down to the lowest pressures, where compiled equations and gauges differ most).
+    A point with |z| > z_max is reported with its file and row; it stays in the store (outliers
+    are flagged, never hidden). The fit stage's own flags (points it left out of the fit) are
+    in the evidence. One result per fitted curve.
 
     Usual causes: a typing error in one row, a point of another phase, a transient in a
     measurement campaign, a unit slip in a single cell.
@@ -214,25 +298,35 @@ def outliers(batch: CheckBatch, th):
     fitted = obs[obs["fit_id"].notna()] if len(obs) else obs
     if fitted.empty:
         return []
-    cols, _, starts, ends = _segments(fitted, ["fluid_id", "fit_id"])
+    cols, _, starts, ends = _segments(fitted, ["fluid_id", "fit_id"],
+                                      extra=("source_kind", "u_value_si"))
     zmax = _per_row(th, "z_max", cols["fluid_id"])
-    z = cols["z"].astype(float)
+    z = np.concatenate([_budget_z(batch.fluids[cols["fluid_id"][a]], cols, a, b,
+                                  int(th(cols["fluid_id"][a])["min_file_points"]), zmax[a])
+                        for a, b in zip(starts, ends)]) if len(starts) else np.zeros(0)
     absz = np.abs(z)
-    flagged = cols["is_outlier"].astype(bool) | (absz > zmax)
+    flagged = absz > zmax
+    fit_z = cols["z"].astype(float)
+    left_out = cols["is_outlier"].astype(bool)
     worst = np.fmax.reduceat(np.where(np.isfinite(absz), absz, 0.0), starts)
     out = []
     for k, (start, end) in enumerate(zip(starts, ends)):
         bad = start + np.flatnonzero(flagged[start:end])
-        refs = [{**_ref(cols, i), "z": float(z[i])} for i in bad[:20]]
+        refs = [{**_ref(cols, i), "z": float(z[i]), "fit_z": float(fit_z[i]),
+                 "left_out_of_fit": bool(left_out[i])} for i in bad[:20]]
         text = "; ".join(f"obs {r['obs_id']} ({r['file']} row {r['row']}, T = {r['T_K']:.6g} K, "
                          f"z = {r['z']:+.3g})" for r in refs[:3])
         fid, fit_id = cols["fluid_id"][start], cols["fit_id"][start]
         label = curve_label((cols["boundary"][start], cols["solid_phase"][start], cols["quantity"][start]))
+        n_left = int(left_out[start:end].sum())
         out.append(judge(fid, f"curve:{label}", measured=float(worst[k]), limit=float(zmax[start]),
-                         ok=len(bad) == 0, statistic="max |z|",
-                         evidence={"fit_id": fit_id, "n": int(end - start), "outliers": refs},
+                         ok=len(bad) == 0, statistic="max |z| about its file",
+                         evidence={"fit_id": fit_id, "n": int(end - start), "outliers": refs,
+                                   "left_out_of_fit": n_left},
                          context=f"{label} fit {fit_id}: {len(bad)} of {end - start} observations "
-                                 f"off the fit" + (f": {text}" if text else "")))
+                                 f"off their file's level" + (f": {text}" if text else "")
+                                 + (f" ({n_left} left out of the fit by its robust weighting)"
+                                    if n_left else "")))
     return out
 
 

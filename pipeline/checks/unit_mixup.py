@@ -7,7 +7,10 @@ Recipe for one (fluid, boundary, solid phase) pressure group:
 2. a file that agrees with that pooled fit (when three or more files carry weight in it) agrees
    with the others; for any other file, a consensus: the robust fit of the *other* files'
    inlier points (when two or more other files agree), else the published reference equation
-   of the group, else the one other file (unless it comes from a less authoritative source);
+   of the group (matched by the fluid's CAS number), else the one other file (unless it comes
+   from a less authoritative source); a fluid's only file is compared with its stated
+   constants: a corresponding-states estimate (:mod:`pipeline.checks.estimates`), else a stated
+   point that ends its curve;
 3. the file's median normalised log-residual against the consensus, then the same after undoing
    each hypothesis (a unit factor, a 273.15 K offset, gauge pressure, IPTS-68); the hypothesis
    under which the median collapses explains the file.
@@ -234,6 +237,17 @@ def _anchored(fluid: FluidData, s: ObsSeries, th) -> Consensus | None:
     return None
 
 
+def _file_rel_u(fluid: FluidData, group: ObsSeries, path: str) -> float:
+    """The correlated relative uncertainty of the file at ``path`` (the budget's share of its
+    stated u, or of the default for its source kind): what a consensus made of it carries."""
+    m = group.file_path == path
+    y, u = group.value[m].astype(float), group.u_value_si[m].astype(float)
+    kind = str(group.source_kind[m][0])
+    model = fluid.budget.uncertainty
+    rel = np.where(np.isfinite(u) & (u > 0), np.abs(u / y), model.observed_rel("pressure", kind))
+    return float(np.median(rel)) * model.correlated_fraction(kind)
+
+
 def _robust(fluid: FluidData, group: ObsSeries, th, start_w=None):
     space = SPACES[group.boundary]
     return robust_fit(group.T.astype(float), space.y(group.value.astype(float)), group.file_path,
@@ -264,8 +278,9 @@ def _consensus(fluid: FluidData, group: ObsSeries, path: str, pooled_w, th):
     if len(inlier_files) >= 2:
         cons = _curve_of(fluid, group, np.where(others, pooled_w, 0.0), th)
         if cons is not None:
+            u = min(_file_rel_u(fluid, group, f) for f in inlier_files)
             return Consensus(cons, f"the robust fit of {len(inlier_files)} other files",
-                             th["rel_floor"]), None
+                             math.hypot(th["rel_floor"], u)), None
     ref = _reference(fluid, group, th)
     if ref is not None:
         return ref, None
@@ -277,7 +292,8 @@ def _consensus(fluid: FluidData, group: ObsSeries, path: str, pooled_w, th):
             return None, f"the only other file ({other}) comes from a less authoritative source"
         cons = _curve_of(fluid, group, (files == other).astype(float), th)
         if cons is not None:
-            return Consensus(cons, f"the other file {other}", th["rel_floor"]), None
+            return Consensus(cons, f"the other file {other}",
+                             math.hypot(th["rel_floor"], _file_rel_u(fluid, group, other))), None
     own = group.take(np.flatnonzero(~others))
     for make in (_estimate, _anchored):
         cons = make(fluid, own, th)
@@ -288,12 +304,12 @@ def _consensus(fluid: FluidData, group: ObsSeries, path: str, pooled_w, th):
 
 
 def _median_z(cons: Consensus, T, p, rel_u, th) -> tuple[float, float]:
-    """The larger |median normalised ln-residual| of all points and of the third of them with
-    the lowest pressures, and the share of points the consensus covers.
+    """|median normalised ln-residual| of the points, and the share the consensus covers.
 
-    The low-pressure third keeps offsets in view (a gauge reading is off by one atmosphere,
-    which matters most at the lowest pressures); both are medians, so single outliers do not
-    move them.
+    Against a rough estimate from stated constants (floor >= estimate_rel_floor) the larger of
+    that and the median of the third of the points with the lowest pressures: offsets (a gauge
+    reading is one atmosphere off) show most at the lowest pressures and would hide in the
+    estimate's width. Both are medians, so single outliers do not move them.
     """
     with np.errstate(invalid="ignore", divide="ignore"):
         r = np.log(p) - np.log(cons.curve(T))
@@ -303,7 +319,7 @@ def _median_z(cons: Consensus, T, p, rel_u, th) -> tuple[float, float]:
     z = r[ok] / np.sqrt(rel_u[ok] ** 2 + cons.floor ** 2)
     stat = abs(float(np.median(z)))
     n_low = max(int(th["min_points"]), len(z) // 3)
-    if len(z) >= 2 * n_low:
+    if cons.floor >= th["estimate_rel_floor"] and len(z) >= 2 * n_low:
         low = z[np.argsort(p[ok], kind="stable")[:n_low]]
         stat = max(stat, abs(float(np.median(low))))
     return stat, float(ok.mean())
@@ -330,11 +346,12 @@ def _diagnose(fluid: FluidData, s: ObsSeries, subject: str, path: str, cons: Con
     ev["observations"] = s.refs(limit=5)
     scores = _scores(cons, s, rel_u, th)
     after, best = scores[0] if scores else (math.inf, None)
+    explained = best is not None and after <= limit and after <= th["collapse"] * before
     ev["hypotheses"] = {name: score for score, name in scores}
     where = (f"outside the range of {basis}" if math.isinf(before)
              else f"off {basis} (|median z| = {before:.3g} > {limit:g})")
     measured = before if math.isfinite(before) else None
-    if best is not None and after <= limit and after <= th["collapse"] * before:
+    if explained:
         ev["diagnosis"] = best
         return Finding(fluid.fluid_id, subject, VIOLATED,
                        f"{path}: values look like {best}: the file lies {where}; corrected, "
@@ -403,7 +420,9 @@ def unit_mixup(fluid: FluidData, th):
     ITS-90 (the small ITS-90 − IPTS-68 difference, R. L. Rusby, J. Chem. Thermodyn. 23, 1153
     (1991), from memory). A hypothesis explains the file when the median collapses below z_max
     and below collapse times its first value; the message names it, e.g. "values look like kPa
-    recorded as Pa (factor 1000)". An off file no hypothesis explains is a warning.
+    recorded as Pa (factor 1000)". An off file no hypothesis explains is a warning. The
+    consensus carries its own uncertainty: the correlated part of the other files' stated u
+    (or the budget's defaults) besides rel_floor.
 
     Usual causes: a column header with the wrong unit, a spreadsheet that converted units
     twice, a gauge reading, temperatures on the old scale.

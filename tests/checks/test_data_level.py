@@ -71,37 +71,54 @@ def test_saturated_vapour_denser_than_critical_fails():
     assert f.status == "violated"
 
 
-def _with_residuals(z):
-    obs = water_observations()
-    lv = obs["boundary"] == "liquid-vapour"
-    obs.loc[lv, "fit_id"] = "water-lv-fit"
-    obs.loc[lv, "z"] = z(lv.sum())
+def _with_lab(factor=None, u_rel=2e-3, **kw):
+    """Water observations plus a lab file (SR1-86 values, 11 points 300-400 K) whose values
+    are multiplied by ``factor(n)``; every liquid-vapour row belongs to the SR1-86 fit."""
+    lab = _lab_file(u_rel=u_rel, **kw)
+    if factor is not None:
+        lab["value_si"] = lab["value_si"] * factor(len(lab))
+    obs = stack(water_observations(), lab)
+    obs.loc[obs["boundary"] == "liquid-vapour", "fit_id"] = "water-lv-fit"
     return obs
 
 
 def test_small_residuals_have_no_outliers():
-    """Residuals within |z| <= 2 of the fit give a passing outlier check."""
-    found = _run(outliers, "data.outliers", water(observations=_with_residuals(lambda n: np.linspace(-2, 2, n))))
+    """A lab file scattering by +-0.2 % (u = 0.2 %) about SR1-86 has no outlier."""
+    obs = _with_lab(lambda n: 1 + 0.002 * np.sin(np.arange(n)))
+    found = _run(outliers, "data.outliers", water(observations=obs))
     assert [f.status for f in found] == ["pass"]
 
 
 def test_a_gross_outlier_is_reported_as_a_warning_candidate():
-    """One point at z = +9.1 (an 8 % excursion) violates |z| <= 3 and is named by obs id."""
-    def z(n):
-        out = np.zeros(n)
-        out[3] = 9.1
+    """One lab point 8 % high (u = 0.2 %) is off its file's own trend by |z| > 30 and is named by obs id."""
+    def factor(n):
+        out = np.ones(n)
+        out[3] = 1.08
         return out
-    (f,) = _run(outliers, "data.outliers", water(observations=_with_residuals(z)))
-    assert f.status == "violated" and f.measured == 9.1
-    assert len(f.evidence["outliers"]) == 1 and "z = +9.1" in f.message
+    (f,) = _run(outliers, "data.outliers", water(observations=_with_lab(factor)))
+    assert f.status == "violated" and 30.0 < f.measured < 42.0
+    assert len(f.evidence["outliers"]) == 1 and "z = +3" in f.message
+    assert f.evidence["outliers"][0]["row"] == 4
 
 
-def test_fitter_flagged_point_counts_even_below_the_limit():
-    """A point the fitter flagged (is_outlier) is reported although its |z| = 2.5 < 3."""
-    obs = _with_residuals(lambda n: np.full(n, 0.5))
-    obs.loc[obs.index[obs["boundary"] == "liquid-vapour"][0], ["z", "is_outlier"]] = [2.5, True]
-    (f,) = _run(outliers, "data.outliers", water(observations=obs))
-    assert f.status == "violated"
+def test_a_file_offset_as_a_whole_is_not_an_outlier():
+    """A lab file 1.5 % above SR1-86 throughout is a between-source offset, not eleven outliers."""
+    found = _run(outliers, "data.outliers", water(observations=_with_lab(lambda n: np.full(n, 1.015))))
+    assert [f.status for f in found] == ["pass"]
+
+
+def test_the_lowest_pressures_carry_the_absolute_floor():
+    """A point 3 % high at 275 K (SR1-86: 698 Pa) is inside a literature source's absolute floor
+    of 10 Pa (|z| ~ 2) but an outlier for a measurement's floor of 1 Pa (common practice)."""
+    T = np.array([275.0, 280.0, 285.0, 290.0, 295.0, 300.0, 305.0])
+    for kind, expected in (("literature", "pass"), ("measurement", "violated")):
+        lab = sample_series(LV, T, boundary="liquid-vapour", source_id="lab-c", u_rel=2e-3,
+                            source_kind=kind)
+        lab.loc[0, "value_si"] *= 1.03
+        obs = stack(water_observations(), lab)
+        obs.loc[obs["boundary"] == "liquid-vapour", "fit_id"] = "water-lv-fit"
+        found = by_subject(_run(outliers, "data.outliers", water(observations=obs)))
+        assert found["curve:liquid-vapour"].status == expected, kind
 
 
 def test_distinct_files_have_no_duplicates():
