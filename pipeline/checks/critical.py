@@ -58,8 +58,8 @@ def curve_end(fluid: FluidData, th):
                        f"{fitted.T_max_K / Tc:.3g} Tc, short of Tc = {Tc:.6g} K ({reason}); "
                        f"p_vap(Tc) = pc is not tested", gap, None, "(Tc - T_max)/Tc", ev)]
     else:
-        out = [judge(fluid.fluid_id, "reach", measured=gap, limit=0.0, ok=True,
-                     statistic="(Tc - T_max)/Tc", evidence=ev,
+        out = [judge(fluid.fluid_id, "reach", measured=gap, limit=ev["allowed_gap_K"] / Tc,
+                     ok=True, statistic="(Tc - T_max)/Tc", evidence=ev,
                      context=context + " (within the extrapolation policy)")]
     if not math.isfinite(pc):
         return out + [skipped(fluid.fluid_id, "p(Tc)", "the critical point states no pressure")]

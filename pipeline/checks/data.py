@@ -46,7 +46,7 @@ OBS_COLUMNS: dict[str, Any] = {
     "T_K": None, "u_T_K": math.nan, "value_si": None, "u_value_si": math.nan,
     "source_id": "memory", "source_kind": "literature", "file_path": None, "file_sha256": "",
     "row_number": None, "T_unit": "K", "T_scale": "ITS-90", "value_unit": None,
-    "fit_id": None, "z": math.nan, "is_outlier": False,
+    "fit_id": None, "z": math.nan, "is_outlier": False, "excluded_by": None,
 }
 FIXED_POINT_COLUMNS: dict[str, Any] = {
     "fp_id": None, "kind": None, "phases": None, "T_K": None, "u_T_K": math.nan,
@@ -64,7 +64,7 @@ _FLOAT_OBS = ("T_K", "u_T_K", "value_si", "u_value_si", "z")
 #: text columns kept as numpy object arrays: checks index them per fluid, and pandas' Arrow
 #: strings make each such access an Arrow 'take' (measured ~10x slower in the benchmark)
 _TEXT_OBS = ("boundary", "solid_phase", "quantity", "source_id", "source_kind", "file_path",
-             "file_sha256", "T_unit", "T_scale", "value_unit", "fit_id")
+             "file_sha256", "T_unit", "T_scale", "value_unit", "fit_id", "excluded_by")
 
 
 @dataclass(frozen=True)
@@ -512,10 +512,10 @@ _Q_OBS = """
 SELECT o.fluid_id, o.obs_id, o.boundary, o.solid_phase, o.quantity, o.T_K, o.u_T_K, o.value_si,
        o.u_value_si, o.source_id, coalesce(s.kind, 'unknown') AS source_kind, o.file_path,
        o.file_sha256, o.row_number, o.T_unit, o.T_scale, o.value_unit, r.fit_id, r.z,
-       coalesce(r.is_outlier, false) AS is_outlier
+       coalesce(r.is_outlier, false) AS is_outlier, r.excluded_by
 FROM observation_current o
 LEFT JOIN source s ON s.source_id = o.source_id
-LEFT JOIN (SELECT fr.fit_id, fr.obs_id, fr.z, fr.is_outlier FROM fit_residual fr
+LEFT JOIN (SELECT fr.fit_id, fr.obs_id, fr.z, fr.is_outlier, fr.excluded_by FROM fit_residual fr
            JOIN fit f ON f.fit_id = fr.fit_id WHERE f.is_current AND f.status = 'fitted') r
        ON r.obs_id = o.obs_id
 WHERE {f} ORDER BY o.fluid_id, o.obs_id"""

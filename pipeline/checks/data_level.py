@@ -289,13 +289,15 @@ def outliers(batch: CheckBatch, th):
     do not hold down to the lowest pressures, where compiled equations and gauges differ most).
     A point with |z| > z_max is reported with its file and row; it stays in the store (outliers
     are flagged, never hidden). The fit stage's own flags (points it left out of the fit) are
-    in the evidence. One result per fitted curve.
+    in the evidence; observations a curation decision excluded from the fit are not judged.
+    One result per fitted curve.
 
     Usual causes: a typing error in one row, a point of another phase, a transient in a
     measurement campaign, a unit slip in a single cell.
     """
     obs = batch.observations
-    fitted = obs[obs["fit_id"].notna()] if len(obs) else obs
+    # observations a curation decision excluded from the fit are not judged here either
+    fitted = obs[obs["fit_id"].notna() & obs["excluded_by"].isna()] if len(obs) else obs
     if fitted.empty:
         return []
     cols, _, starts, ends = _segments(fitted, ["fluid_id", "fit_id"],

@@ -9,12 +9,12 @@ from pipeline.cli import main
 
 
 def test_nightly_honours_an_exclusion_and_a_waiver(tmp_path_factory, tmp_path, capsys):
-    """After excluding CO2 rig-A row 16 and waiving nitrogen's outlier warning, the nightly fit, checks, report and a release all name D-0001 and D-0002."""
+    """After excluding CO2 rig-A row 16 and waiving water's outlier warning, the nightly fit, checks, report and a release all name D-0001 and D-0002."""
     demo = demo_copy(tmp_path_factory, tmp_path)
     assert demo.decide("exclude-observations", "--source", CO2_RIG_A_SOURCE, "--file", CO2_RIG_A,
                        "--row", "16", "--quantity", "pressure", why="transducer spike") == 0
-    assert demo.decide("waive-check", "--check", "data.outliers", "--fluid", "nitrogen",
-                       "--subject", "curve:liquid-vapour", why="the kPa-as-Pa file") == 0
+    assert demo.decide("waive-check", "--check", "data.outliers", "--fluid", "water",
+                       "--subject", "curve:liquid-vapour", why="the degC-as-K file") == 0
     reports = tmp_path / "reports"
     assert main(["nightly", "-q", "--exit-zero", "--raw", str(demo.raw), "--reports",
                  str(reports), "--store", str(demo.store)]) == 0
@@ -26,7 +26,7 @@ def test_nightly_honours_an_exclusion_and_a_waiver(tmp_path_factory, tmp_path, c
     results = json.loads((reports / "latest" / "results.json").read_text("utf-8"))
     waived = [r for r in results["results"] if r["status"] == "waived"]
     assert [(r["check_id"], r["fluid_id"], r["decision_id"]) for r in waived] == \
-        [("data.outliers", "nitrogen", "D-0002")]
+        [("data.outliers", "water", "D-0002")]
     assert not [r for r in results["results"] if r["check_id"] == "data.outliers"
                 and r["fluid_id"] == "carbon-dioxide" and r["subject"] == "curve:liquid-vapour"
                 and r["status"] == "warn"]

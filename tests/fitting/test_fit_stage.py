@@ -2,9 +2,12 @@
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 
+from pipeline.correlations import Curve
 from pipeline.correlations.reference import reference_curve
 from pipeline.fitting.stage import run_fit
 from pipeline.ingest.stage import run_ingest
@@ -193,3 +196,45 @@ def test_worker_processes_give_the_same_fits_as_one_process(tmp_path, monkeypatc
     monkeypatch.setenv("FLUIDLEDGER_FIT_WORKERS", "two")
     with pytest.raises(FitError, match="whole number"):
         fit_workers(10)
+
+
+ARGON_SUB_T_ONLY = """
+[source]
+id = "sub-t-only"
+kind = "literature"
+citation = "Tegeler, Span & Wagner, J. Phys. Chem. Ref. Data 28, 779 (1999), sublimation ancillary"
+
+[[table]]
+file = "sub.csv"
+fluid = "argon"
+boundary = "solid-vapour"
+temperature = { column = "T", unit = "K" }
+pressure = { column = "p", unit = "Pa" }
+[table.uncertainty]
+pressure = { relative = 0.002 }
+
+[[fixed_point]]
+fluid = "argon"
+kind = "triple"
+T = { value = 83.8058, unit = "K" }
+"""
+
+
+def test_a_temperature_only_triple_point_anchors_a_sublimation_fit(raw_root, store_path):
+    """A triple point stated by T alone (Tt = 83.8058 K, ITS-90 argon point) anchors the
+    sublimation fit, which then recovers the Tegeler et al. (1999) pt = 68.891 kPa at Tt."""
+    T = np.linspace(70.0, 83.5, 12)
+    p = reference_curve("argon", "solid-vapour", "pressure").value(T)
+    write_batch(raw_root, "sub-t-only", ARGON_SUB_T_ONLY,
+                {"sub.csv": "T,p\n" + "".join(f"{t:.4f},{v:.8g}\n" for t, v in zip(T, p))})
+    with open_store(store_path) as s:
+        run_ingest(s.con, [raw_root])
+        assert s.con.execute("SELECT p_Pa FROM fixed_point_current").fetchone() == (None,)
+        result = run_fit(s.con)
+        curve_json = s.con.execute("SELECT curve_json FROM fit WHERE is_current AND "
+                                   "boundary = 'solid-vapour'").fetchone()[0]
+    (group,) = [g for g in result.groups if g.boundary == "solid-vapour"]
+    assert group.status == "fitted", group.reason
+    curve = Curve.from_dict(json.loads(curve_json))
+    assert curve.ref["T_ref_K"] == pytest.approx(83.8058)
+    assert curve.reference_value == pytest.approx(68.891e3, rel=1e-3)

@@ -265,3 +265,18 @@ def test_the_published_file_documents_every_object(published_demo):
                          "WHERE function_type = 'macro' AND function_name LIKE 'fl_%'").fetchone()
     con.close()
     assert missing == [] and macros[0] == len(sqlmacros.MACRO_NAMES)
+
+
+def test_the_vapour_pressure_macro_answers_at_tc(published_demo):
+    """The demo's water vapour-pressure fit ends at 645 K but is anchored at Tc = 647.096 K
+    (IAPWS-95) and critical.curve-end p(Tc) passes: the curve is published valid to Tc, and
+    fl_vapour_pressure('water', Tc) gives the fitted pc, within 0.01 % of 22.064 MPa (issue 12)."""
+    con = duckdb.connect(str(published_demo["file"]), read_only=True)
+    T_max = con.execute("SELECT T_max_K FROM curated_curves WHERE fluid_id = 'water' AND "
+                        "boundary = 'liquid-vapour' AND quantity = 'pressure'").fetchone()[0]
+    at_tc = con.execute("SELECT fl_vapour_pressure('water', 647.096)").fetchone()[0]
+    above = con.execute("SELECT fl_vapour_pressure('water', 647.2)").fetchone()[0]
+    con.close()
+    assert T_max == pytest.approx(647.096, abs=1e-9)
+    assert at_tc == pytest.approx(22.064e6, rel=1e-4)
+    assert above is None
