@@ -43,7 +43,9 @@ ROOT = Path(__file__).resolve().parents[1]
 TARGETS = {"false_alarm_rate": 0.02, "warning_rate": 0.10, "faults_caught_by_family": 1.0,
            "unit_mixups_named": 1.0}
 FAILING = ("fail", "error")
-_NUMBER = re.compile(r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?")
+#: a number standing alone (not part of a name such as co2 or mcgarry-1983-wagner)
+_NUMBER = re.compile(r"(?<![\w.])(?<![A-Za-z]-)[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?"
+                     r"(?!\w|-[A-Za-z])")
 
 
 def build_raw(dest: Path) -> Path:
