@@ -23,8 +23,8 @@ def _ancillary(tables: SourceTables, requests, fluid_id: str, key: str, sid: str
                units: dict, melting_hi: float, sublimation_lo: float, u: dict,
                critical_u=(None, None, None), triple_u=(None, None)) -> Batch:
     c = eq.ANCILLARY[key]
-    header = (f"Ancillary equations of the reference equation of state, evaluated ({citation.split(',')[0]}\n"
-              f"et al.); fixed points as published with the equation. Stated u: vapour pressure "
+    header = (f"Ancillary equations of the reference equation of state of {citation.split(',')[0]} et al.,\n"
+              f"evaluated; fixed points as published with the equation. Stated u: vapour pressure "
               f"{u['vp'] * 100:g} %, saturated densities {u['rho'] * 100:g} %,\nmelting "
               f"{u['melt'] * 100:g} %, sublimation {u['sub'] * 100:g} % (relative, expanded, k = 2); "
               f"Gaussian scatter of 0.2 x the standard u; 6 significant digits.\n{GENERATED}")
