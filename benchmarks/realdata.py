@@ -162,6 +162,9 @@ def measure(raw: Path | None = None, workdir: Path | None = None) -> dict:
     """Build (unless ``raw`` is given), run the nightly job, analyse: the figures as a dict."""
     with tempfile.TemporaryDirectory(prefix="fl-realdata-") as tmp:
         work = Path(workdir) if workdir else Path(tmp)
+        if (work / "store.duckdb").exists():
+            raise SystemExit(f"{work} already holds a store: give --keep a new folder, so every "
+                             "figure comes from one fresh run")
         work.mkdir(parents=True, exist_ok=True)
         t0 = time.perf_counter()
         raw = Path(raw) if raw else build_raw(work / "raw")
