@@ -241,15 +241,15 @@ def sig(x: float, digits: int) -> float:
 
 # --- the chemicals compilations ---------------------------------------------------------------
 
-def vp_equation(tables: SourceTables, key: str, fluid: Fluid):
+def vp_equation(tables: SourceTables, key: str, fluid: Fluid, *, raw: bool = False):
     """(fn(T) [Pa], T_lo, T_hi, Tc, pc) of a compiled vapour-pressure equation, or None.
 
     The range is the published Tmin-Tmax (McGarry: Tmin to Tc), raised to the triple point
-    where one is known (no liquid-vapour values below Tt)."""
+    where one is known (no liquid-vapour values below Tt) unless ``raw``."""
     r = tables.row(key, fluid.cas)
     if r is None:
         return None
-    Tt = tables.triple_T(fluid) or 0.0
+    Tt = 0.0 if raw else (tables.triple_T(fluid) or 0.0)
     if key == "poling-wagner":
         Tc, pc = num(r["Tc"]), num(r["Pc"])
         a = [num(r[k]) for k in "ABCD"]
@@ -304,10 +304,18 @@ def vp_batch(tables: SourceTables, key: str, requests) -> Batch:
         if found is None:
             continue
         fn, lo, hi, Tc, pc = found
+        Tt = tables.triple_T(fluid)
+        boundary, file, note = "liquid-vapour", f"{fid}-vapour-pressure.csv", ""
+        if Tt and hi <= Tt:
+            # the whole published range lies below the triple point: the compilation's
+            # "vapour pressure" is the solid's (sublimation), and a curator files it so
+            fn, lo, hi, Tc, pc = vp_equation(tables, key, fluid, raw=True)
+            boundary, file = "solid-vapour", f"{fid}-sublimation-pressure.csv"
+            note = f"; the range lies below Tt = {Tt:.3f} K: filed as sublimation pressure"
         if "table" in parts:
-            t = pressure_table(fid, s["id"], f"{fid}-vapour-pressure.csv", "liquid-vapour", lo, hi,
+            t = pressure_table(fid, s["id"], file, boundary, lo, hi,
                                s["n"], fn, T_unit=s["T_unit"], p_unit=s["p_unit"], u_rel=s["u_rel"],
-                               coverage=k, comment=f"{fid}: {lo:.2f} K to {hi:.2f} K")
+                               coverage=k, comment=f"{fid}: {lo:.2f} K to {hi:.2f} K{note}")
             if t:
                 batch.tables.append(t)
         if "critical" in parts and Tc and s["crit_p_unit"]:

@@ -135,7 +135,8 @@ def test_sampled_vapour_pressures_reproduce_their_equations(tables, key):
         fluid = fluids.get(entry["fluid"])
         if fluid is None:                             # a fault copy: checked below
             continue
-        fn, lo, hi, _tc, _pc = vp_equation(tables, key, fluid)
+        fn, lo, hi, _tc, _pc = vp_equation(tables, key, fluid,
+                                           raw=entry["boundary"] == "solid-vapour")
         T, p = read_table(s["id"], entry)
         assert lo - 1e-9 <= T.min() and T.max() <= hi + 1e-9, entry["file"]   # inside Tmin-Tmax only
         dev = np.abs(p / fn(T) - 1)
