@@ -92,6 +92,13 @@ def analyse(results: list[dict], fluids: list[str], faults: list[dict],
     warning = {f: v for f, v in warning.items() if v}
     waived = [f"{r['fluid_id']}: {r['check_id']} [{_subject(r)}] ({r.get('decision_id')})"
               for r in results if r["status"] == "waived"]
+    # what a first run shows, before a curator records any decision: a waived result counts
+    # as the status it had (kept in its evidence as waived_status)
+    def was(r):
+        return (r.get("evidence") or {}).get("waived_status", r["status"]) \
+            if r["status"] == "waived" else r["status"]
+    first_fail = {f for f in clean for r in by_fluid[f] if was(r) in FAILING}
+    first_warn = {f for f in clean for r in by_fluid[f] if was(r) == "warn"}
 
     skips = Counter((r["check_id"], normalise_reason(r.get("message") or "")) for r in results
                     if r["status"] == "skip")
@@ -129,6 +136,7 @@ def analyse(results: list[dict], fluids: list[str], faults: list[dict],
     return {
         "n_fluids": len(fluids), "n_clean": n_clean, "n_faults": len(fault_rows),
         "clean_failing": failing, "clean_warning": warning, "waived": waived,
+        "before_decisions": {"failing": sorted(first_fail), "warning": sorted(first_warn)},
         "n_clean_failing_results": len(clean_failures),
         "skips": [{"check_id": c, "reason": m, "count": n} for (c, m), n in sorted(skips.items())],
         "failures_per_check": dict(sorted(fails_per_check.items())),
@@ -205,6 +213,11 @@ def report(fig: dict) -> str:
     if fig["waived"]:
         out.append(f"\nwaived by a recorded decision: {len(fig['waived'])}")
         out += [f"  {w}" for w in fig["waived"]]
+    before = fig["before_decisions"]
+    out.append(f"\nbefore any recorded decision (a first run): clean fluids with a failure "
+               f"{len(before['failing'])} of {fig['n_clean']} "
+               f"({_pct(len(before['failing']) / max(fig['n_clean'], 1))}), with a warning "
+               f"{len(before['warning'])} ({_pct(len(before['warning']) / max(fig['n_clean'], 1))})")
     out.append(f"\nskips by check and reason ({sum(s['count'] for s in fig['skips'])}):")
     out += [f"  {s['count']:4d}  {s['check_id']}: {s['reason'][:150]}"
             for s in sorted(fig["skips"], key=lambda s: (-s["count"], s["check_id"], s["reason"]))]

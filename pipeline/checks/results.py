@@ -64,10 +64,12 @@ class CheckResult:
     duration_s: float | None = None
 
     def waive(self, decision_id: str, reason: str = "") -> "CheckResult":
-        """This result waived by a curation decision (status ``waived``, message kept)."""
+        """This result waived by a curation decision (status ``waived``, message kept; the status
+        it had is kept in the evidence as ``waived_status``)."""
         note = f" [waived by {decision_id}{': ' + reason if reason else ''}]"
         return replace(self, status=Status.WAIVED.value, decision_id=decision_id,
-                       message=self.message + note)
+                       message=self.message + note,
+                       evidence={**(self.evidence or {}), "waived_status": self.status})
 
     def asdict(self) -> dict[str, Any]:
         return {"check_id": self.check_id, "fluid_id": self.fluid_id, "subject": self.subject,

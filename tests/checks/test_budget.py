@@ -28,7 +28,7 @@ DEFAULTS = [
     ("T_triple_K", "literature", 0.05, "Cryogenics 21, 131"),      # Staveley et al. (1981)
     ("p_triple_rel", "standard", 0.0001, "R14-08"),                # IAPWS pt = 611.657(10) Pa
     ("p_triple_rel", "literature", 0.01, "common practice"),
-    ("acentric_factor_abs", "literature", 0.01, "common practice"),
+    ("acentric_factor_abs", "literature", 0.005, "common practice"),
     ("T_normal_boiling_K", "literature", 0.2, "common practice"),
     ("h_fusion_rel", "literature", 0.03, "common practice"),        # "a few %"
     ("h_vaporization_rel", "literature", 0.02, "common practice"),

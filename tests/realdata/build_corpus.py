@@ -51,13 +51,10 @@ def fluids_toml(tables: SourceTables) -> str:
     return "\n".join(out) + "\n"
 
 
-DECISIONS = """\
-# Curation decisions for the real-data corpus (read by every run on this folder).
-# None are recorded yet: true inconsistencies between the published sources are listed with
-# their evidence for the lead, who records decisions once the checks are fixed (issue 12).
-
-format_version = 1
-"""
+#: the curator's decisions for the corpus: not generated, kept beside the build script and
+#: copied into every build (edit with ``fluidledger decide ... --decisions`` on a built corpus,
+#: then copy the file back here)
+DECISIONS = Path(__file__).resolve().parent / "corpus_decisions.toml"
 
 
 def build(out: Path = DEFAULT_OUT) -> list[Path]:
@@ -77,7 +74,7 @@ def build(out: Path = DEFAULT_OUT) -> list[Path]:
     for batch in batches:
         if not batch.empty():
             written += batch.write(out)
-    for name, text in (("fluids.toml", fluids_toml(tables)), ("decisions.toml", DECISIONS),
+    for name, text in (("fluids.toml", fluids_toml(tables)), ("decisions.toml", DECISIONS.read_text("utf-8")),
                        ("faults.toml", faults_toml(tables))):
         (out / name).write_text(text, encoding="utf-8", newline="\n")
         written.append(out / name)

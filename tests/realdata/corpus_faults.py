@@ -19,6 +19,9 @@ from corpus_sources import (
 )
 from corpus_writer import Batch, Table, rng_for, toml_value
 
+#: the compiled constants a copy of a real fluid carries, as the original does (a single-file
+#: fluid is diagnosed against what its stated constants imply)
+CONSTANTS = (("constant", "psrk-acentric"), ("constant", "crc-boiling"))
 #: relative scatter of a rig campaign's pressures (standard), and its stated u (k = 1)
 CAMPAIGN_U = 0.002
 
@@ -37,16 +40,17 @@ class Fault:
 FAULTS = (
     Fault("fault-kpa-as-pa-methane", "methane", "vapour pressures written in kPa, declared Pa "
           "(the fluid's only vapour-pressure file)", ("data.unit-mixup",),
-          (("triple", "staveley"), ("critical", "iupac-critical")), "kPa recorded as Pa"),
+          (("triple", "staveley"), ("critical", "iupac-critical"), *CONSTANTS), "kPa recorded as Pa"),
     Fault("fault-mpa-as-bar-ethane", "ethane", "vapour pressures written in MPa, declared bar "
           "(the fluid's only vapour-pressure file)", ("data.unit-mixup",),
-          (("triple", "staveley"), ("critical", "iupac-critical")), "MPa recorded as bar"),
+          (("triple", "staveley"), ("critical", "iupac-critical"), *CONSTANTS), "MPa recorded as bar"),
     Fault("fault-degc-as-k-toluene", "toluene", "temperatures written in degC, declared K "
           "(the fluid's only vapour-pressure file)", ("data.unit-mixup",),
-          (("critical", "iupac-critical"),), "degC recorded as K"),
+          (("critical", "iupac-critical"), *CONSTANTS), "degC recorded as K"),
     Fault("fault-gauge-as-absolute-propane", "propane", "gauge pressures (ambient 101.325 kPa "
           "subtracted) declared absolute (the fluid's only vapour-pressure file)", ("data.unit-mixup",),
-          (("triple", "staveley"), ("critical", "iupac-critical")), "gauge pressure recorded as absolute"),
+          (("triple", "staveley"), ("critical", "iupac-critical"), *CONSTANTS),
+          "gauge pressure recorded as absolute"),
     Fault("fault-mmhg-as-kpa-argon", "argon", "triple-point pressure written in mmHg, declared kPa "
           "(the only triple point)", ("triple-point",),
           (("table", "mcgarry-wagner"), ("critical", "mathews-critical"))),
