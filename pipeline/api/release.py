@@ -64,10 +64,25 @@ def _rows(con, sql: str) -> list[dict]:
     return [dict(zip(names, r)) for r in cur.fetchall()]
 
 
-def _from_published(file: Path) -> tuple[dict, dict[str, list[dict]]]:
+def _connect(file: Path):
+    """A read-only connection to the published file. DuckDB refuses a second connection to a
+    file with another configuration in one process, so a plain read-only connection comes
+    first (as a user's own ``duckdb.connect(file, read_only=True)`` makes) and the locked-down
+    configuration of ``fluidledger query`` second."""
+    import duckdb
+
     from pipeline.publish.published import open_read_only
 
-    con = open_read_only(file)
+    try:
+        return duckdb.connect(str(file), read_only=True)
+    except duckdb.ConnectionException:
+        return open_read_only(file)
+    except duckdb.Error as err:
+        raise ReleaseError(f"cannot open the published file: {err}", file=str(file)) from None
+
+
+def _from_published(file: Path) -> tuple[dict, dict[str, list[dict]]]:
+    con = _connect(file)
     try:
         info = _rows(con, "SELECT * FROM curated_release")
         if not info:
