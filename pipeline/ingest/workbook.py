@@ -34,9 +34,11 @@ import zipfile
 from dataclasses import dataclass, field
 
 import duckdb
+import numpy as np
 import pyarrow as pa
 
 from pipeline.errors import BatchError
+from pipeline.ingest.normalise import ident
 from pipeline.ingest.reader import RESERVED_COLUMNS, check_columns
 
 WORKBOOK_SUFFIXES = (".xlsx",)
@@ -44,6 +46,7 @@ REJECT_CODES = {"error": "error-cell", "type": "wrong-cell-type"}
 _RANGE = re.compile(r"^([A-Z]{1,3})([1-9][0-9]*):([A-Z]{1,3})([1-9][0-9]*)$")
 _PLAIN_SHEET = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 _MAX_ROWS, _MAX_COLS = 1_048_576, 16_384        # the xlsx grid
+_NUMBERS = (float, int)                          # cell types that are numbers (bool is not)
 
 
 def is_workbook(file: str) -> bool:
@@ -171,15 +174,14 @@ def _kind(value) -> str:
     return "text"
 
 
-def _number_cell(value, nulls: frozenset[str]) -> tuple[str | None, str | None, str | None]:
-    """(text for the staging table, reject code, what the cell holds) of a mapped cell."""
-    if value is None or value == "":
-        return None, None, None
-    if isinstance(value, (int, float)) and not isinstance(value, bool):
-        return _number_text(value), None, None
+def _number_cell(value, nulls: frozenset[str]) -> tuple[str | None, str | None]:
+    """(reject code, what the cell holds) of a mapped cell; (None, None) when it is a number,
+    empty, blank text or a declared null value (the normaliser's empty)."""
+    if value is None or value == "" or type(value) in _NUMBERS:
+        return None, None
     if isinstance(value, str) and (not value.strip() or value.strip() in nulls):
-        return value, None, None          # blank or a declared null: the normaliser's empty
-    return None, REJECT_CODES["type"], _kind(value)
+        return None, None
+    return REJECT_CODES["type"], _kind(value)
 
 
 # --- the workbook -----------------------------------------------------------------------------
@@ -246,6 +248,22 @@ def _header(cells: list, region: Region, prefix: str, label: str) -> dict[int, s
     return header
 
 
+def _unnamed_columns(grid, region: Region, last_row: int, header: dict[int, str], prefix: str,
+                     label: str) -> None:
+    """Refuse a column of the region with values below an empty header cell (an unmapped
+    column, as extra_columns = "error" refuses one with a name)."""
+    end = region.last_col
+    for r in range(region.header_row + 1, last_row + 1):
+        row = grid[r]
+        for j in range(region.first_col, len(row) if end is None else min(end + 1, len(row))):
+            if j not in header and row[j] != "":
+                cell = f"{prefix}{column_letter(j)}{r + 1}"
+                raise BatchError(f"column {column_letter(j)} holds values (cell {cell}) but its "
+                                 f"header cell {prefix}{column_letter(j)}{region.header_row + 1} "
+                                 "is empty: name and map it, or set extra_columns = \"ignore\" "
+                                 "for the table", file=label, column=column_letter(j))
+
+
 def stage_workbook(con: duckdb.DuckDBPyConnection, data: bytes, spec, label: str,
                    needed: dict[str, str], table: str) -> WorkbookTable:
     """Read the table of ``spec`` from the workbook bytes ``data`` into temp table ``table``."""
@@ -272,52 +290,76 @@ def stage_workbook(con: duckdb.DuckDBPyConnection, data: bytes, spec, label: str
                          file=label, row=0)
     names = tuple(header.values())
     check_columns(names, needed, spec, label)
+    if spec.extra_columns != "ignore":
+        _unnamed_columns(grid, region, last_row, header, prefix, label)
     columns = list(header)                                      # 0-based sheet columns
     letters = {header[j]: column_letter(j) for j in columns}
     mapped = [j for j in columns if header[j] in needed.values()]
     order = [j for name in needed.values() for j in mapped if header[j] == name]
-    errors = {k: v for k, v in error_cells(data, spec.sheet).items()
-              if region.header_row < k[0] <= last_row and k[1] in header}
+    errors = {(r - region.header_row - 1, j): v for (r, j), v in error_cells(data, spec.sheet).items()
+              if region.header_row < r <= last_row and j in header}   # data-row index, column
+    body = grid[region.header_row + 1:last_row + 1]
+    n = len(body)
+    # column-wise: one list per table column, and numpy masks of its number and filled cells
+    cells = {j: [row[j] if j < len(row) else "" for row in body] for j in columns}
+    numeric = {j: np.fromiter((type(v) in _NUMBERS for v in c), bool, n) for j, c in cells.items()}
+    filled = {j: np.fromiter((v != "" for v in c), bool, n) for j, c in cells.items()}
+    kept = np.zeros(n, bool)                                   # blank rows are skipped
+    suspect = np.zeros(n, bool)                                # rows with a mapped non-number
+    for j in columns:
+        kept |= filled[j]
+    for j in order:
+        suspect |= filled[j] & ~numeric[j]
+    for i, j in errors:
+        kept[i] = True
+        suspect[i] |= j in order
     nulls = frozenset(spec.null_values)
-    staged: dict[str, list] = {"row_number": []}
-    staged.update({header[j]: [] for j in columns})
-    rejects = []
-    for r in range(region.header_row + 1, last_row + 1):
-        row = grid[r]
-        cells = {j: row[j] if j < len(row) else "" for j in columns}
-        if all(v == "" for v in cells.values()) and not any((r, j) in errors for j in columns):
-            continue                                            # a blank row
-        number = r - region.header_row
-        texts = {j: _cell_text(v) for j, v in cells.items()}
-        fault = None
-        for j in order:
-            if (r, j) in errors:
-                fault = (header[j], errors[(r, j)], REJECT_CODES["error"],
-                         f"error value {errors[(r, j)]}")
-                break
-            text, code, what = _number_cell(cells[j], nulls)
-            if code:
-                shown = f"'{texts[j]}'" if what == "text" else texts[j]
-                fault = (header[j], texts[j], code, f"{what} {shown} in a number column; cells "
-                         "are never coerced, enter the value as a number")
-                break
-            texts[j] = text
+    rejects, bad = [], np.zeros(n, bool)
+    for i in np.flatnonzero(suspect):
+        fault = _first_fault([(header[j], cells[j][i], errors.get((i, j))) for j in order], nulls)
         if fault:
-            rejects.append((number, *fault))
-            continue
-        staged["row_number"].append(number)
-        for j in columns:
-            staged[header[j]].append(texts[j])
-    if not staged["row_number"] and not rejects:
+            rejects.append((int(i) + 1, *fault))
+            bad[i] = True
+    good = np.flatnonzero(kept & ~bad)
+    if good.size == 0 and not rejects:
         raise BatchError(f"sheet '{spec.sheet}' has a header (row {region.header_row + 1}) but "
                          "no data rows", file=label)
-    arrow = pa.table({name: pa.array(values, type=pa.int64() if name == "row_number"
-                                     else pa.string()) for name, values in staged.items()})
-    con.register("fl_workbook_rows", arrow)
+    arrays = {"row_number": pa.array(good + 1, pa.int64())}
+    select = ["row_number"]
+    for k, j in enumerate(columns):
+        values = [cells[j][i] for i in good]
+        number = numeric[j][good]
+        if number.all():                                        # the common case
+            arrays[f"n{k}"] = pa.array(np.asarray(values, dtype=float))
+            arrays[f"t{k}"] = pa.nulls(len(values), pa.string())
+        else:
+            arrays[f"n{k}"] = pa.array(np.asarray([v if m else 0.0 for v, m in zip(values, number)],
+                                                  dtype=float), mask=~number)
+            arrays[f"t{k}"] = pa.array([None if m else _cell_text(v)
+                                        for v, m in zip(values, number)], pa.string())
+        # numbers as DuckDB's shortest round-trip text: the same text a CSV of them would hold
+        select.append(f"coalesce(t{k}, CAST(n{k} AS VARCHAR)) AS {ident(header[j])}")
+    con.register("fl_workbook_rows", pa.table(arrays))
     try:
-        con.execute(f"CREATE OR REPLACE TEMP TABLE {table} AS SELECT * FROM fl_workbook_rows")
+        con.execute(f"CREATE OR REPLACE TEMP TABLE {table} AS SELECT {', '.join(select)} "
+                    "FROM fl_workbook_rows")
     finally:
         con.unregister("fl_workbook_rows")
-    return WorkbookTable(table=table, header=names, rows_read=len(staged["row_number"]) + len(rejects),
+    return WorkbookTable(table=table, header=names, rows_read=int(good.size) + len(rejects),
                          rejects=tuple(rejects), sheet=spec.sheet,
                          header_row=region.header_row + 1, letters=letters)
+
+
+def _first_fault(row: list[tuple[str, object, str | None]], nulls: frozenset[str]):
+    """(column, raw text, code, message) of the first mapped cell of a row that is an error
+    value or not a number, in the table's column order; None when every cell is fine."""
+    for column, value, error in row:
+        if error is not None:
+            return column, error, REJECT_CODES["error"], f"error value {error}"
+        code, what = _number_cell(value, nulls)
+        if code:
+            text = _cell_text(value)
+            shown = f"'{text}'" if what == "text" else text
+            return column, text, code, (f"{what} {shown} in a number column; cells are never "
+                                        "coerced, enter the value as a number")
+    return None

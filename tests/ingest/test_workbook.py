@@ -125,13 +125,12 @@ def test_workbook_rows_load_like_the_same_csv(raw_root, store_path, tmp_path):
     write_batch(csv_root, "b1", SIMPLE_BATCH.format(source="rig-a"), {"vp.csv": SIMPLE_CSV})
     with open_store(csv_store) as s:
         run_ingest(s.con, [csv_root])
-    want = query(csv_store, "SELECT row_number, T_K, value_si, u_value_si FROM observation "
-                            "ORDER BY row_number")
-    assert [g[:4] for g in got] == want
-    # a number cell's text is its shortest form (85, not the CSV's 85.0), and it has a cell
-    assert [g[4:] for g in got] == [("85", "78.9", "VLE!A2", "VLE!B2"),
-                                    ("87.3", "101.3", "VLE!A3", "VLE!B3"),
-                                    ("90", "133.6", "VLE!A4", "VLE!B4")]
+    want = query(csv_store, "SELECT row_number, T_K, value_si, u_value_si, T_original, "
+                            "value_original FROM observation ORDER BY row_number")
+    # a number cell's text is its shortest round-trip form: here the CSV's own text
+    assert [g[:6] for g in got] == want
+    assert [g[6:] for g in got] == [("VLE!A2", "VLE!B2"), ("VLE!A3", "VLE!B3"),
+                                    ("VLE!A4", "VLE!B4")]
     assert query(csv_store, "SELECT T_cell_ref, value_cell_ref FROM observation LIMIT 1") == [
         (None, None)]
 
@@ -255,7 +254,7 @@ def test_normaliser_faults_name_the_cell(raw_root, store_path):
     got = [(r[0], r[3], r[4], r[5]) for r in quarantined(store_path)]
     assert got == [
         (4, "non-positive-pressure", "VLE!B5",
-         "b1/rig.xlsx#VLE, cell VLE!B5 (row 4, column 'p'): non-positive-pressure (cell -4)"),
+         "b1/rig.xlsx#VLE, cell VLE!B5 (row 4, column 'p'): non-positive-pressure (cell -4.0)"),
         (5, "missing-value", "VLE!B6",
          "b1/rig.xlsx#VLE, cell VLE!B6 (row 5, column 'p'): missing-value (cell empty)"),
         (6, "missing-value", "VLE!B7",
@@ -283,12 +282,14 @@ def test_error_cell_in_an_ignored_column_does_not_touch_the_row(raw_root, store_
      r"column 'p' named for pressure is not in the header \['T', 'pressure'\]"),
     ({"VLE": [["T", "p", "T"], [85.0, 78.9, 1.0]]}, "VLE", "",
      r"header repeats column 'T' \(cells VLE!A1, VLE!C1\)"),
+    ({"VLE": [["T", "p"], [85.0, 78.9, "checked"]]}, "VLE", "",
+     r"column 'C': column C holds values \(cell VLE!C2\) but its header cell VLE!C1 is empty"),
 ])
 def test_sheet_problems_refuse_the_batch_naming_sheet_and_cells(raw_root, store_path, sheets,
                                                                 sheet, extra, match):
     """A missing sheet, a header row out of the sheet or the range, an empty or header-only
-    sheet, a missing or repeated column refuse the batch with a message naming the file and
-    the sheet, key or cells; the store keeps nothing of it."""
+    sheet, a missing, repeated or unnamed column refuse the batch with a message naming the
+    file and the sheet, key or cells; the store keeps nothing of it."""
     message = error_of(ingest(raw_root, store_path, sheets, sheet=sheet, extra=extra))
     assert message.startswith(f"b1/rig.xlsx#{sheet}")
     assert re.search(match, message), message
