@@ -11,7 +11,9 @@ mapped cell is checked here, before any text reaches the normaliser:
 * a number becomes its shortest round-trip text (a formula cell gives its cached value);
 * an empty cell (or a text cell that is blank or a declared null value) stays empty, and the
   normaliser routes it as for CSV (``missing-value`` when required);
-* an error value (``#DIV/0!``, ``#N/A``, ``#VALUE!``...) is rejected as ``error-cell``;
+* an error value (``#DIV/0!``, ``#N/A``, ``#VALUE!``...) is rejected as ``error-cell``, a
+  formula the file holds no value for (saved by a program that does not calculate) as
+  ``formula-without-value``;
 * a date, a time, a boolean or any other text in a number column is rejected as
   ``wrong-cell-type``: never coerced (a number stored as text is not taken either).
 
@@ -19,10 +21,11 @@ A row whose table cells are all empty is skipped, as a blank CSV line is. Each r
 keeps its cell reference as the spreadsheet shows it (``VLE!C14``, ``'Rig B'!C14``).
 
 Reader: python-calamine (Rust calamine), about 10x faster than openpyxl's read-only mode on a
-100k-row sheet (``benchmarks/workbook.py``). calamine 0.9 returns error cells as empty strings,
-so when a worksheet part of the file holds an error cell (``t="e"``), the error cells of the
-sheet are located with openpyxl (read-only, cached values) - the slow path only runs for
-workbooks that have error cells. The file is parsed from the bytes the stage hashed.
+100k-row sheet (``benchmarks/workbook.py``). calamine 0.9 returns error cells and formulas
+without a value as empty strings, so when a worksheet part of the file holds such a cell (a
+byte search for ``t="e"`` or a formula without ``<v>``), they are located with openpyxl
+(read-only) - the slow path only runs for such workbooks. The file is parsed from the bytes
+the stage hashed.
 """
 
 from __future__ import annotations
@@ -42,7 +45,8 @@ from pipeline.ingest.normalise import ident
 from pipeline.ingest.reader import RESERVED_COLUMNS, check_columns
 
 WORKBOOK_SUFFIXES = (".xlsx",)
-REJECT_CODES = {"error": "error-cell", "type": "wrong-cell-type"}
+REJECT_CODES = {"error": "error-cell", "type": "wrong-cell-type",
+                "uncalculated": "formula-without-value"}
 _RANGE = re.compile(r"^([A-Z]{1,3})([1-9][0-9]*):([A-Z]{1,3})([1-9][0-9]*)$")
 _PLAIN_SHEET = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 _MAX_ROWS, _MAX_COLS = 1_048_576, 16_384        # the xlsx grid
@@ -195,36 +199,62 @@ def _open(data: bytes, label: str):
         raise BatchError(f"cannot be read as a workbook (.xlsx): {err}", file=label) from None
 
 
-def _has_error_cells(data: bytes) -> bool:
-    """Whether any worksheet part of the .xlsx holds a cell of type error (``t="e"``)."""
+_UNCALCULATED = re.compile(rb"</f>\s*(?:<v\s*/>|</c>)")   # a formula without a value
+
+
+def _flags(data: bytes) -> tuple[bool, bool]:
+    """Whether any worksheet part of the .xlsx holds a cell of type error (``t="e"``), and a
+    formula cell without a cached value: byte searches, no XML parsing."""
+    errors = uncalculated = False
     try:
         with zipfile.ZipFile(io.BytesIO(data)) as z:
-            return any(b't="e"' in z.read(n) or b"t='e'" in z.read(n) for n in z.namelist()
-                       if n.startswith("xl/worksheets/") and n.endswith(".xml"))
+            for name in z.namelist():
+                if name.startswith("xl/worksheets/") and name.endswith(".xml"):
+                    part = z.read(name)
+                    errors = errors or b't="e"' in part or b"t='e'" in part
+                    uncalculated = uncalculated or bool(_UNCALCULATED.search(part))
     except (zipfile.BadZipFile, KeyError):
-        return False
+        pass
+    return errors, uncalculated
 
 
-def error_cells(data: bytes, sheet: str) -> dict[tuple[int, int], str]:
-    """(row, column) 0-based -> error value (``#DIV/0!``) of every error cell of ``sheet``.
+def flagged_cells(data: bytes, sheet: str) -> dict[tuple[int, int], tuple[str, str]]:
+    """(row, column) 0-based -> (reject code, text) of the cells calamine reads as empty but
+    are not: error values (``#DIV/0!``) and formulas without a cached value (a file saved by
+    a program that does not calculate).
 
-    Empty without parsing when no worksheet part has an error cell (the common case); else
+    Empty without parsing when no worksheet part holds such a cell (the common case); else
     the sheet is read with openpyxl in read-only mode, whose cells keep their type.
     """
-    if not _has_error_cells(data):
+    errors, uncalculated = _flags(data)
+    if not (errors or uncalculated):
         return {}
     import openpyxl
 
+    out: dict[tuple[int, int], tuple[str, str]] = {}
+    cached: dict[tuple[int, int], object] = {}
     book = openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=True)
     try:
-        out = {}
         for row in book[sheet].iter_rows():
             for c in row:
                 if getattr(c, "data_type", None) == "e":
-                    out[(c.row - 1, c.column - 1)] = str(c.value)
-        return out
+                    out[(c.row - 1, c.column - 1)] = (REJECT_CODES["error"], str(c.value))
+                elif uncalculated and c.value is not None:
+                    cached[(c.row - 1, c.column - 1)] = c.value
     finally:
         book.close()
+    if uncalculated:
+        book = openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=False)
+        try:
+            for row in book[sheet].iter_rows():
+                for c in row:
+                    key = (c.row - 1, c.column - 1)
+                    if getattr(c, "data_type", None) == "f" and key not in cached \
+                            and key not in out:
+                        out[key] = (REJECT_CODES["uncalculated"], str(c.value))
+        finally:
+            book.close()
+    return out
 
 
 def _header(cells: list, region: Region, prefix: str, label: str) -> dict[int, str]:
@@ -296,7 +326,7 @@ def stage_workbook(con: duckdb.DuckDBPyConnection, data: bytes, spec, label: str
     letters = {header[j]: column_letter(j) for j in columns}
     mapped = [j for j in columns if header[j] in needed.values()]
     order = [j for name in needed.values() for j in mapped if header[j] == name]
-    errors = {(r - region.header_row - 1, j): v for (r, j), v in error_cells(data, spec.sheet).items()
+    errors = {(r - region.header_row - 1, j): v for (r, j), v in flagged_cells(data, spec.sheet).items()
               if region.header_row < r <= last_row and j in header}   # data-row index, column
     body = grid[region.header_row + 1:last_row + 1]
     n = len(body)
@@ -350,12 +380,18 @@ def stage_workbook(con: duckdb.DuckDBPyConnection, data: bytes, spec, label: str
                          header_row=region.header_row + 1, letters=letters)
 
 
-def _first_fault(row: list[tuple[str, object, str | None]], nulls: frozenset[str]):
-    """(column, raw text, code, message) of the first mapped cell of a row that is an error
-    value or not a number, in the table's column order; None when every cell is fine."""
-    for column, value, error in row:
-        if error is not None:
-            return column, error, REJECT_CODES["error"], f"error value {error}"
+def _first_fault(row: list[tuple[str, object, tuple | None]], nulls: frozenset[str]):
+    """(column, raw text, code, message) of the first mapped cell of a row that is flagged
+    (an error value, a formula without value) or not a number, in the table's column order;
+    None when every cell is fine."""
+    for column, value, flag in row:
+        if flag is not None:
+            code, text = flag
+            if code == REJECT_CODES["error"]:
+                return column, text, code, f"error value {text}"
+            return column, text, code, (f"formula {text} has no cached value (the file was "
+                                        "saved by a program that does not calculate); open and "
+                                        "save it in a spreadsheet program")
         code, what = _number_cell(value, nulls)
         if code:
             text = _cell_text(value)

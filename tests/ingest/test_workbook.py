@@ -1,5 +1,7 @@
 """Workbook tables: a worksheet ingests through the CSV path's normaliser with every value's
-cell kept; each spreadsheet fault is quarantined (or the batch refused) naming the cell."""
+cell kept; each spreadsheet fault is quarantined (or the batch refused) naming the cell.
+Test workbooks are written with XlsxWriter (formulas with the cached values a spreadsheet
+program would store) and, for formulas without cached values, with openpyxl."""
 
 from __future__ import annotations
 
@@ -259,6 +261,30 @@ def test_normaliser_faults_name_the_cell(raw_root, store_path):
          "b1/rig.xlsx#VLE, cell VLE!B6 (row 5, column 'p'): missing-value (cell empty)"),
         (6, "missing-value", "VLE!B7",
          "b1/rig.xlsx#VLE, cell VLE!B7 (row 6, column 'p'): missing-value (cell -)")]
+
+
+def test_formulas_without_a_cached_value_are_not_read_as_empty(raw_root, store_path):
+    """A formula the file holds no value for (openpyxl writes them so: it does not calculate)
+    is quarantined as formula-without-value naming the cell and the formula, not taken as an
+    empty cell; a formula with a cached value in the same file still reads."""
+    import openpyxl
+
+    book = openpyxl.Workbook()
+    sheet = book.active
+    sheet.title = "VLE"
+    for row in [GOOD[0], GOOD[1], [87.3, "=B2*1.284"], GOOD[3]]:
+        sheet.append(row)
+    buf = io.BytesIO()
+    book.save(buf)
+    write_batch(raw_root, "b1", BATCH.format(sheet="VLE", extra=""), {"rig.xlsx": buf.getvalue()})
+    with open_store(store_path) as s:
+        result = run_ingest(s.con, [raw_root])
+    assert result.batches[0].rows == (3, 2, 1)
+    (row, column, raw, code, cell, message), = quarantined(store_path)
+    assert (row, column, raw, code, cell) == (2, "p", "=B2*1.284", "formula-without-value",
+                                              "VLE!B3")
+    assert message.startswith("b1/rig.xlsx#VLE, cell VLE!B3 (row 2, column 'p'): "
+                              "formula-without-value (formula =B2*1.284 has no cached value")
 
 
 def test_error_cell_in_an_ignored_column_does_not_touch_the_row(raw_root, store_path):

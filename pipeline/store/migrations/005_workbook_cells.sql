@@ -7,7 +7,7 @@ COMMENT ON COLUMN observation.value_cell_ref IS 'Workbook cell of value_original
 
 ALTER TABLE quarantine ADD COLUMN cell_ref VARCHAR;
 COMMENT ON COLUMN quarantine.cell_ref IS 'Workbook cell at fault as the spreadsheet shows it (sheet!cell, e.g. VLE!C14); NULL for CSV files and for faults of a whole row.';
-COMMENT ON COLUMN quarantine.reason_code IS 'Reason code, see the batch contract: not-a-number, missing-value, non-finite, non-positive-temperature, non-positive-pressure, non-positive-value, out-of-physical-range, out-of-scale-range, bad-uncertainty, bad-row-shape, duplicate-row, missing-pressure; for workbooks also error-cell and wrong-cell-type.';
+COMMENT ON COLUMN quarantine.reason_code IS 'Reason code, see the batch contract: not-a-number, missing-value, non-finite, non-positive-temperature, non-positive-pressure, non-positive-value, out-of-physical-range, out-of-scale-range, bad-uncertainty, bad-row-shape, duplicate-row, missing-pressure; for workbooks also error-cell, formula-without-value and wrong-cell-type.';
 COMMENT ON COLUMN raw_file.path IS 'Path relative to the raw root, POSIX separators; a workbook table adds #sheet (and !range when the entry gives one), e.g. lab/rig-c.xlsx#VLE.';
 COMMENT ON COLUMN raw_file.sha256 IS 'SHA-256 of the file bytes (hex); the tables of one workbook share it.';
 COMMENT ON COLUMN raw_column.column_name IS 'Column header in the CSV file or worksheet.';
