@@ -325,6 +325,7 @@ def prescan(con, raw: Path) -> tuple[list[Path], list[str], int]:
     current versions in the store (the ingest stage would skip it too: the way a file is read
     is part of batch.toml)."""
     from pipeline.ingest.stage import discover_batches
+    from pipeline.ingest.workbook import table_path
 
     stored: dict[str, dict[str, str]] = {}
     for batch, path, sha in con.execute(
@@ -343,7 +344,8 @@ def prescan(con, raw: Path) -> tuple[list[Path], list[str], int]:
             doc = tomllib.loads(manifest.read_bytes().decode("utf-8-sig"))
             for table in doc.get("table", []):
                 path = folder / table["file"]
-                want[(folder / table["file"]).relative_to(raw).as_posix()] = _sha(path)
+                rel_file = (folder / table["file"]).relative_to(raw).as_posix()
+                want[table_path(rel_file, table)] = _sha(path)
         except (OSError, ValueError, KeyError, TypeError, UnicodeDecodeError):
             want = None   # unreadable: let the ingest stage say why
         if known is None or want != known:

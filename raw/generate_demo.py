@@ -24,6 +24,8 @@ never touched), and each produced folder is rewritten from scratch.
 
 from __future__ import annotations
 
+import datetime
+import io
 import json
 import shutil
 import sys
@@ -167,10 +169,11 @@ def csv_text(header: list[str], rows: list[list[str]], delimiter: str = ",") -> 
 
 @dataclass
 class Table:
-    """One ``[[table]]`` entry and the CSV file it describes."""
+    """One ``[[table]]`` entry and the CSV file it describes (``text`` None: a worksheet of a
+    workbook the batch writes in ``Batch.workbooks``)."""
 
     entry: dict                       # file, fluid, boundary, temperature, pressure, dialect ...
-    text: str                         # the CSV file content
+    text: str | None                  # the CSV file content
     comments: list[str] = field(default_factory=list)
     uncertainty: dict = field(default_factory=dict)
     columns: dict = field(default_factory=dict)
@@ -186,6 +189,7 @@ class Batch:
     tables: list[Table] = field(default_factory=list)
     fixed_points: list[tuple[list[str], dict]] = field(default_factory=list)
     constants: list[tuple[list[str], dict]] = field(default_factory=list)
+    workbooks: dict[str, bytes] = field(default_factory=dict)   # file name -> .xlsx bytes
 
     def manifest(self) -> str:
         out = [MARKER]
@@ -209,10 +213,12 @@ class Batch:
                 out += [f"{k} = {toml_value(v)}" for k, v in item.items()]
         return "\n".join(out) + "\n"
 
-    def files(self) -> dict[str, str]:
-        files = {"batch.toml": self.manifest()}
+    def files(self) -> dict[str, str | bytes]:
+        files: dict[str, str | bytes] = {"batch.toml": self.manifest()}
         for t in self.tables:
-            files[t.entry["file"]] = t.text
+            if t.text is not None:
+                files[t.entry["file"]] = t.text
+        files.update(self.workbooks)
         return files
 
 
@@ -862,6 +868,105 @@ def nitrogen_rig_b_kpa_as_pa() -> Batch:
     return b
 
 
+def nitrogen_rig_c_workbook() -> Batch:
+    """Nitrogen vapour pressure and saturated densities delivered as ONE workbook, two sheets.
+
+    Sheet ``VLE``: a title row, a blank row, the header on row 3 (run, T_K, p_bar, p_kPa); the
+    mapped ``p_kPa`` column is a formula ``=C*100`` whose cached value is read. Sheet
+    ``Densities``: the table in the range B2:D15 (a note column and a summary row outside it).
+    PLANTED FLAWS (ingest quarantine): a reading not recorded (``n/r`` in p_bar), so its
+    ``p_kPa`` formula caches the error #VALUE!; a run date typed into the T_K column.
+    """
+    import xlsxwriter
+
+    name = "brackenridge-rig-c-nitrogen-2026-01"
+    fluid = "nitrogen"
+    file = "nitrogen-rig-c-campaign.xlsx"
+    rng = rng_for(name)
+    T_set = np.arange(70.0, 124.1, 3.0)
+    n = T_set.size
+    T_true = T_set + rng.uniform(-0.02, 0.02, n)
+    T_rec = np.round(T_true + 0.005 * clipped_normal(rng, n), 3)
+    p = curve_values(fluid, "liquid-vapour", "pressure", T_true)
+    p_bar = np.round(p * (1.0 + 3e-4 * clipped_normal(rng, n)) / BAR, 6)
+    T_rho = np.arange(72.0, 120.1, 4.0)
+    m = T_rho.size
+    T_rho_true = T_rho + rng.uniform(-0.02, 0.02, m)
+    T_rho_rec = np.round(T_rho_true + 0.005 * clipped_normal(rng, m), 3)
+    rho_l = np.round(curve_values(fluid, "liquid-vapour", "rho_liquid", T_rho_true)
+                     * (1.0 + 5e-4 * clipped_normal(rng, m)), 3)
+    rho_v = np.round(curve_values(fluid, "liquid-vapour", "rho_vapour", T_rho_true)
+                     * (1.0 + 2e-3 * clipped_normal(rng, m)), 4)
+    not_recorded = int(np.flatnonzero(T_set == 97.0)[0])     # row of the #VALUE! cell
+    date_typed = int(np.flatnonzero(T_set == 112.0)[0])      # row of the date in T_K
+
+    book_bytes = io.BytesIO()
+    book = xlsxwriter.Workbook(book_bytes, {"in_memory": True})
+    book.set_properties({"title": "Rig C nitrogen campaign 2026-01 (invented demo data)",
+                         "created": datetime.datetime(2026, 1, 30, 12, 0, 0)})
+    date_format = book.add_format({"num_format": "yyyy-mm-dd"})
+    vle = book.add_worksheet("VLE")
+    vle.write_string(0, 0, "Brackenridge thermophysics lab, rig C: nitrogen vapour pressure, "
+                           "campaign 2026-01 (invented demo data)")
+    vle.write_row(2, 0, ["run", "T_K", "p_bar", "p_kPa"])
+    for i in range(n):
+        r = 3 + i                                           # 0-based sheet row
+        vle.write_string(r, 0, f"N2-C-{i + 1:02d}")
+        if i == date_typed:
+            vle.write_datetime(r, 1, datetime.datetime(2026, 1, 21), date_format)
+        else:
+            vle.write_number(r, 1, float(T_rec[i]))
+        if i == not_recorded:
+            vle.write_string(r, 2, "n/r")
+            vle.write_formula(r, 3, f"=C{r + 1}*100", None, "#VALUE!")
+        else:
+            vle.write_number(r, 2, float(p_bar[i]))
+            vle.write_formula(r, 3, f"=C{r + 1}*100", None, float(p_bar[i]) * 100)
+    dens = book.add_worksheet("Densities")
+    dens.write_string(0, 0, "Saturated densities, vibrating-tube densimeter, rig C")
+    dens.write_row(1, 1, ["T_K", "rho_liq_kg_m3", "rho_vap_kg_m3"])
+    for i in range(m):
+        dens.write_row(2 + i, 1, [float(T_rho_rec[i]), float(rho_l[i]), float(rho_v[i])])
+    dens.write_string(2, 5, "densimeter calibrated 2026-01-05 (note outside the table range)")
+    last = 2 + m                                             # 1-based row of the last data row
+    dens.write_string(last + 1, 1, "mean")
+    dens.write_formula(last + 1, 2, f"=AVERAGE(C3:C{last})", None, float(np.mean(rho_l)))
+    book.close()
+
+    b = Batch(
+        name=name,
+        source=lab_source(name, f"{BRACKENRIDGE}, rig C, nitrogen vapour pressure and saturated "
+                                "densities, campaign 2026-01 (workbook as delivered by the rig "
+                                "operator), internal report BCPE-TL-2026-004"),
+        comments=["Invented lab campaign delivered as a workbook with two sheets: VLE (vapour",
+                  "pressure; p_kPa is a formula =p_bar*100, read as its cached value) and Densities",
+                  "(saturated liquid and vapour densities in the range B2:D15).",
+                  "Uncertainty basis (k = 1): T 0.005 K, p 3e-4 of reading, rho' 5e-4 and",
+                  "rho'' 2e-3 of reading.",
+                  f"PLANTED FLAWS (ingest quarantine): VLE!D{4 + not_recorded} holds #VALUE! (reading",
+                  f"not recorded: 'n/r' in p_bar); VLE!B{4 + date_typed} holds a date typed into T_K."],
+        workbooks={file: book_bytes.getvalue()},
+    )
+    b.tables.append(Table(
+        entry={"file": file, "sheet": "VLE", "header_row": 3, "fluid": fluid,
+               "boundary": "liquid-vapour", "temperature": T_col("T_K"),
+               "pressure": {"column": "p_kPa", "unit": "kPa"}, "extra_columns": "ignore"},
+        text=None, comments=["Sheet VLE: header on row 3; run and p_bar are not mapped."],
+        uncertainty={"temperature": {"value": 0.005, "unit": "K"},
+                     "pressure": {"relative": 3e-4, "unit": "kPa"}}))
+    b.tables.append(Table(
+        entry={"file": file, "sheet": "Densities", "range": f"B2:D{last}", "fluid": fluid,
+               "boundary": "liquid-vapour", "temperature": T_col("T_K")},
+        text=None, comments=["Sheet Densities: the table is the range; the note in column F and",
+                             "the mean below it are outside."],
+        uncertainty={"temperature": {"value": 0.005, "unit": "K"},
+                     "rho_liquid": {"relative": 5e-4, "unit": "kg/m^3"},
+                     "rho_vapour": {"relative": 2e-3, "unit": "kg/m^3"}},
+        columns={"rho_liquid": {"column": "rho_liq_kg_m3", "unit": "kg/m^3"},
+                 "rho_vapour": {"column": "rho_vap_kg_m3", "unit": "kg/m^3"}}))
+    return b
+
+
 def water_rig_a_semicolon() -> Batch:
     """Water vapour pressure in degC and kPa; semicolons and decimal commas.
 
@@ -998,6 +1103,7 @@ BUILDERS = (
     water_saturation, water_melting_sublimation, water_triple_point_properties,
     co2_ancillaries, co2_triple_point_estimate, nitrogen_ancillaries, argon_ancillaries,
     co2_rig_a, co2_rig_b, argon_rig_b_ipts68, nitrogen_rig_a_gauge, nitrogen_rig_b_kpa_as_pa,
+    nitrogen_rig_c_workbook,
     water_rig_a_semicolon, water_rig_b_celsius_as_kelvin, co2_melting_literature,
     nitrogen_critical_literature,
 )
@@ -1070,7 +1176,7 @@ def generate(out_dir: Path) -> list[str]:
             shutil.rmtree(folder)
         folder.mkdir()
         for file, text in b.files().items():
-            (folder / file).write_bytes(text.encode("utf-8"))
+            (folder / file).write_bytes(text if isinstance(text, bytes) else text.encode("utf-8"))
     return [b.name for b in batches]
 
 

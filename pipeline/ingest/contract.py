@@ -143,6 +143,9 @@ class TableSpec(_Frozen):
     comment: str = ""
     null_values: tuple[str, ...] = ()
     extra_columns: str = "error"
+    sheet: str = ""                      # workbook tables: the worksheet (pipeline.ingest.workbook)
+    header_row: int | None = None        # workbook tables: spreadsheet row of the header
+    range: str = ""                      # workbook tables: optional cell range, e.g. B3:E40
     uncertainty: dict[str, UncertaintySpec] = Field(default_factory=dict)
     columns: dict[str, ColumnSpec] = Field(default_factory=dict)
 

@@ -39,6 +39,7 @@ from pipeline.ingest.points import CONSTANT_KIND, constant_row, fixed_point_row
 from pipeline.ingest.reader import stage_csv
 from pipeline.ingest.scales import get_scale
 from pipeline.ingest.units import conversion
+from pipeline.ingest.workbook import is_workbook, stage_workbook, table_path
 
 log = logging.getLogger(__name__)
 REMOVED = 0  # raw_file.superseded_by for a file that disappeared from raw/
@@ -152,16 +153,20 @@ def plan_batch(root: Path, batch_dir: Path, fluids: dict[str, Fluid]) -> _Plan:
         for i, e in enumerate(entries):
             _known_fluid(e.fluid, fluids, label, f"{kind}[{i}].fluid")
     check_declarations(manifest, fluids, label)
-    names = [t.file for t in manifest.table]
+    names = [table_path(t.file, t) for t in manifest.table]
     if len(set(names)) != len(names):
-        raise BatchError("the same file is mapped by two [[table]] entries", file=label)
-    tables = []
+        raise BatchError("the same file is mapped by two [[table]] entries (the tables of one "
+                         "workbook need different sheets or ranges)", file=label)
+    tables, read = [], {}
     for i, spec in enumerate(manifest.table):
         path = _safe_file(batch_dir, spec.file, label)
-        content = path.read_bytes()
+        if path not in read:        # the tables of one workbook share its bytes and hash
+            content = path.read_bytes()
+            read[path] = (content, hashlib.sha256(content).hexdigest())
+        content, sha = read[path]
         mapping = canonical_hash({"table": doc["table"][i], "source": doc["source"]})
-        tables.append((i, spec, _label(root, batch_dir / spec.file), path, content,
-                       hashlib.sha256(content).hexdigest(), mapping))
+        tables.append((i, spec, table_path(_label(root, batch_dir / spec.file), spec), path,
+                       content, sha, mapping))
     return _Plan(rel_batch, manifest, label, hashlib.sha256(data).hexdigest(), len(data), tables)
 
 
@@ -246,11 +251,14 @@ class Ingestor:
             "WHERE batch = ? AND superseded_by IS NULL", [batch]).fetchall()
         return {path: (fid, sha, mapping) for path, fid, sha, mapping in rows}
 
-    def _duplicate_of(self, sha: str, path: str) -> str | None:
-        row = self.con.execute(
+    def _duplicate_of(self, sha: str, path: str, file: str) -> str | None:
+        """A current table of the same content from another file (the worksheets of one
+        workbook share its hash and are not duplicates of each other)."""
+        rows = self.con.execute(
             "SELECT path FROM raw_file WHERE sha256 = ? AND path <> ? AND role = 'table' "
-            "AND superseded_by IS NULL LIMIT 1", [sha, path]).fetchone()
-        return row[0] if row else None
+            "AND superseded_by IS NULL ORDER BY path", [sha, path]).fetchall()
+        twins = [p for (p,) in rows if p != file and not p.startswith(file + "#")]
+        return twins[0] if twins else None
 
     # -- one batch ------------------------------------------------------------------------
     def ingest(self, batch_dir: Path) -> BatchResult:
@@ -293,7 +301,7 @@ class Ingestor:
             if rel in unchanged:
                 result.files.append(FileResult(rel, "unchanged"))
                 continue
-            twin = self._duplicate_of(sha, rel)
+            twin = self._duplicate_of(sha, rel, rel.removesuffix(table_path("", spec)))
             if twin is not None:
                 raise BatchError(f"has the same content (SHA-256 {sha[:12]}…) as the already "
                                  f"ingested file '{twin}'; a duplicated file is refused", file=rel)
@@ -376,9 +384,11 @@ class Ingestor:
         self._count(file_id, loaded + quarantined, loaded, quarantined)
         return FileResult(label, "loaded", loaded + quarantined, loaded, quarantined)
 
-    def _quarantine(self, file_id, sha, label, row, column, raw, code, message) -> None:
+    def _quarantine(self, file_id, sha, label, row, column, raw, code, message,
+                    cell: str | None = None) -> None:
         self.con.execute("INSERT INTO quarantine VALUES (nextval('q_id_seq'), ?, ?, ?, ?, ?, ?, ?, "
-                         "?, ?)", [file_id, sha, label, row, column, raw, code, message, self.run_id])
+                         "?, ?, ?)", [file_id, sha, label, row, column, raw, code, message,
+                                      self.run_id, cell])
 
     # -- CSV tables -----------------------------------------------------------------------
     def _load_table(self, file_id, rel, path, content, sha, spec: TableSpec, plan) -> FileResult:
@@ -386,27 +396,39 @@ class Ingestor:
         needed.update({q: c.column for q, c in spec.value_columns().items()})
         needed.update({f"uncertainty of {q}": u.column for q, u in spec.uncertainty.items()
                        if u.column})
-        staged = stage_csv(self.con, str(path), content, spec, rel, needed, "fl_stage")
+        if is_workbook(spec.file):
+            staged = stage_workbook(self.con, content, spec, rel, needed, "fl_stage")
+            rejects = [(row, column, raw, code, f"cell {staged.cell(column, row)} (row {row}, "
+                        f"column '{column}'): {code} ({message})", staged.cell(column, row))
+                       for row, column, raw, code, message in staged.rejects]
+        else:
+            staged = stage_csv(self.con, str(path), content, spec, rel, needed, "fl_stage")
+            rejects = [(row, column, raw, "bad-row-shape", f"row {row}" + (
+                f", column '{column}'" if column else "") + f": {message}", None)
+                for row, column, raw, message in staged.rejects]
         molar_mass = self.fluids[spec.fluid].molar_mass_kg_mol
         rules = normalise(self.con, "fl_stage", spec, molar_mass, "fl_norm")
-        for row, column, raw, message in staged.rejects:
-            self._quarantine(file_id, sha, rel, row, column, raw, "bad-row-shape",
-                             f"{rel}, row {row}" + (f", column '{column}'" if column else "")
-                             + f": {message}")
-        self._insert_observations(file_id, rel, sha, spec, plan, rules)
+        for row, column, raw, code, message, cell in rejects:
+            self._quarantine(file_id, sha, rel, row, column, raw, code, f"{rel}, {message}", cell)
+        self._insert_observations(file_id, spec, rules, staged)
+        cell_ref, cell_params = self._cell_ref(spec, staged)
+        where = ("printf('row %d%s', row_number, CASE WHEN split_part(fault, '|', 2) <> '' THEN "
+                 "printf(', column ''%s''', split_part(fault, '|', 2)) ELSE '' END)")
+        if cell_params:     # a workbook: the cell first, as the spreadsheet shows it
+            where = (f"CASE WHEN cell_ref IS NULL THEN {where} ELSE printf('cell %s (row %d, "
+                     "column ''%s'')', cell_ref, row_number, split_part(fault, '|', 2)) END")
         self.con.execute(
             "INSERT INTO quarantine SELECT nextval('q_id_seq'), ?, ?, ?, row_number, "
             "nullif(split_part(fault, '|', 2), ''), raw, split_part(fault, '|', 1), "
-            "printf('%s, row %d%s: %s (cell %s)', ?, row_number, "
-            "CASE WHEN split_part(fault, '|', 2) <> '' THEN printf(', column ''%s''', "
-            "split_part(fault, '|', 2)) ELSE '' END, split_part(fault, '|', 1), "
-            "coalesce(cell, 'empty')), ? FROM ("
-            f"SELECT *, {self._raw_text(spec)} AS raw, {self._cell(spec)} AS cell "
-            "FROM fl_norm WHERE fault IS NOT NULL)", [file_id, sha, rel, rel, self.run_id])
+            f"printf('%s, %s: %s (cell %s)', ?, {where}, split_part(fault, '|', 1), "
+            "coalesce(cell, 'empty')), ?, cell_ref FROM ("
+            f"SELECT *, {self._raw_text(spec)} AS raw, {self._cell(spec)} AS cell, "
+            f"{cell_ref} AS cell_ref FROM fl_norm WHERE fault IS NOT NULL)",
+            [file_id, sha, rel, rel, self.run_id, *cell_params])
         loaded, bad = self.con.execute(
             "SELECT count(*) FILTER (WHERE fault IS NULL), count(*) FILTER (WHERE fault IS NOT NULL) "
             "FROM fl_norm").fetchone()
-        quarantined = bad + len(staged.rejects)
+        quarantined = bad + len(rejects)
         self._count(file_id, staged.rows_read, loaded, quarantined)
         self.con.execute("DROP TABLE fl_stage; DROP TABLE fl_norm")
         return FileResult(rel, "loaded", staged.rows_read, loaded, quarantined)
@@ -430,23 +452,43 @@ class Ingestor:
                  for q, u in spec.uncertainty.items() if u.column]
         return "CASE " + " ".join(arms) + " END"
 
-    def _insert_observations(self, file_id, rel, sha, spec: TableSpec, plan, rules) -> None:
+    @staticmethod
+    def _cell_ref(spec: TableSpec, staged) -> tuple[str, list]:
+        """SQL (and its parameters) of the workbook cell at fault in fl_norm; NULL for CSV."""
+        if not is_workbook(spec.file):
+            return "NULL", []
+        columns = [spec.temperature.column] + [c.column for c in spec.value_columns().values()]
+        columns += [u.column for u in spec.uncertainty.values() if u.column]
+        arms, params = [], []
+        for column in columns:
+            arms.append("WHEN split_part(fault, '|', 2) = ? THEN concat(?, row_number + ?)")
+            params += [column, staged.cell_prefix(column), staged.header_row]
+        return "CASE " + " ".join(arms) + " END", params
+
+    def _insert_observations(self, file_id, spec: TableSpec, rules, staged) -> None:
         """Narrow bulk inserts (per-file facts go to raw_column once); ids are allocated as a
-        block after the current maximum, so no sequence is touched per row."""
+        block after the current maximum, so no sequence is touched per row. A workbook's
+        values keep their cells (``VLE!C14``): the column's prefix and the sheet row."""
         quantities = list(spec.value_columns().items())
         base = self.con.execute("SELECT coalesce(max(obs_id), 0) + 1 FROM observation"
                                 ).fetchall()[0][0]
         t = spec.temperature
         self._column(file_id, "temperature", t.column, t.unit, t.scale, "K", rules.get("T"))
         uT = uncertainty_sql("T", rules)
+        workbook = is_workbook(spec.file)
+        cells = "concat(?, row_number + ?), concat(?, row_number + ?)" if workbook else "NULL, NULL"
         # ids and row numbers are explicit, so the bulk insert need not keep row order
         self.con.execute("SET preserve_insertion_order = false")
         for qi, (q, cs) in enumerate(quantities):
             self._column(file_id, q, cs.column, cs.unit, None, QUANTITY_KIND[q][1], rules.get(q))
+            params = [base, file_id, q]
+            if workbook:
+                params += [staged.cell_prefix(t.column), staged.header_row,
+                           staged.cell_prefix(cs.column), staged.header_row]
             self.con.execute(
                 f"INSERT INTO observation SELECT ? + (row_number - 1) * {len(quantities)} + {qi}, "
-                f"?, row_number, ?, si_T, {uT}, si_{q}, {uncertainty_sql(q, rules)}, txt_T, txt_{q} "
-                f"FROM fl_norm WHERE fault IS NULL AND NOT empty_{q}", [base, file_id, q])
+                f"?, row_number, ?, si_T, {uT}, si_{q}, {uncertainty_sql(q, rules)}, txt_T, txt_{q}, "
+                f"{cells} FROM fl_norm WHERE fault IS NULL AND NOT empty_{q}", params)
         self.con.execute("RESET preserve_insertion_order")
 
     def _column(self, file_id, quantity, column, unit, scale, si_unit, rule) -> None:

@@ -49,7 +49,7 @@ _ENTITY = pa.struct([_f("entity", _STR), _f("entity_id", _STR), _f("source_id", 
                      _f("file_sha256", _STR, True), _f("file_path", _STR, True),
                      _f("row_numbers", pa.list_(_I64)), _f("obs_ids", pa.list_(_I64)),
                      _f("value_si", _F64, True), _f("u_si", _F64, True), _f("used", _BOOL),
-                     _f("note", _STR)])
+                     _f("note", _STR), _f("cells", pa.list_(_STR))])
 _FINDING = pa.struct([_f("check_id", _STR), _f("subject", _STR), _f("status", _STR),
                       _f("message", _STR)])
 

@@ -139,7 +139,9 @@ SELECT r.fit_id, o.file_id,
             WHEN r.z IS NULL THEN 'outside' ELSE 'used' END AS role,
        coalesce(r.excluded_by, '') AS excluded_by,
        list(o.row_number ORDER BY o.row_number, o.obs_id) AS row_numbers,
-       list(o.obs_id ORDER BY o.row_number, o.obs_id) AS obs_ids
+       list(o.obs_id ORDER BY o.row_number, o.obs_id) AS obs_ids,
+       coalesce(list(o.value_cell_ref ORDER BY o.row_number, o.obs_id)
+                FILTER (WHERE o.value_cell_ref IS NOT NULL), []) AS cells
 FROM fit_residual r
 JOIN fit f ON f.fit_id = r.fit_id AND f.is_current AND f.status = 'fitted'
 JOIN observation o ON o.obs_id = r.obs_id
@@ -164,7 +166,7 @@ def load_inputs(con: duckdb.DuckDBPyConnection, check_run_id: str | None = None)
         FROM stated_constant_current ORDER BY const_id""")
     inp.enthalpy_observations = _rows(con, """
         SELECT obs_id, fluid_id, boundary, solid_phase, quantity, T_K, u_T_K, value_si,
-               u_value_si, source_id, file_id, row_number
+               u_value_si, source_id, file_id, row_number, value_cell_ref
         FROM observation_current WHERE list_contains(?, quantity) ORDER BY obs_id""",
                                       [list(ENTHALPY_QUANTITIES)])
     inp.fits = _rows(con, _FITS)

@@ -108,13 +108,16 @@ def check_entries(checks: Iterable[dict]) -> list[dict]:
 
 def entity(kind: str, entity_id, *, source_id: str | None = None, file: dict | None = None,
            rows: Iterable[int] = (), obs_ids: Iterable[int] = (), value: float | None = None,
-           u: float | None = None, used: bool = True, note: str = "") -> dict:
-    """One ``was_derived_from`` entry."""
+           u: float | None = None, used: bool = True, note: str = "",
+           cells: Iterable[str] = ()) -> dict:
+    """One ``was_derived_from`` entry (``cells``: the workbook cells of the values, one per
+    observation id; empty for CSV files)."""
     return {"entity": kind, "entity_id": str(entity_id), "source_id": source_id,
             "file_sha256": file["sha256"] if file else None,
             "file_path": file["path"] if file else None,
             "row_numbers": [int(r) for r in rows], "obs_ids": [int(o) for o in obs_ids],
-            "value_si": value, "u_si": u, "used": bool(used), "note": note}
+            "value_si": value, "u_si": u, "used": bool(used), "note": note,
+            "cells": [str(c) for c in cells]}
 
 
 _ROLE_NOTES = {"used": "used by the fit",
@@ -130,7 +133,8 @@ def fit_entities(inputs: ReleaseInputs, fit: dict) -> list[dict]:
         raw = inputs.raw_files[int(r["file_id"])]
         used, note = r["role"] == "used", _ROLE_NOTES[r["role"]].format(**r)
         out.append(entity("observations", r["file_id"], source_id=raw["source_id"], file=raw,
-                          rows=r["row_numbers"], obs_ids=r["obs_ids"], used=used, note=note))
+                          rows=r["row_numbers"], obs_ids=r["obs_ids"], used=used, note=note,
+                          cells=r["cells"]))
     T_ref = fit["curve"]["ref"].get("T_ref_K")
     kind = "critical" if fit["boundary"] == "liquid-vapour" else "triple"
     for fp in inputs.fixed_points:

@@ -29,7 +29,8 @@ STORAGE_VERSION = "v1.2.0"
 """Storage format of published files (DuckDB >= 1.2.0 reads it)."""
 PUBLISHED_NAME = "published.duckdb"
 READ_STATEMENTS = frozenset({"SELECT", "EXPLAIN", "PRAGMA", "CALL"})
-_RELEASE_DDL = "release"  # the migration whose DDL the published file repeats
+_RELEASE_DDL = "release"  # the migrations whose DDL the published file repeats: this one and
+#                           those named "release <change>" after it (e.g. 006_release_cells)
 
 
 class QueryRefused(FluidLedgerError):
@@ -37,13 +38,15 @@ class QueryRefused(FluidLedgerError):
 
 
 def release_ddl() -> str:
-    """The DDL of the release tables and views (the store's ``NNN_release.sql`` migration)."""
+    """The DDL of the release tables and views: the store's ``NNN_release.sql`` migration and
+    the later ``NNN_release_<change>.sql`` steps, in ladder order."""
     from pipeline.store.migrations import MIGRATIONS
 
-    for _, name, sql in MIGRATIONS:
-        if name == _RELEASE_DDL:
-            return sql
-    raise StoreError("the release migration is missing from the ladder")
+    steps = [sql for _, name, sql in MIGRATIONS
+             if name == _RELEASE_DDL or name.startswith(_RELEASE_DDL + " ")]
+    if not any(name == _RELEASE_DDL for _, name, _ in MIGRATIONS):
+        raise StoreError("the release migration is missing from the ladder")
+    return "\n".join(steps)
 
 
 def insert_release_rows(con: duckdb.DuckDBPyConnection, tables: dict[str, list[dict]],

@@ -161,7 +161,8 @@ def enthalpy_candidates(inputs: ReleaseInputs, vapour_triples: dict[str, tuple[s
         raw = inputs.raw_files[int(o["file_id"])]
         u = _u(o.get("u_value_si"))
         ent = prov.entity("observations", o["file_id"], source_id=o["source_id"], file=raw,
-                          rows=[o["row_number"]], obs_ids=[o["obs_id"]], value=o["value_si"], u=u)
+                          rows=[o["row_number"]], obs_ids=[o["obs_id"]], value=o["value_si"], u=u,
+                          cells=[o["value_cell_ref"]] if o.get("value_cell_ref") else [])
         out.setdefault((o["fluid_id"], "", prop), []).append(Candidate(
             float(o["value_si"]), u, inputs.sources.get(o["source_id"], {}).get("kind", "estimate"),
             "stated", o["source_id"], (ent,), prov.Refs(obs_ids=frozenset({int(o["obs_id"])})),

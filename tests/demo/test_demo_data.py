@@ -8,6 +8,7 @@ import importlib.util
 import io
 import json
 import math
+import re
 import sys
 import tomllib
 from pathlib import Path
@@ -67,8 +68,43 @@ def snapshot(folder: Path, marker: str) -> dict[str, bytes]:
     return files
 
 
+def _cell_text(value) -> str:
+    """A worksheet cell as text: '' when empty, numbers in their shortest form, dates in ISO."""
+    if value is None:
+        return ""
+    if isinstance(value, float):
+        return repr(value)[:-2] if repr(value).endswith(".0") else repr(value)
+    if hasattr(value, "isoformat"):
+        return value.isoformat()
+    return str(value)
+
+
+def read_workbook_rows(folder: Path, table: dict) -> tuple[list[str], list[dict[str, str]]]:
+    """Header and data rows (as text) of a worksheet table, read with openpyxl (independent of
+    the pipeline's reader): error cells read as their error value, e.g. '#VALUE!'."""
+    import openpyxl
+    from openpyxl.utils import range_boundaries
+
+    book = openpyxl.load_workbook(folder / table["file"], read_only=True, data_only=True)
+    try:
+        first_col, first_row, last_col, last_row = (
+            range_boundaries(table["range"]) if "range" in table else (None, 1, None, None))
+        rows = list(book[table["sheet"]].iter_rows(
+            min_row=table.get("header_row", first_row), max_row=last_row, min_col=first_col,
+            max_col=last_col, values_only=True))
+    finally:
+        book.close()
+    header = [_cell_text(v).strip() for v in rows[0]]
+    keep = [i for i, h in enumerate(header) if h]
+    data = [{header[i]: _cell_text(r[i] if i < len(r) else None).strip() for i in keep}
+            for r in rows[1:] if any(v is not None for v in r)]
+    return [header[i] for i in keep], data
+
+
 def read_rows(folder: Path, table: dict) -> tuple[list[str], list[dict[str, str]]]:
     """Header and data rows (as text) of a table, with its declared dialect."""
+    if table["file"].endswith(".xlsx"):
+        return read_workbook_rows(folder, table)
     text = (folder / table["file"]).read_text(table.get("encoding", "utf-8"))
     comment = table.get("comment", "")
     lines = [ln for ln in text.split("\n") if ln.strip() and not (comment and ln.lstrip().startswith(comment))]
@@ -230,7 +266,8 @@ def test_readme_describes_every_batch_and_flaw_file():
         assert folder.name in readme, folder.name
     for f in ("nitrogen-vapour-pressure-rig-b.csv", "water-vapour-pressure-rig-b.csv",
               "co2-vle-rig-a.csv", "co2-melting-transcribed.csv", "co2-vapour-pressure-rig-b.csv",
-              "nitrogen-gauge-rig-a.csv", "water-vapour-pressure-rig-a.csv"):
+              "nitrogen-gauge-rig-a.csv", "water-vapour-pressure-rig-a.csv",
+              "nitrogen-rig-c-campaign.xlsx"):
         assert f in readme, f
 
 
@@ -374,7 +411,8 @@ def test_flaw_nitrogen_sources_disagree_on_tc():
 
 def test_flaw_rows_to_quarantine_are_in_lab_files():
     """Lab files hold a non-numeric cell, an empty required cell, a negative absolute pressure,
-    a temperature <= 0 K and a NaN; no other file has any such row, and argon has none."""
+    a temperature <= 0 K, a NaN, and (in the workbook) an error cell and a date in a number
+    column; no other file has any such row, and argon has none."""
     found: dict[str, list[str]] = {}
     for folder, m, t in all_tables():
         if "pressure" not in t:
@@ -384,7 +422,11 @@ def test_flaw_rows_to_quarantine_are_in_lab_files():
         for r, (T, p) in zip(rows, si_rows(folder, t)):
             cells = [r[t["temperature"]["column"]], r[t["pressure"]["column"]]]
             kinds = []
-            if any(c.lower() == "nan" for c in cells):
+            if any(c.startswith("#") for c in cells):
+                kinds.append("error-cell")
+            elif any(re.fullmatch(r"\d{4}-\d\d-\d\d(T[0-9:]+)?", c) for c in cells):
+                kinds.append("date")
+            elif any(c.lower() == "nan" for c in cells):
                 kinds.append("nan")
             elif any(c == "" for c in cells):
                 kinds.append("empty")
@@ -398,7 +440,8 @@ def test_flaw_rows_to_quarantine_are_in_lab_files():
                 found.setdefault(k, []).append(folder.name)
                 assert m["source"]["kind"] == "measurement" and t["fluid"] != "argon", (k, folder.name)
     assert {k: len(v) for k, v in found.items()} == {
-        "nan": 1, "empty": 1, "non-numeric": 1, "T<=0": 1, "negative-p": 1}
+        "nan": 1, "empty": 1, "non-numeric": 1, "T<=0": 1, "negative-p": 1, "error-cell": 1,
+        "date": 1}
 
 
 def test_argon_lab_data_is_clean_after_ipts68_conversion():
@@ -428,8 +471,8 @@ def test_clean_lab_rows_scatter_as_stated():
     (z from the stated pressure and temperature uncertainties)."""
     skip = {"brackenridge-rig-b-nitrogen-2022-11", "brackenridge-rig-b-water-2021-03"}
     for folder, m, t in all_tables():
-        if m["source"]["kind"] != "measurement" or folder.name in skip:
-            continue
+        if m["source"]["kind"] != "measurement" or folder.name in skip or "pressure" not in t:
+            continue                                   # (density-only sheets: the next test)
         if t["temperature"].get("scale", "ITS-90") != "ITS-90":
             continue                                   # argon: checked above with conversion
         _, rows = read_rows(folder, t)
@@ -450,3 +493,17 @@ def test_clean_lab_rows_scatter_as_stated():
             if abs(p / ref - 1) > 0.05:
                 continue                               # the planted +8 % outlier
             assert abs(zz) < 3.5, (folder.name, T, zz)
+
+
+def test_workbook_densities_scatter_as_stated():
+    """The rig C workbook's Densities sheet (13 rows) scatters about the reference saturated
+    densities with |z| < 3 (z from the stated relative uncertainties, 5e-4 and 2e-3)."""
+    folder = RAW / "brackenridge-rig-c-nitrogen-2026-01"
+    t = next(t for t in manifest(folder)["table"] if t["sheet"] == "Densities")
+    _, rows = read_rows(folder, t)
+    assert len(rows) == 13
+    for q, spec in t["columns"].items():
+        curve = reference_curve("nitrogen", "liquid-vapour", q)
+        rel = t["uncertainty"][q]["relative"]
+        z = [(float(r[spec["column"]]) / curve.value(float(r["T_K"])) - 1) / rel for r in rows]
+        assert max(abs(x) for x in z) < 3.0, (q, z)

@@ -121,18 +121,21 @@ def test_provenance_resolves_to_raw_rows(published_demo):
     records = con.execute("SELECT value_id, was_derived_from FROM release_provenance "
                           "WHERE release_id = ?", [rid]).fetchall()
     assert {v for v, _ in records} == values
-    files = {r[0]: r[1] for r in con.execute("SELECT sha256, path FROM raw_file").fetchall()}
+    # (the sheets of one workbook share its hash, so a hash and a path identify a file together)
+    files = set(con.execute("SELECT sha256, path FROM raw_file").fetchall())
     checked = 0
     for value_id, entities in records:
         for e in entities:
             if e["entity"] in ("fixed_point", "stated_constant", "observations"):
-                assert files.get(e["file_sha256"]) == e["file_path"], value_id
+                assert (e["file_sha256"], e["file_path"]) in files, value_id
             if e["entity"] == "observations":
-                rows = con.execute(
-                    "SELECT list(row_number ORDER BY obs_id) FROM observation "
+                rows, cells = con.execute(
+                    "SELECT list(row_number ORDER BY row_number, obs_id), "
+                    "list(value_cell_ref ORDER BY row_number, obs_id) FROM observation "
                     "WHERE list_contains(?, obs_id) AND file_id = ?",
-                    [e["obs_ids"], int(e["entity_id"])]).fetchone()[0]
+                    [e["obs_ids"], int(e["entity_id"])]).fetchone()
                 assert sorted(rows) == sorted(e["row_numbers"]) and rows, value_id
+                assert e["cells"] == ([] if cells[0] is None else cells), value_id
                 checked += 1
             elif e["entity"] == "fixed_point":
                 assert con.execute("SELECT entry_number FROM fixed_point WHERE fp_id = ?",

@@ -56,6 +56,38 @@ def test_old_store_migrates_forward(store_path, start):
         assert migrate(s.con) == []
 
 
+def test_cell_migrations_keep_old_rows_with_no_cells(store_path):
+    """A version-4 store with an observation, a quarantined row and a release record gains the
+    workbook cell columns (005, 006): old rows keep their values, their cells are NULL, and the
+    views show the new columns."""
+    con = duckdb.connect(str(store_path))
+    for number, _, sql in MIGRATIONS[:4]:
+        con.execute(sql)
+        con.execute("INSERT INTO schema_version VALUES (?, now(), 'fixture')", [number])
+    con.execute("INSERT INTO raw_file VALUES (1, 'aa', 'bb', 'b1/vp.csv', 'b1', 'table', 's', 0, "
+                "'argon', 'liquid-vapour', '', 10, 1, 1, 0, 'r', now(), NULL, NULL)")
+    con.execute("INSERT INTO raw_column VALUES (1, 'temperature', 'T', 'K', 'ITS-90', 'K', NULL),"
+                " (1, 'pressure', 'p', 'kPa', NULL, 'Pa', NULL)")
+    con.execute("INSERT INTO observation VALUES (7, 1, 1, 'pressure', 87.3, NULL, 101300.0, NULL, "
+                "'87.3', '101.3')")
+    con.execute("INSERT INTO quarantine VALUES (1, 1, 'aa', 'b1/vp.csv', 2, 'p', 'x', "
+                "'not-a-number', 'm', 'r')")
+    con.execute("INSERT INTO release_provenance VALUES ('r1', 'argon/x', 'argon', 'curve', "
+                "'fitted', 'f', 'fit', [], [{'entity': 'observations', 'entity_id': '1', "
+                "'source_id': 's', 'file_sha256': 'aa', 'file_path': 'b1/vp.csv', "
+                "'row_numbers': [1], 'obs_ids': [7], 'value_si': NULL, 'u_si': NULL, "
+                "'used': true, 'note': 'used'}], [], [])")
+    con.close()
+    with open_store(store_path) as s:
+        assert current_version(s.con) >= 6
+        assert s.con.execute("SELECT obs_id, value_si, T_cell_ref, value_cell_ref FROM "
+                             "observation_current").fetchall() == [(7, 101300.0, None, None)]
+        assert s.con.execute("SELECT reason_code, cell_ref FROM quarantine_current").fetchall() \
+            == [("not-a-number", None)]
+        assert s.con.execute("SELECT was_derived_from[1].row_numbers, was_derived_from[1].cells "
+                             "FROM release_provenance").fetchall() == [([1], None)]
+
+
 def test_second_writer_gets_busy_error(store_path):
     """While one process holds the store, a second writer gets 'busy, retry later' with the PID."""
     open_store(store_path).close()
