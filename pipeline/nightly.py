@@ -132,6 +132,17 @@ class NightlyResult:
                 "stages": {k: s.asdict() for k, s in self.stages.items()},
                 "changes": self.changes, "publish": self.publish, "report": self.report}
 
+    def verdict_line(self) -> str:
+        """The run in one line: verdict, exit code, counts, publication and the report path
+        (what ``fluidledger nightly`` prints off a terminal, e.g. from cron)."""
+        counts = ", ".join(f"{n} {s}" for s, n in self.counts.items() if n)
+        pub = self.publish
+        return (f"nightly {self.run_id}: {self.verdict.upper()} (exit {self.exit_code}); "
+                f"checks: {counts or 'none'}" + ("; no changes" if self.no_changes else "")
+                + f"; publish: {pub['status']}"
+                + (f" {pub['release_id']}" if pub.get("release_id") else "")
+                + (f"; report: {self.report['html']}" if self.report.get("html") else ""))
+
     def asstr(self) -> str:
         counts = ", ".join(f"{n} {s}" for s, n in self.counts.items() if n)
         lines = [f"nightly {self.run_id}: {self.verdict.upper()} (exit {self.exit_code}); "

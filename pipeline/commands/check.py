@@ -14,6 +14,7 @@ from pipeline.checks import POSTPROCESSORS  # issue 8
 from pipeline.decisions import (  # issue 8: waivers and threshold overrides
     WaiverStep, add_decisions_argument, load_decisions, with_threshold_overrides)
 from pipeline.errors import CheckError
+from pipeline.progress import brief
 from pipeline.store import open_store
 
 NAME = "check"
@@ -65,7 +66,9 @@ def run(args) -> int:
     if args.quiet:
         print(result.asstr(), file=sys.stdout)
     else:
-        print_run(result, sys.stdout, show_all=args.show_all)
+        # off a terminal (cron, CI): the findings needing attention and the verdict only
+        print_run(result, sys.stdout, show_all=args.show_all,
+                  counts_table=args.show_all or not brief(args))
         for line in waivers.notes():  # issue 8
             print(line)
     return result.exit_code(args.fail_on)
