@@ -263,14 +263,26 @@ class Curation:
 
         return with_threshold_overrides(thresholds, self.decisions)
 
-    def postprocessors(self) -> tuple:
+    def check_exclusions(self, con):
+        """What the checks leave out (computed once per run); None without decisions."""
+        if self.decisions is None:
+            return None
+        from pipeline.decisions.checks import check_exclusions
+
+        return check_exclusions(con, self.decisions)
+
+    def check_inputs(self, data: dict, exclusions, thresholds) -> tuple[dict, tuple]:
+        """The fluids as the checks read them (excluded data left out) and the post-processing
+        steps: the engine's, the exclusion step (findings resting on excluded data become
+        ``excluded``), the waiver step."""
         from pipeline.checks.engine import POSTPROCESSORS
 
         if self.decisions is None:
-            return POSTPROCESSORS
-        from pipeline.decisions import WaiverStep
+            return data, POSTPROCESSORS
+        from pipeline.decisions.checks import check_inputs
 
-        return (*POSTPROCESSORS, WaiverStep(self.decisions))
+        kept, steps = check_inputs(None, self.decisions, data, thresholds, exclusions)
+        return kept, (*POSTPROCESSORS, *steps)
 
     def publish_decisions(self, con):
         from pipeline.publish.policy import NO_DECISIONS
@@ -478,10 +490,11 @@ def _check(con, opts: NightlyOptions, prev: PreviousState, contexts: dict, selec
     for old_run, fluids in reuse.items():
         results.extend(_reused_results(con, old_run, fluids))
     chunks = [recheck[i:i + CHECK_CHUNK] for i in range(0, len(recheck), CHECK_CHUNK)]
-    steps = curation.postprocessors()
+    exclusions = curation.check_exclusions(con) if recheck else None
     with stage_progress("check", len(chunks), quiet=opts.quiet) as tick:
         for chunk in chunks:
-            data = load_fluid_data(con, chunk)
+            data, steps = curation.check_inputs(load_fluid_data(con, chunk), exclusions,
+                                                thresholds)
             results.extend(run_checks(data, thresholds=thresholds, postprocessors=steps).results)
             tick(f"{chunk[0]}..{chunk[-1]}")
     check_run = CheckRun(

@@ -14,7 +14,7 @@ from pipeline.errors import EXIT_INTERNAL, CheckError
 
 SCHEMA = "check-results.schema.json"
 #: statuses listed one row each by default; the others are counted per check
-LISTED = ("fail", "error", "warn", "waived")
+LISTED = ("fail", "error", "warn", "waived", "excluded")
 _HEADERS = ("status", "check", "fluid", "subject", "statistic", "measured", "limit", "message")
 
 
@@ -60,7 +60,7 @@ def _rich(rows, stream, title: str) -> None:
 
 
 def counts_by_check(run: CheckRun) -> list[tuple]:
-    """(check, pass, warn, fail, skip, error, waived) per check of the run."""
+    """(check, count per status of :data:`STATUS_ORDER`) per check of the run."""
     per: dict[str, dict[str, int]] = defaultdict(lambda: dict.fromkeys(STATUS_ORDER, 0))
     for r in run.results:
         per[r.check_id][r.status] += 1
@@ -145,7 +145,7 @@ def _case(suite: ET.Element, r: CheckResult) -> None:
         ET.SubElement(case, "failure", message=r.message, type=r.statistic or "fail").text = evidence
     elif r.status == "error":
         ET.SubElement(case, "error", message=r.message, type="error").text = evidence
-    elif r.status in ("skip", "waived"):
+    elif r.status in ("skip", "waived", "excluded"):
         ET.SubElement(case, "skipped", message=r.message)
     elif r.status == "warn":
         ET.SubElement(case, "system-out").text = f"WARNING: {r.message}\n{evidence}"
@@ -154,8 +154,8 @@ def _case(suite: ET.Element, r: CheckResult) -> None:
 def junit_xml(run: CheckRun) -> str:
     """JUnit XML: one testsuite per check, one testcase per fluid and subject.
 
-    Failures carry the message and the evidence, errors are ``<error>``, skips and waived
-    findings ``<skipped>``; warnings are passing cases with the message in ``<system-out>``.
+    Failures carry the message and the evidence, errors are ``<error>``, skips, waived and
+    excluded findings ``<skipped>``; warnings are passing cases with the message in ``<system-out>``.
     """
     root = ET.Element("testsuites", name=f"fluidledger check {run.run_id}")
     by_check: dict[str, list[CheckResult]] = defaultdict(list)
@@ -167,7 +167,7 @@ def junit_xml(run: CheckRun) -> str:
         results = sorted(by_check.get(check_id, []), key=lambda r: (r.fluid_id, r.subject))
         n = {"tests": len(results), "failures": sum(r.status == "fail" for r in results),
              "errors": sum(r.status == "error" for r in results),
-             "skipped": sum(r.status in ("skip", "waived") for r in results)}
+             "skipped": sum(r.status in ("skip", "waived", "excluded") for r in results)}
         seconds = sum(r.duration_s or 0.0 for r in results)
         suite = ET.SubElement(root, "testsuite", name=check_id, time=f"{seconds:.6f}",
                               **{k: str(v) for k, v in n.items()})

@@ -1,8 +1,8 @@
 """Run history: how each check's status moved between check runs, computed from the store.
 
 Every check run keeps all its findings in ``check_result``. For each (check, fluid) pair a run
-has one *status*: the worst over the pair's subjects (fail, error, warn, waived, pass, skip, in
-that order), plus the set of subjects that fail. :func:`transitions` walks the runs in order and
+has one *status*: the worst over the pair's subjects (fail, error, warn, waived, excluded, pass,
+skip, in that order), plus the set of subjects that fail. :func:`transitions` walks the runs in order and
 reports every pair whose status or failing subjects differ from the last run that checked the
 pair (a run that did not check a fluid leaves its last known status untouched). One SQL query
 with a window over the runs does the walk, so it stays fast for thousands of fluids.
@@ -18,7 +18,7 @@ from dataclasses import dataclass, field
 from typing import Iterable, Sequence
 
 #: Status order, worst first; a (check, fluid) pair has the worst status of its subjects.
-STATUS_RANK = ("fail", "error", "warn", "waived", "pass", "skip")
+STATUS_RANK = ("fail", "error", "warn", "waived", "excluded", "pass", "skip")
 FAILING = frozenset({"fail", "error"})
 
 _RANK_SQL = "CASE c.status " + " ".join(

@@ -43,7 +43,7 @@ table{border-collapse:collapse;margin:6px 0 12px;font-size:.9em}
 th,td{border:1px solid #ddd;padding:3px 7px;text-align:left;vertical-align:top}
 th{background:#f3f3f3}td.num{text-align:right;font-variant-numeric:tabular-nums}
 .s-fail,.s-error{color:#a01010;font-weight:600}.s-warn{color:#8a6000;font-weight:600}
-.s-pass{color:#186018}.s-skip,.s-waived{color:#666}
+.s-pass{color:#186018}.s-skip,.s-waived,.s-excluded{color:#666}
 .card{border:1px solid #e0b4b4;border-radius:5px;padding:8px 12px;margin:8px 0;background:#fffafa}
 .card.warn{border-color:#e6d3a0;background:#fffdf5}
 pre{white-space:pre-wrap;word-break:break-word;font-size:.8em;background:#f7f7f7;padding:6px;
