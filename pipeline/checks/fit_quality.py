@@ -45,11 +45,10 @@ def _cause(too_low: bool, off: list[dict], equation_kinds) -> str:
         return (f"the residuals are far larger than the stated uncertainties, which are likely "
                 f"too small: {names}; or the correlation form cannot follow the data")
     if off and all(s["kind"] in equation_kinds for s in off):
-        return (f"the stated uncertainties of {names} are far larger than the residuals: these "
-                "points are samples of an evaluated equation, which carry no scatter, so the "
-                "fit cannot test their uncertainties and its uncertainty band rests on them "
-                "alone; if they are the equation's own (type B) uncertainty this is expected "
-                "and the finding can be waived, otherwise they are likely too large")
+        return (f"the stated uncertainties of {names} are far larger than the residuals; "
+                "samples of an evaluated equation carry no scatter, so the fit cannot test "
+                "them (expected if they are the equation's own type B uncertainty: waive; "
+                "otherwise they are too large)")
     return (f"the residuals are far smaller than the stated uncertainties, which are likely too "
             f"large: {names}; look for expanded (k = 2) uncertainties entered as standard "
             "ones, a relative uncertainty entered in percent, or a wrong unit in an "
