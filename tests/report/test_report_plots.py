@@ -237,3 +237,16 @@ def test_render_figures_round_trips_through_the_cache_form():
     figs = render_figures(_data(flag_lab=True))
     back = FluidFigures.from_json(figs.to_json())
     assert back == figs and back.deviation_svg and back.flags[0]["number"] == 1
+
+
+def test_hover_texts_with_markup_are_escaped_in_the_svg():
+    """A source id or file name holding markup reaches the SVG as text, never as elements."""
+    d = _data()
+    obs = d.observations
+    evil = "<script>alert(1)</script>"
+    src = np.where(obs.source_id == "lab-a", evil, obs.source_id).astype(object)
+    obs = Observations.build(obs.T_K, obs.p_Pa, src, obs.boundary, obs.obs_id,
+                             source_kind=obs.source_kind, file_path=obs.file_path)
+    text = figure_svg(phase_diagram(PhaseDiagramData("argon", "argon", obs, d.curves)),
+                      prefix="e-", figure="phase", fluid_id="argon", label="x")
+    assert "<script" not in text and "&lt;script&gt;alert(1)&lt;/script&gt;" in text
