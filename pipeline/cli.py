@@ -49,17 +49,43 @@ def build_parser() -> argparse.ArgumentParser:
         p = sub.add_parser(module.NAME, help=module.HELP, description=module.HELP)
         p.add_argument("--store", metavar="PATH", default=None,
                        help="working store (default: $FLUIDLEDGER_STORE or curated/fluidledger.duckdb)")
-        p.add_argument("-q", "--quiet", action="store_true", help="print only errors and the verdict")
-        p.add_argument("-v", "--verbose", action="store_true", help="print debug log lines")
+        p.add_argument("-q", "--quiet", action="store_true",
+                       help="print only errors and the one-line result")
+        p.add_argument("-v", "--verbose", action="store_true",
+                       help="print the full result and the timestamped log lines, also when "
+                            "the output is not a terminal")
         module.add_arguments(p)
         p.set_defaults(_run=module.run)
     return parser
 
 
+class _ConsoleFilter(logging.Filter):
+    """With --verbose: FluidLedger's own debug lines, other libraries' from INFO up."""
+
+    def filter(self, record: logging.LogRecord) -> bool:
+        own = record.name.startswith(("pipeline", "fluidledger"))
+        return own or record.levelno >= logging.INFO
+
+
 def _configure_logging(args) -> None:
-    level = logging.DEBUG if args.verbose else logging.WARNING if args.quiet else logging.INFO
-    logging.basicConfig(level=level, format="%(asctime)s %(levelname)s %(name)s: %(message)s",
-                        stream=sys.stderr, force=True)
+    """stderr shows warnings and errors only (errors only with --quiet): a cron job mails
+    nothing on a quiet night, and a terminal shows the progress bar instead of log lines.
+    ``--verbose`` adds the timestamped INFO and DEBUG lines; the nightly job keeps the full
+    log in its nightly.log whatever the console shows (:func:`pipeline.nightly.run_log`)."""
+    console = logging.StreamHandler(sys.stderr)
+    if args.verbose:
+        console.setLevel(logging.DEBUG)
+        console.addFilter(_ConsoleFilter())
+        console.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s: %(message)s"))
+    else:
+        console.setLevel(logging.ERROR if args.quiet else logging.WARNING)
+        console.setFormatter(logging.Formatter("fluidledger: %(levelname)s: %(message)s"))
+    root = logging.getLogger()
+    for h in list(root.handlers):
+        root.removeHandler(h)
+    root.addHandler(console)
+    root.setLevel(logging.DEBUG if args.verbose else logging.INFO)
+    logging.captureWarnings(True)   # Python warnings follow the same rule as log records
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -132,6 +132,17 @@ class NightlyResult:
                 "stages": {k: s.asdict() for k, s in self.stages.items()},
                 "changes": self.changes, "publish": self.publish, "report": self.report}
 
+    def verdict_line(self) -> str:
+        """The run in one line: verdict, exit code, counts, publication and the report path
+        (what ``fluidledger nightly`` prints off a terminal, e.g. from cron)."""
+        counts = ", ".join(f"{n} {s}" for s, n in self.counts.items() if n)
+        pub = self.publish
+        return (f"nightly {self.run_id}: {self.verdict.upper()} (exit {self.exit_code}); "
+                f"checks: {counts or 'none'}" + ("; no changes" if self.no_changes else "")
+                + f"; publish: {pub['status']}"
+                + (f" {pub['release_id']}" if pub.get("release_id") else "")
+                + (f"; report: {self.report['html']}" if self.report.get("html") else ""))
+
     def asstr(self) -> str:
         counts = ", ".join(f"{n} {s}" for s, n in self.counts.items() if n)
         lines = [f"nightly {self.run_id}: {self.verdict.upper()} (exit {self.exit_code}); "
@@ -252,14 +263,26 @@ class Curation:
 
         return with_threshold_overrides(thresholds, self.decisions)
 
-    def postprocessors(self) -> tuple:
+    def check_exclusions(self, con):
+        """What the checks leave out (computed once per run); None without decisions."""
+        if self.decisions is None:
+            return None
+        from pipeline.decisions.checks import check_exclusions
+
+        return check_exclusions(con, self.decisions)
+
+    def check_inputs(self, data: dict, exclusions, thresholds) -> tuple[dict, tuple]:
+        """The fluids as the checks read them (excluded data left out) and the post-processing
+        steps: the engine's, the exclusion step (findings resting on excluded data become
+        ``excluded``), the waiver step."""
         from pipeline.checks.engine import POSTPROCESSORS
 
         if self.decisions is None:
-            return POSTPROCESSORS
-        from pipeline.decisions import WaiverStep
+            return data, POSTPROCESSORS
+        from pipeline.decisions.checks import check_inputs
 
-        return (*POSTPROCESSORS, WaiverStep(self.decisions))
+        kept, steps = check_inputs(None, self.decisions, data, thresholds, exclusions)
+        return kept, (*POSTPROCESSORS, *steps)
 
     def publish_decisions(self, con):
         from pipeline.publish.policy import NO_DECISIONS
@@ -469,10 +492,11 @@ def _check(con, opts: NightlyOptions, prev: PreviousState, contexts: dict, selec
     for old_run, fluids in reuse.items():
         results.extend(_reused_results(con, old_run, fluids))
     chunks = [recheck[i:i + CHECK_CHUNK] for i in range(0, len(recheck), CHECK_CHUNK)]
-    steps = curation.postprocessors()
+    exclusions = curation.check_exclusions(con) if recheck else None
     with stage_progress("check", len(chunks), quiet=opts.quiet) as tick:
         for chunk in chunks:
-            data = load_fluid_data(con, chunk)
+            data, steps = curation.check_inputs(load_fluid_data(con, chunk), exclusions,
+                                                thresholds)
             results.extend(run_checks(data, thresholds=thresholds, postprocessors=steps).results)
             tick(f"{chunk[0]}..{chunk[-1]}")
     check_run = CheckRun(
@@ -562,43 +586,67 @@ def _value_changes(con, prev: PreviousState, pub: dict, selected, fits_now) -> t
 
 
 # -- stage 5: report -------------------------------------------------------------------------
+def _decide_context(con, opts, curation: Curation, results) -> Any:
+    """What the report's decide commands need: store and decisions file of the run, the source
+    of each raw file, and the rows of the files that findings are about."""
+    from pipeline.report.actions import DecideContext
+
+    files = sorted({r.subject[len("file:"):].split("|", 1)[0] for r in results
+                    if r.status in ("warn", "fail") and r.subject.startswith("file:")})
+    sources = dict(con.execute("SELECT path, source_id FROM raw_file_current WHERE role = "
+                               "'table'").fetchall())
+    rows: dict[str, list[int]] = {}
+    for path, row in con.execute("SELECT file_path, row_number FROM observation_current WHERE "
+                                 "list_contains(?, file_path) ORDER BY 1, 2", [files]).fetchall():
+        rows.setdefault(path, []).append(int(row))
+    decisions = curation.path or str(opts.raw / "decisions.toml")
+    return DecideContext(str(opts.store) if opts.store else None, decisions, sources, rows)
+
+
 def _report(con, opts, result: NightlyResult, check_run, selected, check_fp,
             curation: Curation) -> tuple[Stage, Any]:
-    from pipeline.report import content, plots
+    from pipeline.report import content, deviation, figures, labels, plots, svg
+    from pipeline.report.figures import FluidFigures
     from pipeline.report.files import PlotCache, source_hash
     from pipeline.report.html import ReportPage
 
     t0 = time.perf_counter()
     sections = content.fluid_sections(con, selected)
     flagged = content.flagged_from_results(check_run.results)
-    code = source_hash(plots, content)
+    code = source_hash(plots, content, deviation, figures, labels, svg)
     cache = PlotCache(opts.reports / ".cache" / "plots", enabled=not opts.full)
-    keys = {f: _h(code, check_fp.get(f), sections[f].name, sections[f].formula,
-                  sorted((k, sorted(v)) for k, v in flagged.get(f, {}).get("obs", {}).items()),
-                  sorted((k, sorted(v)) for k, v in flagged.get(f, {}).get("files", {}).items()))
+
+    def marks(f: str) -> list:
+        entry = flagged.get(f, {})
+        return [sorted((str(k), sorted(v)) for k, v in entry.get(part, {}).items())
+                for part in ("obs", "files")] + [sorted(entry.get("corrections", {}).items())]
+
+    keys = {f: _h(code, check_fp.get(f), sections[f].name, sections[f].formula, marks(f))
             for f in sections}
-    images = {f: cache.get(k) for f, k in keys.items()}
-    todo = [f for f in sections if images[f] is None]
+    cached = {f: cache.get(k) for f, k in keys.items()}
+    figs = {f: FluidFigures.from_json(b) if b is not None else None for f, b in cached.items()}
+    todo = [f for f in sections if figs[f] is None]
     drawn = 0
     with stage_progress("plots", len(todo), quiet=opts.quiet) as tick:
         for start in range(0, len(todo), 50):
             batch = todo[start:start + 50]
             for f, data in content.diagram_data(con, sections, batch, flagged).items():
                 if len(data.observations) or data.curves:
-                    images[f] = plots.figure_png(plots.phase_diagram(data))
-                    cache.put(keys[f], images[f])
+                    figs[f] = figures.render_figures(data)
+                    cache.put(keys[f], figs[f].to_json())
                     drawn += 1
                 tick(f)
     if not opts.fluids:
         cache.prune(set(keys.values()))
-    page = ReportPage({}, check_run, sections, images,
+    page = ReportPage({}, check_run, sections, figs,
                       decisions=curation.report_rows(con, check_run.run_id),
-                      fluid_order=selected)
-    cached = len(sections) - len(todo)
-    text = (f"{drawn} plot(s) drawn, {cached} from the cache, {len(todo) - drawn} fluid(s) "
-            "without pressure data")
+                      fluid_order=selected,
+                      decide=_decide_context(con, opts, curation, check_run.results))
+    n_cached = len(sections) - len(todo)
+    text = (f"{drawn} fluid(s) drawn, {n_cached} from the cache, {len(todo) - drawn} "
+            "fluid(s) without pressure data")
     return Stage("written", time.perf_counter() - t0, text,
-                 {"plots_drawn": drawn, "plots_cached": cached}), page
+                 {"plots_drawn": drawn, "plots_cached": n_cached}), page
 
 
 # -- the run ---------------------------------------------------------------------------------

@@ -6,6 +6,10 @@ import csv
 import sys
 from typing import Iterable, Sequence
 
+#: Columns whose cells are all at most this long are never wrapped on a terminal (ids, numbers,
+#: dates); longer text columns take the wrapping.
+NO_WRAP_WIDTH = 40
+
 
 def _fmt(value) -> str:
     if value is None:
@@ -29,10 +33,12 @@ def print_table(headers: Sequence[str], rows: Iterable[Sequence], *, title: str 
         from rich.table import Table
 
         table = Table(title=title)
-        for h in headers:
-            table.add_column(str(h))
-        for r in rows:
-            table.add_row(*(_fmt(v) for v in r))
+        cells = [[_fmt(v) for v in r] for r in rows]
+        for i, h in enumerate(headers):   # short cells (ids, numbers) never wrap mid-word
+            longest = max([len(str(h))] + [len(r[i]) for r in cells])
+            table.add_column(str(h), no_wrap=longest <= NO_WRAP_WIDTH)
+        for r in cells:
+            table.add_row(*r)
         Console(file=stream).print(table)
         return
     cells = [[_fmt(v) for v in r] for r in rows]

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from pipeline.decisions import add_decisions_argument, exclusions_for_fit, load_decisions
+from pipeline.progress import brief
 from pipeline.store import open_store
 
 NAME = "fit"
@@ -28,6 +29,8 @@ def run(args) -> int:
         exclusions = exclusions_for_fit(store.con, decisions)  # issue 8
         result = run_fit(store.con, fluids=args.fluid, settings=settings, full=args.full,
                          exclusions=exclusions)
-    if not args.quiet:
+    if not brief(args):
         print(result.asstr())
+    elif result.changed:   # off a terminal: the counts line only, nothing when nothing changed
+        print("fit: " + result.asstr().splitlines()[-1])
     return 0

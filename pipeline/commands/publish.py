@@ -12,6 +12,7 @@ import json
 from pathlib import Path
 
 from pipeline.decisions import add_decisions_argument, load_decisions, publish_decisions  # issue 8
+from pipeline.progress import brief
 from pipeline.store import open_store
 
 NAME = "publish"
@@ -46,7 +47,7 @@ def run(args) -> int:
                          decisions=publish_decisions(store.con, decisions))  # issue 8
     if args.json:
         print(json.dumps(result.asdict(), indent=2, sort_keys=True))
-    elif not args.quiet:
+    elif not brief(args):
         print(result.asstr())
     else:
         print(f"release {result.release_id}" + (" (marked: failed checks)"

@@ -23,7 +23,7 @@ from typing import Iterable
 from pipeline.publish.inputs import BAD_STATUSES, ReleaseInputs
 
 #: Worst first; a value with no bearing finding has status "none".
-STATUS_SEVERITY = ("fail", "error", "warn", "waived", "pass", "skip")
+STATUS_SEVERITY = ("fail", "error", "warn", "waived", "excluded", "pass", "skip")
 
 
 def worst_status(statuses: Iterable[str]) -> str:
