@@ -44,11 +44,6 @@ def _cause(too_low: bool, off: list[dict], equation_kinds) -> str:
     if not too_low:
         return (f"the residuals are far larger than the stated uncertainties, which are likely "
                 f"too small: {names}; or the correlation form cannot follow the data")
-    if off and all(s["kind"] in equation_kinds for s in off):
-        return (f"the stated uncertainties of {names} are far larger than the residuals; "
-                "samples of an evaluated equation carry no scatter, so the fit cannot test "
-                "them (expected if they are the equation's own type B uncertainty: waive; "
-                "otherwise they are too large)")
     return (f"the residuals are far smaller than the stated uncertainties, which are likely too "
             f"large: {names}; look for expanded (k = 2) uncertainties entered as standard "
             "ones, a relative uncertainty entered in percent, or a wrong unit in an "
@@ -72,9 +67,10 @@ def reduced_chi2(fluid: FluidData, th):
 
     Usual causes: expanded (k = 2) uncertainties entered as standard ones, a relative
     uncertainty in percent entered as a fraction (or the reverse), a wrong unit in an
-    uncertainty column; for samples of an evaluated equation, which carry no scatter, a low
-    value is expected (their stated uncertainty is the equation's own, type B) — waive it once
-    understood; a high value: uncertainties stated too small, or a form too stiff for the data.
+    uncertainty column; a high value: uncertainties stated too small, or a form too stiff for
+    the data. For samples of an evaluated equation (sources of the equation_kinds), which carry
+    no scatter, a low value is expected -- their stated uncertainty is the equation's own, type
+    B -- and passes with that said: only a low value some other source shares is reported.
     """
     out = []
     for key, curve in sorted(fluid.curves.items()):
@@ -105,6 +101,18 @@ def reduced_chi2(fluid: FluidData, th):
             continue
         too_low = chi2 < low
         off = [s for s in sources if (s["mean_z2"] < low if too_low else s["mean_z2"] > high)]
+        # sources with too few points to show a scatter do not decide the cause
+        carrying = [s for s in off if s["n"] >= th["min_dof"]] or off
+        if too_low and carrying and all(s["kind"] in th["equation_kinds"] for s in carrying):
+            # expected, not an oddity: samples of an evaluated equation carry no scatter, and
+            # their stated u is the equation's own (type B; the budget treats it as shared by
+            # all the file's points)
+            out.append(Finding(fluid.fluid_id, subject, PASS,
+                               f"{context}: reduced chi-square = {num(chi2)} < {num(low)}, as "
+                               "expected of samples of an evaluated equation (no scatter; their "
+                               "stated u is the equation's own, type B)", chi2, low,
+                               "reduced chi-square", evidence))
+            continue
         limit = low if too_low else high
         rule = f"reduced chi-square = {num(chi2)} {'<' if too_low else '>'} {num(limit)}"
         out.append(Finding(fluid.fluid_id, subject, VIOLATED,

@@ -73,14 +73,20 @@ def test_uncertainties_far_smaller_than_the_scatter_warn_too():
     assert "likely too small: lab-x" in f.message
 
 
-def test_equation_samples_are_named_as_such():
+def test_equation_samples_pass_as_expected():
     """Noise-free samples of an evaluated equation give chi2_nu far below 1 (only the form's
-    misfit is left); the warning says they carry no scatter and that a type B uncertainty is
-    expected."""
+    misfit is left): expected of an equation's samples, whose stated u is its own type B
+    uncertainty, so the finding passes and says why (no warning a curator must waive)."""
     f = _finding(_fluid(1e-3, kind="evaluated", noise=0.0))
-    assert f.status == "violated" and f.measured < 1e-3
-    assert "samples of an evaluated equation carry no scatter" in f.message
-    assert "type B" in f.message
+    assert f.status == "pass" and f.measured < 1e-3
+    assert "samples of an evaluated equation" in f.message and "type B" in f.message
+
+
+def test_the_same_low_value_from_a_lab_is_reported():
+    """The same noise-free points stated by a lab ('measurement') are reported: a lab's scatter
+    far below its stated u means the u is wrong (e.g. k = 2 entered as k = 1)."""
+    f = _finding(_fluid(1e-3, kind="measurement", noise=0.0))
+    assert f.status == "violated" and "likely too large" in f.message
 
 
 def test_too_few_degrees_of_freedom_skip():
