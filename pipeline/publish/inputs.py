@@ -27,6 +27,9 @@ ENTHALPY_QUANTITIES = ("h_fusion", "h_vaporization", "h_sublimation")
 BAD_STATUSES = ("fail", "error")
 
 
+_PLAIN = frozenset({int, str, bool, type(None)})
+
+
 def _clean(value: Any) -> Any:
     """JSON-safe copy: non-finite floats -> None, tuples -> lists."""
     if isinstance(value, float):
@@ -34,6 +37,8 @@ def _clean(value: Any) -> Any:
     if isinstance(value, dict):
         return {k: _clean(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
+        if set(map(type, value)) <= _PLAIN:    # lists of ids: nothing to clean, one C call
+            return list(value)
         return [_clean(v) for v in value]
     return value
 
@@ -92,6 +97,52 @@ class ReleaseInputs:
     fits: list[dict] = field(default_factory=list)
     fit_rows: dict[str, list[dict]] = field(default_factory=dict)
     checks: list[dict] = field(default_factory=list)
+    _fixed_point_index: dict | None = field(default=None, init=False, repr=False, compare=False)
+
+    #: the lists of rows that belong to one fluid each (by their ``fluid_id``)
+    PER_FLUID = ("fluids", "fixed_points", "constants", "enthalpy_observations", "fits", "checks")
+
+    def fixed_points_of(self, fluid_id: str, kind: str) -> list[dict]:
+        """The fixed points of one fluid and kind, in fp_id order (indexed on first use)."""
+        if self._fixed_point_index is None:
+            index: dict[tuple[str, str], list[dict]] = {}
+            for fp in self.fixed_points:
+                index.setdefault((fp["fluid_id"], fp["kind"]), []).append(fp)
+            self._fixed_point_index = index
+        return self._fixed_point_index.get((fluid_id, kind), [])
+
+    def _complete(self, whole: "ReleaseInputs") -> "ReleaseInputs":
+        """Fill fit rows, raw files and sources from ``whole`` for the rows this part holds."""
+        self.fit_rows = {f["fit_id"]: whole.fit_rows[f["fit_id"]] for f in self.fits
+                         if f["fit_id"] in whole.fit_rows}
+        rows = self.fixed_points + self.constants + self.enthalpy_observations
+        files = {int(r["file_id"]) for r in rows if r["file_id"] is not None}
+        files |= {int(r["file_id"]) for rs in self.fit_rows.values() for r in rs}
+        self.raw_files = {k: v for k, v in whole.raw_files.items() if k in files}
+        sources = {r["source_id"] for r in rows} | {f["source_id"] for f in self.raw_files.values()}
+        self.sources = {k: v for k, v in whole.sources.items() if k in sources}
+        return self
+
+    def subset(self, fluids) -> "ReleaseInputs":
+        """The inputs of some fluids only: their rows (in the same order) and the raw files and
+        sources those rows name. A release's rows of a fluid are a function of its subset."""
+        keep = set(fluids)
+        part = ReleaseInputs(self.check_run_id, self.pipeline_version)
+        for name in self.PER_FLUID:
+            setattr(part, name, [r for r in getattr(self, name) if r["fluid_id"] in keep])
+        return part._complete(self)
+
+    def partition(self) -> dict[str, "ReleaseInputs"]:
+        """:meth:`subset` of every fluid that any row names, in one pass."""
+        parts: dict[str, ReleaseInputs] = {}
+        for name in self.PER_FLUID:
+            for r in getattr(self, name):
+                part = parts.get(r["fluid_id"])
+                if part is None:
+                    part = parts[r["fluid_id"]] = ReleaseInputs(self.check_run_id,
+                                                                 self.pipeline_version)
+                getattr(part, name).append(r)
+        return {f: part._complete(self) for f, part in sorted(parts.items())}
 
     def counts(self) -> dict[str, int]:
         """Findings of the check run per status."""
