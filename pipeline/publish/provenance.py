@@ -46,8 +46,10 @@ class Refs:
     files: frozenset[tuple[str, str]] = frozenset()   # (file path, curve key)
 
     def __or__(self, other: "Refs") -> "Refs":
-        return Refs(*(getattr(self, f) | getattr(other, f) for f in
-                      ("fp_ids", "obs_ids", "fit_ids", "stated", "subjects", "files")))
+        return Refs(*((a | b) if a and b else (a or b) for a, b in (
+            (self.fp_ids, other.fp_ids), (self.obs_ids, other.obs_ids),
+            (self.fit_ids, other.fit_ids), (self.stated, other.stated),
+            (self.subjects, other.subjects), (self.files, other.files))))
 
 
 class CheckIndex:
@@ -148,9 +150,9 @@ def entity(kind: str, entity_id, *, source_id: str | None = None, file: dict | N
     return {"entity": kind, "entity_id": str(entity_id), "source_id": source_id,
             "file_sha256": file["sha256"] if file else None,
             "file_path": file["path"] if file else None,
-            "row_numbers": [int(r) for r in rows], "obs_ids": [int(o) for o in obs_ids],
+            "row_numbers": list(map(int, rows)), "obs_ids": list(map(int, obs_ids)),
             "value_si": value, "u_si": u, "used": bool(used), "note": note,
-            "cells": [str(c) for c in cells]}
+            "cells": list(map(str, cells))}
 
 
 _ROLE_NOTES = {"used": "used by the fit",

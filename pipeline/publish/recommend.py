@@ -185,11 +185,12 @@ def vapour_pressure_fit(inputs: ReleaseInputs, fluid_id: str) -> dict | None:
     return vapour_pressure_fits(inputs).get(fluid_id)
 
 
-def normal_boiling_points(fits: list[dict], policy: Policy) -> dict[str, tuple[float, ...]]:
+def normal_boiling_points(fits: list[dict], policy: Policy, inputs: ReleaseInputs | None = None
+                          ) -> dict[str, tuple[float, ...]]:
     """fit id -> (T_nb, slope, u_p) at the normal boiling pressure, all curves at once
     (:mod:`pipeline.publish.derived`; what ``curve.inverse``, ``curve.slope``, ``curve.u``
     give one by one)."""
-    curves = [Curve.from_dict(f["curve"]) for f in fits]
+    curves = [inputs.curve(f) if inputs else Curve.from_dict(f["curve"]) for f in fits]
     T = batch.inverse(curves, policy.derived.normal_boiling_pressure_Pa)
     _, slope, u = batch.at(curves, T, extrapolate=False)
     return {f["fit_id"]: (float(t), float(s), float(v)) for f, t, s, v in zip(fits, T, slope, u)}
@@ -199,7 +200,7 @@ def derived_normal_boiling(inputs: ReleaseInputs, fit: dict, policy: Policy,
                            at_nb: tuple[float, ...] | None = None) -> Candidate | str:
     """T_nb from the vapour-pressure curve, or the reason there is none (``at_nb``: the
     T_nb, slope and u_p of :func:`normal_boiling_points`, computed here when not given)."""
-    curve = Curve.from_dict(fit["curve"])
+    curve = inputs.curve(fit)
     p_nb = policy.derived.normal_boiling_pressure_Pa
     if at_nb is None:
         at_nb = normal_boiling_points([fit], policy)[fit["fit_id"]]
@@ -231,7 +232,7 @@ def derived_acentric(inputs: ReleaseInputs, fit: dict, Tc: Recommendation, pc: R
                      policy: Policy, at_T: tuple[float, ...] | None = None) -> Candidate | str:
     """omega from the vapour-pressure curve and the recommended critical point (``at_T``: the
     curve's value, slope and u at Tr Tc, computed here when not given)."""
-    curve = Curve.from_dict(fit["curve"])
+    curve = inputs.curve(fit)
     Tr = policy.derived.acentric_reduced_temperature
     T = acentric_temperature(fit, Tc, policy)
     if isinstance(T, str):
@@ -340,8 +341,8 @@ def _combine(fluid_id, point, prop, pool, left, policy, decision_ids) -> Recomme
                           pool, left, None, decision_ids)
 
 
-def _acentric_points(vp: dict[str, dict], critical: dict, policy: Policy
-                     ) -> dict[str, tuple[float, ...]]:
+def _acentric_points(inputs: ReleaseInputs, vp: dict[str, dict], critical: dict,
+                     policy: Policy) -> dict[str, tuple[float, ...]]:
     """fluid -> the curve's value, slope and u at Tr Tc, for all fluids at once."""
     todo = []
     for fluid, (Tc, pc) in critical.items():
@@ -351,7 +352,7 @@ def _acentric_points(vp: dict[str, dict], critical: dict, policy: Policy
                 todo.append((fluid, T))
     if not todo:
         return {}
-    curves = [Curve.from_dict(vp[f]["curve"]) for f, _ in todo]
+    curves = [inputs.curve(vp[f]) for f, _ in todo]
     v, s, u = batch.at(curves, np.array([T for _, T in todo]), extrapolate=True)
     return {f: (float(a), float(b), float(c)) for (f, _), a, b, c in zip(todo, v, s, u)}
 
@@ -375,10 +376,10 @@ def recommend_all(inputs: ReleaseInputs, policy: Policy, decisions: Decisions,
     extra = enthalpy_candidates(inputs, vapour_triples, policy)
     fluids = [row["fluid_id"] for row in inputs.fluids]
     vp = vapour_pressure_fits(inputs)
-    nb = normal_boiling_points([vp[f] for f in fluids if f in vp], policy)
+    nb = normal_boiling_points([vp[f] for f in fluids if f in vp], policy, inputs)
     critical = {f: (recs.get((f, "critical:vapour,liquid", "Tc")),
                     recs.get((f, "critical:vapour,liquid", "pc"))) for f in fluids if f in vp}
-    at_Tr = _acentric_points(vp, critical, policy)
+    at_Tr = _acentric_points(inputs, vp, critical, policy)
     for fluid in fluids:
         fit = vp.get(fluid)
         derived: dict[str, Candidate | str] = {}

@@ -122,7 +122,7 @@ def _fit_decision_ids(inputs: ReleaseInputs, fit_ids) -> list[str]:
 
 
 def _constant_record(inputs: ReleaseInputs, r: Recommendation, policy: Policy,
-                     checks: prov.CheckIndex) -> prov.Record:
+                     checks: prov.CheckIndex, policy_sha256: str | None = None) -> prov.Record:
     entities = []
     for c in r.used:
         entities.append({**c.entities[0], "used": True, "note": c.entities[0]["note"]
@@ -134,7 +134,8 @@ def _constant_record(inputs: ReleaseInputs, r: Recommendation, policy: Policy,
     for c in r.used:
         refs = refs | c.refs
     fits = sorted({c.fit_id for c in r.used if c.fit_id})
-    activity = (f"fluidledger publish: recommendation by policy {policy.sha256[:12]} "
+    activity = (f"fluidledger publish: recommendation by policy "
+                f"{(policy_sha256 or policy.sha256)[:12]} "
                 f"({r.method}: {r.detail})")
     return prov.Record(r.value_id, r.fluid_id, "constant", r.method,
                        fits[0] if len(fits) == 1 else None, activity, entities,
@@ -162,7 +163,7 @@ def valid_to_tc(fit: dict, curve: Curve, checks: prov.CheckIndex) -> bool:
 
 def _curve_rows(inputs: ReleaseInputs, fit: dict, release_id: str,
                 checks: prov.CheckIndex) -> tuple[dict, prov.Record]:
-    curve = Curve.from_dict(fit["curve"])
+    curve = inputs.curve(fit)
     to_tc = valid_to_tc(fit, curve, checks)
     form = curve.correlation_form
     exps = list(curve.ref["exponents"])
@@ -211,8 +212,9 @@ def content_rows(inputs: ReleaseInputs, policy: Policy, decisions: Decisions,
     checks = prov.CheckIndex(inputs.checks)
     recs, unresolved = recommend_all(inputs, policy, decisions, checks)
     constants, curves, records = [], [], []
+    policy_sha256 = policy.sha256
     for r in recs:
-        record = _constant_record(inputs, r, policy, checks)
+        record = _constant_record(inputs, r, policy, checks, policy_sha256)
         constants.append(_constant_row(r, release_id,
                                        prov.worst_status(c["status"] for c in record.checks)))
         records.append(record)

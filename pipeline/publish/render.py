@@ -22,6 +22,7 @@ import csv
 import io
 import json
 import math
+import re
 from json.encoder import encode_basestring as _enc
 from typing import Callable
 
@@ -31,6 +32,30 @@ Renderer = Callable[[object], str]
 _FLOAT_REPR, _INT_REPR = float.__repr__, int.__repr__
 _COMPACT = json.JSONEncoder(sort_keys=True, separators=(",", ":"), ensure_ascii=False,
                             allow_nan=False)
+
+
+def _csv_triggers() -> re.Pattern:
+    """The characters that make this Python's ``csv.writer`` (default dialect, ``\n`` line
+    ends) quote a field, found by asking it once (3.11 quotes ``,`` ``"`` ``\n``; later
+    versions may add ``\r``)."""
+    found = []
+    for code in [*range(256), 0x2028, 0x2029]:
+        buf = io.StringIO()
+        csv.writer(buf, lineterminator="\n").writerow(["a", f"x{chr(code)}y"])
+        if buf.getvalue().startswith('a,"'):
+            found.append(chr(code))
+    return re.compile("[" + "".join(re.escape(c) for c in found) + "]")
+
+
+_CSV_QUOTE = _csv_triggers()
+
+
+def csv_field(text: str) -> str:
+    """A field as ``csv.writer`` writes it (QUOTE_MINIMAL, doubled quotes) in a row of more
+    than one field."""
+    if _CSV_QUOTE.search(text):
+        return '"' + text.replace('"', '""') + '"'
+    return text
 
 
 class RenderError(ValueError):
@@ -185,6 +210,8 @@ class TableCodec:
                             _value(f, 3, f"{table}.{f.name}")) for i, f in enumerate(ordered)]
         self._row_close = "\n  }"
         self._cells = [(f.name, _csv_cell(f)) for f in schema]
+        if len(self._cells) < 2:     # csv.writer writes a lone empty field as ""
+            raise ValueError(f"{table}: a CSV export needs two columns or more")
 
     def json_row(self, row: dict) -> str:
         """The text of a row inside the ``rows`` array of the JSON document."""
@@ -194,12 +221,10 @@ class TableCodec:
             raise RenderError(f"{self.table}: row has no column {err.args[0]!r}") from None
 
     def csv_rows(self, rows: list[dict]) -> str:
-        """CSV lines of rows (each ending in a newline)."""
-        buf = io.StringIO()
-        writer = csv.writer(buf, lineterminator="\n")
+        """CSV lines of rows (each ending in a newline), as ``csv.writer`` writes them."""
         cells = self._cells
-        writer.writerows([[cell(r[n]) for n, cell in cells] for r in rows])
-        return buf.getvalue()
+        return "".join([",".join([csv_field(cell(r[n])) for n, cell in cells]) + "\n"
+                        for r in rows])
 
     def csv_header(self) -> str:
         buf = io.StringIO()
