@@ -220,7 +220,7 @@ def rendered_block(table: str, key: str, rows: list[dict]) -> Block:
         text = c.JSON_SEPARATOR.join([c.json_row(r) for r in rows])
         lines = c.csv_rows(rows)
     except RenderError as err:
-        raise PublishError(f"{table}: {err}") from None
+        raise PublishError(str(err)) from None
     return Block(key, len(rows), text.encode("utf-8"), lines.encode("utf-8"))
 
 

@@ -27,9 +27,7 @@ every fluid.
 
 from __future__ import annotations
 
-import csv
 import hashlib
-import io
 import json
 from dataclasses import dataclass, field
 from json.encoder import encode_basestring as _enc
@@ -42,6 +40,7 @@ import pyarrow.compute as pc
 from pipeline.publish import exports, sqlmacros
 from pipeline.publish.inputs import ReleaseInputs
 from pipeline.publish.policy import Decisions, Policy
+from pipeline.publish.render import csv_field
 
 TEXT_TABLES = ("constants", "curves", "provenance")
 """The tables whose rows belong to one fluid each (the release table is one row, rendered)."""
@@ -51,9 +50,7 @@ _KEEP = "fl_publish_keep"     # registered Arrow table of the fluids copied
 
 def fluid_digests(inputs: ReleaseInputs, policy: Policy, decisions: Decisions) -> dict[str, str]:
     """fluid -> SHA-256 of everything its released rows depend on (see the module docstring)."""
-    pol = policy.asdict()
-    return {f: part.fingerprint(pol, decisions.restricted({f}).asdict())
-            for f, part in inputs.partition().items()}
+    return inputs.fingerprints(policy.asdict(), decisions)[1]
 
 
 @dataclass
@@ -121,9 +118,8 @@ class Plan:
     recompute: list[str] = field(default_factory=list)
 
 
-def plan(con, inputs: ReleaseInputs, policy: Policy, decisions: Decisions, *,
-         incremental: bool = True) -> Plan:
-    digests = fluid_digests(inputs, policy, decisions)
+def plan(con, digests: dict[str, str], *, incremental: bool = True) -> Plan:
+    """Copy the fluids whose digest (:func:`fluid_digests`) the previous release recorded."""
     previous = previous_release(con) if incremental else None
     reuse = sorted(f for f, d in digests.items()
                    if previous is not None and previous.digests.get(f) == d)
@@ -195,9 +191,7 @@ def insert_state(con, p: Plan, release_id: str, unresolved: dict[str, list[dict]
 
 def _csv_prefix(release_id: str, value_id: str) -> bytes:
     """How a CSV row of these ids begins (release_id and value_id are the first two columns)."""
-    buf = io.StringIO()
-    csv.writer(buf, lineterminator="\n").writerow([release_id, value_id])
-    return buf.getvalue()[:-1].encode("utf-8") + b","
+    return f"{csv_field(release_id)},{csv_field(value_id)},".encode("utf-8")
 
 
 def spliced_block(p: Plan, table: str, fluid: str, value_ids: list[str],

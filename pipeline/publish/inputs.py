@@ -199,6 +199,13 @@ class ReleaseInputs:
                          separators=(",", ":"), allow_nan=False)
         return hashlib.sha256(doc.encode("utf-8")).hexdigest()
 
+    def fingerprints(self, policy: dict, decisions) -> tuple[str, dict[str, str]]:
+        """:meth:`fingerprint` of all inputs, and of each fluid's :meth:`subset` with the
+        decisions about it (``decisions``: a :class:`~pipeline.publish.policy.Decisions`)."""
+        per_fluid = {f: part.fingerprint(policy, decisions.restricted({f}).asdict())
+                     for f, part in self.partition().items()}
+        return self.fingerprint(policy, decisions.asdict()), per_fluid
+
 
 def latest_check_run(con: duckdb.DuckDBPyConnection) -> str:
     """The newest finished check run; :class:`PublishError` when the store has none."""

@@ -333,7 +333,7 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
     inputs = load_inputs(con)
     if inputs.bad_checks() and not allow_failures:
         raise _refusal(inputs)
-    fingerprint = inputs.fingerprint(policy.asdict(), decisions.asdict())
+    fingerprint, digests = inputs.fingerprints(policy.asdict(), decisions)
     release_id = name or f"r-{fingerprint[:12]}"
     row = con.execute("SELECT fingerprint, check_run_id, created_at FROM release "
                       "WHERE release_id = ?", [release_id]).fetchone()
@@ -341,7 +341,7 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
         raise PublishError(f"release {release_id} exists with other inputs (fingerprint "
                            f"{row[0][:12]} vs {fingerprint[:12]}); releases are immutable: "
                            "publish under another name", key="--release")
-    plan = incremental.plan(con, inputs, policy, decisions, incremental=not full)
+    plan = incremental.plan(con, digests, incremental=not full)
     fresh, fresh_unresolved = content_rows(inputs.subset(plan.recompute), policy, decisions,
                                            release_id)
     tables = incremental.assemble(con, plan, fresh, release_id)

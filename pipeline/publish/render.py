@@ -13,7 +13,9 @@ Every value is checked against its column's Arrow type as it is rendered (a stri
 holds a ``str``, an integer column an ``int`` and never a ``bool``, a float column a finite
 number, a struct exactly its fields), so the text holds the very values of the Arrow table
 that the schema check validates and the Parquet file stores; a value that is not raises
-:class:`RenderError` naming its column.
+:class:`RenderError` naming its column. So does a text the CSV file could not give back: an
+empty text in a column that may be NULL (an empty cell reads as NULL there), and a carriage
+return where ``csv.writer`` leaves it unquoted.
 """
 
 from __future__ import annotations
@@ -112,24 +114,20 @@ def _scalar(typ: pa.DataType, nullable: bool, where: str) -> Renderer:
     return render
 
 
-def _scalar_items(typ: pa.DataType, where: str) -> Callable[[list], list[str]]:
-    """Texts of a list of non-null scalars, the type of every item checked in C-level calls."""
+def _scalar_items(typ: pa.DataType) -> Callable[[list], list[str] | None] | None:
+    """Texts of a list of scalars when every item has the column's exact type (checked and
+    converted in C-level calls); None otherwise, and the items are then rendered one by one."""
     if pa.types.is_integer(typ):
         def texts(v):
-            if not set(map(type, v)) <= {int}:
-                raise _bad(where, v, "a list of integers")
-            return list(map(_INT_REPR, v))
+            return list(map(_INT_REPR, v)) if set(map(type, v)) <= {int} else None
     elif pa.types.is_floating(typ):
         def texts(v):
-            kinds = set(map(type, v))
-            if kinds == {float} and all(map(math.isfinite, v)):
+            if set(map(type, v)) == {float} and all(map(math.isfinite, v)):
                 return list(map(_FLOAT_REPR, v))
-            return [_number(x, where) for x in v]
+            return None
     elif pa.types.is_string(typ):
         def texts(v):
-            if not set(map(type, v)) <= {str}:
-                raise _bad(where, v, "a list of strings")
-            return list(map(_enc, v))
+            return list(map(_enc, v)) if set(map(type, v)) <= {str} else None
     else:
         return None
     return texts
@@ -149,14 +147,15 @@ def _value(field: pa.Field, depth: int, where: str) -> Renderer:
 def _list(item: pa.Field, nullable: bool, depth: int, where: str) -> Renderer:
     inner = "\n" + " " * (depth + 1)
     sep, close = "," + inner, "\n" + " " * depth + "]"
-    fast = None if item.nullable else _scalar_items(item.type, where + "[]")
-    each = None if fast else _value(item, depth + 1, where + "[]")
+    fast = _scalar_items(item.type)
+    each = _value(item, depth + 1, where + "[]")
 
     def render(v):
         if type(v) is list or type(v) is tuple:
             if not v:
                 return "[]"
-            return "[" + inner + sep.join(fast(v) if fast else map(each, v)) + close
+            texts = fast(v) if fast else None
+            return "[" + inner + sep.join(map(each, v) if texts is None else texts) + close
         if v is None and nullable:
             return "null"
         raise _bad(where, v, "a list")
@@ -195,6 +194,20 @@ def _csv_cell(field: pa.Field) -> Callable[[object], str]:
         return lambda v: "" if v is None else ("true" if v else "false")
     if pa.types.is_floating(typ):
         return lambda v: "" if v is None else _FLOAT_REPR(float(v))
+    if pa.types.is_string(typ):
+        where, nullable = field.name, field.nullable
+
+        def text(v):
+            if v is None:
+                return ""
+            if v == "" and nullable:
+                raise RenderError(f"{where}: an empty text in a column that may be NULL would "
+                                  "read back from the CSV file as NULL")
+            if "\r" in v and not _CSV_QUOTE.search("\r"):
+                raise RenderError(f"{where}: {v!r} holds a carriage return, which csv.writer "
+                                  "leaves unquoted and a CSV reader takes for a line end")
+            return v
+        return text
     return lambda v: "" if v is None else str(v)
 
 
