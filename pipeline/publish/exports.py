@@ -22,8 +22,8 @@ place (an atomic rename). Every exported row is schema-valid because
 * the Parquet file is read back and must equal that table;
 * the JSON and CSV files are renderings of the same values: the renderer checks each value
   against its column's Arrow type as it writes it, and text copied from the previous release
-  is that release's validated text (its manifest hash checked) with the release id replaced
-  and every row's id found in order;
+  is that release's validated text (its manifest hash checked) with the release id replaced,
+  its rows counted and its first and last row the ones the store copies;
 * every file's SHA-256 and size are read back against the manifest.
 """
 

@@ -217,15 +217,21 @@ def spliced_block(p: Plan, table: str, fluid: str, value_ids: list[str],
             cb.count(b"\n" + old_row) != n - 1:
         return None
     cb = new_row + cb[len(old_row):].replace(b"\n" + old_row, b"\n" + new_row)
-    at_json = at_csv = 0
-    for vid in value_ids:      # every row's id, in order: the block holds exactly these rows
-        needle = b'\n   "value_id": ' + _enc(vid).encode("utf-8") + b",\n"
-        at_json = jb.find(needle, at_json)
-        prefix = _csv_prefix(release_id, vid)
-        at_csv = cb.find(prefix, at_csv)
-        if at_json < 0 or at_csv < 0 or (at_csv and cb[at_csv - 1:at_csv] != b"\n"):
-            return None
-        at_json, at_csv = at_json + len(needle), at_csv + len(prefix)
+    # the block holds n rows (counted above by their release ids, and here by the separators
+    # between rows, which only rows have: deeper objects are indented further), beginning with
+    # the first row's id and ending with the last's
+    sep = b"\n  },\n  {\n"
+    if jb.count(sep) != n - 1:
+        return None
+    first_json = jb[:jb.find(sep)] if n > 1 else jb
+    last_json = jb[jb.rfind(sep):] if n > 1 else jb
+    needle = (lambda vid: b'\n   "value_id": ' + _enc(vid).encode("utf-8") + b",\n")
+    if needle(value_ids[0]) not in first_json or needle(value_ids[-1]) not in last_json:
+        return None
+    last_csv = cb[cb.rfind(b"\n" + new_row) + 1:] if n > 1 else cb
+    if not (cb.startswith(_csv_prefix(release_id, value_ids[0]))
+            and last_csv.startswith(_csv_prefix(release_id, value_ids[-1]))):
+        return None
     return exports.Block(fluid, n, jb, cb)
 
 
