@@ -29,6 +29,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+from collections import Counter
 from dataclasses import dataclass, field
 from json.encoder import encode_basestring as _enc
 from pathlib import Path
@@ -259,7 +260,8 @@ def assemble(con, p: Plan, fresh: dict[str, list[dict]], release_id: str
         fluids = rows.column("fluid_id").to_pylist()
         value_ids = rows.column("value_id").to_pylist()
         runs = _runs(fluids)
-        several = {f for f in {r[0] for r in runs} if sum(1 for r in runs if r[0] == f) > 1}
+        counted = Counter(r[0] for r in runs)
+        several = {f for f, k in counted.items() if k > 1}
         by_fluid: dict[str, list[dict]] = {}
         for r in fresh[table]:
             by_fluid.setdefault(r["fluid_id"], []).append(r)
