@@ -51,13 +51,12 @@ def curves(published_demo) -> list[Curve]:
 def test_batched_inverse_equals_each_curves_inverse(curves):
     """derived.inverse gives curve.inverse(y) bit for bit: targets inside every curve's range,
     and targets no curve reaches (NaN)."""
-    for frac in (0.1, 0.5, 0.93):
-        for c0 in curves[::9]:
-            y = float(c0.value(c0.T_min_K + frac * (c0.T_max_K - c0.T_min_K)))
-            got = derived.inverse(curves, y)
-            want = np.array([c.inverse(y) for c in curves])
-            assert np.array_equal(got, want, equal_nan=True)
-            assert np.isfinite(want).any()
+    for frac, c0 in ((0.1, curves[0]), (0.5, curves[45]), (0.93, curves[90]), (0.5, curves[-1])):
+        y = float(c0.value(c0.T_min_K + frac * (c0.T_max_K - c0.T_min_K)))
+        got = derived.inverse(curves, y)
+        want = np.array([c.inverse(y) for c in curves])
+        assert np.array_equal(got, want, equal_nan=True)
+        assert np.isfinite(want).sum() >= 4         # several curves of a form reach it
     unreached = derived.inverse(curves, -1.0)       # below every pressure and density
     assert np.array_equal(unreached, [c.inverse(-1.0) for c in curves], equal_nan=True)
     assert np.isnan(unreached).sum() > len(curves) // 2
