@@ -188,7 +188,7 @@ def insert_state(con, p: Plan, release_id: str, unresolved: dict[str, list[dict]
         con.unregister("fl_release_fluid_rows")
 
 
-# --- text ------------------------------------------------------------------------------------------
+# --- text ----------------------------------------------------------------------------------
 
 def _csv_prefix(release_id: str, value_id: str) -> bytes:
     """How a CSV row of these ids begins (release_id and value_id are the first two columns)."""

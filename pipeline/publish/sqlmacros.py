@@ -10,11 +10,12 @@ error at publish time, so a new form cannot be released without one.
 
 Coefficients live in ``curated_curves`` (``params``, ``exponents`` as DOUBLE lists, 1-based in
 SQL); the sum is unrolled over :data:`MAX_TERMS` terms, those beyond the curve's exponents
-contributing 0 without being evaluated. Macros persist in the DuckDB file and work from the plain ``duckdb``
-client; their parameter names never equal a column name of ``curated_curves`` (DuckDB would
-refuse the binding), and every name inside them (table aliases, CTEs, their columns) starts
-with ``fl__`` (reserved: do not give your own tables or aliases such names) so that an argument
-expression such as ``c.fluid_id`` is never captured by a name of the macro body.
+contributing 0 without being evaluated. Macros persist in the DuckDB file and work from the
+plain ``duckdb`` client; their parameter names never equal a column name of
+``curated_curves`` (DuckDB would refuse the binding), and every name inside them (table
+aliases, CTEs, their columns) starts with ``fl__`` (reserved: do not give your own tables or
+aliases such names) so that an argument expression such as ``c.fluid_id`` is never captured
+by a name of the macro body.
 
 The saturation temperature mirrors :meth:`pipeline.correlations.Curve.inverse`: the form is
 evaluated in its fit space on the same 129-point grid, the first sign change is bracketed, and

@@ -107,8 +107,8 @@ def test_the_demo_release_is_valid_in_bulk_and_for_jsonschema(table, demo_rows):
 
 
 @pytest.mark.parametrize("table", sorted(exports.SCHEMAS))
-@settings(max_examples=80, deadline=None, suppress_health_check=[HealthCheck.too_slow,
-                                                                   HealthCheck.function_scoped_fixture])
+@settings(max_examples=80, deadline=None,
+          suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
 @given(data=st.data())
 def test_bulk_verdict_equals_jsonschema_verdict_on_broken_rows(table, demo_rows, data):
     """Rows of the demo with one to three values replaced (by values of the column's type,
