@@ -6,13 +6,15 @@ import csv
 import sys
 from typing import Iterable, Sequence
 
+from pipeline.safetext import clean, raw
+
 
 def _fmt(value) -> str:
     if value is None:
         return ""
     if isinstance(value, float):
         return f"{value:.6g}"
-    return str(value)
+    return clean(value, one_line=True)
 
 
 def print_table(headers: Sequence[str], rows: Iterable[Sequence], *, title: str | None = None,
@@ -27,13 +29,14 @@ def print_table(headers: Sequence[str], rows: Iterable[Sequence], *, title: str 
     if stream.isatty():
         from rich.console import Console
         from rich.table import Table
+        from rich.text import Text
 
         table = Table(title=title)
         for h in headers:
-            table.add_column(str(h))
+            table.add_column(Text(clean(h, one_line=True)))
         for r in rows:
-            table.add_row(*(_fmt(v) for v in r))
-        Console(file=stream).print(table)
+            table.add_row(*(Text(_fmt(v)) for v in r))
+        Console(file=raw(stream)).print(table)
         return
     cells = [[_fmt(v) for v in r] for r in rows]
     widths = [max([len(str(h))] + [len(r[i]) for r in cells]) for i, h in enumerate(headers)]

@@ -11,6 +11,7 @@ from pathlib import Path
 
 from pipeline.checks.results import STATUS_ORDER, CheckResult, CheckRun
 from pipeline.errors import EXIT_INTERNAL, CheckError
+from pipeline.safetext import clean, raw
 
 SCHEMA = "check-results.schema.json"
 #: statuses listed one row each by default; the others are counted per check
@@ -26,7 +27,7 @@ def _row(r: CheckResult) -> tuple:
 def _fmt(v) -> str:
     if v is None:
         return ""
-    return f"{v:.4g}" if isinstance(v, float) else str(v)
+    return f"{v:.4g}" if isinstance(v, float) else clean(v, one_line=True)
 
 
 def _plain(rows, stream) -> None:
@@ -41,6 +42,7 @@ def _plain(rows, stream) -> None:
 def _rich(rows, stream, title: str) -> None:
     from rich.console import Console
     from rich.table import Table
+    from rich.text import Text
 
     style = {"FAIL": "bold red", "ERROR": "bold magenta", "WARN": "yellow", "WAIVED": "cyan",
              "SKIP": "dim", "PASS": "green"}
@@ -48,8 +50,8 @@ def _rich(rows, stream, title: str) -> None:
     for h in _HEADERS:
         table.add_column(h, overflow="fold")
     for r in rows:
-        table.add_row(*(_fmt(v) for v in r), style=style.get(r[0]))
-    Console(file=stream).print(table)
+        table.add_row(*(Text(_fmt(v)) for v in r), style=style.get(r[0]))
+    Console(file=raw(stream)).print(table)
 
 
 def counts_by_check(run: CheckRun) -> list[tuple]:
@@ -82,8 +84,8 @@ def print_run(run: CheckRun, stream=None, *, show_all: bool = False) -> None:
         for h in headers:
             table.add_column(h)
         for c in counts:
-            table.add_row(*(str(v) for v in c))
-        Console(file=stream).print(table)
+            table.add_row(*(clean(v, one_line=True) for v in c))
+        Console(file=raw(stream)).print(table)
     else:
         print("\nresults per check", file=stream)
         w = max([len(h) for h in headers[:1]] + [len(c[0]) for c in counts])
@@ -169,7 +171,8 @@ def junit_xml(run: CheckRun) -> str:
         root.set(k, str(v))
     root.set("time", f"{total_time:.6f}")
     ET.indent(root)
-    return ET.tostring(root, encoding="unicode", xml_declaration=True) + "\n"
+    # XML 1.0 forbids most control characters: escaped, they keep the file valid
+    return clean(ET.tostring(root, encoding="unicode", xml_declaration=True)) + "\n"
 
 
 def write_junit(run: CheckRun, path: str | os.PathLike) -> None:

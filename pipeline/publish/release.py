@@ -46,8 +46,9 @@ from pipeline.publish import exports, provenance as prov, published, sqlmacros
 from pipeline.publish.inputs import ReleaseInputs, load_inputs
 from pipeline.publish.policy import NO_DECISIONS, Decisions, Policy
 from pipeline.publish.recommend import Recommendation, recommend_all
+from pipeline.store.runs import end_run
 
-RELEASE_NAME = re.compile(r"^[a-z0-9][a-z0-9._-]{0,63}$")
+RELEASE_NAME = re.compile(r"^[a-z0-9][a-z0-9._-]{0,63}\Z")  # \Z: no trailing newline
 CURVE_UNITS = {"pressure": "Pa", "rho_liquid": "kg/m^3", "rho_vapour": "kg/m^3"}
 
 
@@ -249,7 +250,7 @@ def publish(con: duckdb.DuckDBPyConnection, store_path: Path, *, name: str | Non
         _finish(con, run_id, "failed", {"refused": str(err)})
         raise
     except BaseException as err:
-        _finish(con, run_id, "error", {"error": f"{type(err).__name__}: {err}"})
+        end_run(con, run_id, err)
         raise
     _finish(con, run_id, "ok" if result.created else "no-changes", result.asdict())
     return result

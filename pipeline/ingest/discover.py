@@ -1,0 +1,90 @@
+"""Finding batch folders under raw/ and the files they name, never silently skipping one.
+
+* Paths are made absolute the same way whether given relative, with ``..`` or absolute
+  (:func:`absolute`), so every batch gets the same name (its folder relative to the raw root,
+  the folder of fluids.toml) however the command was typed.
+* :func:`discover_batches` walks the raw folder without following symbolic links; a folder
+  holding an entry named ``batch.toml`` is a batch even when that entry is a directory, a
+  FIFO or a device (the ingest then refuses it, naming it, without opening it for a read
+  that could block), and a symbolically linked folder holding a ``batch.toml`` is listed so
+  that the ingest reports it instead of passing over it.
+* :func:`batch_problem` says why a listed folder cannot be read as a batch;
+  :func:`table_path` resolves a table file, refusing one that leaves its batch folder.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+from pipeline.errors import BatchError
+
+MANIFEST = "batch.toml"
+
+
+def absolute(path: Path) -> Path:
+    """``path`` absolute, ``..`` removed and the folders above it resolved; its last part is
+    kept as written (a symbolic link stays a link, to be reported as one)."""
+    full = Path(os.path.abspath(path))
+    return full.parent.resolve() / full.name if full.name else full.resolve()
+
+
+def discover_batches(root: Path) -> list[Path]:
+    """Batch folders under ``root`` (``root`` itself when it holds batch.toml), sorted."""
+    if os.path.lexists(root / MANIFEST):
+        return [root]
+    found = []
+    for folder, dirs, files in os.walk(root, followlinks=False):
+        here = Path(folder)
+        if MANIFEST in files or MANIFEST in dirs:
+            found.append(here)
+        for name in dirs:
+            if name != MANIFEST and (here / name).is_symlink() \
+                    and os.path.lexists(here / name / MANIFEST):
+                found.append(here / name)
+        dirs[:] = [d for d in dirs if d != MANIFEST]
+    return sorted(found)
+
+
+def batch_problem(root: Path, batch_dir: Path) -> str | None:
+    """Why ``batch_dir`` cannot be read as a batch of the raw folder ``root``, or None."""
+    if not batch_dir.is_relative_to(root):
+        return (f"the batch folder is not inside the raw folder {root} (the folder of "
+                "fluids.toml); move it there")
+    for part in [batch_dir, *batch_dir.parents]:
+        if part == root or not part.is_relative_to(root):
+            break
+        if part.is_symlink():
+            target = part.resolve()
+            where = "inside" if target.is_relative_to(root) else "outside"
+            return (f"the folder {part.relative_to(root).as_posix()} is a symbolic link to "
+                    f"{target} ({where} the raw folder); batches are read from their real "
+                    "folder only: move the batch there or remove the link")
+    return None
+
+
+def manifest_problem(root: Path, manifest: Path) -> str | None:
+    """Why ``manifest`` (a batch.toml) is refused before it is opened, or None: a symbolic
+    link leaving the raw folder."""
+    if manifest.is_symlink():
+        target = manifest.resolve()
+        if not target.is_relative_to(root):
+            return (f"batch.toml is a symbolic link to {target}, outside the raw folder; "
+                    "refused")
+    return None
+
+
+def table_path(batch_dir: Path, name: str, label: str) -> Path:
+    """The table file, refusing any path (or symlink) that leaves the batch folder."""
+    path = batch_dir / name
+    try:
+        resolved = path.resolve(strict=True)
+    except FileNotFoundError:
+        raise BatchError(f"table file '{name}' named in batch.toml does not exist",
+                         file=label) from None
+    except (OSError, RuntimeError) as err:    # a symlink loop
+        raise BatchError(f"table file '{name}' cannot be resolved: {err}", file=label) from None
+    if not resolved.is_relative_to(batch_dir.resolve()):
+        raise BatchError(f"table file '{name}' resolves outside the batch folder "
+                         f"({resolved}); refused", file=label)
+    return resolved
