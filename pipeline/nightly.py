@@ -36,7 +36,6 @@ import hashlib
 import json
 import logging
 import math
-import re
 import time
 from contextlib import contextmanager
 from dataclasses import dataclass, field
@@ -51,7 +50,6 @@ from pipeline.errors import (
     EXIT_USAGE,
     BatchError,
     CheckError,
-    FluidLedgerError,
     environment_problem,
     is_interrupt,
 )
@@ -335,31 +333,6 @@ def _sha(path: Path) -> str:
     return hashlib.sha256(read_regular(path, str(path))).hexdigest()
 
 
-_PLAIN_NAME = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.-]*")
-
-
-def _batch_hashes(raw: Path, folder: Path, rel: str) -> dict[str, str] | None:
-    """The SHA-256 of a batch's batch.toml and table files, or None when anything about
-    them is odd (unreadable, not a regular file, malformed, a linked folder): the ingest
-    stage then looks at the batch and says why."""
-    from pipeline.ingest.rawread import MAX_TOML_BYTES, parse_toml, read_regular
-
-    if folder.is_symlink():
-        return None
-    try:
-        data = read_regular(folder / "batch.toml", f"{rel}/batch.toml", limit=MAX_TOML_BYTES)
-        want = {f"{rel}/batch.toml": hashlib.sha256(data).hexdigest()}
-        for table in parse_toml(data, f"{rel}/batch.toml").get("table", []):
-            if not _PLAIN_NAME.fullmatch(table["file"]):
-                return None
-            path = folder / table["file"]
-            want[path.relative_to(raw).as_posix()] = hashlib.sha256(
-                read_regular(path, str(path))).hexdigest()
-    except (FluidLedgerError, OSError, ValueError, KeyError, TypeError, AttributeError):
-        return None
-    return want
-
-
 def prescan(con, raw: Path) -> tuple[list[Path], list[str], int]:
     """(changed batch folders, batches of the store missing from ``raw``, unchanged count).
 
@@ -367,7 +340,7 @@ def prescan(con, raw: Path) -> tuple[list[Path], list[str], int]:
     current versions in the store (the ingest stage would skip it too: the way a file is read
     is part of batch.toml). Files are read like the ingest stage reads them (regular files
     only, bounded TOML), so an odd batch is passed on to the ingest stage, never a hang."""
-    from pipeline.ingest.stage import discover_batches
+    from pipeline.ingest.discover import batch_file_hashes, discover_batches
 
     stored: dict[str, dict[str, str]] = {}
     for batch, path, sha in con.execute(
@@ -380,7 +353,7 @@ def prescan(con, raw: Path) -> tuple[list[Path], list[str], int]:
             continue
         rel = folder.relative_to(raw).as_posix()
         known = stored.pop(rel, None)
-        want = _batch_hashes(raw, folder, rel)
+        want = batch_file_hashes(raw, folder, rel)
         if known is None or want != known:
             changed.append(folder)
         else:
@@ -681,7 +654,9 @@ def _verify(con, store_path, run_id: str) -> Stage:
     from pipeline.verify import verify_connection
 
     t0 = time.perf_counter()
-    repaired = _repair_published(con, Path(store_path).parent)
+    from pipeline.publish.integrity import repair_published
+
+    repaired = repair_published(con, Path(store_path).parent)
     res = verify_connection(con, str(store_path), Path(store_path).parent, running=(run_id,))
     head = (f"{len(res.rules_run)} store rules, {len(res.releases)} release(s) with "
             f"{res.files_hashed} files hashed")
@@ -694,25 +669,6 @@ def _verify(con, store_path, run_id: str) -> Stage:
               "notes": res.notes, "repaired": repaired}
     status = "failed" if not res.ok else "repaired" if repaired else "ok"
     return Stage(status, time.perf_counter() - t0, text, detail)
-
-
-def _repair_published(con, root: Path) -> dict | None:
-    """Rebuild ``published.duckdb`` from the store when its content differs from the store's
-    latest publication into it (altered by hand, or removed); what was found and done."""
-    from pipeline.publish.integrity import check_published, rebuild_published
-    from pipeline.publish.published import PUBLISHED_NAME
-
-    target = root / PUBLISHED_NAME
-    found = check_published(con, target)
-    if found.ok:
-        return None
-    release = rebuild_published(con, target)
-    diffs = list(found.differences)
-    why = (f"differed from the store's release {release} ({'; '.join(diffs[:3])}"
-           f"{'; ...' if len(diffs) > 3 else ''})" if diffs else f"was stale: {found.stale}")
-    text = f"{PUBLISHED_NAME} {why}: rebuilt from the store"
-    (log.warning if diffs else log.info)("verify: %s", text)
-    return {"text": text, "release_id": release, "differences": diffs}
 
 
 def _verdict(counts: Mapping[str, int], ingest: Stage, publish: dict,

@@ -9,7 +9,7 @@ excerpt of the offending value.
 JSON has no NaN or infinity, so the schemas' ``number`` means a finite number here (TOML
 allows ``nan`` and ``inf``; they are refused), and a ``pattern`` has its ECMA-262 meaning:
 ``$`` matches only at the end of the text (Python's ``$`` also matches before a final
-newline, which let ``"argon\n"`` pass as a slug).
+newline, which let ``"argon\\n"`` pass as a slug).
 """
 
 from __future__ import annotations
@@ -87,8 +87,8 @@ def _pattern(validator, pattern, instance, schema):
         yield jsonschema.ValidationError(f"{instance!r} does not match {pattern!r}")
 
 
-#: Draft 2020-12 with finite numbers and ECMA-262 patterns (see the module docstring); every
-#: document the tool reads or writes is validated with it
+#: Draft 2020-12 with finite numbers and ECMA-262 patterns (see the module docstring): the
+#: batch, fluids and decisions files are validated with it
 Validator = validators.extend(
     jsonschema.Draft202012Validator,
     validators={"pattern": _pattern},

@@ -14,12 +14,15 @@
 
 from __future__ import annotations
 
+import hashlib
 import os
+import re
 from pathlib import Path
 
-from pipeline.errors import BatchError
+from pipeline.errors import BatchError, FluidLedgerError
 
 MANIFEST = "batch.toml"
+_PLAIN_NAME = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.-]*")
 
 
 def absolute(path: Path) -> Path:
@@ -88,3 +91,26 @@ def table_path(batch_dir: Path, name: str, label: str) -> Path:
         raise BatchError(f"table file '{name}' resolves outside the batch folder "
                          f"({resolved}); refused", file=label)
     return resolved
+
+
+def batch_file_hashes(raw: Path, folder: Path, rel: str) -> dict[str, str] | None:
+    """The SHA-256 of a batch's batch.toml and table files (path relative to ``raw`` ->
+    hash), read the way the ingest stage reads them; None when anything about them is odd
+    (unreadable, not a regular file, malformed, a linked folder): the ingest stage then looks
+    at the batch and says why. The nightly job's pre-scan compares these with the store."""
+    from pipeline.ingest.rawread import MAX_TOML_BYTES, parse_toml, read_regular
+
+    if folder.is_symlink():
+        return None
+    try:
+        data = read_regular(folder / MANIFEST, f"{rel}/{MANIFEST}", limit=MAX_TOML_BYTES)
+        want = {f"{rel}/{MANIFEST}": hashlib.sha256(data).hexdigest()}
+        for table in parse_toml(data, f"{rel}/{MANIFEST}").get("table", []):
+            if not _PLAIN_NAME.fullmatch(table["file"]):
+                return None
+            path = folder / table["file"]
+            want[path.relative_to(raw).as_posix()] = hashlib.sha256(
+                read_regular(path, str(path))).hexdigest()
+    except (FluidLedgerError, OSError, ValueError, KeyError, TypeError, AttributeError):
+        return None
+    return want

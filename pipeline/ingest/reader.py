@@ -132,6 +132,28 @@ class _Lines:
         return skip
 
 
+class _Physical:
+    """The file's lines (``physical[i]`` is line i + 1), split only when first needed: a large
+    file without rejects or comments never pays for a list of its lines."""
+
+    def __init__(self, text: str):
+        self._text, self._lines = text, None
+
+    def _split(self) -> list[str]:
+        if self._lines is None:
+            self._lines = self._text.split("\n")
+        return self._lines
+
+    def __getitem__(self, i: int) -> str:
+        if i == 0 and self._lines is None:
+            end = self._text.find("\n")
+            return self._text if end < 0 else self._text[:end]
+        return self._split()[i]
+
+    def __len__(self) -> int:
+        return len(self._split())
+
+
 def _header_line(lines: _Lines, comment: str, label: str) -> int:
     """The 1-based line of the header: the first line, or with ``comment`` declared the first
     line that is neither blank nor a comment."""
@@ -167,7 +189,7 @@ def _check_line_lengths(lines: _Lines, header: int, label: str) -> None:
 _REJECT_TEXT_LIMIT = 10_000  # DuckDB cuts the csv_line of a reject at this many characters
 
 
-def _swallowed(rejects, physical: list[str], lines: np.ndarray, header_line: int
+def _swallowed(rejects, physical: _Physical, lines: np.ndarray, header_line: int
                ) -> list[tuple[int, None, str, str]]:
     """Rejects for the data lines a rejected record swallowed (an unterminated quote runs on
     over the following lines, to the end of the file when DuckDB cut the record's text), so
@@ -187,7 +209,7 @@ def _swallowed(rejects, physical: list[str], lines: np.ndarray, header_line: int
     return out
 
 
-def _reject_inline_comments(con, table: str, physical: list[str], good_lines: np.ndarray,
+def _reject_inline_comments(con, table: str, physical: _Physical, good_lines: np.ndarray,
                             comment: str, rejects: list, header_line: int) -> int:
     """Move staged rows whose line holds the comment character to the rejects.
 
@@ -205,16 +227,27 @@ def _reject_inline_comments(con, table: str, physical: list[str], good_lines: np
     return len(inline)
 
 
-def _private_copy(data: bytes) -> str:
-    """Write ``data`` (with CRLF made LF) to a private temporary file; return its path."""
+def _private_copy(data: bytes, start: int) -> str:
+    """Write ``data[start:]`` (CRLF made LF) to a private temporary file in chunks, without a
+    second copy of a large file in memory; return its path."""
+    view = memoryview(data)[start:]
     fd, path = tempfile.mkstemp(prefix="fluidledger-stage-", suffix=".csv")
     try:
         with os.fdopen(fd, "wb") as fh:
-            fh.write(data.replace(b"\r\n", b"\n"))
+            pos, size = 0, len(view)
+            while pos < size:
+                end = min(pos + _COPY_CHUNK, size)
+                while end < size and view[end - 1] == 13:   # keep a CR beside its LF
+                    end += 1
+                fh.write(bytes(view[pos:end]).replace(b"\r\n", b"\n"))
+                pos = end
     except BaseException:
         os.unlink(path)
         raise
     return path
+
+
+_COPY_CHUNK = 1 << 22
 
 
 def stage_csv(con: duckdb.DuckDBPyConnection, data: bytes, spec, label: str,
@@ -224,7 +257,7 @@ def stage_csv(con: duckdb.DuckDBPyConnection, data: bytes, spec, label: str,
     body = data[3:] if data.startswith(b"\xef\xbb\xbf") else data
     info = _Lines.of(body)
     header_line = _header_line(info, spec.comment, label)
-    physical = text.split("\n")
+    physical = _Physical(text)
     first = physical[header_line - 1]
     if first.count(spec.delimiter) >= MAX_COLUMNS and len(first) > MAX_LINE_BYTES:
         raise BatchError(f"header has more than {MAX_COLUMNS:,} columns ({len(first):,} "
@@ -235,6 +268,8 @@ def stage_csv(con: duckdb.DuckDBPyConnection, data: bytes, spec, label: str,
     lines = _data_lines(info, spec.comment, header_line)
     if lines.size == 0:
         raise BatchError("file has a header but no data rows", file=label)
+    start = int(info.starts[header_line - 1])
+    del info                             # freed before DuckDB reads: its arrays are large
     offset = header_line - 1             # DuckDB numbers the lines of the copy: + offset
     columns = {name: "VARCHAR" for name in header}
     options = dict(header=True, delim=spec.delimiter, quote=spec.quote, escape=spec.quote,
@@ -246,7 +281,7 @@ def stage_csv(con: duckdb.DuckDBPyConnection, data: bytes, spec, label: str,
         options["comment"] = spec.comment
     option_sql = ", ".join(f"{k} = ${k}" for k in options)
     con.execute("DROP TABLE IF EXISTS fl_reject_errors; DROP TABLE IF EXISTS fl_reject_scans")
-    copy = _private_copy(body[int(info.starts[header_line - 1]):])
+    copy = _private_copy(body, start)
     try:
         con.execute(f"CREATE OR REPLACE TEMP TABLE {table} AS SELECT row_number() OVER () AS ord, * "
                     f"FROM read_csv($path, {option_sql})", {"path": copy, **options})

@@ -505,7 +505,7 @@ def _internal(batch: str, err: Exception) -> BatchResult:
     Ctrl-C is no batch's fault and stops the run instead (re-raised)."""
     if is_interrupt(err) or environment_problem(err) is not None:
         raise err
-    log.exception("internal error while ingesting batch %s", batch)
+    log.debug("internal error while ingesting batch %s", batch, exc_info=True)  # --verbose
     text = " ".join(str(err).split())[:300]
     return BatchResult(batch, "error", internal=True,
                        error=f"{batch}: internal error while ingesting this batch "

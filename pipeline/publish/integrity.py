@@ -22,6 +22,7 @@ file until the next publish or nightly run rebuilds it.
 
 from __future__ import annotations
 
+import logging
 import tempfile
 from dataclasses import dataclass
 from pathlib import Path
@@ -29,6 +30,8 @@ from pathlib import Path
 import duckdb
 
 from pipeline.publish import published
+
+log = logging.getLogger(__name__)
 
 #: release table -> (export table name, the column its rows are ordered by when rebuilt)
 TABLES = {"release": ("release", "release_id"), "release_constant": ("constants", "value_id"),
@@ -209,5 +212,22 @@ def rebuild_published(con: duckdb.DuckDBPyConnection, target: Path) -> str | Non
     return pub.release_id
 
 
-__all__ = ["PublishedCheck", "check_published", "rebuild_published", "latest_publication",
-           "publications", "content_of_file"]
+def repair_published(con: duckdb.DuckDBPyConnection, root: Path) -> dict | None:
+    """Rebuild ``<root>/published.duckdb`` from the store when it differs from the store's
+    latest publication into it (altered, missing, or stale after a stopped publish); what was
+    found and done, or None when it was right (what the nightly job's verify stage does)."""
+    target = Path(root) / published.PUBLISHED_NAME
+    found = check_published(con, target)
+    if found.ok:
+        return None
+    release = rebuild_published(con, target)
+    diffs = list(found.differences)
+    why = (f"differed from the store's release {release} ({'; '.join(diffs[:3])}"
+           f"{'; ...' if len(diffs) > 3 else ''})" if diffs else f"was stale: {found.stale}")
+    text = f"{target.name} {why}: rebuilt from the store"
+    (log.warning if diffs else log.info)("verify: %s", text)
+    return {"text": text, "release_id": release, "differences": diffs}
+
+
+__all__ = ["PublishedCheck", "check_published", "rebuild_published", "repair_published",
+           "latest_publication", "publications", "content_of_file"]

@@ -121,3 +121,18 @@ def test_a_decision_reason_with_control_characters_keeps_outputs_clean(tmp_path_
     assert "under review \\x1b[2J" in out
     skipped = [e.get("message") for e in ET.parse(junit).getroot().iter("skipped")]
     assert any("under review \\x1b[2J\\x1b]0;owned\\x07 with the lab" in m for m in skipped)
+
+
+@pytest.mark.parametrize("text,key", [
+    ('["triple-point.on-curves"]\nz_max = nan\n', "triple-point.on-curves.z_max"),
+    ('[fluid.water."data.outliers"]\nz_max = inf\n', "fluid.water.data.outliers.z_max"),
+])
+def test_a_non_finite_threshold_in_a_user_file_is_refused(tmp_path, text, key):
+    """Case 4: a threshold file (--config) setting nan or inf is refused naming the key, like a decision's override."""
+    from pipeline.errors import ConfigError
+
+    cfg = tmp_path / "thresholds.toml"
+    cfg.write_text(text, encoding="utf-8")
+    with pytest.raises(ConfigError, match="not a finite number") as err:
+        Thresholds.load(cfg)
+    assert err.value.key == key
