@@ -14,14 +14,16 @@ macro definitions by storage version, so only files of the same kind compare):
   file, or one missing from it, is a difference too.
 
 Each part of the rows is a count and a SHA-256 over the rows cast to text in a fixed order.
-:func:`check_published` returns the differences; :func:`rebuild_published` writes the file
-again from the store (what the nightly job does when the check finds one). The macros are
-those of the installed FluidLedger: after an upgrade that changes them, the check reports the
-file until the next publish or nightly run rebuilds it.
+The publish stage records the parts of the file it built in its run row, so a verify of an
+intact file only reads the file; the reference is built only when they differ (or were not
+recorded), and a file that matches either is intact. :func:`check_published` returns the
+differences; :func:`rebuild_published` writes the file again from the store (what the
+nightly job does when the check finds one).
 """
 
 from __future__ import annotations
 
+import json
 import logging
 import tempfile
 from dataclasses import dataclass
@@ -125,6 +127,23 @@ def content_of_file(con: duckdb.DuckDBPyConnection) -> dict[str, str]:
     return parts
 
 
+def file_parts(path: Path) -> dict[str, str]:
+    """The parts of the published file at ``path`` (the publish stage records them)."""
+    return _parts(path)[0]
+
+
+def recorded_parts(con: duckdb.DuckDBPyConnection, pub: Publication) -> dict[str, str] | None:
+    """The parts the publish run of ``pub`` recorded for the file it built (None when it
+    recorded none: an older FluidLedger, or a publish killed before it finished)."""
+    row = con.execute("SELECT summary_json FROM run WHERE run_id = ?",
+                      [pub.publish_run_id]).fetchone()
+    try:
+        recorded = json.loads(row[0]).get("published_content") if row and row[0] else None
+    except (ValueError, AttributeError):
+        return None
+    return recorded or None
+
+
 def _parts(path: Path) -> tuple[dict[str, str], str | None]:
     """The parts of the published file at ``path``, and the run its publication row names."""
     con = published.open_read_only(path)
@@ -177,14 +196,17 @@ def check_published(con: duckdb.DuckDBPyConnection, target: Path) -> PublishedCh
         have, run = _parts(target)
     except Exception as err:  # noqa: BLE001 - a file that cannot be read is the finding itself
         return PublishedCheck((f"{target.name} cannot be read: {str(err).splitlines()[0]}",))
-    want = _reference(con, pubs[0], target)
+    if have == recorded_parts(con, pubs[0]):
+        return PublishedCheck()
+    want = _reference(con, pubs[0], target)      # the installed FluidLedger's macros
     if have == want:
         return PublishedCheck()
     # the publication the file says it holds, wherever the store recorded it (a store and its
     # releases copied elsewhere keep their recorded paths)
     earlier = next((p for p in publications(con) if p.publish_run_id == run
                     and p != pubs[0]), None)
-    if earlier is not None and _reference(con, earlier, target) == have:
+    if earlier is not None and (have == recorded_parts(con, earlier)
+                                or have == _reference(con, earlier, target)):
         return PublishedCheck(stale=(
             f"{target.name} holds release {earlier.release_id} of publish run "
             f"{earlier.publish_run_id}, not the latest publication (release "
@@ -230,4 +252,5 @@ def repair_published(con: duckdb.DuckDBPyConnection, root: Path) -> dict | None:
 
 
 __all__ = ["PublishedCheck", "check_published", "rebuild_published", "repair_published",
-           "latest_publication", "publications", "content_of_file"]
+           "latest_publication", "publications", "content_of_file", "file_parts",
+           "recorded_parts"]

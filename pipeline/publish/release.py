@@ -44,6 +44,7 @@ from pipeline.errors import EXIT_CHECK_FAILED, PublishError
 from pipeline.ingest.stage import new_run_id, utcnow
 from pipeline.publish import exports, provenance as prov, published, sqlmacros
 from pipeline.publish.inputs import ReleaseInputs, load_inputs
+from pipeline.publish.integrity import file_parts
 from pipeline.publish.policy import NO_DECISIONS, Decisions, Policy
 from pipeline.publish.recommend import Recommendation, recommend_all
 from pipeline.store.runs import end_run
@@ -75,9 +76,13 @@ class PublishResult:
     published_file: str
     exports_written: bool
     unresolved: list[dict] = field(default_factory=list)
+    #: digests of the published file's parts, kept in the run row for ``verify``
+    published_content: dict = field(default_factory=dict, repr=False)
 
     def asdict(self) -> dict:
-        return asdict(self)
+        out = asdict(self)
+        out.pop("published_content")
+        return out
 
     def asstr(self) -> str:
         state = "made" if self.created else "re-published (unchanged)"
@@ -252,7 +257,8 @@ def publish(con: duckdb.DuckDBPyConnection, store_path: Path, *, name: str | Non
     except BaseException as err:
         end_run(con, run_id, err)
         raise
-    _finish(con, run_id, "ok" if result.created else "no-changes", result.asdict())
+    _finish(con, run_id, "ok" if result.created else "no-changes",
+            {**result.asdict(), "published_content": result.published_content})
     return result
 
 
@@ -290,6 +296,7 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
     try:
         already = exports.existing_folder_matches(final_dir, manifest)
         tmp_pub = published.build_published_file(target, content.tables, extra, publication)
+        content_parts = file_parts(tmp_pub)
         crash_point("publish:file-built")
         written = exports.commit_release_folder(tmp_dir, final_dir, already)
     except BaseException:
@@ -322,4 +329,4 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
                          bool(inputs.bad_checks()), counts.get("fail", 0),
                          counts.get("error", 0), len(content.tables["constants"]),
                          len(content.tables["curves"]), str(final_dir), str(target), written,
-                         content.unresolved)
+                         content.unresolved, content_parts)

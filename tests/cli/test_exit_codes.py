@@ -124,21 +124,23 @@ def test_the_busy_message_fits_a_reader_holding_the_store(store_path):
 
 
 # -- the machine's problems: exit 74 ------------------------------------------------------------
-def test_a_truncated_store_is_an_environment_error_naming_the_path(raw_root, tmp_path):
+def test_a_truncated_store_is_an_environment_error_naming_the_path(raw_root, tmp_path, capsys):
     """Case 11: a store cut short (a copy interrupted, a full disk) exits 74 naming the store and what to do, never 3 or a traceback."""
     write_batch(raw_root, "a", SIMPLE_BATCH.format(source="rig-a"), {"vp.csv": big_csv(20_000)})
     store = tmp_path / "s.duckdb"
-    assert cli("ingest", raw_root, "--store", store, "-q").returncode == 0
+    assert main(["ingest", str(raw_root), "--store", str(store), "-q"]) == 0
     size = store.stat().st_size
     for cut in (100, size // 3, size // 2):
         broken = tmp_path / f"cut-{cut}.duckdb"
         shutil.copyfile(store, broken)
         os.truncate(broken, cut)
-        for argv in (["ingest", raw_root], ["status"], ["fit"]):
-            proc = cli(*argv, "--store", broken, "-q")
-            assert proc.returncode == EXIT_ENVIRONMENT, (cut, argv, proc.stderr)
-            assert str(broken) in proc.stderr and "internal error" not in proc.stderr
-            assert "truncated" in proc.stderr or "corrupt" in proc.stderr, proc.stderr
+        for argv in (["ingest", str(raw_root)], ["status"], ["fit"]):
+            capsys.readouterr()
+            code = main([*argv, "--store", str(broken), "-q"])
+            err = capsys.readouterr().err
+            assert code == EXIT_ENVIRONMENT, (cut, argv, err)
+            assert str(broken) in err and "internal error" not in err and "Traceback" not in err
+            assert "truncated" in err or "corrupt" in err, err
 
 
 def _namespace_shell(script: str) -> subprocess.CompletedProcess | None:
