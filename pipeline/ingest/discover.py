@@ -42,11 +42,25 @@ def discover_batches(root: Path) -> list[Path]:
         if MANIFEST in files or MANIFEST in dirs:
             found.append(here)
         for name in dirs:
-            if name != MANIFEST and (here / name).is_symlink() \
-                    and os.path.lexists(here / name / MANIFEST):
+            if name != MANIFEST and (here / name).is_symlink() and _holds_batches(here / name):
                 found.append(here / name)
         dirs[:] = [d for d in dirs if d != MANIFEST]
     return sorted(found)
+
+
+def _holds_batches(link: Path) -> bool:
+    """A linked folder holds a batch.toml, at any depth (it is then listed, to be reported)."""
+    try:
+        return any(MANIFEST in files or MANIFEST in dirs
+                   for _, dirs, files in os.walk(link, followlinks=False))
+    except OSError:
+        return False
+
+
+def real_folder(batch_dir: Path) -> Path:
+    """``batch_dir`` with the folders above it resolved (a raw folder reached through a link
+    names its batches like the real one); the batch folder itself stays as found."""
+    return batch_dir.parent.resolve() / batch_dir.name
 
 
 def batch_problem(root: Path, batch_dir: Path) -> str | None:

@@ -54,6 +54,7 @@ from pipeline.ingest.discover import (
     batch_problem,
     discover_batches,
     manifest_problem,
+    real_folder,
     table_path,
 )
 from pipeline.ingest.normalise import QUANTITY_KIND, normalise, uncertainty_sql
@@ -286,6 +287,7 @@ class Ingestor:
     # -- one batch ------------------------------------------------------------------------
     def ingest(self, batch_dir: Path) -> BatchResult:
         """Ingest one batch; any problem inside it refuses it (see the module docstring)."""
+        batch_dir = real_folder(batch_dir)
         rel = _label(self.root, batch_dir)
         try:
             plan = plan_batch(self.root, batch_dir, self.fluids)

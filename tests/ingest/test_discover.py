@@ -12,7 +12,7 @@ import pytest
 from pipeline.cli import main
 from pipeline.ingest.discover import discover_batches
 from pipeline.store import open_store
-from tests.conftest import SIMPLE_BATCH, SIMPLE_CSV, write_batch
+from tests.conftest import FLUIDS_TOML, SIMPLE_BATCH, SIMPLE_CSV, write_batch
 
 GOOD = SIMPLE_BATCH.format(source="rig-a")
 POSIX = pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="needs POSIX FIFOs and symlinks")
@@ -47,6 +47,31 @@ def test_relative_dotdot_and_absolute_batch_paths_are_the_same_batch(raw_root, s
         assert code == 0 and "unchanged  lab/b1" in out, (other, out)
 
 
+@POSIX
+def test_a_raw_folder_reached_through_a_link_names_its_batches_as_usual(tmp_path, capsys):
+    """Case 3: `ingest link-to-raw` (a raw folder on a mounted share, say) loads its batches under their usual names; a second spelling finds them unchanged."""
+    real = tmp_path / "share" / "raw"
+    real.mkdir(parents=True)
+    (real / "fluids.toml").write_text(FLUIDS_TOML, encoding="utf-8")
+    write_batch(real, "lab/b1", GOOD, {"vp.csv": SIMPLE_CSV})
+    (tmp_path / "raw").symlink_to(real, target_is_directory=True)
+    store = tmp_path / "s.duckdb"
+    code, out, err = ingest(store, capsys, tmp_path / "raw")
+    assert code == 0 and "loaded  lab/b1: 3 rows read" in out, err
+    code, out, _ = ingest(store, capsys, real / "lab" / "b1")
+    assert code == 0 and "unchanged  lab/b1" in out
+
+
+@POSIX
+def test_a_batch_two_levels_below_a_linked_folder_is_reported(raw_root, store_path, capsys,
+                                                              tmp_path):
+    """Case 8: a linked folder holding batches deeper down is reported, never skipped without a word."""
+    write_batch(tmp_path / "elsewhere", "campaign/b1", GOOD, {"vp.csv": SIMPLE_CSV})
+    (raw_root / "shared").symlink_to(tmp_path / "elsewhere", target_is_directory=True)
+    code, _, err = ingest(store_path, capsys, raw_root)
+    assert code == 2 and "shared: the folder shared is a symbolic link to" in err
+
+
 def test_a_batch_outside_the_raw_folder_is_refused_with_a_message(raw_root, store_path, capsys,
                                                                   tmp_path):
     """A batch folder that is not under the folder of fluids.toml is refused naming it, not a crash."""
@@ -78,6 +103,20 @@ def test_a_fifo_as_table_file_is_refused(raw_root, store_path, capsys):
     os.mkfifo(folder / "vp.csv")
     code, _, err = ingest(store_path, capsys, raw_root)
     assert code == 2 and "b1/vp.csv: is a named pipe (FIFO), not a regular file; refused" in err
+
+
+@POSIX
+def test_a_device_as_table_file_is_refused(raw_root, store_path, capsys):
+    """Case 8: a character device (here /dev/zero's numbers) as a table file is refused naming it, never read."""
+    import stat
+
+    folder = write_batch(raw_root, "b1", GOOD, {})
+    try:
+        os.mknod(folder / "vp.csv", stat.S_IFCHR | 0o644, os.makedev(1, 5))
+    except (PermissionError, OSError):
+        pytest.skip("making a device node needs privileges")
+    code, _, err = ingest(store_path, capsys, raw_root)
+    assert code == 2 and "b1/vp.csv: is a character device, not a regular file; refused" in err
 
 
 def test_a_directory_named_batch_toml_refuses_only_its_batch(raw_root, store_path, capsys):
