@@ -88,7 +88,8 @@ def index_html(rows: Sequence[IndexRow]) -> str:
     for r in rows:
         chi2 = "" if r.worst_chi2 is None else number(r.worst_chi2, 3)
         body.append(f'<tr id="{e(r.anchor)}"><td><a href="{e(r.href)}"><code>{e(r.fluid_id)}'
-                    f"</code></a></td><td>{e(r.title)}</td><td>{e(counts_text(r.statuses))}"
+                    f"</code></a></td><td>{e(r.title)}</td><td>"
+                    f"{e(counts_text(r.statuses) or 'not checked (no data)')}"
                     f'</td><td class="num">{r.n_observations}</td><td class="num">'
                     f'{r.n_fitted}/{r.n_fits}</td><td class="num">{chi2}</td></tr>')
     out.append('<table class="index"><thead><tr><th>fluid</th><th>name</th><th>checks</th>'
