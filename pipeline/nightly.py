@@ -806,7 +806,9 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
     page.nightly = result.asdict()
     memo = ValidatedItems(None if opts.full else opts.reports / ".cache" /
                           f"valid-results-{ValidatedItems.schema_key()}.txt")
+    t_files = time.perf_counter()
     write_report(folder, page.nightly, page, memo=memo)
+    report.detail["files_s"] = round(time.perf_counter() - t_files, 3)   # run row only
     report.duration_s = time.perf_counter() - t_report   # the run row gets the full time
     state = {f: {"data": data_fp.get(f), "check": check_fp[f], "check_run": check_run.run_id,
                  "fits": fits_now.get(f, {})} for f in selected}

@@ -15,9 +15,7 @@ import os
 from dataclasses import dataclass, field
 from typing import Callable, Iterable
 
-from pipeline.report.deviation import deviation_figure
-from pipeline.report.plots import FlagGroup, PhaseDiagramData, phase_diagram
-from pipeline.report.svg import figure_svg
+from pipeline.report.plots import FlagGroup, PhaseDiagramData
 
 
 @dataclass(frozen=True)
@@ -44,6 +42,11 @@ def _prefix(fluid_id: str, figure: str) -> str:
 
 def render_figures(data: PhaseDiagramData) -> FluidFigures:
     """Draw and serialise the phase diagram and the deviation plots of one fluid."""
+    # imported here: matplotlib is loaded only by a report that draws (start-up of the rest)
+    from pipeline.report.deviation import deviation_figure
+    from pipeline.report.plots import phase_diagram
+    from pipeline.report.svg import figure_svg
+
     phase = figure_svg(phase_diagram(data), prefix=_prefix(data.fluid_id, "ph"), figure="phase",
                        fluid_id=data.fluid_id, label=f"phase diagram of {data.title}")
     dev_fig = deviation_figure(data)
