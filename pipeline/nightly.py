@@ -804,7 +804,8 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
     result.duration_s = time.perf_counter() - t0
     result.report = {"dir": str(folder), **{k: str(folder / v) for k, v in FILES.items()}}
     page.nightly = result.asdict()
-    memo = ValidatedItems(None if opts.full else opts.reports / ".cache" /
+    # kept under --full too: an item valid against these schemas (the key) stays valid
+    memo = ValidatedItems(opts.reports / ".cache" /
                           f"valid-results-{ValidatedItems.schema_key()}.txt")
     t_files = time.perf_counter()
     write_report(folder, page.nightly, page, memo=memo)
