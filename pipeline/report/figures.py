@@ -3,7 +3,7 @@ inline SVG, and the flag groups their numbers refer to (cached together, as JSON
 
 :func:`draw_all` draws many fluids, in worker processes when there are enough of them to
 pay for starting the workers (``spawn``: each worker imports matplotlib once, about a second;
-a fluid's figures take 0.2-0.5 s). The SVG text does not depend on the process that drew it
+a fluid's figures take 0.2-0.5 s), when ``FLUIDLEDGER_REPORT_WORKERS`` asks for them. The SVG text does not depend on the process that drew it
 (fixed ``svg.hashsalt``, no dates), so the figures are the same bytes either way
 (``tests/report/test_report_figures.py``).
 """
@@ -58,13 +58,18 @@ def render_figures(data: PhaseDiagramData) -> FluidFigures:
 
 #: Environment variable setting the number of drawing processes (1: draw in this process).
 WORKERS_ENV = "FLUIDLEDGER_REPORT_WORKERS"
-#: Fewest fluids to draw for which worker processes are started.
+#: Fewest fluids to draw for which worker processes are started (when asked for).
 PARALLEL_MIN_FLUIDS = 24
 
 
 def worker_count(n_fluids: int, workers: int | None = None) -> int:
-    """Drawing processes for ``n_fluids``: ``workers``, else ``$FLUIDLEDGER_REPORT_WORKERS``,
-    else one per CPU (at most 8) from :data:`PARALLEL_MIN_FLUIDS` fluids on; 1 means none."""
+    """Drawing processes for ``n_fluids``: ``workers``, else ``$FLUIDLEDGER_REPORT_WORKERS``
+    from :data:`PARALLEL_MIN_FLUIDS` fluids on, else 1 (this process).
+
+    One process is the default because it was measured faster on a shared 2-CPU machine: a
+    cold report of 200 fluids took 150.7 s in one process and 203.7 s with two workers (load
+    average 13; ``python benchmarks/report.py --cold``). A machine with idle CPUs may set the
+    variable; the figures are the same bytes either way."""
     if workers is None:
         text = os.environ.get(WORKERS_ENV, "").strip()
         if text:
@@ -74,10 +79,8 @@ def worker_count(n_fluids: int, workers: int | None = None) -> int:
                 from pipeline.errors import FluidLedgerError
                 raise FluidLedgerError(f"{WORKERS_ENV} must be a whole number of processes, "
                                        f"got {text!r}") from None
-        elif n_fluids < PARALLEL_MIN_FLUIDS:
+        if n_fluids < PARALLEL_MIN_FLUIDS or workers is None:
             workers = 1
-        else:
-            workers = min(os.cpu_count() or 1, 8)
     return max(1, min(workers, n_fluids))
 
 
