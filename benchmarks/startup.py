@@ -7,9 +7,11 @@ weighs on all alike; prints min/median/max wall time and the ratio of the median
 Two yardsticks run in the same rounds: a bare ``python -c pass`` (the interpreter's own
 start-up, which no change here can remove) and ``python -c "import duckdb"`` (the one library
 ``status`` needs). ``status`` reads the demo store, ingested first into a temporary folder.
-``--importtime`` adds the ten slowest imports of each command (``python -X importtime``).
+``--importtime`` adds the ten slowest imports of each command (``python -X importtime``);
+``--before SCRIPT`` runs another installation's ``fluidledger`` script in the same rounds
+(e.g. one made from an older commit) and prints the ratio of the medians.
 
-    python benchmarks/startup.py [--repeat N] [--importtime]
+    python benchmarks/startup.py [--repeat N] [--importtime] [--before SCRIPT]
 """
 
 from __future__ import annotations
@@ -62,6 +64,8 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=9)
     ap.add_argument("--importtime", action="store_true")
+    ap.add_argument("--before", metavar="SCRIPT", default=None,
+                    help="another fluidledger script to time in the same rounds")
     args = ap.parse_args()
     tmp = Path(tempfile.mkdtemp(prefix="fl-startup-"))
     try:
@@ -76,6 +80,10 @@ def main() -> None:
             "fluidledger --help": [*fl, "--help"],
             "fluidledger status": [*fl, "status", "--store", str(store)],
         }
+        if args.before:
+            for sub in ("--version", "--help", "status"):
+                extra = ["--store", str(store)] if sub == "status" else []
+                cases[f"before {sub} (yardstick)"] = [args.before, sub, *extra]
         times: dict[str, list[float]] = {k: [] for k in cases}
         for name, cmd in cases.items():      # a warm-up round: the file cache, not the code
             _once(cmd)
@@ -95,6 +103,11 @@ def main() -> None:
         print(f"above the bare interpreter (median): " + ", ".join(
             f"{n.split(' ', 1)[1]} {statistics.median(t) - bare:.3f} s"
             for n, t in times.items() if n.startswith("fluidledger")))
+        if args.before:
+            med = {k: statistics.median(t) for k, t in times.items()}
+            print("before / now (medians): " + ", ".join(
+                f"{sub} {med[f'before {sub} (yardstick)'] / med[f'fluidledger {sub}']:.2f}"
+                for sub in ("--version", "--help", "status")))
         if args.importtime:
             for cmd_args in (["--version"], ["--help"], ["status", "--store", str(store)]):
                 print(f"\nslowest imports of fluidledger {cmd_args[0]} (cumulative ms):")
