@@ -4,8 +4,8 @@ The check results of three data sets are frozen here, with the inputs they were 
 
 - ``demo``: the demo store (``raw/``, after ingest and fit by the nightly job);
 - ``realdata``: the real-data corpus store (``benchmarks/realdata.py --keep DIR``);
-- ``synthetic``: the benchmark's synthetic fluids (``benchmarks/check.py``, built in memory, so
-  only their results are stored).
+- ``synthetic``: the benchmark's synthetic fluids (``benchmarks/synthetic_fluids.py``, built in
+  memory, so only their results are stored).
 
 For a store, the inputs are the five tables :func:`pipeline.checks.data.load_fluid_data` reads
 (fluids, observations, fixed points, stated constants, current fits), written as Parquet, so
@@ -13,7 +13,7 @@ the test does not depend on the ingest and fit stages (whose own changes would m
 numbers). The results of :func:`pipeline.checks.run_checks` on them (default thresholds, no
 post-processing) are written as gzipped JSON lines, every field but the timing.
 
-    python tests/checks/regression/snapshot_results.py --demo STORE --realdata STORE
+    python tests/checks/regression/snapshot_results.py [--demo STORE] [--realdata STORE] [--synthetic]
 
 Run it only from code whose results are the reference (the commit before a change that must
 not change them), and say so in the commit message.
@@ -48,8 +48,9 @@ RESULT_FIELDS = ("check_id", "fluid_id", "subject", "status", "severity", "messa
 
 
 def synthetic_module():
-    """``benchmarks/check.py`` as a module (its synthetic fluid generator)."""
-    spec = importlib.util.spec_from_file_location("check_benchmark", ROOT / "benchmarks" / "check.py")
+    """``benchmarks/synthetic_fluids.py`` as a module (the benchmark's fluid generator)."""
+    spec = importlib.util.spec_from_file_location("synthetic_fluids",
+                                                  ROOT / "benchmarks" / "synthetic_fluids.py")
     module = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(module)
     return module
@@ -100,13 +101,17 @@ def _snapshot_store(name: str, store: Path) -> None:
 
 def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    p.add_argument("--demo", type=Path, required=True, help="the demo store after a nightly run")
-    p.add_argument("--realdata", type=Path, required=True,
+    p.add_argument("--demo", type=Path, help="the demo store after a nightly run")
+    p.add_argument("--realdata", type=Path,
                    help="the real-data store (benchmarks/realdata.py --keep DIR: DIR/store.duckdb)")
+    p.add_argument("--synthetic", action="store_true", help="the benchmark's synthetic fluids")
     args = p.parse_args(argv)
-    _snapshot_store("demo", args.demo)
-    _snapshot_store("realdata", args.realdata)
-    _write_expected("synthetic", synthetic_fluids())
+    if args.demo:
+        _snapshot_store("demo", args.demo)
+    if args.realdata:
+        _snapshot_store("realdata", args.realdata)
+    if args.synthetic:
+        _write_expected("synthetic", synthetic_fluids())
     return 0
 
 
