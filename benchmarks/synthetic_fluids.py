@@ -29,7 +29,7 @@ import numpy as np
 import pandas as pd
 
 from pipeline.checks import FittedCurve, FluidData
-from pipeline.checks.data import fluids_from_tables
+from pipeline.checks.loader import fluids_from_tables
 from pipeline.correlations import REFERENCE_CONSTANTS, reference_curve
 
 BASES = ("argon", "nitrogen", "carbon-dioxide")

@@ -12,15 +12,9 @@ function registered with :func:`register_check`; ``fluidledger explain CHECK_ID`
 physics and the thresholds in force.
 """
 
-from pipeline.checks.data import (
-    CheckBatch,
-    FittedCurve,
-    FluidData,
-    ObsSeries,
-    load_fluid_data,
-    sample_series,
-)
+from pipeline.checks.data import CheckBatch, FittedCurve, FluidData, ObsSeries, sample_series
 from pipeline.checks.engine import POSTPROCESSORS, run_checks, store_run
+from pipeline.checks.loader import load_fluid_data
 from pipeline.checks.findings import Finding, Status, judge, skipped
 from pipeline.checks.registry import (
     CheckSpec,

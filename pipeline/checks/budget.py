@@ -194,25 +194,28 @@ class CurveBudget:
                 "expansion": self.expansion}
 
 
-def curve_budget(series, fitted_value, model: UncertaintyModel,
-                 policy: ExtrapolationPolicy) -> CurveBudget:
+def curve_budget(series, fitted: np.ndarray, model: UncertaintyModel,
+                 policy: ExtrapolationPolicy, kept: np.ndarray | None = None) -> CurveBudget:
     """The :class:`CurveBudget` of a fitted curve from the observations it was fitted to.
 
-    ``series`` is the group's :class:`~pipeline.checks.data.ObsSeries` (fit outliers are left
-    out), ``fitted_value`` evaluates the fit (T -> value, extrapolating).
+    ``series`` is the group's :class:`~pipeline.checks.data.ObsSeries`; ``kept`` the positions
+    of the observations that enter (fit outliers and non-finite values are left out; computed
+    when None) and ``fitted`` the fitted curve's values at them (extrapolating).
     """
-    keep = ~series.is_outlier.astype(bool) & np.isfinite(series.value.astype(float))
-    if not keep.any():
+    if kept is None:
+        kept = np.flatnonzero(~series.is_outlier.astype(bool) & np.isfinite(series.value.astype(float)))
+    if not len(kept):
         return CurveBudget(policy=policy)
-    s = series.take(np.flatnonzero(keep))
+    s = series.take(kept)
     T, y = s.T.astype(float), s.value.astype(float)
     u = s.u_value_si.astype(float)
     kinds = s.source_kind
     stated = np.isfinite(u) & (u > 0)
-    rel = np.where(stated, np.abs(u / np.where(y != 0, y, np.nan)),
-                   [model.observed_rel(s.quantity, k) for k in kinds])
+    uniq, inverse = np.unique(kinds.astype(str), return_inverse=True)
+    defaults = np.array([model.observed_rel(s.quantity, k) for k in uniq])[inverse]
+    rel = np.where(stated, np.abs(u / np.where(y != 0, y, np.nan)), defaults)
     with np.errstate(invalid="ignore", divide="ignore"):
-        resid = y / np.asarray(fitted_value(T), dtype=float) - 1.0
+        resid = y / np.asarray(fitted, dtype=float) - 1.0
     shares = []
     paths = s.file_path
     for path in dict.fromkeys(paths):

@@ -36,7 +36,7 @@ ROOT = HERE.parents[2]
 sys.path.insert(0, str(ROOT))
 
 from pipeline.checks import run_checks  # noqa: E402
-from pipeline.checks import data as check_data  # noqa: E402
+from pipeline.checks import loader as check_data  # noqa: E402
 
 TABLES = {"fluids": (check_data._Q_FLUIDS, ""), "observations": (check_data._Q_OBS, "o"),
           "fixed_points": (check_data._Q_FIXED, "p"), "constants": (check_data._Q_CONST, "c"),

@@ -1,0 +1,316 @@
+"""Fitted curves as the checks read them, many points at once.
+
+:meth:`FluidData.at <pipeline.checks.data.FluidData.at>` is the one way a check reads a fitted
+curve: the value, slope and their standard uncertainties at one temperature under the one
+uncertainty budget and the one extrapolation policy (:mod:`pipeline.checks.budget`). A check
+over many fluids asks for many such points; :func:`evaluate_points` answers a whole list of
+requests (fluid, curve, T) at once. Requests whose curves share a correlation form and term
+count (across fluids) share one call of the form's kernels, as
+:func:`pipeline.correlations.evaluate_batch` does, so a run over 1,000 fluids makes a few
+hundred numpy calls where the point-by-point reading made hundreds of thousands; the curve
+budgets the points need are computed in the same way (:func:`curve_budgets`).
+
+Each number is the one the point-by-point reading gave, to the last bit: the kernels are
+elementwise, and the few reductions whose rounding depends on the array shapes (the
+uncertainty's quadratic form, the slope uncertainty's) are taken one point at a time, on the
+same shapes as a single reading.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any, Iterable, Sequence
+
+import numpy as np
+
+from pipeline.checks.budget import CurveBudget, CurvePoint, curve_budget, reach
+from pipeline.checks.points import curve_label
+from pipeline.correlations.base import Curve
+
+if TYPE_CHECKING:  # pragma: no cover
+    from pipeline.checks.data import FluidData
+
+CurveKey = tuple[str, str, str]  # (boundary, solid_phase, quantity)
+#: (fluid, curve key, temperature [K]) asked of :func:`evaluate_points`
+Request = tuple["FluidData", CurveKey, float]
+_KERNEL = {"value": "evaluate", "slope": "derivative", "jacobian": "jacobian"}
+
+
+@dataclass(frozen=True)
+class FittedCurve:
+    """A current fit: the correlation :class:`~pipeline.correlations.Curve` and its metadata."""
+
+    curve: Any
+    fit_id: str | None = None
+    form: str | None = None
+    n_used: int | None = None
+    reduced_chi2: float | None = None
+    weighted_rms: float | None = None
+    input_hash: str | None = None
+
+    @property
+    def T_min_K(self) -> float:
+        return float(self.curve.T_min_K)
+
+    @property
+    def T_max_K(self) -> float:
+        return float(self.curve.T_max_K)
+
+    def covers(self, T: float, margin_K: float = 0.0) -> bool:
+        """True when ``T`` lies inside the fitted range widened by ``margin_K`` [K]."""
+        return self.T_min_K - margin_K <= T <= self.T_max_K + margin_K
+
+    def value(self, T, extrapolate: bool = False):
+        return self.curve.value(T, extrapolate=extrapolate)
+
+    def slope(self, T, extrapolate: bool = False):
+        return self.curve.slope(T, extrapolate=extrapolate)
+
+    def u(self, T, extrapolate: bool = False):
+        """Standard uncertainty of the fitted value (0 where the fit has no covariance)."""
+        if getattr(self.curve, "covariance", None) is None:
+            return np.zeros_like(np.asarray(T, dtype=float))
+        return np.nan_to_num(self.curve.u(T, extrapolate=extrapolate), nan=0.0)
+
+    def evidence(self) -> dict:
+        return {"fit_id": self.fit_id, "form": self.form or getattr(self.curve, "form", None),
+                "T_min_K": self.T_min_K, "T_max_K": self.T_max_K}
+
+
+# -- kernels over rows: curve i at temperature i -----------------------------------------------
+def _by_form(curves: Sequence[Any]) -> dict[tuple, list[int]]:
+    """Row indices per (form, parameter count, exponents): rows that share one kernel call.
+
+    Curves that are not :class:`~pipeline.correlations.Curve` (any object with ``value``,
+    ``slope`` and, with a covariance, ``jacobian`` methods) are grouped under None and read
+    through their own methods.
+    """
+    groups: dict[tuple, list[int]] = {}
+    for i, c in enumerate(curves):
+        key = (c.form, len(c.params), c.ref["exponents"]) if isinstance(c, Curve) else None
+        groups.setdefault(key, []).append(i)
+    return groups
+
+
+def _own(curves: Sequence[Any], idx: list[int], what: str, T: np.ndarray) -> list:
+    """Rows read through the curves' own methods (``what`` at T[i], extrapolating)."""
+    if what == "jacobian":
+        return [np.asarray(curves[i].jacobian(float(T[i])), dtype=float) for i in idx]
+    return [float(getattr(curves[i], what)(float(T[i]), extrapolate=True)) for i in idx]
+
+
+def _kernel(form, what: str, T: np.ndarray, P: np.ndarray, T_ref: np.ndarray, exps) -> np.ndarray:
+    """The form's kernel at T (n,) with parameters P (n, k): (n,) values or (n, k) Jacobians."""
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        out = getattr(form, _KERNEL[what])(T[:, None], P, T_ref, exps)
+    return out[:, 0]
+
+
+def curves_at(curves: Sequence[Any], T, what: str = "value") -> np.ndarray:
+    """Row i: ``curves[i]`` (a Curve) at ``T[i]``, extrapolating; ``what`` is value or slope.
+
+    The same numbers as ``curves[i].value(T[i], extrapolate=True)`` (or ``slope``), one kernel
+    call per correlation form and term count.
+    """
+    T = np.asarray(T, dtype=float)
+    out = np.full(len(curves), np.nan)
+    for group, idx in _by_form(curves).items():
+        if group is None:
+            out[idx] = _own(curves, idx, what, T)
+            continue
+        exps = group[2]
+        sub = [curves[i] for i in idx]
+        P = np.array([c.params for c in sub])
+        T_ref = np.array([[c._T_ref] for c in sub])
+        out[idx] = _kernel(sub[0].correlation_form, what, T[idx], P, T_ref, exps)
+    return out
+
+
+def grid_values(curves: Sequence[Any], T: np.ndarray, what: str = "value") -> np.ndarray:
+    """Row i: ``curves[i]`` at the temperatures ``T[i]`` (shape (n, m)), NaN outside its range.
+
+    The same numbers as ``curves[i].value(T[i])`` (or ``slope``), including its range mask.
+    """
+    T = np.asarray(T, dtype=float)
+    out = np.full(T.shape, np.nan)
+    for group, idx in _by_form(curves).items():
+        if group is None:
+            for i in idx:
+                out[i] = np.asarray(getattr(curves[i], what)(T[i]), dtype=float)
+            continue
+        exps = group[2]
+        sub = [curves[i] for i in idx]
+        P = np.array([c.params for c in sub])
+        T_ref = np.array([[c._T_ref] for c in sub])
+        form = sub[0].correlation_form
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            out[idx] = getattr(form, _KERNEL[what])(T[idx], P, T_ref, exps)
+    lo = np.array([c.T_min_K - 1e-12 * abs(c.T_min_K) for c in curves])[:, None]
+    hi = np.array([c.T_max_K + 1e-12 * abs(c.T_max_K) for c in curves])[:, None]
+    return np.where((T >= lo) & (T <= hi), out, np.nan)
+
+
+# -- points under the budget and the policy ----------------------------------------------------
+def _quadratic_u(J: np.ndarray, cov: np.ndarray) -> float:
+    """sqrt(J C J^T) of one point, computed on the shapes ``Curve.u`` uses (bit for bit)."""
+    var = np.einsum("mi,ij,mj->m", J, cov, J)
+    return float(np.nan_to_num(np.sqrt(np.clip(var, 0.0, None)).reshape(()), nan=0.0))
+
+
+def _slope_u(J: dict[int, np.ndarray], h: float, cov: np.ndarray) -> float:
+    """Delta-method u of the slope from Jacobians at end - h, end, end + h (central difference,
+    one-sided where a side is undefined); 0 when none is finite."""
+    for lo, hi in ((-1, 1), (-1, 0), (0, 1)):
+        dJ = (J[hi] - J[lo]) / ((hi - lo) * h)
+        if np.all(np.isfinite(dJ)):
+            var = float(dJ @ cov @ dJ)
+            return math.sqrt(max(var, 0.0))
+    return 0.0
+
+
+def _continued(fitted: FittedCurve, T: float, end: float) -> tuple[float, float, float]:
+    """(value, slope, u) at ``T`` where the form is undefined, continued from ``end``.
+
+    Along Clausius-Clapeyron (ln p linear in 1/T) for forms fitted in ln p, linearly for the
+    others (melting curves); the uncertainty is that at the end.
+    """
+    v_end = float(fitted.value(end, extrapolate=True))
+    s_end = float(fitted.slope(end, extrapolate=True))
+    u_end = float(fitted.u(end, extrapolate=True))
+    if getattr(fitted.curve.correlation_form, "link", "") == "log" and v_end > 0:
+        b = -end ** 2 * s_end / v_end          # d ln p / d(1/T) at the end
+        value = v_end * math.exp(b * (1.0 / T - 1.0 / end))
+        return value, -value * b / T ** 2, u_end * value / v_end
+    return v_end + s_end * (T - end), s_end, u_end
+
+
+def _near(rows: list[int], fitted: list[FittedCurve], T: np.ndarray):
+    """Value, slope, u of the covariance and u of the slope at the requested T of ``rows``.
+
+    A form undefined at T (a fractional power of 1 - T/T_ref a rounding error past T_ref) is
+    read at the nearest end of its range and continued from there (:func:`_continued`); the
+    slope's uncertainty is always that at the point read.
+    """
+    n = len(rows)
+    value, slope, u_cov, u_slope = (np.zeros(n) for _ in range(4))
+    curves = [fitted[i].curve for i in rows]
+    Tq = T[rows]
+    v = curves_at(curves, Tq, "value")
+    lo = np.array([fitted[i].T_min_K for i in rows])
+    hi = np.array([fitted[i].T_max_K for i in rows])
+    end = np.where(np.isfinite(v), Tq, np.minimum(np.maximum(Tq, lo), hi))
+    s = curves_at(curves, end, "slope")
+    h = 1e-5 * np.maximum(np.abs(end), 1.0)
+    with_cov = [j for j, c in enumerate(curves) if c.covariance is not None]
+    jac = {}
+    if with_cov:
+        sub = [curves[j] for j in with_cov]
+        e, hh = end[with_cov], h[with_cov]
+        jac = {d: _jacobians(sub, e + d * hh) for d in (-1, 0, 1)}
+    covs: dict[int, np.ndarray] = {}
+    for j, c in enumerate(curves):
+        value[j], slope[j] = v[j], s[j]
+    for n_j, j in enumerate(with_cov):
+        c = curves[j]
+        cov = covs.get(id(c))
+        if cov is None:
+            cov = covs[id(c)] = np.asarray(c.covariance, dtype=float)
+        J0 = jac[0][n_j]
+        u_cov[j] = _quadratic_u(J0.reshape(1, -1), cov)
+        u_slope[j] = _slope_u({d: jac[d][n_j] for d in (-1, 0, 1)}, float(h[j]), cov)
+    for j in np.flatnonzero(end != Tq):   # the rare continuation, point by point
+        value[j], slope[j], u_cov[j] = _continued(fitted[rows[j]], float(Tq[j]), float(end[j]))
+    return value, slope, u_cov, u_slope
+
+
+def _jacobians(curves: Sequence[Any], T: np.ndarray) -> list[np.ndarray]:
+    """The parameter Jacobian of ``curves[i]`` at ``T[i]`` (one (k,) array per row)."""
+    out: list[Any] = [None] * len(curves)
+    for group, idx in _by_form(curves).items():
+        if group is None:
+            for i, J in zip(idx, _own(curves, idx, "jacobian", T)):
+                out[i] = J
+            continue
+        exps = group[2]
+        sub = [curves[i] for i in idx]
+        P = np.array([c.params for c in sub])
+        T_ref = np.array([[c._T_ref] for c in sub])
+        J = _kernel(sub[0].correlation_form, "jacobian", T[idx], P, T_ref, exps)
+        for r, i in enumerate(idx):
+            out[i] = J[r]
+    return out
+
+
+def curve_budgets(pairs: Iterable[tuple["FluidData", CurveKey]]) -> None:
+    """Compute (once) the :class:`CurveBudget` of every (fluid, curve) in ``pairs``.
+
+    The fitted values at the observations of all the curves are evaluated together (one kernel
+    call per form); each budget is then stored in its fluid's cache.
+    """
+    todo, seen = [], set()
+    for fluid, key in pairs:
+        if (id(fluid), key) not in seen and not fluid.has_curve_budget(key):
+            seen.add((id(fluid), key))
+            todo.append((fluid, key))
+    if not todo:
+        return
+    series = [fluid.series(key[0], key[2], key[1]) for fluid, key in todo]
+    kept = [np.flatnonzero(~s.is_outlier.astype(bool) & np.isfinite(s.value.astype(float)))
+            for s in series]
+    rows = [fluid.curves[key].curve for (fluid, key), k in zip(todo, kept) for _ in range(len(k))]
+    T = np.concatenate([s.T[k].astype(float) for s, k in zip(series, kept)]) if rows else np.zeros(0)
+    fitted = curves_at(rows, T, "value")
+    start = 0
+    for (fluid, key), s, k in zip(todo, series, kept):
+        values = fitted[start:start + len(k)]
+        start += len(k)
+        budget = fluid.budget
+        fluid.set_curve_budget(key, curve_budget(s, values, budget.uncertainty,
+                                                 budget.extrapolation, kept=k))
+
+
+def evaluate_points(requests: Sequence[Request]) -> list[tuple[CurvePoint | None, str]]:
+    """``fluid.at(key, T)`` for every request: (CurvePoint, "") or (None, why not).
+
+    Honours the one extrapolation policy (a curve is not read further beyond its data than it
+    allows; the reason names it) and the one uncertainty budget (u combines the covariance and
+    the correlated floor of the files the curve was fitted to).
+    """
+    out: list[tuple[CurvePoint | None, str]] = [(None, "")] * len(requests)
+    fitted: list[Any] = [None] * len(requests)
+    T = np.array([float(t) for _, _, t in requests], dtype=float)
+    within: list[int] = []
+    beyond: dict[int, float] = {}
+    for i, (fluid, key, t) in enumerate(requests):
+        f = fluid.curves.get(key)
+        if f is None:
+            out[i] = (None, f"no fitted {curve_label(key)} curve")
+            continue
+        r = reach(f.T_min_K, f.T_max_K, t, fluid.budget.extrapolation, curve_label(key))
+        if not r.ok:
+            out[i] = (None, r.reason)
+            continue
+        fitted[i], beyond[i] = f, r.beyond_K
+        within.append(i)
+    if not within:
+        return out
+    value, slope, u_cov, u_slope = _near(within, fitted, T)
+    defined = [j for j, i in enumerate(within)
+               if math.isfinite(value[j]) and math.isfinite(slope[j])]
+    curve_budgets((requests[within[j]][0], requests[within[j]][1]) for j in defined)
+    for j, i in enumerate(within):
+        fluid, key, t = requests[i]
+        if not (math.isfinite(value[j]) and math.isfinite(slope[j])):
+            out[i] = (None, f"the {curve_label(key)} fit's form is undefined at T = {t:.6g} K")
+            continue
+        v, s = float(value[j]), float(slope[j])
+        floor = fluid.curve_budget(key).floor_rel(t)
+        u = math.hypot(float(u_cov[j]), floor * abs(v))
+        us = math.hypot(float(u_slope[j]), floor * abs(s))
+        out[i] = (CurvePoint(t, v, s, u, us, float(u_cov[j]), floor, beyond[i]), "")
+    return out
+
+
+__all__ = ["CurveBudget", "CurveKey", "FittedCurve", "Request", "curve_budgets", "curves_at",
+           "evaluate_points", "grid_values"]
