@@ -151,6 +151,23 @@ def grid_values(curves: Sequence[Any], T: np.ndarray, what: str = "value") -> np
     return np.where((T >= lo) & (T <= hi), out, np.nan)
 
 
+def grids(fitted: Sequence[FittedCurve], n: Sequence[int], what: str = "value"
+          ) -> list[tuple[np.ndarray, np.ndarray]]:
+    """(T, values) of each fitted curve on ``n[i]`` points spread over its fitted range,
+    NaN outside it (``fitted[i].value`` or ``slope`` on ``np.linspace(T_min, T_max, n[i])``)."""
+    out: list[Any] = [None] * len(fitted)
+    by_n: dict[int, list[int]] = {}
+    for i, k in enumerate(n):
+        by_n.setdefault(int(k), []).append(i)
+    for k, idx in by_n.items():
+        T = np.array([np.linspace(fitted[i].T_min_K, fitted[i].T_max_K, k) for i in idx])
+        T = T.reshape(len(idx), k)
+        values = grid_values([fitted[i].curve for i in idx], T, what)
+        for r, i in enumerate(idx):
+            out[i] = (T[r], values[r])
+    return out
+
+
 # -- points under the budget and the policy ----------------------------------------------------
 def _quadratic_u(J: np.ndarray, cov: np.ndarray) -> float:
     """sqrt(J C J^T) of one point, computed on the shapes ``Curve.u`` uses (bit for bit)."""
@@ -313,4 +330,4 @@ def evaluate_points(requests: Sequence[Request]) -> list[tuple[CurvePoint | None
 
 
 __all__ = ["CurveBudget", "CurveKey", "FittedCurve", "Request", "curve_budgets", "curves_at",
-           "evaluate_points", "grid_values"]
+           "evaluate_points", "grid_values", "grids"]
