@@ -100,20 +100,17 @@ def no_vle_above_tc(batch: CheckBatch, th):
     Usual causes of a failure: supercritical isotherm or dew/bubble data of a mixture filed as
     vapour pressure; a temperature column in another unit or scale; a stated Tc that is too low.
     """
-    obs = batch.observations
-    lv = obs[obs["boundary"] == LV].reset_index(drop=True) if len(obs) else obs
-    by_fluid = lv.groupby("fluid_id", sort=False).indices if len(lv) else {}
-    cols = {c: lv[c].to_numpy() for c in ("T_K", "u_T_K", "obs_id", "file_path", "row_number", "quantity")} \
-        if len(lv) else {}
     out = Findings()
     for fluid in batch:
         cp, fid = fluid.critical_point, fluid.fluid_id
         t = th(fid)
-        idx = by_fluid.get(fid)
-        if cp is None or idx is None:
+        groups = [idx for key, idx in fluid._groups.items() if key[0] == LV]
+        if cp is None or not groups:
             out.skip(fid, "", "no stated critical point" if cp is None
                      else "no liquid-vapour observations")
             continue
+        idx = np.sort(np.concatenate(groups))
+        cols = fluid._columns
         stated = [(r["T_K"], u0(r["u_T_K"]), r["source_id"]) for r in fluid.fixed_point_records
                   if r["kind"] == "critical" and math.isfinite(r["T_K"])]
         T = cols["T_K"][idx].astype(float)

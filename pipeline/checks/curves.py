@@ -19,6 +19,7 @@ same shapes as a single reading.
 from __future__ import annotations
 
 import math
+import sys
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Iterable, Sequence
 
@@ -86,9 +87,13 @@ def _by_form(curves: Sequence[Any]) -> dict[tuple, list[int]]:
     ``slope`` and, with a covariance, ``jacobian`` methods) are grouped under None and read
     through their own methods.
     """
-    groups: dict[tuple, list[int]] = {}
+    groups: dict[tuple | None, list[int]] = {}
+    keys: dict[int, tuple | None] = {}
     for i, c in enumerate(curves):
-        key = (c.form, len(c.params), c.ref["exponents"]) if isinstance(c, Curve) else None
+        key = keys.get(id(c), False)
+        if key is False:
+            key = keys[id(c)] = ((c.form, len(c.params), c.ref["exponents"])
+                                 if isinstance(c, Curve) else None)
         groups.setdefault(key, []).append(i)
     return groups
 
@@ -170,32 +175,40 @@ def grids(fitted: Sequence[FittedCurve], n: Sequence[int], what: str = "value"
 
 # -- points under the budget and the policy ----------------------------------------------------
 def _quadratic_u(J: np.ndarray, cov: np.ndarray) -> float:
-    """sqrt(J C J^T) of one point, computed on the shapes ``Curve.u`` uses (bit for bit)."""
-    var = np.einsum("mi,ij,mj->m", J, cov, J)
-    return float(np.nan_to_num(np.sqrt(np.clip(var, 0.0, None)).reshape(()), nan=0.0))
+    """sqrt(J C J^T) of one point (J of shape (1, k)), NaN read as 0: the number ``Curve.u``
+    gives, computed on the same shapes (the reduction's rounding depends on them)."""
+    var = float(np.einsum("mi,ij,mj->m", J, cov, J)[0])
+    if not var > 0.0:          # clipped at zero; NaN read as 0
+        return 0.0
+    u = math.sqrt(var)
+    return u if u != math.inf else sys.float_info.max
 
 
-def _slope_u(J: dict[int, np.ndarray], h: float, cov: np.ndarray) -> float:
-    """Delta-method u of the slope from Jacobians at end - h, end, end + h (central difference,
-    one-sided where a side is undefined); 0 when none is finite."""
-    for lo, hi in ((-1, 1), (-1, 0), (0, 1)):
-        dJ = (J[hi] - J[lo]) / ((hi - lo) * h)
-        if np.all(np.isfinite(dJ)):
-            var = float(dJ @ cov @ dJ)
-            return math.sqrt(max(var, 0.0))
-    return 0.0
+def _slope_u(Jm: np.ndarray, J0: np.ndarray, Jp: np.ndarray, h: np.ndarray,
+             covs: Sequence[np.ndarray]) -> np.ndarray:
+    """Delta-method u of the slope from Jacobians (n, k) at end - h, end, end + h: the
+    derivative of the Jacobian by central differences, one-sided where a side is undefined;
+    0 where none is finite."""
+    out = np.zeros(len(h))
+    todo = np.ones(len(h), dtype=bool)
+    for lo, hi, width in ((Jm, Jp, 2 * h), (Jm, J0, 1 * h), (J0, Jp, 1 * h)):
+        dJ = (hi - lo) / width[:, None]
+        use = np.flatnonzero(todo & np.all(np.isfinite(dJ), axis=1))
+        for i in use:
+            var = float(dJ[i] @ covs[i] @ dJ[i])
+            out[i] = math.sqrt(max(var, 0.0))
+        todo[use] = False
+    return out
 
 
-def _continued(fitted: FittedCurve, T: float, end: float) -> tuple[float, float, float]:
+def _continue(curve: Any, T: float, end: float, v_end: float, s_end: float,
+              u_end: float) -> tuple[float, float, float]:
     """(value, slope, u) at ``T`` where the form is undefined, continued from ``end``.
 
     Along Clausius-Clapeyron (ln p linear in 1/T) for forms fitted in ln p, linearly for the
     others (melting curves); the uncertainty is that at the end.
     """
-    v_end = float(fitted.value(end, extrapolate=True))
-    s_end = float(fitted.slope(end, extrapolate=True))
-    u_end = float(fitted.u(end, extrapolate=True))
-    if getattr(fitted.curve.correlation_form, "link", "") == "log" and v_end > 0:
+    if getattr(getattr(curve, "correlation_form", None), "link", "") == "log" and v_end > 0:
         b = -end ** 2 * s_end / v_end          # d ln p / d(1/T) at the end
         value = v_end * math.exp(b * (1.0 / T - 1.0 / end))
         return value, -value * b / T ** 2, u_end * value / v_end
@@ -206,57 +219,59 @@ def _near(rows: list[int], fitted: list[FittedCurve], T: np.ndarray):
     """Value, slope, u of the covariance and u of the slope at the requested T of ``rows``.
 
     A form undefined at T (a fractional power of 1 - T/T_ref a rounding error past T_ref) is
-    read at the nearest end of its range and continued from there (:func:`_continued`); the
-    slope's uncertainty is always that at the point read.
+    read at the nearest end of its range and continued from there (:func:`_continue`); the
+    uncertainties are those at the point read.
     """
-    n = len(rows)
-    value, slope, u_cov, u_slope = (np.zeros(n) for _ in range(4))
     curves = [fitted[i].curve for i in rows]
     Tq = T[rows]
     v = curves_at(curves, Tq, "value")
     lo = np.array([fitted[i].T_min_K for i in rows])
     hi = np.array([fitted[i].T_max_K for i in rows])
     end = np.where(np.isfinite(v), Tq, np.minimum(np.maximum(Tq, lo), hi))
-    s = curves_at(curves, end, "slope")
-    h = 1e-5 * np.maximum(np.abs(end), 1.0)
-    with_cov = [j for j, c in enumerate(curves) if c.covariance is not None]
-    jac = {}
-    if with_cov:
-        sub = [curves[j] for j in with_cov]
-        e, hh = end[with_cov], h[with_cov]
-        jac = {d: _jacobians(sub, e + d * hh) for d in (-1, 0, 1)}
-    covs: dict[int, np.ndarray] = {}
+    slope = curves_at(curves, end, "slope")
+    u_cov, u_slope = np.zeros(len(rows)), np.zeros(len(rows))
+    by_k: dict[int, list[int]] = {}
     for j, c in enumerate(curves):
-        value[j], slope[j] = v[j], s[j]
-    for n_j, j in enumerate(with_cov):
-        c = curves[j]
-        cov = covs.get(id(c))
-        if cov is None:
-            cov = covs[id(c)] = np.asarray(c.covariance, dtype=float)
-        J0 = jac[0][n_j]
-        u_cov[j] = _quadratic_u(J0.reshape(1, -1), cov)
-        u_slope[j] = _slope_u({d: jac[d][n_j] for d in (-1, 0, 1)}, float(h[j]), cov)
-    for j in np.flatnonzero(end != Tq):   # the rare continuation, point by point
-        value[j], slope[j], u_cov[j] = _continued(fitted[rows[j]], float(Tq[j]), float(end[j]))
+        if c.covariance is not None:
+            by_k.setdefault(len(c.covariance), []).append(j)
+    covs: dict[int, np.ndarray] = {}
+    for with_cov in by_k.values():      # rows whose Jacobians stack: one parameter count
+        sub = [curves[j] for j in with_cov]
+        e = end[with_cov]
+        h = 1e-5 * np.maximum(np.abs(e), 1.0)
+        n = len(sub)
+        J = _jacobians(sub * 3, np.concatenate([e + (-1) * h, e + 0 * h, e + 1 * h]))
+        Jm, J0, Jp = J[:n], J[n:2 * n], J[2 * n:]
+        cov = [covs[id(c)] if id(c) in covs else
+               covs.setdefault(id(c), np.asarray(c.covariance, dtype=float)) for c in sub]
+        u_cov[with_cov] = [_quadratic_u(J0[r:r + 1], cov[r]) for r in range(n)]
+        u_slope[with_cov] = _slope_u(Jm, J0, Jp, h, cov)
+    value = v.copy()
+    moved = np.flatnonzero(end != Tq)     # the rare continuation, point by point
+    if len(moved):
+        v_end = curves_at([curves[j] for j in moved], end[moved], "value")
+        for j, ve in zip(moved, v_end):
+            value[j], slope[j], u_cov[j] = _continue(curves[j], float(Tq[j]), float(end[j]),
+                                                     float(ve), float(slope[j]), float(u_cov[j]))
     return value, slope, u_cov, u_slope
 
 
-def _jacobians(curves: Sequence[Any], T: np.ndarray) -> list[np.ndarray]:
-    """The parameter Jacobian of ``curves[i]`` at ``T[i]`` (one (k,) array per row)."""
-    out: list[Any] = [None] * len(curves)
+def _jacobians(curves: Sequence[Any], T: np.ndarray) -> np.ndarray:
+    """The parameter Jacobian of ``curves[i]`` at ``T[i]``, shape (n, k): curves with the same
+    number of parameters k."""
+    out: np.ndarray | None = None
     for group, idx in _by_form(curves).items():
         if group is None:
-            for i, J in zip(idx, _own(curves, idx, "jacobian", T)):
-                out[i] = J
-            continue
-        exps = group[2]
-        sub = [curves[i] for i in idx]
-        P = np.array([c.params for c in sub])
-        T_ref = np.array([[c._T_ref] for c in sub])
-        J = _kernel(sub[0].correlation_form, "jacobian", T[idx], P, T_ref, exps)
-        for r, i in enumerate(idx):
-            out[i] = J[r]
-    return out
+            J = np.array(_own(curves, idx, "jacobian", T), dtype=float)
+        else:
+            sub = [curves[i] for i in idx]
+            P = np.array([c.params for c in sub])
+            T_ref = np.array([[c._T_ref] for c in sub])
+            J = _kernel(sub[0].correlation_form, "jacobian", T[idx], P, T_ref, group[2])
+        if out is None:
+            out = np.full((len(curves), J.shape[1]), np.nan)
+        out[idx] = J
+    return out if out is not None else np.zeros((0, 0))
 
 
 def curve_budgets(pairs: Iterable[tuple["FluidData", CurveKey]]) -> None:
@@ -304,11 +319,12 @@ def evaluate_points(requests: Sequence[Request]) -> list[tuple[CurvePoint | None
         if f is None:
             out[i] = (None, f"no fitted {curve_label(key)} curve")
             continue
-        r = reach(f.T_min_K, f.T_max_K, t, fluid.budget.extrapolation, curve_label(key))
-        if not r.ok:
-            out[i] = (None, r.reason)
+        policy = fluid.budget.extrapolation
+        far = max(f.T_min_K - t, t - f.T_max_K, 0.0)     # as budget.reach, which words the no
+        if not far <= policy.allowed(t):
+            out[i] = (None, reach(f.T_min_K, f.T_max_K, t, policy, curve_label(key)).reason)
             continue
-        fitted[i], beyond[i] = f, r.beyond_K
+        fitted[i], beyond[i] = f, far
         within.append(i)
     if not within:
         return out

@@ -487,6 +487,48 @@ def sample_series(curve, T: Sequence[float], *, boundary: str, quantity: str = "
     })
 
 
+class Stacked(Mapping):
+    """Observations of many fluids as numpy columns, with the integer codes of any column.
+
+    ``codes(name)`` factorises a column once (codes in order of first appearance, -1 for a
+    missing value): grouping, filtering and comparing text then cost integer operations.
+    """
+
+    def __init__(self, columns: dict[str, np.ndarray]):
+        self._columns = columns
+        self.n = len(columns["fluid_id"])
+        self._codes: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        return self._columns[name]
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._columns)
+
+    def __len__(self) -> int:
+        return len(self._columns)
+
+    def codes(self, name: str) -> tuple[np.ndarray, np.ndarray]:
+        """(codes, uniques) of column ``name`` (``pandas.factorize``, first-seen order)."""
+        found = self._codes.get(name)
+        if found is None:
+            codes, uniques = pd.factorize(self._columns[name], sort=False)
+            found = self._codes[name] = (codes.astype(np.int64), np.asarray(uniques, dtype=object))
+        return found
+
+    def code_of(self, name: str, value: Any) -> int:
+        """The code of ``value`` in column ``name`` (-2 when it does not occur)."""
+        uniques = self.codes(name)[1]
+        hit = np.flatnonzero(uniques == value)
+        return int(hit[0]) if len(hit) else -2
+
+    def where(self, name: str, values: Iterable[Any]) -> np.ndarray:
+        """Boolean mask of the rows whose ``name`` is one of ``values``."""
+        codes, _ = self.codes(name)
+        wanted = [self.code_of(name, v) for v in values]
+        return np.isin(codes, [w for w in wanted if w >= 0])
+
+
 class CheckBatch:
     """The fluids of one run, with the stacked tables vectorised checks work on."""
 
@@ -514,15 +556,25 @@ class CheckBatch:
         return stacked.reset_index(level="fluid_id").reset_index(drop=True)
 
     @cached_property
-    def observations(self) -> pd.DataFrame:
-        """All observations with a ``fluid_id`` column (stacked from the fluids' columns)."""
+    def stacked(self) -> "Stacked":
+        """All observations as numpy columns (``fluid_id`` first), fluid after fluid."""
         full = [f for f in self.fluids.values() if f.n_observations]
         if not full:
-            return self._stack("observations")
+            return Stacked({"fluid_id": np.zeros(0, dtype=object),
+                            **{c: np.asarray(self._stack("observations")[c]) for c in OBS_COLUMNS}})
         ids = np.repeat(np.array([f.fluid_id for f in full], dtype=object),
                         [f.n_observations for f in full])
-        return pd.DataFrame({"fluid_id": ids, **{c: np.concatenate([f._columns[c] for f in full])
-                                                 for c in OBS_COLUMNS}})
+        return Stacked({"fluid_id": ids, **{c: np.concatenate([f._columns[c] for f in full])
+                                            for c in OBS_COLUMNS}})
+
+    @cached_property
+    def observations(self) -> pd.DataFrame:
+        """All observations with a ``fluid_id`` column (stacked from the fluids' columns)."""
+        if not any(f.n_observations for f in self.fluids.values()):
+            return self._stack("observations")
+        # as numpy gives them: text stays object (pandas would make Arrow strings of it)
+        return pd.DataFrame({c: pd.Series(v, dtype=v.dtype, copy=False)
+                             for c, v in self.stacked.items()})
 
     @cached_property
     def fixed_points(self) -> pd.DataFrame:
