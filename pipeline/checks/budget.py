@@ -30,6 +30,8 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from pipeline.checks.stats import median
+
 UNCERTAINTY_TABLE = "uncertainty"
 EXTRAPOLATION_TABLE = "extrapolation"
 #: order of the per-kind arrays in the ["uncertainty"] table
@@ -221,7 +223,7 @@ def curve_budget(series, fitted: np.ndarray, model: UncertaintyModel,
     for path in dict.fromkeys(paths):
         m = paths == path
         frac = model.correlated_fraction(kinds[m][0])
-        r = float(np.median(rel[m]))
+        r = median(rel[m])
         corr, rand = frac * r, math.sqrt(max(1.0 - frac ** 2, 0.0)) * r
         ok = m & np.isfinite(resid)
         offset = float(np.mean(resid[ok])) if ok.any() else math.nan

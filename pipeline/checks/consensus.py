@@ -18,6 +18,8 @@ from typing import Callable
 
 import numpy as np
 
+from pipeline.checks.stats import median
+
 TUKEY_C = 4.685
 ITERATIONS = 6
 WAGNER_EXPONENTS = (1.0, 1.5, 2.5, 5.0, 2.0, 3.0, 4.0)   # the first four: Wagner's 2.5-5 form
@@ -104,7 +106,7 @@ def weighted_fit(T: np.ndarray, y: np.ndarray, w: np.ndarray, make: DesignMaker,
 def tukey_weights(r: np.ndarray, floor: float) -> np.ndarray:
     """Bisquare weights of residuals r, scale 1.4826 MAD (at least ``floor``); 0 for NaN."""
     fin = np.isfinite(r)
-    mad = 1.4826 * float(np.median(np.abs(r[fin]))) if fin.any() else 0.0
+    mad = 1.4826 * median(np.abs(r[fin])) if fin.any() else 0.0
     q = np.where(fin, r / (TUKEY_C * max(mad, floor)), np.inf)
     return np.where(np.abs(q) < 1.0, (1.0 - q ** 2) ** 2, 0.0)
 
@@ -116,7 +118,8 @@ def _start(T, y, files, line: DesignMaker, floor) -> np.ndarray | None:
         model = weighted_fit(T, y, (files == f).astype(float), line, 1)
         if model is None:
             continue
-        med = float(np.nanmedian(np.abs(model.raw(T) - y)))
+        d = np.abs(model.raw(T) - y)
+        med = median(d[~np.isnan(d)])
         if best is None or med < best[0]:
             best = (med, model)
     return None if best is None else tukey_weights(best[1].raw(T) - y, floor)

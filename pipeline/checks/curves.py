@@ -112,23 +112,51 @@ def _kernel(form, what: str, T: np.ndarray, P: np.ndarray, T_ref: np.ndarray, ex
     return out[:, 0]
 
 
-def curves_at(curves: Sequence[Any], T, what: str = "value") -> np.ndarray:
+def _rows_of(curves: Sequence[Any], repeats) -> tuple[list[Any], np.ndarray]:
+    """(distinct curves, the index of each row's curve among them): rows give one curve each,
+    or curve i covers ``repeats[i]`` consecutive rows."""
+    if repeats is not None:
+        return list(curves), np.repeat(np.arange(len(curves)), np.asarray(repeats, dtype=np.intp))
+    at: dict[int, int] = {}
+    distinct: list[Any] = []
+    owner = []
+    for c in curves:
+        j = at.get(id(c))
+        if j is None:
+            j = at[id(c)] = len(distinct)
+            distinct.append(c)
+        owner.append(j)
+    return distinct, np.array(owner, dtype=np.intp)
+
+
+def _apply(curves: Sequence[Any], T: np.ndarray, what: str, repeats=None) -> tuple[np.ndarray, Any]:
+    """(row indices, values) per form group: the kernel of each form over its rows."""
+    distinct, owner = _rows_of(curves, repeats)
+    for group, cidx in _by_form(distinct).items():
+        local = np.full(len(distinct), -1, dtype=np.intp)
+        local[cidx] = np.arange(len(cidx))
+        rows = np.flatnonzero(local[owner] >= 0)
+        if group is None:
+            own = [distinct[owner[r]] for r in rows]
+            yield rows, _own(own, list(range(len(rows))), what, T[rows])
+            continue
+        sub = [distinct[c] for c in cidx]
+        P = np.array([c.params for c in sub])[local[owner[rows]]]
+        T_ref = np.array([[c._T_ref] for c in sub])[local[owner[rows]]]
+        yield rows, _kernel(sub[0].correlation_form, what, T[rows], P, T_ref, group[2])
+
+
+def curves_at(curves: Sequence[Any], T, what: str = "value", repeats=None) -> np.ndarray:
     """Row i: ``curves[i]`` (a Curve) at ``T[i]``, extrapolating; ``what`` is value or slope.
 
-    The same numbers as ``curves[i].value(T[i], extrapolate=True)`` (or ``slope``), one kernel
-    call per correlation form and term count.
+    With ``repeats``, curve i covers ``repeats[i]`` consecutive rows instead. The same
+    numbers as ``curve.value(T, extrapolate=True)`` (or ``slope``), one kernel call per
+    correlation form and term count.
     """
     T = np.asarray(T, dtype=float)
-    out = np.full(len(curves), np.nan)
-    for group, idx in _by_form(curves).items():
-        if group is None:
-            out[idx] = _own(curves, idx, what, T)
-            continue
-        exps = group[2]
-        sub = [curves[i] for i in idx]
-        P = np.array([c.params for c in sub])
-        T_ref = np.array([[c._T_ref] for c in sub])
-        out[idx] = _kernel(sub[0].correlation_form, what, T[idx], P, T_ref, exps)
+    out = np.full(len(T), np.nan)
+    for rows, values in _apply(curves, T, what, repeats):
+        out[rows] = values
     return out
 
 
@@ -260,17 +288,11 @@ def _jacobians(curves: Sequence[Any], T: np.ndarray) -> np.ndarray:
     """The parameter Jacobian of ``curves[i]`` at ``T[i]``, shape (n, k): curves with the same
     number of parameters k."""
     out: np.ndarray | None = None
-    for group, idx in _by_form(curves).items():
-        if group is None:
-            J = np.array(_own(curves, idx, "jacobian", T), dtype=float)
-        else:
-            sub = [curves[i] for i in idx]
-            P = np.array([c.params for c in sub])
-            T_ref = np.array([[c._T_ref] for c in sub])
-            J = _kernel(sub[0].correlation_form, "jacobian", T[idx], P, T_ref, group[2])
+    for rows, J in _apply(curves, T, "jacobian"):
+        J = np.asarray(J, dtype=float)
         if out is None:
             out = np.full((len(curves), J.shape[1]), np.nan)
-        out[idx] = J
+        out[rows] = J
     return out if out is not None else np.zeros((0, 0))
 
 
@@ -290,9 +312,9 @@ def curve_budgets(pairs: Iterable[tuple["FluidData", CurveKey]]) -> None:
     series = [fluid.series(key[0], key[2], key[1]) for fluid, key in todo]
     kept = [np.flatnonzero(~s.is_outlier.astype(bool) & np.isfinite(s.value.astype(float)))
             for s in series]
-    rows = [fluid.curves[key].curve for (fluid, key), k in zip(todo, kept) for _ in range(len(k))]
-    T = np.concatenate([s.T[k].astype(float) for s, k in zip(series, kept)]) if rows else np.zeros(0)
-    fitted = curves_at(rows, T, "value")
+    curves = [fluid.curves[key].curve for fluid, key in todo]
+    T = np.concatenate([s.T[k].astype(float) for s, k in zip(series, kept)])
+    fitted = curves_at(curves, T, "value", repeats=[len(k) for k in kept])
     start = 0
     for (fluid, key), s, k in zip(todo, series, kept):
         values = fitted[start:start + len(k)]

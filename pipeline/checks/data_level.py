@@ -271,8 +271,8 @@ def _deleted_residuals(x: np.ndarray, r: np.ndarray, w: np.ndarray) -> np.ndarra
         return np.where(h < 1.0 - 1e-9, e / np.sqrt(np.clip(1.0 - h, 1e-12, None)), e)
 
 
-def _budget_z(fluid, cols: dict, lo: int, hi: int, fitted: np.ndarray, slope: np.ndarray,
-              min_file_points: int, z_max: float) -> np.ndarray:
+def _budget_z(fluid, cols: dict, codes: Codes, lo: int, hi: int, fitted: np.ndarray,
+              slope: np.ndarray, min_file_points: int, z_max: float) -> np.ndarray:
     """z of rows lo:hi (one fitted group of ``fluid``) about their own file's trend.
 
     r = value / fit − 1 (relative residual about the fitted curve); within each file of
@@ -289,10 +289,13 @@ def _budget_z(fluid, cols: dict, lo: int, hi: int, fitted: np.ndarray, slope: np
         r = y / fitted - 1.0
     model = fluid.budget.uncertainty
     u = cols["u_value_si"][lo:hi].astype(float)
-    kinds, files = cols["source_kind"][lo:hi], cols["file_path"][lo:hi]
+    kinds = codes.of("source_kind")[lo:hi]
+    files = codes.of("file_path")[lo:hi]
+    kind_names = codes.stacked.codes("source_kind")[1]
     quantity = str(cols["quantity"][lo])
-    for kind in set(kinds):
-        m = kinds == kind
+    for code in np.unique(kinds):
+        m = kinds == code
+        kind = kind_names[code] if code >= 0 else None
         default = model.observed_rel(quantity, kind) * np.abs(y[m])
         u[m] = np.hypot(np.where(np.isfinite(u[m]) & (u[m] > 0), u[m], default),
                         model.observed_abs(quantity, kind))
@@ -302,8 +305,9 @@ def _budget_z(fluid, cols: dict, lo: int, hi: int, fitted: np.ndarray, slope: np
         u = np.hypot(u, np.nan_to_num(slope) * u_T)
     with np.errstate(invalid="ignore", divide="ignore"):
         u_rel = u / np.abs(y)
-    for path in set(files):
-        m = np.flatnonzero((files == path) & np.isfinite(r) & np.isfinite(u_rel) & (u_rel > 0))
+    usable = np.isfinite(r) & np.isfinite(u_rel) & (u_rel > 0)
+    for path in np.unique(files):
+        m = np.flatnonzero((files == path) & usable)
         if len(m) >= min_file_points:
             r[m] = _file_residuals(T[m], r[m], u_rel[m], z_max)
     return r / u_rel
@@ -332,13 +336,15 @@ def _fitted_at(batch: CheckBatch, cols: dict, starts, ends) -> tuple[list, list]
     for a, b in zip(starts, ends):
         fluid = batch.fluids[cols["fluid_id"][a]]
         c = fluid.curve(cols["boundary"][a], cols["solid_phase"][a], cols["quantity"][a])
-        spans.append(None if c is None else (a, b))
+        spans.append(None if c is None else (int(a), int(b)))
         if c is not None:
-            curves += [c.curve] * int(b - a)
-    rows = np.concatenate([np.arange(a, b) for sp in spans if sp for a, b in [sp]]) \
-        if curves else np.zeros(0, dtype=int)
+            curves.append(c.curve)
+    used = [sp for sp in spans if sp is not None]
+    rows = np.concatenate([np.arange(a, b) for a, b in used]) if used else np.zeros(0, dtype=int)
     T = cols["T_K"][rows].astype(float)
-    value, slope = curves_at(curves, T, "value"), curves_at(curves, T, "slope")
+    counts = [b - a for a, b in used]
+    value = curves_at(curves, T, "value", repeats=counts)
+    slope = curves_at(curves, T, "slope", repeats=counts)
     values, slopes, k = [], [], 0
     for sp in spans:
         if sp is None:
@@ -385,7 +391,7 @@ def outliers(batch: CheckBatch, th) -> Findings:
                                              extra={c: st[c] for c in ("source_kind", "u_T_K")})
     zmax = _per_row(th, "z_max", codes)
     values, slopes = _fitted_at(batch, cols, starts, ends)
-    z = np.concatenate([_budget_z(batch.fluids[cols["fluid_id"][a]], cols, a, b, v, sl,
+    z = np.concatenate([_budget_z(batch.fluids[cols["fluid_id"][a]], cols, codes, a, b, v, sl,
                                   int(th(cols["fluid_id"][a])["min_file_points"]), zmax[a])
                         for a, b, v, sl in zip(starts, ends, values, slopes)]) \
         if len(starts) else np.zeros(0)

@@ -68,6 +68,20 @@ def leave_one_out_z(x: np.ndarray, u: np.ndarray) -> np.ndarray:
     return (x - mean_rest) / np.sqrt(u ** 2 + 1.0 / w_rest)
 
 
+def median(x: np.ndarray) -> float:
+    """The median of a 1-D float array: the number ``np.median`` gives (NaN when the array
+    holds one), without its generic overhead (a partial sort of the two middle values)."""
+    n = x.size
+    if n == 0:
+        return math.nan
+    h = n // 2
+    part = np.partition(x, [h - 1, h, -1] if n % 2 == 0 else [h, -1])
+    if part[-1] != part[-1]:            # a NaN sorts last
+        return math.nan
+    # an even count: the mean of the middle pair, summed as numpy's mean sums it
+    return float(part[h]) if n % 2 else float((part[h - 1] + (0.0 + part[h])) / 2)
+
+
 def linear_fit(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Least-squares line y = a + b x: parameters (a, b) and their covariance from the scatter."""
     A = np.column_stack([np.ones_like(x), x])
