@@ -32,15 +32,18 @@ def _ref(cols: dict, i: int) -> dict:
             "value_si": float(cols["value_si"][i])}
 
 
-@dataclass(frozen=True)
 class Codes:
     """Integer codes of the text columns of selected, ordered rows of a :class:`Stacked`."""
 
-    stacked: Stacked
-    rows: np.ndarray
+    def __init__(self, stacked: Stacked, rows: np.ndarray):
+        self.stacked, self.rows = stacked, rows
+        self._of: dict[str, np.ndarray] = {}
 
     def of(self, name: str) -> np.ndarray:
-        return self.stacked.codes(name)[0][self.rows]
+        found = self._of.get(name)
+        if found is None:
+            found = self._of[name] = self.stacked.codes(name)[0][self.rows]
+        return found
 
     def matches(self, name: str, test: Callable[[object], bool]) -> np.ndarray:
         """Rows whose ``name`` passes ``test`` (tested once per distinct value)."""
