@@ -211,23 +211,26 @@ def curve_budget(series, fitted: np.ndarray, model: UncertaintyModel,
     s = series.take(kept)
     T, y = s.T.astype(float), s.value.astype(float)
     u = s.u_value_si.astype(float)
-    kinds = s.source_kind
+    kinds, kind_codes, paths, path_codes = s.source_kind, s.kind_code, s.file_path, s.file_code
     stated = np.isfinite(u) & (u > 0)
-    uniq, inverse = np.unique(kinds.astype(str), return_inverse=True)
-    defaults = np.array([model.observed_rel(s.quantity, k) for k in uniq])[inverse]
+    default_of = {code: model.observed_rel(s.quantity, kinds[np.argmax(kind_codes == code)])
+                  for code in dict.fromkeys(kind_codes.tolist())}
+    defaults = np.array([default_of[c] for c in kind_codes.tolist()])
     rel = np.where(stated, np.abs(u / np.where(y != 0, y, np.nan)), defaults)
     with np.errstate(invalid="ignore", divide="ignore"):
         resid = y / np.asarray(fitted, dtype=float) - 1.0
+    finite = np.isfinite(resid)
     shares = []
-    paths = s.file_path
-    for path in dict.fromkeys(paths):
-        m = paths == path
-        frac = model.correlated_fraction(kinds[m][0])
+    for code in dict.fromkeys(path_codes.tolist()):
+        m = path_codes == code
+        first = int(np.argmax(m))
+        frac = model.correlated_fraction(kinds[first])
         r = median(rel[m])
         corr, rand = frac * r, math.sqrt(max(1.0 - frac ** 2, 0.0)) * r
-        ok = m & np.isfinite(resid)
+        ok = m & finite
         offset = float(np.mean(resid[ok])) if ok.any() else math.nan
-        shares.append(FileShare(str(path), float(T[m].min()), float(T[m].max()), corr, rand,
+        Tm = T[m]
+        shares.append(FileShare(str(paths[first]), float(Tm.min()), float(Tm.max()), corr, rand,
                                 int(m.sum()), offset))
     birge, expansion = math.nan, 1.0
     usable = [f for f in shares if math.isfinite(f.offset_rel) and f.correlated_rel + f.random_rel > 0]

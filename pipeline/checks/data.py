@@ -60,6 +60,16 @@ _FLOAT_OBS = ("T_K", "u_T_K", "value_si", "u_value_si", "z")
 _TEXT_OBS = ("boundary", "solid_phase", "quantity", "source_id", "source_kind", "file_path",
              "file_sha256", "T_unit", "T_scale", "value_unit", "fit_id", "excluded_by")
 _SEP = "\x1f"
+#: integer codes kept beside the observation columns: name -> the text column coded
+CODE_COLUMNS = {"file_code": "file_path", "kind_code": "source_kind"}
+
+
+def with_codes(columns: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """``columns`` with the :data:`CODE_COLUMNS` added: equal codes, equal text (one code per
+    distinct value), so rows are grouped by file or source kind with integer comparisons."""
+    for code, text in CODE_COLUMNS.items():
+        columns[code] = pd.factorize(columns[text], sort=False)[0].astype(np.int64)
+    return columns
 
 
 class _Rows(Mapping):
@@ -124,8 +134,12 @@ class ObsSeries:
 
     def by_file(self) -> dict[str, "ObsSeries"]:
         """One series per raw file, in first-seen order."""
-        paths = self.columns["file_path"]
-        return {p: self.take(np.flatnonzero(paths == p)) for p in dict.fromkeys(paths)}
+        paths, codes = self.columns["file_path"], self.columns["file_code"]
+        out = {}
+        for code in dict.fromkeys(codes.tolist()):
+            rows = np.flatnonzero(codes == code)
+            out[paths[rows[0]]] = self.take(rows)
+        return out
 
     def sorted_by_T(self) -> "ObsSeries":
         return self.take(np.argsort(self.T, kind="stable"))
@@ -227,9 +241,11 @@ class FluidData:
     # -- observations --------------------------------------------------------------------------
     @cached_property
     def _columns(self) -> Mapping[str, np.ndarray]:
+        """The observation columns (:data:`OBS_COLUMNS`) and the integer codes of two text
+        columns (:data:`CODE_COLUMNS`), as numpy arrays."""
         if self._rows is not None:
             return self._rows.obs
-        return {c: self.observations[c].to_numpy() for c in OBS_COLUMNS}
+        return with_codes({c: self.observations[c].to_numpy() for c in OBS_COLUMNS})
 
     @property
     def n_observations(self) -> int:

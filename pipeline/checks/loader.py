@@ -30,6 +30,7 @@ from pipeline.checks.data import (
     _frame,
     _records,
     normalise_observations,
+    with_codes,
 )
 from pipeline.errors import CheckError
 
@@ -172,7 +173,7 @@ def fluids_from_tables(fluids: pd.DataFrame, observations: pd.DataFrame, fixed_p
     obs, obs_spans = _by_fluid(normalise_observations(observations, keep=("fluid_id",)))
     fixed, fixed_spans = _by_fluid(_frame(fixed_points, FIXED_POINT_COLUMNS, "fp_id", ("fluid_id",)))
     consts, const_spans = _by_fluid(_frame(constants, CONSTANT_COLUMNS, "const_id", ("fluid_id",)))
-    cols = {c: obs[c].to_numpy() for c in OBS_COLUMNS}
+    cols = with_codes({c: obs[c].to_numpy() for c in OBS_COLUMNS})
     groups = _group_positions(cols, obs_spans)
     fixed_rows, const_rows = _rows_of(fixed), _rows_of(consts)
     tables = {"observations": obs, "fixed_points": fixed, "constants": consts}
