@@ -213,9 +213,10 @@ def curve_budget(series, fitted: np.ndarray, model: UncertaintyModel,
     u = s.u_value_si.astype(float)
     kinds, kind_codes, paths, path_codes = s.source_kind, s.kind_code, s.file_path, s.file_code
     stated = np.isfinite(u) & (u > 0)
-    default_of = {code: model.observed_rel(s.quantity, kinds[np.argmax(kind_codes == code)])
-                  for code in dict.fromkeys(kind_codes.tolist())}
-    defaults = np.array([default_of[c] for c in kind_codes.tolist()])
+    lut = np.zeros(int(kind_codes.max()) + 1)
+    for code in np.unique(kind_codes):
+        lut[code] = model.observed_rel(s.quantity, kinds[np.argmax(kind_codes == code)])
+    defaults = lut[kind_codes]
     rel = np.where(stated, np.abs(u / np.where(y != 0, y, np.nan)), defaults)
     with np.errstate(invalid="ignore", divide="ignore"):
         resid = y / np.asarray(fitted, dtype=float) - 1.0

@@ -142,6 +142,18 @@ def no_vle_above_tc(batch: CheckBatch, th):
     return out
 
 
+def _means_at(keys: np.ndarray, values: np.ndarray, at: np.ndarray) -> np.ndarray:
+    """The mean of ``values`` over the rows whose key equals each of ``at`` (sorted, present):
+    a single row's value as it is, several rows' mean as numpy's ``mean`` gives it."""
+    order = np.argsort(keys, kind="stable")
+    lo = np.searchsorted(keys, at, side="left", sorter=order)
+    hi = np.searchsorted(keys, at, side="right", sorter=order)
+    out = values[order[lo]].astype(float)
+    for i in np.flatnonzero(hi - lo > 1):
+        out[i] = values[keys == at[i]].mean()
+    return out
+
+
 def _paired_densities(fluid: FluidData, Tc: float, th):
     """(T, ρ', ρ'', basis) near Tc from observations at equal T, else from the fitted curves."""
     liq, vap = fluid.series(LV, "rho_liquid"), fluid.series(LV, "rho_vapour")
@@ -151,8 +163,7 @@ def _paired_densities(fluid: FluidData, Tc: float, th):
         key_v = np.round(vap.T, 3)
         common = np.intersect1d(key_l[key_l >= lo], key_v[key_v >= lo])
         if len(common) >= th["min_points"]:
-            rl = np.array([liq.value[key_l == k].mean() for k in common])
-            rv = np.array([vap.value[key_v == k].mean() for k in common])
+            rl, rv = _means_at(key_l, liq.value, common), _means_at(key_v, vap.value, common)
             return common.astype(float), rl, rv, "observations"
     fl, fv = fluid.curve(LV, "", "rho_liquid"), fluid.curve(LV, "", "rho_vapour")
     if fl is None or fv is None:

@@ -184,6 +184,20 @@ def grid_values(curves: Sequence[Any], T: np.ndarray, what: str = "value") -> np
     return np.where((T >= lo) & (T <= hi), out, np.nan)
 
 
+def linspace_rows(lo: np.ndarray, hi: np.ndarray, n: int) -> np.ndarray:
+    """Row i: ``np.linspace(lo[i], hi[i], n)`` (the same numbers, all rows at once)."""
+    lo, hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
+    if n < 2:
+        return np.array([np.linspace(a, b, n) for a, b in zip(lo, hi)]).reshape(len(lo), n)
+    step = (hi - lo) / (n - 1)
+    T = np.arange(0, n, dtype=float)[None, :] * step[:, None]
+    T += lo[:, None]
+    T[:, -1] = hi
+    for i in np.flatnonzero(step == 0):   # numpy spaces a zero step another way
+        T[i] = np.linspace(lo[i], hi[i], n)
+    return T
+
+
 def grids(fitted: Sequence[FittedCurve], n: Sequence[int], what: str = "value"
           ) -> list[tuple[np.ndarray, np.ndarray]]:
     """(T, values) of each fitted curve on ``n[i]`` points spread over its fitted range,
@@ -193,8 +207,8 @@ def grids(fitted: Sequence[FittedCurve], n: Sequence[int], what: str = "value"
     for i, k in enumerate(n):
         by_n.setdefault(int(k), []).append(i)
     for k, idx in by_n.items():
-        T = np.array([np.linspace(fitted[i].T_min_K, fitted[i].T_max_K, k) for i in idx])
-        T = T.reshape(len(idx), k)
+        T = linspace_rows(np.array([fitted[i].T_min_K for i in idx]),
+                          np.array([fitted[i].T_max_K for i in idx]), k)
         values = grid_values([fitted[i].curve for i in idx], T, what)
         for r, i in enumerate(idx):
             out[i] = (T[r], values[r])

@@ -7,7 +7,7 @@ import itertools
 
 import numpy as np
 
-from pipeline.checks.curves import grid_values
+from pipeline.checks.curves import grid_values, linspace_rows
 from pipeline.checks.data import CheckBatch, FluidData
 from pipeline.checks.findings import Findings
 from pipeline.checks.physics import curve_label
@@ -60,10 +60,6 @@ def _pairs(fluid: FluidData) -> list:
             if min(a.T_max_K, b.T_max_K) - max(a.T_min_K, b.T_min_K) >= _MIN_OVERLAP_K]
 
 
-def _grid(a, b, n: int) -> np.ndarray:
-    return np.linspace(max(a.T_min_K, b.T_min_K), min(a.T_max_K, b.T_max_K), n)
-
-
 def _crossings(T: np.ndarray, d: np.ndarray) -> list[float]:
     """Temperatures where p_a - p_b (``d`` on the grid ``T``) is zero or changes sign."""
     ok = np.isfinite(d)
@@ -88,7 +84,8 @@ def _differences(batch: CheckBatch, pairs: dict, th) -> dict:
     out = {}
     for n in sorted({f[4] for f in flat}):
         rows = [f for f in flat if f[4] == n]
-        T = np.array([_grid(a, b, n) for _, _, a, b, _ in rows]).reshape(len(rows), n)
+        T = linspace_rows(np.array([max(a.T_min_K, b.T_min_K) for _, _, a, b, _ in rows]),
+                          np.array([min(a.T_max_K, b.T_max_K) for _, _, a, b, _ in rows]), n)
         d = grid_values([r[2].curve for r in rows], T) - grid_values([r[3].curve for r in rows], T)
         for (fid, i, *_), T_row, d_row in zip(rows, T, d):
             out[(fid, i)] = (T_row, d_row)
