@@ -129,21 +129,39 @@ def _rows_of(curves: Sequence[Any], repeats) -> tuple[list[Any], np.ndarray]:
     return distinct, np.array(owner, dtype=np.intp)
 
 
-def _apply(curves: Sequence[Any], T: np.ndarray, what: str, repeats=None) -> tuple[np.ndarray, Any]:
-    """(row indices, values) per form group: the kernel of each form over its rows."""
-    distinct, owner = _rows_of(curves, repeats)
-    for group, cidx in _by_form(distinct).items():
-        local = np.full(len(distinct), -1, dtype=np.intp)
-        local[cidx] = np.arange(len(cidx))
-        rows = np.flatnonzero(local[owner] >= 0)
-        if group is None:
-            own = [distinct[owner[r]] for r in rows]
-            yield rows, _own(own, list(range(len(rows))), what, T[rows])
-            continue
-        sub = [distinct[c] for c in cidx]
-        P = np.array([c.params for c in sub])[local[owner[rows]]]
-        T_ref = np.array([[c._T_ref] for c in sub])[local[owner[rows]]]
-        yield rows, _kernel(sub[0].correlation_form, what, T[rows], P, T_ref, group[2])
+class CurveRows:
+    """Rows of curves (row i reads ``curves[i]``, or curve i covers ``repeats[i]`` consecutive
+    rows), grouped once by form: each later kernel call is a few numpy operations."""
+
+    def __init__(self, curves: Sequence[Any], repeats=None):
+        distinct, owner = _rows_of(curves, repeats)
+        self.n = len(owner)
+        self.groups: list[tuple] = []
+        for group, cidx in _by_form(distinct).items():
+            local = np.full(len(distinct), -1, dtype=np.intp)
+            local[cidx] = np.arange(len(cidx))
+            rows = np.flatnonzero(local[owner] >= 0)
+            if group is None:
+                self.groups.append((None, rows, [distinct[owner[r]] for r in rows], None, None))
+                continue
+            sub = [distinct[c] for c in cidx]
+            pick = local[owner[rows]]
+            self.groups.append((sub[0].correlation_form, rows, np.array([c.params for c in sub])[pick],
+                                np.array([[c._T_ref] for c in sub])[pick], group[2]))
+
+    def at(self, T: np.ndarray, what: str) -> np.ndarray:
+        """Each row's curve at its T, extrapolating: (n,) values or slopes, (n, k) Jacobians
+        (rows of one parameter count k)."""
+        out: np.ndarray | None = None
+        for form, rows, P, T_ref, exps in self.groups:
+            if form is None:
+                values = np.asarray(_own(P, list(range(len(rows))), what, T[rows]), dtype=float)
+            else:
+                values = _kernel(form, what, T[rows], P, T_ref, exps)
+            if out is None:
+                out = np.full((self.n,) + values.shape[1:], np.nan)
+            out[rows] = values
+        return out if out is not None else np.full(self.n, np.nan)
 
 
 def curves_at(curves: Sequence[Any], T, what: str = "value", repeats=None) -> np.ndarray:
@@ -153,11 +171,7 @@ def curves_at(curves: Sequence[Any], T, what: str = "value", repeats=None) -> np
     numbers as ``curve.value(T, extrapolate=True)`` (or ``slope``), one kernel call per
     correlation form and term count.
     """
-    T = np.asarray(T, dtype=float)
-    out = np.full(len(T), np.nan)
-    for rows, values in _apply(curves, T, what, repeats):
-        out[rows] = values
-    return out
+    return CurveRows(curves, repeats).at(np.asarray(T, dtype=float), what)
 
 
 def grid_values(curves: Sequence[Any], T: np.ndarray, what: str = "value") -> np.ndarray:
@@ -266,11 +280,12 @@ def _near(rows: list[int], fitted: list[FittedCurve], T: np.ndarray):
     """
     curves = [fitted[i].curve for i in rows]
     Tq = T[rows]
-    v = curves_at(curves, Tq, "value")
-    lo = np.array([fitted[i].T_min_K for i in rows])
-    hi = np.array([fitted[i].T_max_K for i in rows])
+    read = CurveRows(curves)
+    v = read.at(Tq, "value")
+    lo = np.array([c.T_min_K for c in curves], dtype=float)
+    hi = np.array([c.T_max_K for c in curves], dtype=float)
     end = np.where(np.isfinite(v), Tq, np.minimum(np.maximum(Tq, lo), hi))
-    slope = curves_at(curves, end, "slope")
+    slope = read.at(end, "slope")
     u_cov, u_slope = np.zeros(len(rows)), np.zeros(len(rows))
     by_k: dict[int, list[int]] = {}
     for j, c in enumerate(curves):
@@ -281,12 +296,11 @@ def _near(rows: list[int], fitted: list[FittedCurve], T: np.ndarray):
         sub = [curves[j] for j in with_cov]
         e = end[with_cov]
         h = 1e-5 * np.maximum(np.abs(e), 1.0)
-        n = len(sub)
-        J = _jacobians(sub * 3, np.concatenate([e + (-1) * h, e + 0 * h, e + 1 * h]))
-        Jm, J0, Jp = J[:n], J[n:2 * n], J[2 * n:]
+        jac = CurveRows(sub)
+        Jm, J0, Jp = (jac.at(e + d * h, "jacobian") for d in (-1, 0, 1))
         cov = [covs[id(c)] if id(c) in covs else
                covs.setdefault(id(c), np.asarray(c.covariance, dtype=float)) for c in sub]
-        u_cov[with_cov] = [_quadratic_u(J0[r:r + 1], cov[r]) for r in range(n)]
+        u_cov[with_cov] = [_quadratic_u(J0[r:r + 1], cov[r]) for r in range(len(sub))]
         u_slope[with_cov] = _slope_u(Jm, J0, Jp, h, cov)
     value = v.copy()
     moved = np.flatnonzero(end != Tq)     # the rare continuation, point by point
@@ -296,18 +310,6 @@ def _near(rows: list[int], fitted: list[FittedCurve], T: np.ndarray):
             value[j], slope[j], u_cov[j] = _continue(curves[j], float(Tq[j]), float(end[j]),
                                                      float(ve), float(slope[j]), float(u_cov[j]))
     return value, slope, u_cov, u_slope
-
-
-def _jacobians(curves: Sequence[Any], T: np.ndarray) -> np.ndarray:
-    """The parameter Jacobian of ``curves[i]`` at ``T[i]``, shape (n, k): curves with the same
-    number of parameters k."""
-    out: np.ndarray | None = None
-    for rows, J in _apply(curves, T, "jacobian"):
-        J = np.asarray(J, dtype=float)
-        if out is None:
-            out = np.full((len(curves), J.shape[1]), np.nan)
-        out[rows] = J
-    return out if out is not None else np.zeros((0, 0))
 
 
 def curve_budgets(pairs: Iterable[tuple["FluidData", CurveKey]]) -> None:
@@ -381,5 +383,6 @@ def evaluate_points(requests: Sequence[Request]) -> list[tuple[CurvePoint | None
     return out
 
 
-__all__ = ["CurveBudget", "CurveKey", "FittedCurve", "Request", "curve_budgets", "curves_at",
+__all__ = ["CurveBudget", "CurveKey", "CurveRows", "FittedCurve", "Request", "curve_budgets",
+           "curves_at",
            "evaluate_points", "grid_values", "grids"]
