@@ -65,10 +65,26 @@ CODE_COLUMNS = {"file_code": "file_path", "kind_code": "source_kind"}
 
 
 def with_codes(columns: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
-    """``columns`` with the :data:`CODE_COLUMNS` added: equal codes, equal text (one code per
-    distinct value), so rows are grouped by file or source kind with integer comparisons."""
+    """``columns`` with each text column interned (rows of equal text share one string
+    object: gathers and comparisons touch a few objects, not one per row) and the
+    :data:`CODE_COLUMNS` added (equal codes, equal text), so rows are grouped by file or
+    source kind with integer comparisons."""
+    codes = {}
+    for name in _TEXT_OBS:
+        col = columns[name]
+        c, uniques = pd.factorize(col, sort=False)
+        if len(uniques) < len(col):
+            shared = np.empty(len(uniques) + 1, dtype=object)
+            shared[:-1] = np.asarray(uniques, dtype=object)
+            shared[-1] = None
+            interned = shared[c]               # code -1 (a missing value) -> None, as before
+            missing = c < 0
+            if missing.any():                  # keep a missing value as it was (None or NaN)
+                interned[missing] = col[missing]
+            columns[name] = interned
+        codes[name] = c.astype(np.int64)
     for code, text in CODE_COLUMNS.items():
-        columns[code] = pd.factorize(columns[text], sort=False)[0].astype(np.int64)
+        columns[code] = codes[text]
     return columns
 
 

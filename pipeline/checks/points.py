@@ -135,7 +135,8 @@ def consensus(values, uncertainties) -> tuple[float, float]:
 
 def _best_ranked(rows: list[dict]) -> list[dict]:
     rank = [SOURCE_RANK.get(r["source_kind"], len(SOURCE_RANK)) for r in rows]
-    return [r for r, k in zip(rows, rank) if k == min(rank)]
+    best = min(rank)
+    return [r for r, k in zip(rows, rank) if k == best]
 
 
 def consensus_points(records: Iterable[dict], kind: str) -> list[StatedPoint]:
@@ -151,12 +152,15 @@ def consensus_points(records: Iterable[dict], kind: str) -> list[StatedPoint]:
             groups.setdefault(parse_phases(r["phases"]), []).append(r)
     out = []
     for phases in sorted(groups):
-        cols, used = {}, []
+        cols, used, seen = {}, [], set()
         for col in ("T_K", "p_Pa", "rho_kg_m3"):
             rows = [r for r in groups[phases] if _finite(r[col])]
             best = _best_ranked(rows) if rows else []
             cols[col], cols["u_" + col] = consensus([r[col] for r in best], [r["u_" + col] for r in best])
-            used += [r for r in best if r not in used]
+            for r in best:       # each record once (records differ: each has its own fp_id)
+                if id(r) not in seen:
+                    seen.add(id(r))
+                    used.append(r)
         out.append(StatedPoint(kind, phases, cols["T_K"], cols["u_T_K"], cols["p_Pa"],
                                cols["u_p_Pa"], cols["rho_kg_m3"], cols["u_rho_kg_m3"],
                                tuple(dict.fromkeys(r["source_id"] for r in used)),
