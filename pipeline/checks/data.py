@@ -267,6 +267,10 @@ class FluidData:
     def n_observations(self) -> int:
         return len(self._columns["obs_id"])
 
+    def observation_ids(self) -> np.ndarray:
+        """The ids of the fluid's observations (as integers)."""
+        return np.asarray(self._columns["obs_id"], dtype=np.int64)
+
     @cached_property
     def _groups(self) -> Mapping[CurveKey, np.ndarray]:
         if self._rows is not None:
