@@ -104,9 +104,14 @@ class StatedPoint:
         return [(ph[i], ph[j]) for i in range(len(ph)) for j in range(i + 1, len(ph))]
 
     def evidence(self) -> dict:
-        return {"T_K": self.T_K, "u_T_K": self.u_T_K, "p_Pa": self.p_Pa, "u_p_Pa": self.u_p_Pa,
-                "rho_kg_m3": self.rho_kg_m3, "sources": list(self.sources),
-                "fp_ids": list(self.fp_ids)}
+        """The point as evidence (a value not stated is None, as JSON will hold it)."""
+        return {"T_K": _stated(self.T_K), "u_T_K": _stated(self.u_T_K), "p_Pa": _stated(self.p_Pa),
+                "u_p_Pa": _stated(self.u_p_Pa), "rho_kg_m3": _stated(self.rho_kg_m3),
+                "sources": list(self.sources), "fp_ids": list(self.fp_ids)}
+
+
+def _stated(x: float) -> float | None:
+    return x if math.isfinite(x) else None
 
 
 def curve_label(key) -> str:

@@ -107,7 +107,21 @@ def _plain(value: Any) -> Any:
     raise TypeError(f"{type(value).__name__} is not JSON serialisable")
 
 
-_ENCODER = json.JSONEncoder(sort_keys=True, allow_nan=False, default=_plain)
+def _encoder():
+    """The C encoder of ``json.dumps(..., sort_keys=True, allow_nan=False)``, made once (the
+    pure-Python one where the C one is missing)."""
+    try:
+        from json.encoder import c_make_encoder, encode_basestring_ascii
+    except ImportError:  # pragma: no cover (CPython has it)
+        c_make_encoder = None
+    if c_make_encoder is None:  # pragma: no cover
+        return json.JSONEncoder(sort_keys=True, allow_nan=False, default=_plain).encode
+    make = c_make_encoder(None, _plain, encode_basestring_ascii, None, ": ", ", ", True, False,
+                          False)
+    return lambda obj: "".join(make(obj, 0))
+
+
+_ENCODE = _encoder()
 
 
 def evidence_json(evidence: Any) -> str:
@@ -118,7 +132,7 @@ def evidence_json(evidence: Any) -> str:
     strings falls back to the walk. Both give the same text.
     """
     try:
-        return _ENCODER.encode(evidence)
+        return _ENCODE(evidence)
     except (ValueError, TypeError):
         return json.dumps(jsonable(evidence), sort_keys=True)
 

@@ -86,7 +86,10 @@ def test_the_comparison_sees_a_changed_number_and_a_changed_message():
 def test_stored_evidence_text_is_the_text_of_the_full_conversion(name):
     """Every result's evidence is stored as the very JSON text of converting it to plain values
     first (the C encoder's fast path and its fallback for NaN agree byte for byte)."""
+    import numpy as np
+
     run = run_checks(snapshot.read_inputs(snapshot.HERE / name))
-    raw = run.table.columns["evidence"]
-    assert any("NaN" in json.dumps(e, default=str) for e in raw)   # the fallback is exercised
+    odd = {"nan": float("nan"), "inf": [1.0, float("-inf")], "np": (np.float64(0.1), np.int64(3)),
+           "flag": np.bool_(True), "f32": np.float32(0.5), "nested": {"b": 2, "a": [None, "x"]}}
+    raw = run.table.columns["evidence"] + [odd, {k: v for k, v in odd.items() if k not in ("nan", "inf")}]
     assert [evidence_json(e) for e in raw] == [json.dumps(jsonable(e), sort_keys=True) for e in raw]
