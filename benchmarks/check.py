@@ -133,7 +133,7 @@ def main(argv=None) -> int:
                   f"{_spread([r['checks_cpu_s'] for r in runs])} s CPU; "
                   f"load {_spread([r['load_s'] for r in runs])} s; "
                   f"store {_spread([r['store_s'] for r in runs])} s; "
-                  f"peak RSS {_spread_mib([r["peak_rss_mib"] for r in runs])} MiB", flush=True)
+                  f"peak RSS {_spread_mib([r['peak_rss_mib'] for r in runs])} MiB", flush=True)
     print(f"load average {_load()} after")
     if TARGET_FLUIDS in medians:
         m = medians[TARGET_FLUIDS]

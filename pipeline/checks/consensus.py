@@ -75,7 +75,13 @@ class Model:
 
 def _terms(T: np.ndarray) -> int:
     """Sum terms a fit to these temperatures can carry: about one per three distinct points."""
-    return max(1, min(len(np.unique(T)) // 3, len(np.unique(T)) - 2))
+    distinct = len(np.unique(T))
+    return max(1, min(distinct // 3, distinct - 2))
+
+
+def _two_distinct(T: np.ndarray) -> bool:
+    """True when the (finite) temperatures ``T`` hold at least two distinct values."""
+    return T.size > 0 and T.min() != T.max()
 
 
 def _solve(A: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray | None:
@@ -92,7 +98,7 @@ def weighted_fit(T: np.ndarray, y: np.ndarray, w: np.ndarray, make: DesignMaker,
                  k: int | None = None) -> Model | None:
     """Weighted least squares on the points with w > 0; None when too few points."""
     m = (w > 0) & np.isfinite(y) & np.isfinite(T)
-    if len(np.unique(T[m])) < 2:
+    if not _two_distinct(T[m]):
         return None
     design = make(T[m], _terms(T[m]) if k is None else k)
     A = design(T[m])
@@ -118,11 +124,12 @@ def _start(T, y, files, line: DesignMaker, floor) -> np.ndarray | None:
         model = weighted_fit(T, y, (files == f).astype(float), line, 1)
         if model is None:
             continue
-        d = np.abs(model.raw(T) - y)
+        r = model.raw(T) - y
+        d = np.abs(r)
         med = median(d[~np.isnan(d)])
         if best is None or med < best[0]:
-            best = (med, model)
-    return None if best is None else tukey_weights(best[1].raw(T) - y, floor)
+            best = (med, r)
+    return None if best is None else tukey_weights(best[1], floor)
 
 
 def robust_fit(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMaker,
@@ -138,7 +145,7 @@ def robust_fit(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMake
     if start is None:
         return None, None
     w[ok] = start
-    if len(np.unique(T[w > 0])) < 2:
+    if not _two_distinct(T[w > 0]):
         return None, None
     design = make(T[w > 0], _terms(T[w > 0]))
     with np.errstate(invalid="ignore", divide="ignore"):
