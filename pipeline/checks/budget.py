@@ -187,6 +187,22 @@ class CurveBudget:
             best = min(self.files, key=lambda f: min(abs(T - f.T_min_K), abs(T - f.T_max_K))).correlated_rel
         return best * self.expansion
 
+    def floor_rel_array(self, T: np.ndarray) -> np.ndarray:
+        """:meth:`floor_rel` at every temperature of ``T`` (finite), the same numbers."""
+        T = np.asarray(T, dtype=float)
+        if not self.files:
+            return np.zeros(len(T))
+        policy = self.policy
+        margin = (np.maximum(policy.min_K, policy.max_fraction * np.abs(T)) if policy
+                  else np.zeros(len(T)))
+        lo = np.array([f.T_min_K for f in self.files])[:, None]
+        hi = np.array([f.T_max_K for f in self.files])[:, None]
+        corr = np.array([f.correlated_rel for f in self.files])
+        covering = (lo - margin <= T) & (T <= hi + margin)
+        covered = np.where(covering, corr[:, None], np.inf).min(axis=0)
+        nearest = corr[np.argmin(np.minimum(np.abs(T - lo), np.abs(T - hi)), axis=0)]
+        return np.where(covering.any(axis=0), covered, nearest) * self.expansion
+
     def evidence(self) -> dict:
         return {"files": [{"file": f.path, "T_range_K": [f.T_min_K, f.T_max_K],
                            "correlated_rel_u": f.correlated_rel, "n": f.n,

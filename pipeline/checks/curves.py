@@ -271,7 +271,7 @@ def _continue(curve: Any, T: float, end: float, v_end: float, s_end: float,
     return v_end + s_end * (T - end), s_end, u_end
 
 
-def _near(rows: list[int], fitted: list[FittedCurve], T: np.ndarray):
+def _near(rows: list[int], fitted: list[FittedCurve], T: np.ndarray, with_slope_u: bool = True):
     """Value, slope, u of the covariance and u of the slope at the requested T of ``rows``.
 
     A form undefined at T (a fractional power of 1 - T/T_ref a rounding error past T_ref) is
@@ -297,11 +297,15 @@ def _near(rows: list[int], fitted: list[FittedCurve], T: np.ndarray):
         e = end[with_cov]
         h = 1e-5 * np.maximum(np.abs(e), 1.0)
         jac = CurveRows(sub)
-        Jm, J0, Jp = (jac.at(e + d * h, "jacobian") for d in (-1, 0, 1))
+        if with_slope_u:
+            Jm, J0, Jp = (jac.at(e + d * h, "jacobian") for d in (-1, 0, 1))
+        else:
+            J0 = jac.at(e + 0 * h, "jacobian")
         cov = [covs[id(c)] if id(c) in covs else
                covs.setdefault(id(c), np.asarray(c.covariance, dtype=float)) for c in sub]
         u_cov[with_cov] = [_quadratic_u(J0[r:r + 1], cov[r]) for r in range(len(sub))]
-        u_slope[with_cov] = _slope_u(Jm, J0, Jp, h, cov)
+        if with_slope_u:
+            u_slope[with_cov] = _slope_u(Jm, J0, Jp, h, cov)
     value = v.copy()
     moved = np.flatnonzero(end != Tq)     # the rare continuation, point by point
     if len(moved):
@@ -340,49 +344,96 @@ def curve_budgets(pairs: Iterable[tuple["FluidData", CurveKey]]) -> None:
                                                  budget.extrapolation, kept=k))
 
 
-def evaluate_points(requests: Sequence[Request]) -> list[tuple[CurvePoint | None, str]]:
-    """``fluid.at(key, T)`` for every request: (CurvePoint, "") or (None, why not).
+@dataclass
+class PointColumns:
+    """Curve points as columns, one row per request: what :meth:`FluidData.at
+    <pipeline.checks.data.FluidData.at>` gives, without an object per point. ``ok`` marks the
+    rows read; ``reasons`` says why the others were not. ``u_slope`` is NaN when not asked."""
+
+    requests: Sequence[Request]
+    ok: np.ndarray
+    reasons: list[str]
+    value: np.ndarray
+    slope: np.ndarray
+    u: np.ndarray
+    u_slope: np.ndarray
+    u_cov: np.ndarray
+    floor: np.ndarray
+    beyond: np.ndarray
+
+    def point(self, i: int) -> tuple[CurvePoint | None, str]:
+        """Row ``i`` as ``FluidData.at`` returns it."""
+        if not self.ok[i]:
+            return None, self.reasons[i]
+        return CurvePoint(self.requests[i][2], float(self.value[i]), float(self.slope[i]),
+                          float(self.u[i]), float(self.u_slope[i]), float(self.u_cov[i]),
+                          float(self.floor[i]), float(self.beyond[i])), ""
+
+
+def evaluate_point_columns(requests: Sequence[Request], slope_u: bool = True) -> PointColumns:
+    """``fluid.at(key, T)`` for every request, as columns (see :class:`PointColumns`).
 
     Honours the one extrapolation policy (a curve is not read further beyond its data than it
     allows; the reason names it) and the one uncertainty budget (u combines the covariance and
-    the correlated floor of the files the curve was fitted to).
+    the correlated floor of the files the curve was fitted to). ``slope_u=False`` leaves the
+    slope's uncertainty out (NaN), for checks that read values only.
     """
-    out: list[tuple[CurvePoint | None, str]] = [(None, "")] * len(requests)
-    fitted: list[Any] = [None] * len(requests)
+    n = len(requests)
+    reasons = [""] * n
+    fitted: list[Any] = [None] * n
     T = np.array([float(t) for _, _, t in requests], dtype=float)
+    far = np.zeros(n)
     within: list[int] = []
-    beyond: dict[int, float] = {}
     for i, (fluid, key, t) in enumerate(requests):
         f = fluid.curves.get(key)
         if f is None:
-            out[i] = (None, f"no fitted {curve_label(key)} curve")
+            reasons[i] = f"no fitted {curve_label(key)} curve"
             continue
         policy = fluid.budget.extrapolation
-        far = max(f.T_min_K - t, t - f.T_max_K, 0.0)     # as budget.reach, which words the no
-        if not far <= policy.allowed(t):
-            out[i] = (None, reach(f.T_min_K, f.T_max_K, t, policy, curve_label(key)).reason)
+        beyond = max(f.T_min_K - t, t - f.T_max_K, 0.0)   # as budget.reach, which words the no
+        if not beyond <= policy.allowed(t):
+            reasons[i] = reach(f.T_min_K, f.T_max_K, t, policy, curve_label(key)).reason
             continue
-        fitted[i], beyond[i] = f, far
+        fitted[i], far[i] = f, beyond
         within.append(i)
-    if not within:
-        return out
-    value, slope, u_cov, u_slope = _near(within, fitted, T)
-    defined = [j for j, i in enumerate(within)
-               if math.isfinite(value[j]) and math.isfinite(slope[j])]
-    curve_budgets((requests[within[j]][0], requests[within[j]][1]) for j in defined)
-    for j, i in enumerate(within):
-        fluid, key, t = requests[i]
-        if not (math.isfinite(value[j]) and math.isfinite(slope[j])):
-            out[i] = (None, f"the {curve_label(key)} fit's form is undefined at T = {t:.6g} K")
-            continue
-        v, s = float(value[j]), float(slope[j])
-        floor = fluid.curve_budget(key).floor_rel(t)
-        u = math.hypot(float(u_cov[j]), floor * abs(v))
-        us = math.hypot(float(u_slope[j]), floor * abs(s))
-        out[i] = (CurvePoint(t, v, s, u, us, float(u_cov[j]), floor, beyond[i]), "")
-    return out
+    cols = {c: np.full(n, np.nan) for c in ("value", "slope", "u", "u_slope", "u_cov", "floor")}
+    ok = np.zeros(n, dtype=bool)
+    if within:
+        value, slope, u_cov, u_slope = _near(within, fitted, T, slope_u)
+        rows = np.array(within)
+        defined = np.isfinite(value) & np.isfinite(slope)
+        for j in np.flatnonzero(~defined):
+            fluid, key, t = requests[within[j]]
+            reasons[within[j]] = f"the {curve_label(key)} fit's form is undefined at T = {t:.6g} K"
+        good = np.flatnonzero(defined)
+        curve_budgets((requests[within[j]][0], requests[within[j]][1]) for j in good)
+        floor = np.full(len(within), np.nan)
+        by_curve: dict[tuple, list[int]] = {}
+        for j in good:
+            fluid, key, _ = requests[within[j]]
+            by_curve.setdefault((id(fluid), key), []).append(j)
+        for js in by_curve.values():
+            fluid, key, _ = requests[within[js[0]]]
+            floor[js] = fluid.curve_budget(key).floor_rel_array(T[rows[js]])
+        fv, fs = (floor * np.abs(value)).tolist(), (floor * np.abs(slope)).tolist()
+        uc, us = u_cov.tolist(), u_slope.tolist()
+        u = np.array([math.hypot(a, b) for a, b in zip(uc, fv)])
+        ups = np.array([math.hypot(a, b) for a, b in zip(us, fs)]) if slope_u else u_slope
+        target = rows[good]
+        cols["value"][target], cols["slope"][target] = value[good], slope[good]
+        cols["u"][target], cols["u_slope"][target] = u[good], ups[good]
+        cols["u_cov"][target], cols["floor"][target] = u_cov[good], floor[good]
+        ok[target] = True
+    return PointColumns(requests, ok, reasons, beyond=far, **cols)
 
 
-__all__ = ["CurveBudget", "CurveKey", "CurveRows", "FittedCurve", "Request", "curve_budgets",
-           "curves_at",
-           "evaluate_points", "grid_values", "grids"]
+def evaluate_points(requests: Sequence[Request]) -> list[tuple[CurvePoint | None, str]]:
+    """``fluid.at(key, T)`` for every request: (CurvePoint, "") or (None, why not); see
+    :func:`evaluate_point_columns`."""
+    cols = evaluate_point_columns(requests)
+    return [cols.point(i) for i in range(len(requests))]
+
+
+__all__ = ["CurveBudget", "CurveKey", "CurveRows", "FittedCurve", "PointColumns", "Request",
+           "curve_budgets", "curves_at", "evaluate_point_columns", "evaluate_points", "grid_values",
+           "grids", "linspace_rows"]

@@ -7,6 +7,7 @@ import math
 
 import numpy as np
 
+from pipeline.checks.curves import PointColumns, evaluate_point_columns
 from pipeline.checks.data import CheckBatch, FluidData
 from pipeline.checks.findings import Findings
 from pipeline.checks.physics import curve_label
@@ -27,24 +28,25 @@ def _temperatures(tp, sign: int, th) -> list[float]:
     return [float(T) for T in tp.T_K * (1 + sign * w * np.linspace(1.0 / n, 1.0, n))]
 
 
-def _side(out: Findings, fluid: FluidData, tp, keys: dict, side: str, th) -> None:
+def _side(out: Findings, fluid: FluidData, tp, side: str, points: PointColumns, rows, th) -> None:
+    """One side of the triple point: ``rows`` are (T, row of the high curve, row of the low
+    curve) in ``points``."""
     sign, high, low, phase = SIDES[side]
     subject = f"{tp.label}|{side}"
-    rows, reasons = [], []
-    for T in _temperatures(tp, sign, th):
-        a, why_a = fluid.at(keys[high], float(T))
-        b, why_b = fluid.at(keys[low], float(T))
-        if a is None or b is None:
-            reasons.append(why_a or why_b)
+    found, reasons = [], []
+    ok, value, unc, why = points.ok, points.value, points.u, points.reasons
+    for T, ia, ib in rows:
+        if not (ok[ia] and ok[ib]):
+            reasons.append(why[ia] or why[ib])
             continue
-        u = math.hypot(a.u, b.u)
-        rows.append((float(T), a.value, b.value, u, (a.value - b.value) / u if u > 0 else math.nan,
-                     (a.value - b.value) / b.value))
-    if not rows:
+        a, b = float(value[ia]), float(value[ib])
+        u = math.hypot(float(unc[ia]), float(unc[ib]))
+        found.append((float(T), a, b, u, (a - b) / u if u > 0 else math.nan, (a - b) / b))
+    if not found:
         out.skip(fluid.fluid_id, subject, f"the curves cannot be extended {side} Tt = "
                                           f"{tp.T_K:.6g} K: {reasons[0]}")
         return
-    T, p_high, p_low, u, z, margin = (np.array(c) for c in zip(*rows))
+    T, p_high, p_low, u, z, margin = (np.array(c) for c in zip(*found))
     use_z = bool(np.all(np.isfinite(z)))
     stat = z if use_z else margin
     worst = int(np.argmin(stat))
@@ -54,13 +56,13 @@ def _side(out: Findings, fluid: FluidData, tp, keys: dict, side: str, th) -> Non
     out.judge(fluid.fluid_id, subject, measured=float(stat[worst]), limit=limit,
               upper=False, statistic=statistic,
               evidence={"Tt_K": tp.T_K, "T_range_K": [float(T.min()), float(T.max())],
-                        "n_points": len(rows), "not_evaluated": len(reasons),
+                        "n_points": len(found), "not_evaluated": len(reasons),
                         "worst_T_K": float(T[worst]),
                         f"worst_{NAMES[high]}_Pa": float(p_high[worst]),
                         f"worst_{NAMES[low]}_Pa": float(p_low[worst]),
                         "worst_u_difference_Pa": float(u[worst]),
                         "worst_relative_margin": float(margin[worst])},
-              context=f"{side} Tt = {tp.T_K:.6g} K ({phase}), {len(rows)} points "
+              context=f"{side} Tt = {tp.T_K:.6g} K ({phase}), {len(found)} points "
                       f"{T.min():.5g}-{T.max():.5g} K: {NAMES[high]} must exceed "
                       f"{NAMES[low]}; at {T[worst]:.5g} K {p_high[worst]:.5g} vs "
                       f"{p_low[worst]:.5g} Pa (u of the difference {u[worst]:.2g} Pa)")
@@ -98,10 +100,18 @@ def extensions(batch: CheckBatch, th) -> Findings:
     point; a curvature forced by a few distant points; sublimation data of another solid phase.
     """
     plan = {fluid.fluid_id: _extended(fluid) for fluid in batch}
-    batch.prefetch((fluid, key, T) for fluid in batch
-                   for tp, keys, missing in plan[fluid.fluid_id] if missing is None
-                   for sign, *_ in SIDES.values() for T in _temperatures(tp, sign, th(fluid.fluid_id))
-                   for key in keys.values())
+    requests, rows = [], {}
+    for fluid in batch:
+        t = th(fluid.fluid_id)
+        for tp, keys, missing in plan[fluid.fluid_id]:
+            if missing is not None:
+                continue
+            for side, (sign, high, low, _) in SIDES.items():
+                at = rows[(fluid.fluid_id, tp.label, side)] = []
+                for T in _temperatures(tp, sign, t):
+                    at.append((T, len(requests), len(requests) + 1))
+                    requests += [(fluid, keys[high], T), (fluid, keys[low], T)]
+    points = evaluate_point_columns(requests, slope_u=False)   # values and their u only
     out = Findings()
     for fluid in batch:
         t = th(fluid.fluid_id)
@@ -110,5 +120,5 @@ def extensions(batch: CheckBatch, th) -> Findings:
                 out.skip(fluid.fluid_id, f"{tp.label}|below", f"no fitted {missing} curve")
                 continue
             for side in SIDES:
-                _side(out, fluid, tp, keys, side, t)
+                _side(out, fluid, tp, side, points, rows[(fluid.fluid_id, tp.label, side)], t)
     return out
