@@ -25,7 +25,8 @@ from typing import TYPE_CHECKING, Any, Iterable, Sequence
 
 import numpy as np
 
-from pipeline.checks.budget import CurveBudget, CurvePoint, curve_budget, reach
+from pipeline.checks.budget import CurveBudget, CurvePoint, reach
+from pipeline.checks.budget import curve_budgets as budgets_of
 from pipeline.checks.points import curve_label
 from pipeline.correlations.base import Curve
 
@@ -335,13 +336,11 @@ def curve_budgets(pairs: Iterable[tuple["FluidData", CurveKey]]) -> None:
     curves = [fluid.curves[key].curve for fluid, key in todo]
     T = np.concatenate([s.T[k].astype(float) for s, k in zip(series, kept)])
     fitted = curves_at(curves, T, "value", repeats=[len(k) for k in kept])
-    start = 0
-    for (fluid, key), s, k in zip(todo, series, kept):
-        values = fitted[start:start + len(k)]
-        start += len(k)
-        budget = fluid.budget
-        fluid.set_curve_budget(key, curve_budget(s, values, budget.uncertainty,
-                                                 budget.extrapolation, kept=k))
+    bounds = np.r_[0, np.cumsum([len(k) for k in kept])]
+    parts = [(s.take(k), fitted[bounds[j]:bounds[j + 1]], fluid.budget.uncertainty,
+              fluid.budget.extrapolation) for j, ((fluid, key), s, k) in enumerate(zip(todo, series, kept))]
+    for (fluid, key), budget in zip(todo, budgets_of(parts)):
+        fluid.set_curve_budget(key, budget)
 
 
 @dataclass

@@ -250,6 +250,15 @@ def ranges(batch: CheckBatch, th) -> Findings:
     return out
 
 
+def _pinv(a: np.ndarray) -> np.ndarray:
+    """``np.linalg.pinv(a)`` of a real square matrix, its operations without its checks."""
+    u, s, vt = np.linalg.svd(a, full_matrices=False)
+    large = s > 1e-15 * s.max()
+    s = np.divide(1, s, where=large, out=s)
+    s[~large] = 0
+    return vt.T @ (s[:, None] * u.T)
+
+
 def _deleted_residuals(x: np.ndarray, r: np.ndarray, w: np.ndarray) -> np.ndarray:
     """Studentised leave-one-out residuals of r about a weighted polynomial trend in x.
 
@@ -263,10 +272,11 @@ def _deleted_residuals(x: np.ndarray, r: np.ndarray, w: np.ndarray) -> np.ndarra
     n = len(r)
     degree = 2 if n >= 7 else 1 if n >= 4 else 0
     span = float(np.ptp(x)) or 1.0
-    A = np.vander((x - x.mean()) / span, degree + 1)
+    s = (x - x.mean()) / span
+    A = np.column_stack([s * s, s, np.ones(n)][2 - degree:])   # np.vander(s, degree + 1)
     sw = np.sqrt(w)
     Aw = A * sw[:, None]
-    G = np.linalg.pinv(Aw.T @ Aw)
+    G = _pinv(Aw.T @ Aw)
     coef = G @ (Aw.T @ (r * sw))
     e = r - A @ coef
     h = np.einsum("ij,jk,ik->i", A, G, A) * w

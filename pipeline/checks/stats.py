@@ -82,6 +82,54 @@ def median(x: np.ndarray) -> float:
     return float(part[h]) if n % 2 else float((part[h - 1] + (0.0 + part[h])) / 2)
 
 
+def _pairwise_rows(v: np.ndarray) -> np.ndarray:
+    """Each row's sum, added in the order numpy's pairwise summation adds a 1-D array."""
+    n = v.shape[1]
+    if n < 8:
+        res = np.full(v.shape[0], -0.0)
+        for i in range(n):
+            res = res + v[:, i]
+        return res
+    if n <= 128:
+        r = v[:, :8].copy()
+        stop = n - n % 8
+        for i in range(8, stop, 8):
+            r += v[:, i:i + 8]
+        res = ((r[:, 0] + r[:, 1]) + (r[:, 2] + r[:, 3])) + ((r[:, 4] + r[:, 5]) + (r[:, 6] + r[:, 7]))
+        for i in range(stop, n):
+            res = res + v[:, i]
+        return res
+    half = n // 2
+    half -= half % 8
+    return _pairwise_rows(v[:, :half]) + _pairwise_rows(v[:, half:])
+
+
+def group_sums(values: np.ndarray, starts: np.ndarray, lengths: np.ndarray) -> np.ndarray:
+    """The sum of each run ``values[starts[i]:starts[i] + lengths[i]]`` (lengths >= 1): the
+    number ``np.sum`` gives for that run alone, for all runs at once (runs of one length share
+    the arithmetic)."""
+    out = np.zeros(len(starts))
+    for n in np.unique(lengths):
+        which = np.flatnonzero(lengths == n)
+        out[which] = _pairwise_rows(values[starts[which][:, None] + np.arange(n)])
+    return out
+
+
+def group_medians(values: np.ndarray, group: np.ndarray, n_groups: int) -> np.ndarray:
+    """The median of the values of each group (``group`` gives each value's group, every group
+    non-empty): the number :func:`median` gives for that group alone (NaN if it holds one)."""
+    order = np.lexsort((values, group))
+    v = values[order]
+    counts = np.bincount(group, minlength=n_groups)
+    starts = np.r_[0, np.cumsum(counts)[:-1]]
+    h = counts // 2
+    odd = counts % 2 == 1
+    upper = v[starts + h]
+    lower = v[starts + np.maximum(h - 1, 0)]
+    out = np.where(odd, upper, (lower + (0.0 + upper)) / 2)
+    return np.where(np.isnan(v[starts + counts - 1]), np.nan, out)
+
+
 def linear_fit(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Least-squares line y = a + b x: parameters (a, b) and their covariance from the scatter."""
     A = np.column_stack([np.ones_like(x), x])

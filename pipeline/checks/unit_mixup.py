@@ -252,7 +252,7 @@ def _file_rel_u(fluid: FluidData, group: ObsSeries, path: str) -> float:
 
 def _robust(fluid: FluidData, group: ObsSeries, th, start_w=None):
     space = SPACES[group.boundary]
-    return robust_fit(group.T.astype(float), space.y(group.value.astype(float)), group.file_path,
+    return robust_fit(group.T.astype(float), space.y(group.value.astype(float)), group.file_code,
                       space.design(fluid), poly_design(space.x, 1),
                       space.floor(group.value, th["rel_floor"]), start_w)
 
