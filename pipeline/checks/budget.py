@@ -236,8 +236,8 @@ def curve_budgets(parts) -> list[CurveBudget]:
     """
     out: list[CurveBudget | None] = [None] * len(parts)
     full = [i for i, p in enumerate(parts) if len(p[0])]
-    for i, (_, _, _, policy) in enumerate(parts):
-        if out[i] is None and i not in set(full):
+    for i, (series, _, _, policy) in enumerate(parts):
+        if not len(series):
             out[i] = CurveBudget(policy=policy)
     if not full:
         return out

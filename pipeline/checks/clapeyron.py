@@ -89,9 +89,9 @@ def sign_from_triple_point(fluid: FluidData, solid_phase: str, series: ObsSeries
 def _fitted_sign(out: Findings, fluid: FluidData, key, fitted: FittedCurve, grid, sign: int,
                  basis: str, evidence: dict) -> None:
     T, slope = grid
-    worst = float(np.nanmin(sign * slope))
-    context = (f"{curve_label(key)} fit: dp/dT from {np.nanmin(slope):.4g} to "
-               f"{np.nanmax(slope):.4g} Pa/K over {T[0]:.6g}-{T[-1]:.6g} K; {basis} so the "
+    worst = float(np.fmin.reduce(sign * slope))      # np.nanmin without its warning check
+    context = (f"{curve_label(key)} fit: dp/dT from {np.fmin.reduce(slope):.4g} to "
+               f"{np.fmax.reduce(slope):.4g} Pa/K over {T[0]:.6g}-{T[-1]:.6g} K; {basis} so the "
                f"slope must be {_SIGN_WORD[sign]}")
     out.judge(fluid.fluid_id, f"curve:{curve_label(key)}", measured=worst, limit=0.0,
               upper=False, ok=worst > 0, statistic="min(sign*dp/dT) [Pa/K]", context=context,

@@ -41,8 +41,25 @@ def deviation_statistic(difference: float, reference: float, u: float, *, z_max:
     return Deviation("|relative deviation|", abs(difference / reference), rel_tol)
 
 
+#: below this many values a sum is added one by one from -0.0 (as numpy adds so few), so the
+#: statistics of a few stated values are computed in plain floats, to the same numbers
+_FEW = 8
+
+
+def _sum(values: list[float]) -> float:
+    total = -0.0
+    for v in values:
+        total += v
+    return total
+
+
 def weighted_mean(x: np.ndarray, u: np.ndarray) -> tuple[float, float]:
     """Inverse-variance weighted mean and its standard uncertainty."""
+    if len(x) < _FEW:
+        w = [1.0 / (ui * ui) for ui in np.asarray(u, float).tolist()]
+        sw = _sum(w)
+        return _sum([wi * xi for wi, xi in zip(w, np.asarray(x, float).tolist())]) / sw, \
+            1.0 / math.sqrt(sw)
     w = 1.0 / np.asarray(u, float) ** 2
     return float(np.sum(w * x) / np.sum(w)), float(1.0 / math.sqrt(np.sum(w)))
 
@@ -50,6 +67,10 @@ def weighted_mean(x: np.ndarray, u: np.ndarray) -> tuple[float, float]:
 def birge_ratio(x: np.ndarray, u: np.ndarray) -> float:
     """R_B = sqrt(chi2 / (n - 1)) about the weighted mean (Birge, Phys. Rev. 40, 207 (1932))."""
     mean, _ = weighted_mean(x, u)
+    if len(x) < _FEW:
+        t = [(xi - mean) / ui for xi, ui in zip(np.asarray(x, float).tolist(),
+                                                np.asarray(u, float).tolist())]
+        return math.sqrt(_sum([ti * ti for ti in t]) / (len(x) - 1))
     chi2 = float(np.sum(((x - mean) / u) ** 2))
     return math.sqrt(chi2 / (len(x) - 1))
 
@@ -61,6 +82,17 @@ def birge_limit(n: int, k: float) -> float:
 
 def leave_one_out_z(x: np.ndarray, u: np.ndarray) -> np.ndarray:
     """Each value against the weighted mean of the others: (x_i - m_-i) / sqrt(u_i^2 + u(m_-i)^2)."""
+    if len(x) < _FEW:
+        xs, us = np.asarray(x, float).tolist(), np.asarray(u, float).tolist()
+        w = [1.0 / (ui * ui) for ui in us]
+        sw, swx = _sum(w), _sum([wi * xi for wi, xi in zip(w, xs)])
+        out = []
+        for xi, ui, wi in zip(xs, us, w):
+            rest = sw - wi
+            with np.errstate(divide="ignore", invalid="ignore"):   # one value: no others
+                mean_rest = (np.float64(swx) - wi * xi) / rest
+                out.append((xi - mean_rest) / np.sqrt(ui * ui + 1.0 / np.float64(rest)))
+        return np.array(out, dtype=float)
     w = 1.0 / u ** 2
     sw, swx = w.sum(), (w * x).sum()
     w_rest = sw - w
