@@ -49,15 +49,17 @@ def release_ddl() -> str:
     return "\n".join(steps)
 
 
-def insert_release_rows(con: duckdb.DuckDBPyConnection, tables: dict[str, list[dict]],
+def insert_release_rows(con: duckdb.DuckDBPyConnection,
+                        tables: dict[str, list[dict] | pa.Table],
                         extra: dict[str, object] | None = None) -> None:
-    """Insert the content rows (and the release row, completed by ``extra``) through Arrow."""
+    """Insert the content rows (and the release row, completed by ``extra``) through Arrow
+    (``tables``: dict rows or Arrow tables of the export schemas)."""
     for table, rows in tables.items():
         target = sqlmacros.ident(STORE_TABLES[table])
-        data = arrow_table(table, rows)
+        data = rows if isinstance(rows, pa.Table) else arrow_table(table, rows)
         if table == "release":
             for name, value in (extra or {}).items():
-                data = data.append_column(name, pa.array([value] * len(rows)))
+                data = data.append_column(name, pa.array([value] * data.num_rows))
         columns = ", ".join(sqlmacros.ident(n) for n in data.column_names)
         con.register("fl_release_rows", data)
         try:
@@ -81,8 +83,8 @@ def remove_leftovers(target: Path) -> list[Path]:
                                  folders=False)
 
 
-def build_published_file(target: Path, tables: dict[str, list[dict]], release_extra: dict,
-                         publication: dict) -> Path:
+def build_published_file(target: Path, tables: dict[str, list[dict] | pa.Table],
+                         release_extra: dict, publication: dict) -> Path:
     """Write a complete published file beside ``target``; returns the temporary file.
 
     The caller swaps it in with :func:`swap_in` once the store has committed the release.
