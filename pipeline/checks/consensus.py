@@ -118,13 +118,30 @@ def tukey_weights(r: np.ndarray, floor: float) -> np.ndarray:
 
 
 def _start(T, y, files, line: DesignMaker, floor) -> np.ndarray | None:
-    """Weights from the single-file straight line with the least median residual over all points."""
+    """Weights from the single-file straight line with the least median residual over all points.
+
+    ``T`` and ``y`` are finite. Each file's line is ``weighted_fit(T, y, files == f, line, 1)``
+    (unit weights: the same least-squares problem, without the weighting's masks and products).
+    """
     best = None
-    for f in dict.fromkeys(files):
-        model = weighted_fit(T, y, (files == f).astype(float), line, 1)
-        if model is None:
+    for f in dict.fromkeys(files.tolist()):
+        m = files == f
+        Tf = T[m]
+        if not _two_distinct(Tf):
             continue
-        r = model.raw(T) - y
+        design = line(Tf, 1)
+        A = design(Tf)
+        yf = y[m]
+        ok = np.all(np.isfinite(A), axis=1)
+        if not ok.all():
+            A, yf = A[ok], yf[ok]
+        if len(A) < A.shape[1]:
+            continue
+        coef, _, rank, _ = np.linalg.lstsq(A, yf, rcond=None)
+        if rank != A.shape[1]:
+            continue
+        with np.errstate(invalid="ignore", over="ignore"):
+            r = design(T) @ coef - y
         d = np.abs(r)
         med = median(d[~np.isnan(d)])
         if best is None or med < best[0]:
