@@ -2,7 +2,10 @@
 
 Each module in :mod:`pipeline.commands` defines ``NAME``, ``HELP``, ``add_arguments(parser)``
 and ``run(args) -> int``. User errors (:class:`FluidLedgerError`) become one line on stderr
-and their exit code; anything unexpected is an internal error (exit 3) with a short message.
+and their exit code; a disk, permission or store-file problem is exit 74 with the path;
+Ctrl-C exits 130; anything unexpected is an internal error (exit 3) with a short message.
+Everything printed goes through :class:`pipeline.safetext.SafeStream` (control characters
+escaped).
 """
 
 from __future__ import annotations
@@ -14,7 +17,14 @@ import os
 import sys
 
 from pipeline import __version__
-from pipeline.errors import EXIT_INTERNAL, EXIT_USAGE, FluidLedgerError
+from pipeline.errors import (
+    EXIT_INTERNAL,
+    EXIT_INTERRUPTED,
+    FluidLedgerError,
+    environment_problem,
+    is_interrupt,
+)
+from pipeline.safetext import SafeFormatter, SafeStream, clean
 
 COMMANDS = [
     "ingest", "status", "fit", "check", "explain", "publish", "query", "diff",
@@ -76,10 +86,10 @@ def _configure_logging(args) -> None:
     if args.verbose:
         console.setLevel(logging.DEBUG)
         console.addFilter(_ConsoleFilter())
-        console.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s: %(message)s"))
+        console.setFormatter(SafeFormatter("%(asctime)s %(levelname)s %(name)s: %(message)s"))
     else:
         console.setLevel(logging.ERROR if args.quiet else logging.WARNING)
-        console.setFormatter(logging.Formatter("fluidledger: %(levelname)s: %(message)s"))
+        console.setFormatter(SafeFormatter("fluidledger: %(levelname)s: %(message)s"))
     root = logging.getLogger()
     for h in list(root.handlers):
         root.removeHandler(h)
@@ -88,26 +98,48 @@ def _configure_logging(args) -> None:
     logging.captureWarnings(True)   # Python warnings follow the same rule as log records
 
 
+def _store_label(args) -> str | None:
+    from pipeline.store import resolve_store_path
+
+    return str(resolve_store_path(getattr(args, "store", None)))
+
+
 def main(argv: list[str] | None = None) -> int:
+    out, err = sys.stdout, sys.stderr
+    sys.stdout, sys.stderr = SafeStream(out), SafeStream(err)
+    try:
+        return _main(argv)
+    finally:
+        sys.stdout, sys.stderr = out, err
+
+
+def _main(argv: list[str] | None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     _configure_logging(args)
     try:
         return int(args._run(args) or 0)
     except FluidLedgerError as err:
-        print(f"fluidledger {args.command}: error: {err}", file=sys.stderr)
+        print(f"fluidledger {args.command}: error: {clean(err, one_line=True)}", file=sys.stderr)
         return err.exit_code
-    except KeyboardInterrupt:
-        print("fluidledger: interrupted", file=sys.stderr)
-        return EXIT_USAGE
     except BrokenPipeError:
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0
-    except Exception as err:  # an internal error: one clear line, details only with --verbose
-        if args.verbose:
+    except BaseException as err:
+        if is_interrupt(err):
+            print(f"fluidledger {args.command}: interrupted", file=sys.stderr)
+            return EXIT_INTERRUPTED
+        if not isinstance(err, Exception):
             raise
-        print(f"fluidledger {args.command}: internal error: {type(err).__name__}: {err} "
-              "(run with --verbose for details)", file=sys.stderr)
+        problem = environment_problem(err, _store_label(args))
+        if problem is not None:
+            print(f"fluidledger {args.command}: error: {clean(problem, one_line=True)}",
+                  file=sys.stderr)
+            return problem.exit_code
+        if args.verbose:  # an internal error: one clear line, details only with --verbose
+            raise
+        print(f"fluidledger {args.command}: internal error: {type(err).__name__}: "
+              f"{clean(err, one_line=True)} (run with --verbose for details)", file=sys.stderr)
         return EXIT_INTERNAL
 
 

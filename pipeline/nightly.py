@@ -37,7 +37,6 @@ import json
 import logging
 import math
 import time
-import tomllib
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -51,8 +50,12 @@ from pipeline.errors import (
     EXIT_USAGE,
     BatchError,
     CheckError,
+    environment_problem,
+    is_interrupt,
 )
 from pipeline.progress import stage_progress
+from pipeline.safetext import SafeFormatter
+from pipeline.store.runs import end_run
 
 log = logging.getLogger(__name__)
 
@@ -147,6 +150,10 @@ class NightlyResult:
         counts = ", ".join(f"{n} {s}" for s, n in self.counts.items() if n)
         lines = [f"nightly {self.run_id}: {self.verdict.upper()} (exit {self.exit_code}); "
                  f"checks: {counts or 'none'}"]
+        refused = refused_batches(self.asdict())
+        if refused:
+            lines.append(f"refused batch(es), not ingested ({len(refused)}; the others were): "
+                         + ", ".join(refused))
         if self.no_changes:
             lines.append(f"no changes since {self.previous_run_id}: nothing ingested, nothing "
                          "refitted, check results reused")
@@ -171,6 +178,12 @@ class NightlyResult:
         if self.report.get("html"):
             lines.append(f"report: {self.report['html']}")
         return "\n".join(lines)
+
+
+def refused_batches(nightly: Mapping[str, Any]) -> list[str]:
+    """Names of the batches the run's ingest stage refused (from the run record)."""
+    stage = nightly.get("stages", {}).get("ingest", {})
+    return [e["batch"] for e in stage.get("detail", {}).get("errors", [])]
 
 
 # -- fingerprints and state ------------------------------------------------------------------
@@ -338,7 +351,9 @@ def previous_state(con, current_run_id: str) -> PreviousState:
 
 # -- stage 1: ingest -------------------------------------------------------------------------
 def _sha(path: Path) -> str:
-    return hashlib.sha256(path.read_bytes()).hexdigest()
+    from pipeline.ingest.rawread import read_regular
+
+    return hashlib.sha256(read_regular(path, str(path))).hexdigest()
 
 
 def prescan(con, raw: Path) -> tuple[list[Path], list[str], int]:
@@ -346,9 +361,9 @@ def prescan(con, raw: Path) -> tuple[list[Path], list[str], int]:
 
     A batch is unchanged when its batch.toml and every table file it names hash to the
     current versions in the store (the ingest stage would skip it too: the way a file is read
-    is part of batch.toml)."""
-    from pipeline.ingest.stage import discover_batches
-    from pipeline.ingest.workbook import table_path
+    is part of batch.toml). Files are read like the ingest stage reads them (regular files
+    only, bounded TOML), so an odd batch is passed on to the ingest stage, never a hang."""
+    from pipeline.ingest.discover import batch_file_hashes, discover_batches
 
     stored: dict[str, dict[str, str]] = {}
     for batch, path, sha in con.execute(
@@ -361,16 +376,7 @@ def prescan(con, raw: Path) -> tuple[list[Path], list[str], int]:
             continue
         rel = folder.relative_to(raw).as_posix()
         known = stored.pop(rel, None)
-        try:
-            manifest = folder / "batch.toml"
-            want = {f"{rel}/batch.toml": _sha(manifest)}
-            doc = tomllib.loads(manifest.read_bytes().decode("utf-8-sig"))
-            for table in doc.get("table", []):
-                path = folder / table["file"]
-                rel_file = (folder / table["file"]).relative_to(raw).as_posix()
-                want[table_path(rel_file, table)] = _sha(path)
-        except (OSError, ValueError, KeyError, TypeError, UnicodeDecodeError):
-            want = None   # unreadable: let the ingest stage say why
+        want = batch_file_hashes(raw, folder, rel)
         if known is None or want != known:
             changed.append(folder)
         else:
@@ -401,7 +407,8 @@ def _ingest(con, opts: NightlyOptions, prev: PreviousState, contexts: dict) -> S
     with stage_progress("ingest", total, quiet=opts.quiet) as tick:
         result = run_ingest(con, paths, fluids_file=fluids_file, progress=lambda b: tick(b.name))
     loaded = [b for b in result.batches if b.status == "loaded"]
-    errors = [{"batch": b.batch, "error": b.error or ""} for b in result.errors]
+    errors = [{"batch": b.batch, "error": b.error or "", "internal": b.internal}
+              for b in result.errors]
     rows = [sum(b.rows[i] for b in loaded) for i in range(3)]
     n_unchanged = unchanged + sum(b.status == "unchanged" for b in result.batches)
     text = (f"{len(loaded)} batch(es) loaded ({rows[0]} rows read, {rows[1]} loaded, {rows[2]} "
@@ -565,6 +572,8 @@ def _publish(con, opts, prev, result: NightlyResult, ingest: Stage, publisher: C
             pub = publisher(con, store_path=store_path, curation=curation,
                             check_run_id=result.check_run_id)
         except Exception as err:  # recorded and reported; the run ends with exit code 3
+            if is_interrupt(err) or environment_problem(err) is not None:
+                raise               # Ctrl-C, or the machine's fault: not the release's
             log.exception("publish failed")
             pub = {"status": "failed", "release_id": None,
                    "reason": f"publish failed: {type(err).__name__}: {err}"}
@@ -667,7 +676,7 @@ def run_log(path: Path, verbose: bool):
     handler = logging.FileHandler(path, encoding="utf-8")
     handler.setLevel(level)
     handler.addFilter(_LogFilter())
-    handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s: %(message)s"))
+    handler.setFormatter(SafeFormatter("%(asctime)s %(levelname)s %(name)s: %(message)s"))
     old_root = root.level
     old = [(h, h.level) for h in root.handlers]
     for h, lvl in old:
@@ -693,15 +702,21 @@ def _verify(con, store_path, run_id: str) -> Stage:
     from pipeline.verify import verify_connection
 
     t0 = time.perf_counter()
+    from pipeline.publish.integrity import repair_published
+
+    repaired = repair_published(con, Path(store_path).parent)
     res = verify_connection(con, str(store_path), Path(store_path).parent, running=(run_id,))
     head = (f"{len(res.rules_run)} store rules, {len(res.releases)} release(s) with "
             f"{res.files_hashed} files hashed")
     text = f"{head}: OK" if res.ok else (f"{head}: {len(res.findings)} finding(s): "
                                          + "; ".join(f.asstr() for f in res.findings[:3]))
+    if repaired:
+        text += f"; {repaired['text']}"
     detail = {"rules": len(res.rules_run), "releases": len(res.releases),
               "files_hashed": res.files_hashed, "findings": [asdict(f) for f in res.findings],
-              "notes": res.notes}
-    return Stage("ok" if res.ok else "failed", time.perf_counter() - t0, text, detail)
+              "notes": res.notes, "repaired": repaired}
+    status = "failed" if not res.ok else "repaired" if repaired else "ok"
+    return Stage(status, time.perf_counter() - t0, text, detail)
 
 
 def _verdict(counts: Mapping[str, int], ingest: Stage, publish: dict,
@@ -710,6 +725,8 @@ def _verdict(counts: Mapping[str, int], ingest: Stage, publish: dict,
         return "error"
     if verify is not None and verify.status == "failed":
         return "error"
+    if any(e.get("internal") for e in ingest.detail.get("errors", [])):
+        return "error"       # a batch refused by a fault of the code (the others loaded)
     if ingest.detail.get("errors"):
         return "input-error"
     return "fail" if counts.get("fail") else "pass"
@@ -754,9 +771,7 @@ def run_nightly(options: NightlyOptions, *, publisher: Callable | None = None) -
             state = _run(con, options, result, folder, publisher or publish_adapter, t0,
                          store.path, curation)
         except BaseException as err:
-            con.execute("UPDATE run SET finished_at = ?, status = 'error', summary_json = ? "
-                        "WHERE run_id = ?", [_utc().rstrip("Z"), json.dumps(
-                            {"error": f"{type(err).__name__}: {err}"}), run_id])
+            end_run(con, run_id, err)
             log.error("nightly %s ended with %s: %s", run_id, type(err).__name__, err)
             raise
         status = {"pass": "no-changes" if result.no_changes else "ok", "fail": "failed"}.get(

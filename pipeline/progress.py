@@ -8,6 +8,8 @@ import logging
 import sys
 from contextlib import contextmanager
 
+from pipeline.safetext import clean, raw
+
 log = logging.getLogger("fluidledger.progress")
 
 
@@ -27,13 +29,15 @@ def stage_progress(stage: str, total: int, *, quiet: bool = False):
         return
     if sys.stderr.isatty():
         from rich.console import Console
+        from rich.markup import escape
         from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 
         with Progress(TextColumn(f"[bold]{stage}[/]"), BarColumn(), MofNCompleteColumn(),
                       TextColumn("{task.description}"), transient=True,
-                      console=Console(stderr=True)) as bar:
+                      console=Console(file=raw(sys.stderr))) as bar:
             task = bar.add_task("", total=total)
-            yield lambda label="": bar.update(task, advance=1, description=str(label))
+            yield lambda label="": bar.update(
+                task, advance=1, description=escape(clean(label, one_line=True)))
         return
     done = [0]
 

@@ -11,6 +11,7 @@ from pathlib import Path
 
 from pipeline.checks.results import STATUS_ORDER, CheckResult, CheckRun
 from pipeline.errors import EXIT_INTERNAL, CheckError
+from pipeline.safetext import clean, raw
 
 SCHEMA = "check-results.schema.json"
 #: statuses listed one row each by default; the others are counted per check
@@ -26,7 +27,7 @@ def _row(r: CheckResult) -> tuple:
 def _fmt(v) -> str:
     if v is None:
         return ""
-    return f"{v:.4g}" if isinstance(v, float) else str(v)
+    return f"{v:.4g}" if isinstance(v, float) else clean(v, one_line=True)
 
 
 def _plain(rows, stream) -> None:
@@ -47,15 +48,15 @@ def _rich(rows, stream, title: str) -> None:
 
     style = {"FAIL": "bold red", "ERROR": "bold magenta", "WARN": "yellow", "WAIVED": "cyan",
              "EXCLUDED": "cyan", "SKIP": "dim", "PASS": "green"}
-    console = Console(file=stream, highlight=False)
-    console.rule(title)
+    console = Console(file=raw(stream), highlight=False)
+    console.rule(clean(title, one_line=True))
     for status, check, fluid, subject, statistic, measured, limit, message in rows:
-        head = (f"[{style.get(status, 'bold')}]{status}[/] [bold]{escape(check)}[/] "
-                f"{escape(fluid)}" + (f"  {escape(subject)}" if subject else ""))
+        head = (f"[{style.get(status, 'bold')}]{status}[/] [bold]{escape(_fmt(check))}[/] "
+                f"{escape(_fmt(fluid))}" + (f"  {escape(_fmt(subject))}" if subject else ""))
         console.print(head, overflow="fold")
-        stat = (f"{statistic or 'measured'} = {_fmt(measured)}, limit {_fmt(limit)}"
+        stat = (f"{_fmt(statistic or 'measured')} = {_fmt(measured)}, limit {_fmt(limit)}"
                 if measured is not None or limit is not None else "")
-        body = "\n".join(x for x in (stat, message) if x)
+        body = "\n".join(x for x in (stat, _fmt(message)) if x)
         console.print(Padding(escape(body), (0, 0, 0, 4)))
 
 
@@ -93,8 +94,8 @@ def print_run(run: CheckRun, stream=None, *, show_all: bool = False,
         for h in headers:
             table.add_column(h, no_wrap=True)
         for c in counts:
-            table.add_row(*(str(v) for v in c))
-        Console(file=stream).print(table)
+            table.add_row(*(clean(v, one_line=True) for v in c))
+        Console(file=raw(stream)).print(table)
     else:
         print("\nresults per check", file=stream)
         w = max([len(h) for h in headers[:1]] + [len(c[0]) for c in counts])
@@ -180,7 +181,8 @@ def junit_xml(run: CheckRun) -> str:
         root.set(k, str(v))
     root.set("time", f"{total_time:.6f}")
     ET.indent(root)
-    return ET.tostring(root, encoding="unicode", xml_declaration=True) + "\n"
+    # XML 1.0 forbids most control characters: escaped, they keep the file valid
+    return clean(ET.tostring(root, encoding="unicode", xml_declaration=True)) + "\n"
 
 
 def write_junit(run: CheckRun, path: str | os.PathLike) -> None:

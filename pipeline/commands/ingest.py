@@ -5,7 +5,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from pipeline.errors import EXIT_OK, EXIT_USAGE
+from pipeline.errors import EXIT_INTERNAL, EXIT_OK, EXIT_USAGE
 from pipeline.progress import brief, stage_progress
 from pipeline.store import open_store
 
@@ -48,4 +48,6 @@ def run(args) -> int:
         print(one_line(result))
     for b in result.errors:
         print(f"fluidledger ingest: error: {b.error}", file=sys.stderr)
+    if any(b.internal for b in result.errors):
+        return EXIT_INTERNAL     # the other batches were loaded; a fault of the code remains
     return EXIT_USAGE if result.errors else EXIT_OK

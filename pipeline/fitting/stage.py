@@ -27,6 +27,7 @@ from pipeline.correlations.fitting import fit_call
 from pipeline.errors import FitError
 from pipeline.fitting.groups import FIT_PLAN, FITTED_QUANTITIES, SOURCE_RANK, reference_point
 from pipeline.ingest.stage import new_run_id, utcnow
+from pipeline.store.runs import end_run
 
 
 @dataclass(frozen=True)
@@ -209,32 +210,42 @@ def run_fit(con: duckdb.DuckDBPyConnection, *, fluids: list[str] | None = None,
     ``workers``: processes that fit the groups (default: :func:`fit_workers`)."""
     run_id = run_id or new_run_id("fit")
     exclusions = exclusions or {}
+    if fluids:
+        known = [r[0] for r in con.execute("SELECT fluid_id FROM fluid ORDER BY 1").fetchall()]
+        unknown = [f for f in dict.fromkeys(fluids) if f not in known]
+        if unknown:
+            raise FitError(f"unknown fluid(s) {', '.join(unknown)}; the store holds: "
+                           f"{', '.join(known) or '(none)'}", key="--fluid")
     con.execute("INSERT INTO run VALUES (?, 'fit', ?, NULL, ?, ?, 'running', NULL)",
                 [run_id, utcnow(), __version__, json.dumps(
                     {"fluids": fluids, "full": full, **asdict(settings)}, sort_keys=True)])
-    where, params = ("AND list_contains(?, o.fluid_id)", [fluids]) if fluids else ("", [])
-    q = ", ".join(f"'{x}'" for x in FITTED_QUANTITIES)
-    obs = con.execute(_OBS_SQL.format(q=q, where=where), params).df()
-    fixed = con.execute(_FP_SQL.format(where="WHERE list_contains(?, p.fluid_id)" if fluids else ""),
-                        params).df()
-    current = dict(((r[0], r[1], r[2], r[3]), r[4]) for r in con.execute(
-        "SELECT fluid_id, boundary, solid_phase, quantity, input_hash FROM fit WHERE is_current"
-    ).fetchall())
-    result, writer = FitRunResult(run_id), _Writer(run_id)
-    points: dict[str, list[dict]] = {}
-    for record in fixed.to_dict("records"):      # split per fluid once, as plain records
-        points.setdefault(record["fluid_id"], []).append(record)
-    jobs = []
-    for key, g in obs.groupby(["fluid_id", "boundary", "solid_phase", "quantity"], sort=True):
-        if (key[1], key[3]) not in FIT_PLAN and key[3] != "pressure":
-            continue  # single-point properties (densities, enthalpies on solid boundaries)
-        jobs.append(_prepare(key, g, points.get(key[0], []), settings, exclusions, current,
-                             full))
-    todo = [j for j in jobs if j.call is not None]
-    outcomes = dict(zip(map(id, todo), _fit_all([j.call for j in todo],
-                                                fit_workers(len(todo), workers))))
-    result.groups = [_finish(j, outcomes.get(id(j)), writer) for j in jobs]
-    writer.write(con)
+    try:
+        where, params = ("AND list_contains(?, o.fluid_id)", [fluids]) if fluids else ("", [])
+        q = ", ".join(f"'{x}'" for x in FITTED_QUANTITIES)
+        obs = con.execute(_OBS_SQL.format(q=q, where=where), params).df()
+        fixed = con.execute(_FP_SQL.format(where="WHERE list_contains(?, p.fluid_id)" if fluids else ""),
+                            params).df()
+        current = dict(((r[0], r[1], r[2], r[3]), r[4]) for r in con.execute(
+            "SELECT fluid_id, boundary, solid_phase, quantity, input_hash FROM fit WHERE is_current"
+        ).fetchall())
+        result, writer = FitRunResult(run_id), _Writer(run_id)
+        points: dict[str, list[dict]] = {}
+        for record in fixed.to_dict("records"):      # split per fluid once, as plain records
+            points.setdefault(record["fluid_id"], []).append(record)
+        jobs = []
+        for key, g in obs.groupby(["fluid_id", "boundary", "solid_phase", "quantity"], sort=True):
+            if (key[1], key[3]) not in FIT_PLAN and key[3] != "pressure":
+                continue  # single-point properties (densities, enthalpies on solid boundaries)
+            jobs.append(_prepare(key, g, points.get(key[0], []), settings, exclusions, current,
+                                 full))
+        todo = [j for j in jobs if j.call is not None]
+        outcomes = dict(zip(map(id, todo), _fit_all([j.call for j in todo],
+                                                    fit_workers(len(todo), workers))))
+        result.groups = [_finish(j, outcomes.get(id(j)), writer) for j in jobs]
+        writer.write(con)
+    except BaseException as err:
+        end_run(con, run_id, err)
+        raise
     status = "ok" if result.changed else "no-changes"
     con.execute("UPDATE run SET finished_at = ?, status = ?, summary_json = ? WHERE run_id = ?",
                 [utcnow(), status, json.dumps(result.asdict(), sort_keys=True, default=str), run_id])

@@ -314,12 +314,18 @@ def _write_files(folder: Path, release_id: str, fingerprint: str,
         files[f"{name}.json"], files[f"{name}.csv"], spans[name] = _text_files(release_id, table)
     entries = []
     for name in sorted(files):
-        (folder / name).write_bytes(files[name])
+        _write_read_only(folder / name, files[name])
         entries.append({"path": name, "sha256": hashlib.sha256(files[name]).hexdigest(),
                         "bytes": len(files[name])})
     manifest = {"release_id": release_id, "fingerprint": fingerprint, "files": entries}
-    (folder / MANIFEST).write_bytes(json_bytes(manifest))
+    _write_read_only(folder / MANIFEST, json_bytes(manifest))
     return manifest, spans
+
+
+def _write_read_only(path: Path, data: bytes) -> None:
+    """Write a release file and make it read-only (mode 0444): releases are immutable."""
+    path.write_bytes(data)
+    os.chmod(path, 0o444)
 
 
 def process_alive(pid: int) -> bool:

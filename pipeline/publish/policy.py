@@ -142,12 +142,6 @@ class Decisions:
         return Decisions({k: v for k, v in self.exclude.items() if k[0] in keep},
                          {k: v for k, v in self.prefer.items() if k[0] in keep})
 
-    def restricted(self, fluids) -> "Decisions":
-        """The decisions about some fluids only (all a release's rows of them can depend on)."""
-        keep = set(fluids)
-        return Decisions({k: v for k, v in self.exclude.items() if k[0] in keep},
-                         {k: v for k, v in self.prefer.items() if k[0] in keep})
-
     def asdict(self) -> dict:
         return {
             "exclude": sorted([f, k, s, d] for (f, k), m in self.exclude.items()

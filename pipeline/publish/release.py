@@ -50,10 +50,12 @@ from pipeline.errors import EXIT_CHECK_FAILED, PublishError
 from pipeline.ingest.stage import new_run_id, utcnow
 from pipeline.publish import exports, incremental, provenance as prov, published, sqlmacros
 from pipeline.publish.inputs import ReleaseInputs, load_inputs
+from pipeline.publish.integrity import file_parts
 from pipeline.publish.policy import NO_DECISIONS, Decisions, Policy
 from pipeline.publish.recommend import Recommendation, recommend_all
+from pipeline.store.runs import end_run
 
-RELEASE_NAME = re.compile(r"^[a-z0-9][a-z0-9._-]{0,63}$")
+RELEASE_NAME = re.compile(r"^[a-z0-9][a-z0-9._-]{0,63}\Z")  # \Z: no trailing newline
 CURVE_UNITS = {"pressure": "Pa", "rho_liquid": "kg/m^3", "rho_vapour": "kg/m^3"}
 
 
@@ -82,9 +84,13 @@ class PublishResult:
     unresolved: list[dict] = field(default_factory=list)
     fluids_copied: int = 0         # fluids whose rows were copied from the previous release
     fluids_computed: int = 0       # fluids whose rows were computed
+    #: digests of the published file's parts, kept in the run row for ``verify``
+    published_content: dict = field(default_factory=dict, repr=False)
 
     def asdict(self) -> dict:
-        return asdict(self)
+        out = asdict(self)
+        out.pop("published_content")
+        return out
 
     def asstr(self) -> str:
         state = "made" if self.created else "re-published (unchanged)"
@@ -318,9 +324,10 @@ def publish(con: duckdb.DuckDBPyConnection, store_path: Path, *, name: str | Non
         _finish(con, run_id, "failed", {"refused": str(err)})
         raise
     except BaseException as err:
-        _finish(con, run_id, "error", {"error": f"{type(err).__name__}: {err}"})
+        end_run(con, run_id, err)
         raise
-    _finish(con, run_id, "ok" if result.created else "no-changes", result.asdict())
+    _finish(con, run_id, "ok" if result.created else "no-changes",
+            {**result.asdict(), "published_content": result.published_content})
     return result
 
 
@@ -366,6 +373,7 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
     try:
         already = exports.existing_folder_matches(final_dir, manifest)
         tmp_pub = published.build_published_file(target, arrow, extra, publication)
+        content_parts = file_parts(tmp_pub)
         crash_point("publish:file-built")
         written = exports.commit_release_folder(tmp_dir, final_dir, already)
     except BaseException:
@@ -400,7 +408,7 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
                          bool(inputs.bad_checks()), counts.get("fail", 0),
                          counts.get("error", 0), tables["constants"].rows.num_rows,
                          tables["curves"].rows.num_rows, str(final_dir), str(target), written,
-                         unresolved, len(plan.reuse), len(plan.recompute))
+                         unresolved, len(plan.reuse), len(plan.recompute), content_parts)
 
 
 def _not_copied(arrow: dict[str, pa.Table], plan: incremental.Plan) -> dict[str, pa.Table]:

@@ -80,7 +80,7 @@ NONLINEAR_PARAM_NAMES: dict[type, tuple[str, ...]] = {
     SimonGlatzel: ("ref_Pa", "a_Pa", "c"),
 }
 
-_IDENT = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+_IDENT = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*\Z")
 
 
 def ident(name: str) -> str:

@@ -22,6 +22,7 @@ from pipeline.report.actions import DecideContext, decide_commands
 from pipeline.report.content import FluidSection
 from pipeline.report.evidence import evidence_table, relative
 from pipeline.report.fluid_html import fluid_section
+from pipeline.safetext import clean
 
 CAUTION = ("Curated values support engineering judgement. They do not replace the applicable "
            "codes, standards and licensed professional practice for pressure equipment, relief "
@@ -74,7 +75,7 @@ word-break:break-all;font-size:.8em}
 
 def e(value: Any) -> str:
     """Escape ``value`` for HTML text or a quoted attribute."""
-    return escape("" if value is None else str(value), quote=True)
+    return escape("" if value is None else clean(value), quote=True)
 
 
 def fmt(value: Any, digits: int = 6) -> str:
@@ -140,9 +141,19 @@ def _header(page: ReportPage) -> str:
             f'UTC, finished {e(n["finished_at"])} UTC ({fmt(n["duration_s"], 3)} s); pipeline '
             f'{e(n["pipeline_version"])}; check run <code>{e(n.get("check_run_id"))}</code></p>'
             f'<div class="verdict v-{e(verdict)}">{e(VERDICT_TEXT.get(verdict, verdict))} '
-            f'(exit code {e(n["exit_code"])})</div>'
+            f'(exit code {e(n["exit_code"])})</div>' + _refused(n) +
             f"<p>{e(count_text or 'no check results')}</p>"
             f'<div class="caution"><strong>Caution.</strong> {e(CAUTION)}</div>')
+
+
+def _refused(n: Mapping[str, Any]) -> str:
+    """The batches the ingest stage refused, named under the verdict."""
+    errors = n.get("stages", {}).get("ingest", {}).get("detail", {}).get("errors", [])
+    if not errors:
+        return ""
+    items = "".join(f"<li><code>{e(x['batch'])}</code>: {e(x['error'])}</li>" for x in errors)
+    return (f"<p>Refused batches, not ingested ({len(errors)}; the other batches were "
+            f"loaded):</p><ul>{items}</ul>")
 
 
 def _transition_items(items: Sequence[Mapping[str, Any]]) -> str:
@@ -351,9 +362,10 @@ def render_html(page: ReportPage) -> str:
     body.append(f'<footer><div class="caution"><strong>Caution.</strong> {e(CAUTION)}</div>'
                 "</footer>")
     title = f"FluidLedger nightly {page.nightly['run_id']}: {page.nightly['verdict']}"
-    return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
-            "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
-            "<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; "
-            "img-src data:; style-src 'unsafe-inline'\">"
-            f"<title>{e(title)}</title><style>{_CSS}</style></head><body>"
-            + "".join(body) + "</body></html>\n")
+    # every data string went through e(); the last clean() also covers any that did not
+    return clean("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+                 "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
+                 "<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; "
+                 "img-src data:; style-src 'unsafe-inline'\">"
+                 f"<title>{e(title)}</title><style>{_CSS}</style></head><body>"
+                 + "".join(body) + "</body></html>\n")
