@@ -299,9 +299,7 @@ class _Batch:
         pending = [m for m in live if m.best is not None]
         for _ in range(MAX_OUTLIER_ROUNDS):
             again = []
-            for m in pending:
-                link = m.best.cand.form.link
-                zr = np.abs(m.best.z_all(m.T, z[link][m.lo:m.hi], u[link][m.lo:m.hi]))
+            for m, zr in zip(pending, self._abs_z(pending, z, u)):
                 new = m.base & (zr <= self.outlier_z)
                 cap = int(MAX_OUTLIER_FRACTION * m.base.sum())
                 if (m.base & ~new).sum() > cap:  # model misfit, not outliers: only the worst
@@ -316,6 +314,27 @@ class _Batch:
                 break
             self._select(again, z, u)
             pending = [m for m in again if m.best is not None]
+
+    def _abs_z(self, live: list[_Live], z: dict, u: dict) -> list[np.ndarray]:
+        """|z| of every point of each series against its current best curve; the curves of
+        one form and size are evaluated in one call (a row per point)."""
+        out: list = [None] * len(live)
+        by_model: dict[tuple, list[int]] = {}
+        for i, m in enumerate(live):
+            by_model.setdefault((self.forms.index(m.best.cand.form), m.best.n_terms), []
+                                ).append(i)
+        for (ci, nt), idx in by_model.items():
+            form, best = self.forms[ci], live[idx[0]].best
+            sizes = [live[i].hi - live[i].lo for i in idx]
+            rows = np.concatenate([np.arange(live[i].lo, live[i].hi) for i in idx])
+            P = np.repeat(np.array([live[i].best.params for i in idx]), sizes, axis=0)
+            with np.errstate(all="ignore"):
+                fitted = form.evaluate(self.T[rows][:, None], P, self.T_ref_rows[rows][:, None],
+                                       best.exps)[:, 0]
+                zr = np.abs((z[form.link][rows] - form.to_fit_space(fitted)) / u[form.link][rows])
+            for i, part in zip(idx, np.split(zr, np.cumsum(sizes)[:-1])):
+                out[i] = part
+        return out
 
     def _select(self, live: list[_Live], z: dict, u: dict) -> None:
         """Fit every candidate form and size on each series' mask; keep the best (as

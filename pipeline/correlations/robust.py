@@ -37,7 +37,10 @@ CHUNK = 512                   # problems solved together (bounds the memory of t
 
 
 def _loss(r: np.ndarray) -> np.ndarray:
-    return np.sqrt(1.0 + r * r).sum(axis=-1)
+    """sum_i sqrt(1 + r_i^2) per row (overwrites ``r``)."""
+    r *= r
+    r += 1.0
+    return np.sqrt(r, out=r).sum(axis=-1)
 
 
 def soft_l1_batch(A: np.ndarray, z: np.ndarray, *, max_iter: int = NEWTON_MAX_ITER,
@@ -93,11 +96,9 @@ def _solve_chunk(A, z, max_iter, rtol):
     norms = np.sqrt(np.einsum("gmk,gmk->gk", A, A))
     norms[(norms == 0.0) | ~np.isfinite(norms)] = 1.0
     As = A / norms[:, None, :]
-    U, s, Vt = np.linalg.svd(As, full_matrices=False)     # least-squares start
-    keep = s > 1e-13 * s[:, :1]
-    proj = np.einsum("gmj,gm->gj", U, z) / np.where(keep, s, 1.0)
-    c = np.einsum("gji,gj->gi", Vt, np.where(keep, proj, 0.0))
     outer = (As[:, :, :, None] * As[:, :, None, :]).reshape(len(As), m, k * k)
+    gram = (np.ones((len(As), 1, m)) @ outer).reshape(len(As), k, k)
+    c = _newton_step(gram, -(As.transpose(0, 2, 1) @ z[:, :, None])[:, :, 0])  # least squares
     n_steps = np.zeros(len(c), dtype=int)
     active = np.arange(len(c))                 # problems in the working arrays
     live = np.ones(len(c), dtype=bool)         # ... of which still iterating
@@ -105,32 +106,37 @@ def _solve_chunk(A, z, max_iter, rtol):
     for _ in range(max_iter):
         ca = c[active]
         r = (Aa @ ca[:, :, None])[:, :, 0] - za
-        sq = np.sqrt(1.0 + r * r)
-        F = sq.sum(axis=1)
-        g = (Aa.transpose(0, 2, 1) @ (r * (1.0 / sq))[:, :, None])[:, :, 0]
-        inv = 1.0 / sq
-        H = ((inv * inv * inv)[:, None, :] @ Pa).reshape(len(active), k, k)
-        d = _newton_step(H, g)
-        dec = -np.sum(g * d, axis=1)
+        inv = r * r
+        inv += 1.0
+        np.sqrt(inv, out=inv)
+        F = inv.sum(axis=1)                    # the loss (sum of sqrt(1 + r^2))
+        np.divide(1.0, inv, out=inv)
+        g = (Aa.transpose(0, 2, 1) @ (r * inv)[:, :, None])[:, :, 0]
+        h = inv * inv
+        h *= inv
+        d = _newton_step(np.einsum("gm,gmq->gq", h, Pa).reshape(len(active), k, k), g)
+        dec = -np.einsum("gk,gk->g", g, d)
         Ad = (Aa @ d[:, :, None])[:, :, 0]
         t = np.ones(len(active))
         search = live & np.isfinite(dec) & (dec > 0.0)
+        trial = r + Ad                         # the full step first, for all at once
+        search &= ~(_loss(trial) <= F - ARMIJO * dec)
         i = np.flatnonzero(search)
         for _ in range(50):                    # backtracking: halve until the loss decreases
             if not i.size:
                 break
+            t[i] *= 0.5
             ok = _loss(r[i] + t[i, None] * Ad[i]) <= F[i] - ARMIJO * t[i] * dec[i]
             search[i[ok]] = False
             i = i[~ok]
-            t[i] *= 0.5
         # no decrease left to find: the loss is flat to rounding (the minimum) -- stop there
         stuck = search | ~np.isfinite(dec) | (dec <= 0.0)
         moving = live & ~stuck
         step = np.where(moving[:, None], t[:, None] * d, 0.0)
         c[active] = ca + step
         n_steps[active] += moving
-        small = np.sqrt(np.sum(step * step, axis=1)) <= \
-            rtol * np.sqrt(np.sum(c[active] ** 2, axis=1))
+        small = np.einsum("gk,gk->g", step, step) <= \
+            rtol * rtol * np.einsum("gk,gk->g", c[active], c[active])
         live &= ~(stuck | small)
         if not live.any():
             break
@@ -143,15 +149,28 @@ def _solve_chunk(A, z, max_iter, rtol):
 
 
 def _newton_step(H: np.ndarray, g: np.ndarray) -> np.ndarray:
-    """Solve H d = -g for stacked symmetric positive semi-definite H, Jacobi-scaled, by
-    eigendecomposition; directions of relative eigenvalue below 1e-14 are left out."""
+    """Solve H d = -g for stacked symmetric positive semi-definite H, Jacobi-scaled.
+
+    By LU where the scaled system is well conditioned (a solution no larger than 1e10 times
+    the right-hand side), else by eigendecomposition with directions of relative eigenvalue
+    below 1e-14 left out (the pseudo-inverse: the loss is flat along them)."""
     dia = np.sqrt(np.abs(np.diagonal(H, axis1=1, axis2=2)))
     dia[(dia == 0.0) | ~np.isfinite(dia)] = 1.0
-    lam, V = np.linalg.eigh(H / (dia[:, :, None] * dia[:, None, :]))
-    keep = lam > _CUTOFF * np.maximum(lam[:, -1:], 0.0)
-    inv = np.where(keep, 1.0 / np.where(keep, lam, 1.0), 0.0)
-    proj = (V.transpose(0, 2, 1) @ (g / dia)[:, :, None])[:, :, 0] * inv
-    return -(V @ proj[:, :, None])[:, :, 0] / dia
+    Hs = H / (dia[:, :, None] * dia[:, None, :])
+    gs = g / dia
+    size = np.einsum("gk,gk->g", gs, gs)
+    try:
+        x = np.linalg.solve(Hs, gs[:, :, None])[:, :, 0]
+        bad = ~(np.einsum("gk,gk->g", x, x) <= 1e20 * size)
+    except np.linalg.LinAlgError:
+        x, bad = np.zeros_like(gs), np.ones(len(gs), dtype=bool)
+    if bad.any():
+        lam, V = np.linalg.eigh(Hs[bad])
+        keep = lam > _CUTOFF * np.maximum(lam[:, -1:], 0.0)
+        inv = np.where(keep, 1.0 / np.where(keep, lam, 1.0), 0.0)
+        proj = (V.transpose(0, 2, 1) @ gs[bad][:, :, None])[:, :, 0] * inv
+        x[bad] = (V @ proj[:, :, None])[:, :, 0]
+    return -x / dia
 
 
 def _median_rows(r: np.ndarray, counts: np.ndarray) -> np.ndarray:

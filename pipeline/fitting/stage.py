@@ -16,6 +16,7 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import time
 from dataclasses import asdict, dataclass, field
 
 import duckdb
@@ -23,6 +24,7 @@ import numpy as np
 
 from pipeline import __version__
 from pipeline.correlations.batched import Series, fit_batch
+from pipeline.correlations.fitting import fit_curve
 from pipeline.errors import FitError
 from pipeline.fitting.groups import FIT_PLAN, FITTED_QUANTITIES, SOURCE_RANK, reference_point
 from pipeline.fitting.write import Writer, fit_id_of
@@ -59,6 +61,7 @@ class GroupResult:
 class FitRunResult:
     run_id: str
     groups: list[GroupResult] = field(default_factory=list)
+    timings: dict[str, float] = field(default_factory=dict)  # seconds per part (not stored)
 
     def count(self, status: str) -> int:
         return sum(g.status == status for g in self.groups)
@@ -165,10 +168,16 @@ def _column(values, dtype) -> np.ndarray:
 def run_fit(con: duckdb.DuckDBPyConnection, *, fluids: list[str] | None = None,
             settings: FitSettings = FitSettings(), full: bool = False,
             exclusions: dict[int, str] | None = None, run_id: str | None = None,
-            workers: int | None = None) -> FitRunResult:
+            workers: int | None = None, path: str = "batched") -> FitRunResult:
     """Fit every group with data (restricted to ``fluids``); refit only changed groups unless
     ``full``. ``exclusions`` maps obs_id -> curation decision id (points left out of fits).
-    ``workers``: processes that fit the groups (default: :func:`fit_workers`)."""
+    ``workers``: processes that fit the groups (default: :func:`fit_workers`). ``path``:
+    "batched" (:func:`pipeline.correlations.batched.fit_curves`, the stage's way) or
+    "per-group" (the reference :func:`pipeline.correlations.fitting.fit_curve` for each group
+    in this process; the same results, for tests and benchmarks)."""
+    if path not in ("batched", "per-group"):
+        raise KeyError(f"path must be 'batched' or 'per-group', not {path!r}")
+    clock = _Clock()
     run_id = run_id or new_run_id("fit")
     exclusions = exclusions or {}
     con.execute("INSERT INTO run VALUES (?, 'fit', ?, NULL, ?, ?, 'running', NULL)",
@@ -183,6 +192,7 @@ def run_fit(con: duckdb.DuckDBPyConnection, *, fluids: list[str] | None = None,
     current = dict(((r[0], r[1], r[2], r[3]), r[4]) for r in con.execute(
         "SELECT fluid_id, boundary, solid_phase, quantity, input_hash FROM fit WHERE is_current"
     ).fetchall())
+    clock.lap("read")
     excluded_rows = np.isin(rows.obs_id, np.fromiter(exclusions, dtype=np.int64,
                                                      count=len(exclusions)))
     jobs = []
@@ -192,14 +202,36 @@ def run_fit(con: duckdb.DuckDBPyConnection, *, fluids: list[str] | None = None,
         lo, hi = int(rows.offsets[j]), int(rows.offsets[j + 1])
         jobs.append(_prepare(key, rows, lo, hi, excluded_rows[lo:hi], points.get(key[0], []),
                              settings, exclusions, current, full))
-    _fit_all([j for j in jobs if j.series is not None], settings, workers)
+    clock.lap("prepare")
+    todo = [j for j in jobs if j.series is not None]
+    if path == "per-group":
+        _fit_each(todo, settings)
+    else:
+        _fit_all(todo, settings, workers)
+    clock.lap("fit")
     result, writer = FitRunResult(run_id), Writer(run_id, rows)
     result.groups = [_finish(j, writer) for j in jobs]
+    clock.lap("finish")
     writer.write(con)
     status = "ok" if result.changed else "no-changes"
     con.execute("UPDATE run SET finished_at = ?, status = ?, summary_json = ? WHERE run_id = ?",
                 [utcnow(), status, json.dumps(result.asdict(), sort_keys=True, default=str), run_id])
+    clock.lap("write")
+    result.timings = clock.laps
     return result
+
+
+class _Clock:
+    """Seconds spent in each part of the stage, in order."""
+
+    def __init__(self):
+        self.laps: dict[str, float] = {}
+        self.t = time.perf_counter()
+
+    def lap(self, name: str) -> None:
+        now = time.perf_counter()
+        self.laps[name] = now - self.t
+        self.t = now
 
 
 @dataclass
@@ -329,6 +361,16 @@ def _fit_all(jobs: list[_Job], settings: FitSettings, workers: int | None) -> No
     for part, outcomes in zip(parts, results):
         for job, outcome in zip(part, outcomes):
             job.outcome = outcome
+
+
+def _fit_each(jobs: list[_Job], settings: FitSettings) -> None:
+    """The reference path: :func:`fit_curve` for one group after the other."""
+    kwargs = dict(outlier_z=settings.outlier_z, min_points=settings.min_points,
+                  criterion=settings.criterion, above_reference="exclude")
+    for j in jobs:
+        s = j.series
+        j.outcome = fit_curve(list(j.forms), s.T, s.y, s.u_y, s.u_T, s.ref, trusted=s.trusted,
+                              **kwargs)
 
 
 def _shares(batch: list, n: int) -> list[list]:
