@@ -419,6 +419,11 @@ class _Batch:
         return _Best(self._cand(ci, m), nt, params, params_cov, chi2, n, float(crit))
 
 
+def fit_batches(calls: list[tuple]) -> list[list[FitOutcome]]:
+    """:func:`fit_batch` of each call: the share of a worker process."""
+    return [fit_batch(c) for c in calls]
+
+
 def _flag_list(codes: np.ndarray) -> list[str]:
     return _FLAG_NAMES[codes].tolist()
 
@@ -478,7 +483,10 @@ def _solve_stack(X: np.ndarray, z: np.ndarray, w: np.ndarray):
     try:
         U, s, Vt = np.linalg.svd(A / norms[:, None, :], full_matrices=False)
     except np.linalg.LinAlgError:
-        return beta, cov, np.zeros(G, dtype=int)
+        if G == 1:
+            raise               # as weighted_linear_solve: the SVD did not converge
+        parts = [_solve_stack(X[g:g + 1], z[g:g + 1], w[g:g + 1]) for g in range(G)]
+        return tuple(np.concatenate(a) for a in zip(*parts))
     rank = np.where(s[:, 0] > 0, np.sum(s > 1e-13 * s[:, :1], axis=1), 0)
     full = rank >= p
     V = Vt.transpose(0, 2, 1)

@@ -23,7 +23,7 @@ import duckdb
 import numpy as np
 
 from pipeline import __version__
-from pipeline.correlations.batched import Series, fit_batch
+from pipeline.correlations.batched import Series, fit_batch, fit_batches
 from pipeline.correlations.fitting import fit_curve
 from pipeline.errors import FitError
 from pipeline.fitting.groups import FIT_PLAN, FITTED_QUANTITIES, SOURCE_RANK, reference_point
@@ -313,9 +313,9 @@ def _finish(job: _Job, writer: Writer) -> GroupResult:
     return res
 
 
-PARALLEL_MIN_FITS = 200
-"""With ``workers`` left automatic, groups are fitted in worker processes from this many on
-(below it, starting the processes costs more than it saves)."""
+PARALLEL_MIN_FITS = 500
+"""With ``workers`` left automatic, groups are fitted in several processes from this many on
+(below it, starting a process - about 0.5 s of imports - costs more than it saves)."""
 WORKERS_ENV = "FLUIDLEDGER_FIT_WORKERS"
 
 
@@ -334,8 +334,9 @@ def fit_workers(n_jobs: int, workers: int | None = None) -> int:
 
 
 def _fit_all(jobs: list[_Job], settings: FitSettings, workers: int | None) -> None:
-    """Fit every job's series, all groups with the same candidate forms in one batch; in
-    ``fit_workers`` spawned processes when more than one (each takes a share of every batch).
+    """Fit every job's series, all groups with the same candidate forms in one batch; with
+    ``fit_workers`` > 1, every batch is cut into that many shares: one is fitted here while
+    spawned processes fit the others.
 
     The outcome of a series does not depend on the others in its batch nor on the process
     (tests/fitting compares one process with two). Spawned, not forked: the parent holds
@@ -347,20 +348,23 @@ def _fit_all(jobs: list[_Job], settings: FitSettings, workers: int | None) -> No
     for j in jobs:
         batches.setdefault(j.forms, []).append(j)
     n = fit_workers(len(jobs), workers)
-    calls = [(forms, [j.series for j in part], kwargs)
-             for forms, batch in batches.items() for part in _shares(batch, n)]
+    shares = [[(forms, part) for forms, batch in batches.items()
+               for part in _shares(batch, n)[i:i + 1]] for i in range(n)]
+    calls = [[(forms, [j.series for j in part], kwargs) for forms, part in share]
+             for share in shares]
     if n <= 1 or len(jobs) < 2:
-        results = [fit_batch(c) for c in calls]
+        results = [[fit_batch(c) for c in calls[0]]] if calls else []
     else:
         from concurrent.futures import ProcessPoolExecutor
         from multiprocessing import get_context
 
-        with ProcessPoolExecutor(max_workers=n, mp_context=get_context("spawn")) as pool:
-            results = list(pool.map(fit_batch, calls))
-    parts = [part for batch in batches.values() for part in _shares(batch, n)]
-    for part, outcomes in zip(parts, results):
-        for job, outcome in zip(part, outcomes):
-            job.outcome = outcome
+        with ProcessPoolExecutor(max_workers=n - 1, mp_context=get_context("spawn")) as pool:
+            futures = [pool.submit(fit_batches, c) for c in calls[1:]]
+            results = [fit_batches(calls[0])] + [f.result() for f in futures]
+    for share, outcomes in zip(shares, results):
+        for (_, part), batch_outcomes in zip(share, outcomes):
+            for job, outcome in zip(part, batch_outcomes):
+                job.outcome = outcome
 
 
 def _fit_each(jobs: list[_Job], settings: FitSettings) -> None:
