@@ -84,7 +84,7 @@ class _Live:
     base: np.ndarray | None = None
     mask: np.ndarray | None = None
     best: _Best | None = None
-    table: tuple = ()
+    table: tuple = ([], 0)                         # (models of its last select, its row)
     errors: list = field(default_factory=list)
     warm: dict = field(default_factory=dict)      # candidate index -> {n_terms: params}
 
@@ -352,7 +352,7 @@ class _Batch:
         has = np.zeros(G, dtype=bool)
         best_crit = np.full(G, np.nan)
         best_at = [None] * G
-        tables: list[list] = [[] for _ in range(G)]
+        models = []                      # (name, k, crit, ok) of every model tried, in order
         for m in members:
             m.errors = []
         for ci, form in enumerate(self.forms):
@@ -368,25 +368,24 @@ class _Batch:
                     ok, chi2, found = self._fit_nonlinear(ci, nt, rows, zc, uc, members)
                 crit = np.asarray(CRITERIA[self.criterion](chi2, k, n), dtype=float)
                 better = ok & (~has | (crit < best_crit))
-                for g in np.flatnonzero(ok):
-                    tables[g].append((form.name, k, float(crit[g])))
+                models.append((form.name, k, crit, ok))
                 for g in np.flatnonzero(better):
                     best_at[g] = (ci, nt, found, g)
                 best_crit = np.where(better, crit, best_crit)
                 has |= ok
         for g, m in enumerate(members):
-            m.table = tuple(tables[g])
+            m.table = (models, g)
             m.best = None if best_at[g] is None else self._best(m, *best_at[g], best_crit[g], n)
 
     def _fit_linear(self, form, X, zc, uc, members):
-        beta, cov_beta, rank = _solve_stack(X, zc, 1.0 / uc)
+        beta, factors, rank = _solve_stack(X, zc, 1.0 / uc)
         ok = rank >= X.shape[2]
         for g in np.flatnonzero(~ok):
             members[g].errors.append(f"{form.name}: design matrix is singular (rank "
                                      f"{int(rank[g])} < {X.shape[2]} parameters)")
         fitted = (X @ beta[:, :, None])[:, :, 0]
         chi2 = np.sum(((zc - fitted) / uc) ** 2, axis=1)
-        return ok, chi2, ("linear", beta, cov_beta, chi2)
+        return ok, chi2, ("linear", beta, factors, chi2)
 
     def _fit_nonlinear(self, ci, nt, rows, zc, uc, members):
         form, exps = self.forms[ci], self.exps[ci]
@@ -409,7 +408,8 @@ class _Batch:
     def _best(self, m: _Live, ci: int, nt: int, found, g: int, crit: float, n: int) -> _Best:
         form = self.forms[ci]
         if found[0] == "linear":
-            beta, cov_beta = found[1][g], found[2][g]
+            beta = found[1][g]
+            cov_beta = _covariance(*(f[g] for f in found[2]))
             params = form.params_from_beta(beta)
             jac = form.dparams_dbeta(beta)
             params_cov = jac @ cov_beta @ jac.T
@@ -422,6 +422,11 @@ class _Batch:
 def fit_batches(calls: list[tuple]) -> list[list[FitOutcome]]:
     """:func:`fit_batch` of each call: the share of a worker process."""
     return [fit_batch(c) for c in calls]
+
+
+def _table(models: list, g: int) -> tuple:
+    """The models tried for member ``g`` of a size class: (form, parameters, criterion)."""
+    return tuple((name, k, float(crit[g])) for name, k, crit, ok in models if ok[g])
 
 
 def _flag_list(codes: np.ndarray) -> list[str]:
@@ -452,7 +457,7 @@ def _outcome(m: _Live, zl: dict, ul: dict, criterion: str) -> FitOutcome:
         outlier_mask=outlier, z=zr, weighted_rms=float(np.sqrt(np.sum(w * r**2) / np.sum(w))),
         reduced_chi2=best.chi2 / (n - k) if n > k else math.nan,
         bic=CRITERIA["bic"](best.chi2, k, n), point_flags=tuple(_flag_list(codes)),
-        candidates=tuple(m.table), criterion=criterion,
+        candidates=_table(*m.table), criterion=criterion,
         fit_space="ln(value)" if form.link == "log" else "value")
 
 
@@ -473,25 +478,30 @@ def _sizes(form, exps, n_terms) -> list[int]:
 
 
 def _solve_stack(X: np.ndarray, z: np.ndarray, w: np.ndarray):
-    """``weighted_linear_solve`` of stacked problems X (G, n, p): beta, covariance, rank."""
+    """``weighted_linear_solve`` of stacked problems X (G, n, p): beta (NaN where the rank is
+    short), the factors ``(Vt, s, norms)`` its covariance is made from (:func:`_covariance`,
+    for the selected models only) and the numerical rank."""
     G, _, p = X.shape
     A = X * w[:, :, None]
     norms = np.sqrt(np.add.reduce(A * A, axis=1))
     norms[(norms == 0.0) | ~np.isfinite(norms)] = 1.0
-    beta = np.full((G, p), np.nan)
-    cov = np.full((G, p, p), np.nan)
     try:
         U, s, Vt = np.linalg.svd(A / norms[:, None, :], full_matrices=False)
     except np.linalg.LinAlgError:
         if G == 1:
             raise               # as weighted_linear_solve: the SVD did not converge
         parts = [_solve_stack(X[g:g + 1], z[g:g + 1], w[g:g + 1]) for g in range(G)]
-        return tuple(np.concatenate(a) for a in zip(*parts))
+        return (np.concatenate([q[0] for q in parts]),
+                tuple(np.concatenate([q[1][i] for q in parts]) for i in range(3)),
+                np.concatenate([q[2] for q in parts]))
     rank = np.where(s[:, 0] > 0, np.sum(s > 1e-13 * s[:, :1], axis=1), 0)
-    full = rank >= p
-    V = Vt.transpose(0, 2, 1)
     Utz = (U.transpose(0, 2, 1) @ (z * w)[:, :, None])[:, :, 0]
-    b = (V @ (Utz / s)[:, :, None])[:, :, 0] / norms
-    c = ((V / (s ** 2)[:, None, :]) @ Vt) / (norms[:, :, None] * norms[:, None, :])
-    beta[full], cov[full] = b[full], c[full]
-    return beta, cov, rank
+    beta = (Vt.transpose(0, 2, 1) @ (Utz / s)[:, :, None])[:, :, 0] / norms
+    beta[rank < p] = np.nan
+    return beta, (Vt, s, norms), rank
+
+
+def _covariance(Vt: np.ndarray, s: np.ndarray, norms: np.ndarray) -> np.ndarray:
+    """(X^T W X)^-1 of one solve from its factors, by the expression of
+    ``weighted_linear_solve``."""
+    return ((Vt.T / s**2) @ Vt) / np.outer(norms, norms)

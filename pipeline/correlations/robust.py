@@ -27,13 +27,13 @@ import math
 import numpy as np
 
 NEWTON_MAX_ITER = 60
-NEWTON_RTOL = 1e-13           # relative step of the equilibrated coefficients that ends it
+NEWTON_RTOL = 1e-12           # relative step of the coefficients that ends it
 ARMIJO = 1e-4                 # sufficient decrease of the line search
 ROBUST_START_TERMS = 3        # terms of the robust starting fit (as the per-series path)
 _CUTOFF = 1e-14               # relative eigenvalue cutoff of the Newton system
 
 
-CHUNK = 512                   # problems solved together (bounds the memory of the outer products)
+CHUNK = 512                   # problems solved together (bounds the working memory)
 
 
 def _loss(r: np.ndarray) -> np.ndarray:
@@ -96,13 +96,12 @@ def _solve_chunk(A, z, max_iter, rtol):
     norms = np.sqrt(np.einsum("gmk,gmk->gk", A, A))
     norms[(norms == 0.0) | ~np.isfinite(norms)] = 1.0
     As = A / norms[:, None, :]
-    outer = (As[:, :, :, None] * As[:, :, None, :]).reshape(len(As), m, k * k)
-    gram = (np.ones((len(As), 1, m)) @ outer).reshape(len(As), k, k)
-    c = _newton_step(gram, -(As.transpose(0, 2, 1) @ z[:, :, None])[:, :, 0])  # least squares
+    At = As.transpose(0, 2, 1)
+    c = _newton_step(At @ As, -(At @ z[:, :, None])[:, :, 0])      # least-squares start
     n_steps = np.zeros(len(c), dtype=int)
     active = np.arange(len(c))                 # problems in the working arrays
     live = np.ones(len(c), dtype=bool)         # ... of which still iterating
-    Aa, Pa, za = As, outer, z
+    Aa, za = As, z
     for _ in range(max_iter):
         ca = c[active]
         r = (Aa @ ca[:, :, None])[:, :, 0] - za
@@ -114,7 +113,7 @@ def _solve_chunk(A, z, max_iter, rtol):
         g = (Aa.transpose(0, 2, 1) @ (r * inv)[:, :, None])[:, :, 0]
         h = inv * inv
         h *= inv
-        d = _newton_step(np.einsum("gm,gmq->gq", h, Pa).reshape(len(active), k, k), g)
+        d = _newton_step(Aa.transpose(0, 2, 1) @ (Aa * h[:, :, None]), g)
         dec = -np.einsum("gk,gk->g", g, d)
         Ad = (Aa @ d[:, :, None])[:, :, 0]
         t = np.ones(len(active))
@@ -141,7 +140,7 @@ def _solve_chunk(A, z, max_iter, rtol):
         if not live.any():
             break
         if live.sum() < 0.5 * len(active):    # compact the working set
-            Aa, Pa, za, active = Aa[live], Pa[live], za[live], active[live]
+            Aa, za, active = Aa[live], za[live], active[live]
             live = np.ones(len(active), dtype=bool)
     b[finite] = c / norms
     steps[finite] = n_steps

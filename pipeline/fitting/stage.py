@@ -17,7 +17,7 @@ import hashlib
 import json
 import os
 import time
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, fields
 
 import duckdb
 import numpy as np
@@ -71,7 +71,7 @@ class FitRunResult:
         return any(g.status != "unchanged" for g in self.groups)
 
     def asdict(self) -> dict:
-        return {"run_id": self.run_id, "groups": [asdict(g) for g in self.groups]}
+        return {"run_id": self.run_id, "groups": [dict(vars(g)) for g in self.groups]}
 
     def asstr(self) -> str:
         lines = []
@@ -255,11 +255,16 @@ def _hash_inputs(rows: Rows, lo: int, hi: int, ref, forms, settings: FitSettings
     h = hashlib.sha256()
     for col in _COLUMNS:
         h.update(np.ascontiguousarray(getattr(rows, col)[lo:hi], dtype=float).tobytes())
-    h.update(json.dumps({"ref": asdict(ref) if ref else None, "forms": forms,
-                         "settings": asdict(settings),
+    h.update(json.dumps({"ref": _flat_dict(ref) if ref else None, "forms": forms,
+                         "settings": _flat_dict(settings),
                          "excluded": sorted((int(k), v) for k, v in excluded.items())},
                         sort_keys=True).encode())
     return h.hexdigest()
+
+
+def _flat_dict(obj) -> dict:
+    """``dataclasses.asdict`` of a dataclass whose fields are plain values (no recursion)."""
+    return {f.name: getattr(obj, f.name) for f in fields(obj)}
 
 
 def _prepare(key, rows: Rows, lo, hi, excluded_rows, fixed, settings, exclusions, current,
