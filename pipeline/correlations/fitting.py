@@ -360,10 +360,13 @@ def soft_l1_linear(A: np.ndarray, z: np.ndarray, b0: np.ndarray) -> np.ndarray:
     The loss is convex in ``b``, so the minimum is unique; each step solves the weighted
     problem with ``w_i = rho'(r_i^2) = (1 + r_i^2)^(-1/2)`` and does not increase the loss
     (Holland & Welsch, "Robust regression using iteratively reweighted least-squares",
-    Commun. Stat. Theory Methods 6, 813-827 (1977); citation from memory). On the synthetic
-    vapour-pressure series of benchmarks/fit.py about 20 steps reach a relative change of
-    1e-10, about four times faster than scipy's trust-region solve of the same problem
-    (measured once by hand; the benchmark does not print it).
+    Commun. Stat. Theory Methods 6, 813-827 (1977); citation from memory). Measured on the
+    demo, the real-data corpus and 100 synthetic fluids (2,632 problems): 56 steps on average
+    to a relative change of 1e-10 (vapour pressures 27, sublimation 14, melting forms 76, a
+    tenth of those at the cap of 200), and on 3 % of the problems the iteration stops on a
+    small step above the minimum. The batched path of the fit stage solves the same problem
+    by Newton steps (:mod:`pipeline.correlations.robust`); this per-series reference keeps
+    the reweighting, and the inlier sets of the two agree on every data set tested.
     """
     norms = column_norms(A)
     As = A / norms                              # equilibrated columns; solve for c = b * norms

@@ -11,11 +11,12 @@ Why Newton, not the reweighting of :func:`pipeline.correlations.fitting.soft_l1_
 loss ``sum_i 2 (sqrt(1 + r_i^2) - 1)`` is smooth and strictly convex in the residuals, so its
 Newton step ``-(A^T H A)^-1 A^T g`` (``g_i = r_i / sqrt(1 + r_i^2)``,
 ``H_i = (1 + r_i^2)^(-3/2)``) with a backtracking line search converges quadratically to the
-unique minimum: about 6-8 steps on the benchmark's series where reweighting needs 14-80 and,
-on about one problem in seven, stops on a small step before the minimum (measured on the
-demo, the real-data corpus and the synthetic benchmark store). The inlier sets depend only on
-the residuals at the minimum, so the fits that follow are those of the per-series path
-(``tests/fitting/test_batched_fit.py`` compares them).
+unique minimum. Measured on the demo, the real-data corpus and 100 synthetic fluids (2,632
+problems): 7.6 Newton steps on average against 56 reweighting steps (76 for the melting
+forms, a tenth of which stop at the cap of 200), and the reweighting stops above the minimum
+on 3 % of the problems. The inlier sets depend only on the residuals at the minimum, and
+they agree with the per-series path on every data set tested, so the fits that follow are
+those of the reference (``tests/fitting/test_batched_fit.py`` compares them).
 
 Pure numpy, no I/O.
 """
