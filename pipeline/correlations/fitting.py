@@ -701,10 +701,3 @@ def fit_curve(candidate_forms: str | Sequence[str], T, y, u_y, u_T, ref: dict, *
             return _no_model(n, errors2, base, flags, criterion)
         best, mask, table, zl, ul = best2, mask2, table2, zl2, ul2
     return _outcome(best, mask, flags, T, zl, ul, table, criterion)
-
-
-def fit_call(call: tuple) -> FitOutcome:
-    """:func:`fit_curve` on ``(args, kwargs)``: a module-level function of this light module,
-    so that worker processes fitting many groups import only the correlations package."""
-    args, kwargs = call
-    return fit_curve(*args, **kwargs)
