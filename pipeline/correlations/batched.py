@@ -14,14 +14,15 @@ algebra is done on stacked arrays:
   series gets the very floating-point operations of its own solve);
 * the robust starting fits of all series are solved together
   (:func:`pipeline.correlations.robust.robust_start_masks`);
+* the outlier rounds evaluate the selected curves of one form and size in one call;
 * only the nonlinear forms (Simon-Glatzel, Antoine) are still fitted one series at a time, by
   the same ``least_squares`` call as the reference, warm-started the same way.
 
-What stays per series is cheap: screening, the outlier rounds (one evaluation of the selected
-curve), the slope that carries u(T) into the second stage and the outcome record, all through
-the reference module's own functions, so the numbers written are those of ``fit_curve``
+What else stays per series is cheap: screening, the slope that carries u(T) into the second
+stage and the outcome record, through the reference module's functions or its very
+expressions, so the numbers written are those of ``fit_curve``
 (``tests/fitting/test_batched_fit.py`` compares both paths on the demo, the real-data corpus
-and a synthetic store).
+and a synthetic store; ``tests/correlations/test_batched.py`` every branch).
 
 Pure numpy/scipy, no I/O.
 """
@@ -165,7 +166,9 @@ class _Batch:
         self.T_ref = np.array([float(m.ref.get("T_ref_K", math.nan)) for m in members])
         self.T_ref_rows = np.repeat(self.T_ref, sizes)
         self.designs = [self._design(f, e) if f.linear else None for f, e in zip(forms, exps)]
-        self.links = {f.link: f for f in forms}
+        self.links: dict = {}                    # link -> its first form (as the reference)
+        for f in forms:
+            self.links.setdefault(f.link, f)
 
     # --- set-up ----------------------------------------------------------------------------------
     def _design(self, form: LinearForm, exps) -> np.ndarray:
