@@ -201,10 +201,17 @@ def _solve_nonlinear(form: CorrelationForm, T, z, u_z, T_ref, exps, x0=None,
             y = form.evaluate(T2, p[None, :], T_ref2, exps)[0]
             return (form.to_fit_space(y) - z) / u_z
 
+    # an identity-link form's fit-space slope is 1 whatever y: the weights need no evaluation
+    unit_slope = form.link != "log" and \
+        type(form).fit_space_slope is CorrelationForm.fit_space_slope
+    w = (1.0 / u_z)[:, None]
+
     def jac(p):
         with np.errstate(all="ignore"):
-            y = form.evaluate(T2, p[None, :], T_ref2, exps)[0]
             J = form.jacobian(T2, p[None, :], T_ref2, exps)[0]
+            if unit_slope:
+                return J * w
+            y = form.evaluate(T2, p[None, :], T_ref2, exps)[0]
         return J * (form.fit_space_slope(y) / u_z)[:, None]
 
     res = least_squares(resid, x0, jac=jac, loss=loss, f_scale=SOFT_L1_F_SCALE,

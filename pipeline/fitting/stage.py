@@ -61,7 +61,8 @@ class GroupResult:
 class FitRunResult:
     run_id: str
     groups: list[GroupResult] = field(default_factory=list)
-    timings: dict[str, float] = field(default_factory=dict)  # seconds per part (not stored)
+    timings: dict[str, float] = field(default_factory=dict)      # wall s per part (not stored)
+    cpu_timings: dict[str, float] = field(default_factory=dict)  # CPU s of this process per part
 
     def count(self, status: str) -> int:
         return sum(g.status == status for g in self.groups)
@@ -217,21 +218,22 @@ def run_fit(con: duckdb.DuckDBPyConnection, *, fluids: list[str] | None = None,
     con.execute("UPDATE run SET finished_at = ?, status = ?, summary_json = ? WHERE run_id = ?",
                 [utcnow(), status, json.dumps(result.asdict(), sort_keys=True, default=str), run_id])
     clock.lap("write")
-    result.timings = clock.laps
+    result.timings, result.cpu_timings = clock.laps, clock.cpu
     return result
 
 
 class _Clock:
-    """Seconds spent in each part of the stage, in order."""
+    """Wall and CPU seconds spent in each part of the stage, in order."""
 
     def __init__(self):
         self.laps: dict[str, float] = {}
-        self.t = time.perf_counter()
+        self.cpu: dict[str, float] = {}
+        self.t, self.c = time.perf_counter(), time.process_time()
 
     def lap(self, name: str) -> None:
-        now = time.perf_counter()
-        self.laps[name] = now - self.t
-        self.t = now
+        now, cpu = time.perf_counter(), time.process_time()
+        self.laps[name], self.cpu[name] = now - self.t, cpu - self.c
+        self.t, self.c = now, cpu
 
 
 @dataclass
