@@ -23,7 +23,6 @@ Pure numpy, no I/O.
 
 from __future__ import annotations
 
-
 import numpy as np
 
 NEWTON_MAX_ITER = 60
