@@ -166,6 +166,8 @@ class _Batch:
         self.T_ref = np.array([float(m.ref.get("T_ref_K", math.nan)) for m in members])
         self.T_ref_rows = np.repeat(self.T_ref, sizes)
         self.designs = [self._design(f, e) if f.linear else None for f, e in zip(forms, exps)]
+        self.robust_solutions = None    # the last robust starts' coefficients: the next ones'
+        #                                 starting point (stage 2 changes only uncertainties)
         self.links: dict = {}                    # link -> its first form (as the reference)
         for f in forms:
             self.links.setdefault(f.link, f)
@@ -293,7 +295,8 @@ class _Batch:
             fit_on[m.lo:m.hi] = on
         cands = [(X, z[f.link], u[f.link]) for f, X in zip(self.forms, self.designs)
                  if f.linear]
-        mask = robust_start_masks(cands, base, fit_on, self.offsets, self.outlier_z)
+        mask, self.robust_solutions = robust_start_masks(
+            cands, base, fit_on, self.offsets, self.outlier_z, self.robust_solutions)
         return [mask[m.lo:m.hi] for m in live]
 
     def _robust_select(self, live: list[_Live], z: dict, u: dict) -> None:

@@ -42,7 +42,8 @@ def _loss(r: np.ndarray) -> np.ndarray:
     return np.sqrt(r, out=r).sum(axis=-1)
 
 
-def soft_l1_batch(A: np.ndarray, z: np.ndarray, *, max_iter: int = NEWTON_MAX_ITER,
+def soft_l1_batch(A: np.ndarray, z: np.ndarray, *, b0: np.ndarray | None = None,
+                  max_iter: int = NEWTON_MAX_ITER,
                   rtol: float = NEWTON_RTOL) -> tuple[np.ndarray, np.ndarray]:
     """Coefficients minimising ``sum_i sqrt(1 + r_i^2)``, ``r = A b - z``, for stacked problems.
 
@@ -52,6 +53,8 @@ def soft_l1_batch(A: np.ndarray, z: np.ndarray, *, max_iter: int = NEWTON_MAX_IT
         Design matrices, shape (G, m, k); rows of zeros (with ``z`` = 0) pad shorter problems.
     z : numpy.ndarray
         Targets, shape (G, m).
+    b0 : numpy.ndarray, optional
+        Starting coefficients, shape (G, k); rows with a NaN start from least squares.
     max_iter : int
         Newton steps at most.
     rtol : float
@@ -66,10 +69,10 @@ def soft_l1_batch(A: np.ndarray, z: np.ndarray, *, max_iter: int = NEWTON_MAX_IT
 
     Notes
     -----
-    Columns are equilibrated to unit norm; the start is the least-squares solution; each step
-    solves the Jacobi-scaled Newton system by eigendecomposition (directions along
-    eigenvalues below 1e-14 of the largest are left out, as a pseudo-inverse does) and halves
-    the step until the loss decreases by the Armijo fraction 1e-4 of the predicted decrease;
+    Columns are equilibrated to unit norm; the start is ``b0`` or the least-squares solution
+    (the minimum does not depend on it); each step solves the Jacobi-scaled Newton system
+    (:func:`_newton_step`) and halves the step until the loss decreases by the Armijo fraction
+    1e-4 of the predicted decrease;
     a problem ends when its step is below ``rtol`` of its coefficients or no decrease is left
     to find (the loss is flat to rounding: the minimum). The loss is convex, so the minimum
     reached is the unique one (C. T. Kelley, "Iterative Methods for Optimization", SIAM
@@ -79,12 +82,13 @@ def soft_l1_batch(A: np.ndarray, z: np.ndarray, *, max_iter: int = NEWTON_MAX_IT
     b = np.full((G, k), np.nan)
     steps = np.zeros(G, dtype=int)
     for lo in range(0, G, CHUNK):
-        b[lo:lo + CHUNK], steps[lo:lo + CHUNK] = _solve_chunk(A[lo:lo + CHUNK],
-                                                              z[lo:lo + CHUNK], max_iter, rtol)
+        b[lo:lo + CHUNK], steps[lo:lo + CHUNK] = _solve_chunk(
+            A[lo:lo + CHUNK], z[lo:lo + CHUNK], None if b0 is None else b0[lo:lo + CHUNK],
+            max_iter, rtol)
     return b, steps
 
 
-def _solve_chunk(A, z, max_iter, rtol):
+def _solve_chunk(A, z, b0, max_iter, rtol):
     G, m, k = A.shape
     b = np.full((G, k), np.nan)
     steps = np.zeros(G, dtype=int)
@@ -92,11 +96,15 @@ def _solve_chunk(A, z, max_iter, rtol):
     if not finite.any():
         return b, steps
     A, z = A[finite], z[finite]
+    b0 = None if b0 is None else b0[finite]
     norms = np.sqrt(np.einsum("gmk,gmk->gk", A, A))
     norms[(norms == 0.0) | ~np.isfinite(norms)] = 1.0
     As = A / norms[:, None, :]
     At = As.transpose(0, 2, 1)
     c = _newton_step(At @ As, -(At @ z[:, :, None])[:, :, 0])      # least-squares start
+    if b0 is not None:
+        given = np.all(np.isfinite(b0), axis=1)
+        c[given] = b0[given] * norms[given]
     n_steps = np.zeros(len(c), dtype=int)
     active = np.arange(len(c))                 # problems in the working arrays
     live = np.ones(len(c), dtype=bool)         # ... of which still iterating
@@ -181,7 +189,9 @@ def _median_rows(r: np.ndarray, counts: np.ndarray) -> np.ndarray:
 
 
 def robust_start_masks(cands: list[tuple], base: np.ndarray, fit_on: np.ndarray,
-                       offsets: np.ndarray, outlier_z: float) -> np.ndarray:
+                       offsets: np.ndarray, outlier_z: float,
+                       starts: list[np.ndarray] | None = None
+                       ) -> tuple[np.ndarray, list[np.ndarray]]:
     """Starting inlier sets of many series at once, each as the per-series robust start
     (``pipeline.correlations.fitting._robust_start``) gives it.
 
@@ -200,13 +210,19 @@ def robust_start_masks(cands: list[tuple], base: np.ndarray, fit_on: np.ndarray,
         Series ``j`` holds rows ``offsets[j]:offsets[j+1]`` (G + 1 entries).
     outlier_z : float
         Points whose |z| exceeds ``outlier_z`` times the robust scale start outside.
+    starts : list of numpy.ndarray, optional
+        Per candidate, starting coefficients per series [(G, p)], e.g. the solutions of an
+        earlier call on the same series with other uncertainties (NaN: none); they change the
+        number of steps, not the minimum.
 
     Returns
     -------
-    numpy.ndarray
+    mask : numpy.ndarray
         Boolean (N,): per series, ``base`` and residual within ``outlier_z`` times
         max(1, 1.4826 median |z|) of the candidate with the smallest median; ``base`` where
         no candidate can be fitted or the set would keep fewer than max(4, half) points.
+    solutions : list of numpy.ndarray
+        Per candidate, the soft-L1 coefficients per series [(G, p)], NaN where not solved.
     """
     G, N = len(offsets) - 1, base.size
     seg = np.repeat(np.arange(G), np.diff(offsets))
@@ -216,9 +232,12 @@ def robust_start_masks(cands: list[tuple], base: np.ndarray, fit_on: np.ndarray,
     first_on = np.concatenate([[0], np.cumsum(n_on)[:-1]])
     best_med = np.full(G, np.inf)
     best_r = np.full(N, np.nan)
-    for X, z, u in cands:
+    solutions = []
+    for ci, (X, z, u) in enumerate(cands):
         Xk = X[:, :min(ROBUST_START_TERMS, X.shape[1] - 1) + 1]
         p = Xk.shape[1]
+        solved = np.full((G, p), np.nan)
+        solutions.append(solved)
         with np.errstate(all="ignore"):
             bad = base & ~(np.all(np.isfinite(Xk), axis=1) & (u > 0))
             A, zn = Xk / u[:, None], z / u
@@ -232,7 +251,8 @@ def robust_start_masks(cands: list[tuple], base: np.ndarray, fit_on: np.ndarray,
             idx = on_rows[np.where(pad, 0, pos)]
             Ab = np.where(pad[:, :, None], 0.0, A[idx])
             zb = np.where(pad, 0.0, zn[idx])
-            b, _ = soft_l1_batch(Ab, zb)
+            b, _ = soft_l1_batch(Ab, zb, b0=None if starts is None else starts[ci][members])
+            solved[members] = b
             rows = np.concatenate([np.arange(offsets[j], offsets[j + 1]) for j in members])
             b_rows = np.repeat(b, np.diff(offsets)[members], axis=0)
             with np.errstate(all="ignore"):
@@ -248,7 +268,7 @@ def robust_start_masks(cands: list[tuple], base: np.ndarray, fit_on: np.ndarray,
         mask = np.where(found, base & (best_r <= outlier_z * scale), base)
     kept = np.bincount(seg, weights=mask, minlength=G)
     enough = kept >= np.maximum(4, 0.5 * n_base)
-    return np.where(enough[seg], mask, base)
+    return np.where(enough[seg], mask, base), solutions
 
 
 def _by_size(members: np.ndarray, sizes: np.ndarray) -> list[np.ndarray]:

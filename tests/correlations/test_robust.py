@@ -135,7 +135,7 @@ def test_starting_masks_equal_the_per_series_reference(wrong_unit):
     cat = [(np.concatenate([x[i] for x in X]), np.concatenate([z[i] for z in zl]),
             np.concatenate([v[i] for v in ul])) for i in range(len(forms))]
     offsets = np.cumsum([0] + [s[0].size for s in series])
-    got = robust_start_masks(cat, np.concatenate(base), np.concatenate(on), offsets, 4.0)
+    got, _ = robust_start_masks(cat, np.concatenate(base), np.concatenate(on), offsets, 4.0)
     for j, want in enumerate(ref_masks):
         np.testing.assert_array_equal(got[offsets[j]:offsets[j + 1]], want)
     if wrong_unit:
