@@ -322,7 +322,8 @@ def _finish(job: _Job, writer: Writer) -> GroupResult:
 
 PARALLEL_MIN_FITS = 500
 """With ``workers`` left automatic, groups are fitted in several processes from this many on
-(below it, starting a process - about 0.5 s of imports - costs more than it saves)."""
+(below it, starting a process - about 0.5 s of CPU for its imports - costs more than it
+saves)."""
 WORKERS_ENV = "FLUIDLEDGER_FIT_WORKERS"
 
 
