@@ -8,6 +8,8 @@ block, no ``atexit`` handler and no DuckDB close runs. Without the variable the 
 dictionary lookup.
 
 Names (``<stage>:<place>``) are listed in :data:`CRASH_POINTS`; tests/reliability uses them.
+``FLUIDLEDGER_KILL_SIGNAL=INT`` sends SIGINT instead (what Ctrl-C sends), for the tests of an
+interrupted run.
 """
 
 from __future__ import annotations
@@ -16,8 +18,10 @@ import os
 import signal
 
 KILL_ENV = "FLUIDLEDGER_KILL_AT"
+SIGNAL_ENV = "FLUIDLEDGER_KILL_SIGNAL"
 
 CRASH_POINTS = {
+    "ingest:batch-done": "one batch committed (or refused), the next one not yet started",
     "publish:exports-written": "release folder written and validated under its temporary name",
     "publish:file-built": "next published file built beside the current one",
     "publish:folder-renamed": "release folder renamed into place, store not yet committed",
@@ -27,11 +31,12 @@ CRASH_POINTS = {
 
 
 def crash_point(name: str) -> None:
-    """Die with SIGKILL here when ``FLUIDLEDGER_KILL_AT`` names this point."""
+    """Die with SIGKILL (or the signal ``FLUIDLEDGER_KILL_SIGNAL`` names) here when
+    ``FLUIDLEDGER_KILL_AT`` names this point."""
     wanted = os.environ.get(KILL_ENV)
     if wanted is None:
         return
     if name not in CRASH_POINTS:       # a point the catalogue does not list is a bug
         raise AssertionError(f"unknown crash point {name!r}")
     if wanted == name:
-        os.kill(os.getpid(), signal.SIGKILL)
+        os.kill(os.getpid(), getattr(signal, "SIG" + os.environ.get(SIGNAL_ENV, "KILL")))

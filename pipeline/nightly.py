@@ -37,7 +37,6 @@ import json
 import logging
 import math
 import time
-import tomllib
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -51,8 +50,12 @@ from pipeline.errors import (
     EXIT_USAGE,
     BatchError,
     CheckError,
+    environment_problem,
+    is_interrupt,
 )
 from pipeline.progress import stage_progress
+from pipeline.safetext import SafeFormatter
+from pipeline.store.runs import end_run
 
 log = logging.getLogger(__name__)
 
@@ -132,10 +135,25 @@ class NightlyResult:
                 "stages": {k: s.asdict() for k, s in self.stages.items()},
                 "changes": self.changes, "publish": self.publish, "report": self.report}
 
+    def verdict_line(self) -> str:
+        """The run in one line: verdict, exit code, counts, publication and the report path
+        (what ``fluidledger nightly`` prints off a terminal, e.g. from cron)."""
+        counts = ", ".join(f"{n} {s}" for s, n in self.counts.items() if n)
+        pub = self.publish
+        return (f"nightly {self.run_id}: {self.verdict.upper()} (exit {self.exit_code}); "
+                f"checks: {counts or 'none'}" + ("; no changes" if self.no_changes else "")
+                + f"; publish: {pub['status']}"
+                + (f" {pub['release_id']}" if pub.get("release_id") else "")
+                + (f"; report: {self.report['html']}" if self.report.get("html") else ""))
+
     def asstr(self) -> str:
         counts = ", ".join(f"{n} {s}" for s, n in self.counts.items() if n)
         lines = [f"nightly {self.run_id}: {self.verdict.upper()} (exit {self.exit_code}); "
                  f"checks: {counts or 'none'}"]
+        refused = refused_batches(self.asdict())
+        if refused:
+            lines.append(f"refused batch(es), not ingested ({len(refused)}; the others were): "
+                         + ", ".join(refused))
         if self.no_changes:
             lines.append(f"no changes since {self.previous_run_id}: nothing ingested, nothing "
                          "refitted, check results reused")
@@ -160,6 +178,12 @@ class NightlyResult:
         if self.report.get("html"):
             lines.append(f"report: {self.report['html']}")
         return "\n".join(lines)
+
+
+def refused_batches(nightly: Mapping[str, Any]) -> list[str]:
+    """Names of the batches the run's ingest stage refused (from the run record)."""
+    stage = nightly.get("stages", {}).get("ingest", {})
+    return [e["batch"] for e in stage.get("detail", {}).get("errors", [])]
 
 
 # -- fingerprints and state ------------------------------------------------------------------
@@ -252,14 +276,26 @@ class Curation:
 
         return with_threshold_overrides(thresholds, self.decisions)
 
-    def postprocessors(self) -> tuple:
+    def check_exclusions(self, con):
+        """What the checks leave out (computed once per run); None without decisions."""
+        if self.decisions is None:
+            return None
+        from pipeline.decisions.checks import check_exclusions
+
+        return check_exclusions(con, self.decisions)
+
+    def check_inputs(self, data: dict, exclusions, thresholds) -> tuple[dict, tuple]:
+        """The fluids as the checks read them (excluded data left out) and the post-processing
+        steps: the engine's, the exclusion step (findings resting on excluded data become
+        ``excluded``), the waiver step."""
         from pipeline.checks.engine import POSTPROCESSORS
 
         if self.decisions is None:
-            return POSTPROCESSORS
-        from pipeline.decisions import WaiverStep
+            return data, POSTPROCESSORS
+        from pipeline.decisions.checks import check_inputs
 
-        return (*POSTPROCESSORS, WaiverStep(self.decisions))
+        kept, steps = check_inputs(None, self.decisions, data, thresholds, exclusions)
+        return kept, (*POSTPROCESSORS, *steps)
 
     def publish_decisions(self, con):
         from pipeline.publish.policy import NO_DECISIONS
@@ -315,7 +351,9 @@ def previous_state(con, current_run_id: str) -> PreviousState:
 
 # -- stage 1: ingest -------------------------------------------------------------------------
 def _sha(path: Path) -> str:
-    return hashlib.sha256(path.read_bytes()).hexdigest()
+    from pipeline.ingest.rawread import read_regular
+
+    return hashlib.sha256(read_regular(path, str(path))).hexdigest()
 
 
 def prescan(con, raw: Path) -> tuple[list[Path], list[str], int]:
@@ -323,9 +361,9 @@ def prescan(con, raw: Path) -> tuple[list[Path], list[str], int]:
 
     A batch is unchanged when its batch.toml and every table file it names hash to the
     current versions in the store (the ingest stage would skip it too: the way a file is read
-    is part of batch.toml)."""
-    from pipeline.ingest.stage import discover_batches
-    from pipeline.ingest.workbook import table_path
+    is part of batch.toml). Files are read like the ingest stage reads them (regular files
+    only, bounded TOML), so an odd batch is passed on to the ingest stage, never a hang."""
+    from pipeline.ingest.discover import batch_file_hashes, discover_batches
 
     stored: dict[str, dict[str, str]] = {}
     for batch, path, sha in con.execute(
@@ -338,16 +376,7 @@ def prescan(con, raw: Path) -> tuple[list[Path], list[str], int]:
             continue
         rel = folder.relative_to(raw).as_posix()
         known = stored.pop(rel, None)
-        try:
-            manifest = folder / "batch.toml"
-            want = {f"{rel}/batch.toml": _sha(manifest)}
-            doc = tomllib.loads(manifest.read_bytes().decode("utf-8-sig"))
-            for table in doc.get("table", []):
-                path = folder / table["file"]
-                rel_file = (folder / table["file"]).relative_to(raw).as_posix()
-                want[table_path(rel_file, table)] = _sha(path)
-        except (OSError, ValueError, KeyError, TypeError, UnicodeDecodeError):
-            want = None   # unreadable: let the ingest stage say why
+        want = batch_file_hashes(raw, folder, rel)
         if known is None or want != known:
             changed.append(folder)
         else:
@@ -378,7 +407,8 @@ def _ingest(con, opts: NightlyOptions, prev: PreviousState, contexts: dict) -> S
     with stage_progress("ingest", total, quiet=opts.quiet) as tick:
         result = run_ingest(con, paths, fluids_file=fluids_file, progress=lambda b: tick(b.name))
     loaded = [b for b in result.batches if b.status == "loaded"]
-    errors = [{"batch": b.batch, "error": b.error or ""} for b in result.errors]
+    errors = [{"batch": b.batch, "error": b.error or "", "internal": b.internal}
+              for b in result.errors]
     rows = [sum(b.rows[i] for b in loaded) for i in range(3)]
     n_unchanged = unchanged + sum(b.status == "unchanged" for b in result.batches)
     text = (f"{len(loaded)} batch(es) loaded ({rows[0]} rows read, {rows[1]} loaded, {rows[2]} "
@@ -469,10 +499,11 @@ def _check(con, opts: NightlyOptions, prev: PreviousState, contexts: dict, selec
     for old_run, fluids in reuse.items():
         results.extend(_reused_results(con, old_run, fluids))
     chunks = [recheck[i:i + CHECK_CHUNK] for i in range(0, len(recheck), CHECK_CHUNK)]
-    steps = curation.postprocessors()
+    exclusions = curation.check_exclusions(con) if recheck else None
     with stage_progress("check", len(chunks), quiet=opts.quiet) as tick:
         for chunk in chunks:
-            data = load_fluid_data(con, chunk)
+            data, steps = curation.check_inputs(load_fluid_data(con, chunk), exclusions,
+                                                thresholds)
             results.extend(run_checks(data, thresholds=thresholds, postprocessors=steps).results)
             tick(f"{chunk[0]}..{chunk[-1]}")
     check_run = CheckRun(
@@ -541,6 +572,8 @@ def _publish(con, opts, prev, result: NightlyResult, ingest: Stage, publisher: C
             pub = publisher(con, store_path=store_path, curation=curation,
                             check_run_id=result.check_run_id)
         except Exception as err:  # recorded and reported; the run ends with exit code 3
+            if is_interrupt(err) or environment_problem(err) is not None:
+                raise               # Ctrl-C, or the machine's fault: not the release's
             log.exception("publish failed")
             pub = {"status": "failed", "release_id": None,
                    "reason": f"publish failed: {type(err).__name__}: {err}"}
@@ -562,43 +595,67 @@ def _value_changes(con, prev: PreviousState, pub: dict, selected, fits_now) -> t
 
 
 # -- stage 5: report -------------------------------------------------------------------------
+def _decide_context(con, opts, curation: Curation, results) -> Any:
+    """What the report's decide commands need: store and decisions file of the run, the source
+    of each raw file, and the rows of the files that findings are about."""
+    from pipeline.report.actions import DecideContext
+
+    files = sorted({r.subject[len("file:"):].split("|", 1)[0] for r in results
+                    if r.status in ("warn", "fail") and r.subject.startswith("file:")})
+    sources = dict(con.execute("SELECT path, source_id FROM raw_file_current WHERE role = "
+                               "'table'").fetchall())
+    rows: dict[str, list[int]] = {}
+    for path, row in con.execute("SELECT file_path, row_number FROM observation_current WHERE "
+                                 "list_contains(?, file_path) ORDER BY 1, 2", [files]).fetchall():
+        rows.setdefault(path, []).append(int(row))
+    decisions = curation.path or str(opts.raw / "decisions.toml")
+    return DecideContext(str(opts.store) if opts.store else None, decisions, sources, rows)
+
+
 def _report(con, opts, result: NightlyResult, check_run, selected, check_fp,
             curation: Curation) -> tuple[Stage, Any]:
-    from pipeline.report import content, plots
+    from pipeline.report import content, deviation, figures, labels, plots, svg
+    from pipeline.report.figures import FluidFigures
     from pipeline.report.files import PlotCache, source_hash
     from pipeline.report.html import ReportPage
 
     t0 = time.perf_counter()
     sections = content.fluid_sections(con, selected)
     flagged = content.flagged_from_results(check_run.results)
-    code = source_hash(plots, content)
+    code = source_hash(plots, content, deviation, figures, labels, svg)
     cache = PlotCache(opts.reports / ".cache" / "plots", enabled=not opts.full)
-    keys = {f: _h(code, check_fp.get(f), sections[f].name, sections[f].formula,
-                  sorted((k, sorted(v)) for k, v in flagged.get(f, {}).get("obs", {}).items()),
-                  sorted((k, sorted(v)) for k, v in flagged.get(f, {}).get("files", {}).items()))
+
+    def marks(f: str) -> list:
+        entry = flagged.get(f, {})
+        return [sorted((str(k), sorted(v)) for k, v in entry.get(part, {}).items())
+                for part in ("obs", "files")] + [sorted(entry.get("corrections", {}).items())]
+
+    keys = {f: _h(code, check_fp.get(f), sections[f].name, sections[f].formula, marks(f))
             for f in sections}
-    images = {f: cache.get(k) for f, k in keys.items()}
-    todo = [f for f in sections if images[f] is None]
+    cached = {f: cache.get(k) for f, k in keys.items()}
+    figs = {f: FluidFigures.from_json(b) if b is not None else None for f, b in cached.items()}
+    todo = [f for f in sections if figs[f] is None]
     drawn = 0
     with stage_progress("plots", len(todo), quiet=opts.quiet) as tick:
         for start in range(0, len(todo), 50):
             batch = todo[start:start + 50]
             for f, data in content.diagram_data(con, sections, batch, flagged).items():
                 if len(data.observations) or data.curves:
-                    images[f] = plots.figure_png(plots.phase_diagram(data))
-                    cache.put(keys[f], images[f])
+                    figs[f] = figures.render_figures(data)
+                    cache.put(keys[f], figs[f].to_json())
                     drawn += 1
                 tick(f)
     if not opts.fluids:
         cache.prune(set(keys.values()))
-    page = ReportPage({}, check_run, sections, images,
+    page = ReportPage({}, check_run, sections, figs,
                       decisions=curation.report_rows(con, check_run.run_id),
-                      fluid_order=selected)
-    cached = len(sections) - len(todo)
-    text = (f"{drawn} plot(s) drawn, {cached} from the cache, {len(todo) - drawn} fluid(s) "
-            "without pressure data")
+                      fluid_order=selected,
+                      decide=_decide_context(con, opts, curation, check_run.results))
+    n_cached = len(sections) - len(todo)
+    text = (f"{drawn} fluid(s) drawn, {n_cached} from the cache, {len(todo) - drawn} "
+            "fluid(s) without pressure data")
     return Stage("written", time.perf_counter() - t0, text,
-                 {"plots_drawn": drawn, "plots_cached": cached}), page
+                 {"plots_drawn": drawn, "plots_cached": n_cached}), page
 
 
 # -- the run ---------------------------------------------------------------------------------
@@ -619,7 +676,7 @@ def run_log(path: Path, verbose: bool):
     handler = logging.FileHandler(path, encoding="utf-8")
     handler.setLevel(level)
     handler.addFilter(_LogFilter())
-    handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s: %(message)s"))
+    handler.setFormatter(SafeFormatter("%(asctime)s %(levelname)s %(name)s: %(message)s"))
     old_root = root.level
     old = [(h, h.level) for h in root.handlers]
     for h, lvl in old:
@@ -645,15 +702,21 @@ def _verify(con, store_path, run_id: str) -> Stage:
     from pipeline.verify import verify_connection
 
     t0 = time.perf_counter()
+    from pipeline.publish.integrity import repair_published
+
+    repaired = repair_published(con, Path(store_path).parent)
     res = verify_connection(con, str(store_path), Path(store_path).parent, running=(run_id,))
     head = (f"{len(res.rules_run)} store rules, {len(res.releases)} release(s) with "
             f"{res.files_hashed} files hashed")
     text = f"{head}: OK" if res.ok else (f"{head}: {len(res.findings)} finding(s): "
                                          + "; ".join(f.asstr() for f in res.findings[:3]))
+    if repaired:
+        text += f"; {repaired['text']}"
     detail = {"rules": len(res.rules_run), "releases": len(res.releases),
               "files_hashed": res.files_hashed, "findings": [asdict(f) for f in res.findings],
-              "notes": res.notes}
-    return Stage("ok" if res.ok else "failed", time.perf_counter() - t0, text, detail)
+              "notes": res.notes, "repaired": repaired}
+    status = "failed" if not res.ok else "repaired" if repaired else "ok"
+    return Stage(status, time.perf_counter() - t0, text, detail)
 
 
 def _verdict(counts: Mapping[str, int], ingest: Stage, publish: dict,
@@ -662,6 +725,8 @@ def _verdict(counts: Mapping[str, int], ingest: Stage, publish: dict,
         return "error"
     if verify is not None and verify.status == "failed":
         return "error"
+    if any(e.get("internal") for e in ingest.detail.get("errors", [])):
+        return "error"       # a batch refused by a fault of the code (the others loaded)
     if ingest.detail.get("errors"):
         return "input-error"
     return "fail" if counts.get("fail") else "pass"
@@ -706,9 +771,7 @@ def run_nightly(options: NightlyOptions, *, publisher: Callable | None = None) -
             state = _run(con, options, result, folder, publisher or publish_adapter, t0,
                          store.path, curation)
         except BaseException as err:
-            con.execute("UPDATE run SET finished_at = ?, status = 'error', summary_json = ? "
-                        "WHERE run_id = ?", [_utc().rstrip("Z"), json.dumps(
-                            {"error": f"{type(err).__name__}: {err}"}), run_id])
+            end_run(con, run_id, err)
             log.error("nightly %s ended with %s: %s", run_id, type(err).__name__, err)
             raise
         status = {"pass": "no-changes" if result.no_changes else "ok", "fail": "failed"}.get(

@@ -6,7 +6,9 @@ few of them. The rules are data (:data:`STORE_RULES`): foreign keys, the per-fil
 invariant ``rows_read = rows_loaded + rows_quarantined`` against the rows actually stored,
 file-version chains, the schema version, and a full read of every table (DuckDB checks block
 checksums as it reads). ``verify_release_manifests(root)`` recomputes the SHA-256 of every file
-listed in ``<root>/<release>/manifest.json`` (``{"files": [{"path": ..., "sha256": ...}]}``).
+listed in ``<root>/<release>/manifest.json`` (``{"files": [{"path": ..., "sha256": ...}]}``), and
+``verify_published_file`` compares ``<root>/published.duckdb`` with the store's latest
+publication into it.
 
 Nothing here writes: the store is opened read-only, so a verify may run beside readers, never
 beside a writer (DuckDB's lock refuses it as busy).
@@ -424,8 +426,30 @@ def verify_connection(con: duckdb.DuckDBPyConnection, store_label: str,
     if releases_root is not None:
         found, releases, hashed = verify_release_manifests(releases_root)
         result.findings += found + verify_listed_releases(published_releases(con), releases_root)
+        result.findings += verify_published_file(con, releases_root, result.notes)
         result.releases, result.files_hashed = releases, hashed
     return result
+
+
+def verify_published_file(con: duckdb.DuckDBPyConnection, root: str | os.PathLike,
+                          notes: list[str] | None = None) -> list[Finding]:
+    """``<root>/published.duckdb`` holds what the store's latest publication into it holds:
+    the release rows, views and macros (:mod:`pipeline.publish.integrity`). A file that is an
+    earlier publication (a publish stopped before its swap) is a note in ``notes``."""
+    if not {"release", "release_publication"} <= _schema(con):
+        return []
+    from pipeline.publish.integrity import check_published
+    from pipeline.publish.published import PUBLISHED_NAME
+
+    found = check_published(con, Path(root) / PUBLISHED_NAME)
+    if notes is not None and found.stale:
+        notes.append(found.stale)
+    if not found.differences:
+        return []
+    diffs = found.differences
+    return [Finding("release.published", f"expected {PUBLISHED_NAME} to hold the release "
+                    "rows, views and macros of the store's latest publication (the nightly "
+                    "job rebuilds it)", len(diffs), tuple(diffs[:SAMPLE_LIMIT]))]
 
 
 def published_releases(con: duckdb.DuckDBPyConnection) -> list[tuple[str, str, str]]:

@@ -249,6 +249,12 @@ def _budget_z(fluid, cols: dict, lo: int, hi: int, min_file_points: int,
         default = model.observed_rel(quantity, kind) * np.abs(y[m])
         u[m] = np.hypot(np.where(np.isfinite(u[m]) & (u[m] > 0), u[m], default),
                         model.observed_abs(quantity, kind))
+    # a temperature uncertainty moves the point along the curve: u_eff^2 = u^2 + (dy/dT u_T)^2
+    u_T = np.nan_to_num(cols["u_T_K"][lo:hi].astype(float))
+    if u_T.any():
+        with np.errstate(invalid="ignore"):
+            slope = np.nan_to_num(np.asarray(curve.slope(T, extrapolate=True), dtype=float))
+        u = np.hypot(u, slope * u_T)
     with np.errstate(invalid="ignore", divide="ignore"):
         u_rel = u / np.abs(y)
     for path in set(files):
@@ -284,7 +290,7 @@ def outliers(batch: CheckBatch, th):
     files of min_file_points or more points: a file's systematic offset from the fit, or its
     smooth drift at the end of its range, is a disagreement between sources, judged by
     data.unit-mixup and sources.agreement, not an outlier) and u_rel its uncertainty in the
-    one budget: stated, else the default of its
+    one budget (with dy/dT u_T, as the fit weighs it): stated, else the default of its
     source kind, combined with the budget's absolute floor for pressures (relative statements
     do not hold down to the lowest pressures, where compiled equations and gauges differ most).
     A point with |z| > z_max is reported with its file and row; it stays in the store (outliers
@@ -301,7 +307,7 @@ def outliers(batch: CheckBatch, th):
     if fitted.empty:
         return []
     cols, _, starts, ends = _segments(fitted, ["fluid_id", "fit_id"],
-                                      extra=("source_kind", "u_value_si"))
+                                      extra=("source_kind", "u_value_si", "u_T_K"))
     zmax = _per_row(th, "z_max", cols["fluid_id"])
     z = np.concatenate([_budget_z(batch.fluids[cols["fluid_id"][a]], cols, a, b,
                                   int(th(cols["fluid_id"][a])["min_file_points"]), zmax[a])

@@ -28,6 +28,7 @@ class Status(str, Enum):
     SKIP = "skip"
     ERROR = "error"
     WAIVED = "waived"
+    EXCLUDED = "excluded"
 
 
 PASS, VIOLATED, WARN, SKIP, ERROR = "pass", "violated", "warn", "skip", "error"

@@ -25,7 +25,7 @@ from pipeline.checks.findings import SEVERITIES
 #: Topic modules holding the built-in checks (imported on first use of the registry).
 CHECK_MODULES = (
     "triple_point", "clapeyron", "critical", "metastable", "phase_rule", "data_level",
-    "unit_mixup", "sources", "acentric",
+    "unit_mixup", "sources", "acentric", "fit_quality",
 )
 
 _REGISTRY: dict[str, "CheckSpec"] = {}

@@ -11,10 +11,11 @@ from pathlib import Path
 
 from pipeline.checks.results import STATUS_ORDER, CheckResult, CheckRun
 from pipeline.errors import EXIT_INTERNAL, CheckError
+from pipeline.safetext import clean, raw
 
 SCHEMA = "check-results.schema.json"
 #: statuses listed one row each by default; the others are counted per check
-LISTED = ("fail", "error", "warn", "waived")
+LISTED = ("fail", "error", "warn", "waived", "excluded")
 _HEADERS = ("status", "check", "fluid", "subject", "statistic", "measured", "limit", "message")
 
 
@@ -26,7 +27,7 @@ def _row(r: CheckResult) -> tuple:
 def _fmt(v) -> str:
     if v is None:
         return ""
-    return f"{v:.4g}" if isinstance(v, float) else str(v)
+    return f"{v:.4g}" if isinstance(v, float) else clean(v, one_line=True)
 
 
 def _plain(rows, stream) -> None:
@@ -39,29 +40,38 @@ def _plain(rows, stream) -> None:
 
 
 def _rich(rows, stream, title: str) -> None:
+    """One block per finding: status, check, fluid and subject on the first line (ids are
+    never wrapped mid-word), the statistic and the message indented below, wrapped at spaces."""
     from rich.console import Console
-    from rich.table import Table
+    from rich.markup import escape
+    from rich.padding import Padding
 
     style = {"FAIL": "bold red", "ERROR": "bold magenta", "WARN": "yellow", "WAIVED": "cyan",
-             "SKIP": "dim", "PASS": "green"}
-    table = Table(title=title, show_lines=False)
-    for h in _HEADERS:
-        table.add_column(h, overflow="fold")
-    for r in rows:
-        table.add_row(*(_fmt(v) for v in r), style=style.get(r[0]))
-    Console(file=stream).print(table)
+             "EXCLUDED": "cyan", "SKIP": "dim", "PASS": "green"}
+    console = Console(file=raw(stream), highlight=False)
+    console.rule(clean(title, one_line=True))
+    for status, check, fluid, subject, statistic, measured, limit, message in rows:
+        head = (f"[{style.get(status, 'bold')}]{status}[/] [bold]{escape(_fmt(check))}[/] "
+                f"{escape(_fmt(fluid))}" + (f"  {escape(_fmt(subject))}" if subject else ""))
+        console.print(head, overflow="fold")
+        stat = (f"{_fmt(statistic or 'measured')} = {_fmt(measured)}, limit {_fmt(limit)}"
+                if measured is not None or limit is not None else "")
+        body = "\n".join(x for x in (stat, _fmt(message)) if x)
+        console.print(Padding(escape(body), (0, 0, 0, 4)))
 
 
 def counts_by_check(run: CheckRun) -> list[tuple]:
-    """(check, pass, warn, fail, skip, error, waived) per check of the run."""
+    """(check, count per status of :data:`STATUS_ORDER`) per check of the run."""
     per: dict[str, dict[str, int]] = defaultdict(lambda: dict.fromkeys(STATUS_ORDER, 0))
     for r in run.results:
         per[r.check_id][r.status] += 1
     return [(c, *(per[c][s] for s in STATUS_ORDER)) for c in run.checks]
 
 
-def print_run(run: CheckRun, stream=None, *, show_all: bool = False) -> None:
-    """The findings grouped by status, failures first, then counts per check and the verdict."""
+def print_run(run: CheckRun, stream=None, *, show_all: bool = False,
+              counts_table: bool = True) -> None:
+    """The findings grouped by status, failures first, then counts per check (unless
+    ``counts_table`` is false) and the verdict."""
     stream = stream or sys.stdout
     statuses = STATUS_ORDER if show_all else LISTED
     rows = [_row(r) for r in run.by_status(statuses)]
@@ -74,23 +84,25 @@ def print_run(run: CheckRun, stream=None, *, show_all: bool = False) -> None:
         _plain(rows, stream)
     counts = counts_by_check(run)
     headers = ("check",) + STATUS_ORDER
-    if tty:
+    if not counts_table:
+        pass
+    elif tty:
         from rich.console import Console
         from rich.table import Table
 
         table = Table(title="results per check")
         for h in headers:
-            table.add_column(h)
+            table.add_column(h, no_wrap=True)
         for c in counts:
-            table.add_row(*(str(v) for v in c))
-        Console(file=stream).print(table)
+            table.add_row(*(clean(v, one_line=True) for v in c))
+        Console(file=raw(stream)).print(table)
     else:
         print("\nresults per check", file=stream)
         w = max([len(h) for h in headers[:1]] + [len(c[0]) for c in counts])
         print(headers[0].ljust(w) + "".join(h.rjust(8) for h in headers[1:]), file=stream)
         for c in counts:
             print(c[0].ljust(w) + "".join(str(v).rjust(8) for v in c[1:]), file=stream)
-    print("\n" + run.asstr(), file=stream)
+    print(("\n" if counts_table or rows else "") + run.asstr(), file=stream)
 
 
 class ResultsSchemaError(CheckError):
@@ -134,7 +146,7 @@ def _case(suite: ET.Element, r: CheckResult) -> None:
         ET.SubElement(case, "failure", message=r.message, type=r.statistic or "fail").text = evidence
     elif r.status == "error":
         ET.SubElement(case, "error", message=r.message, type="error").text = evidence
-    elif r.status in ("skip", "waived"):
+    elif r.status in ("skip", "waived", "excluded"):
         ET.SubElement(case, "skipped", message=r.message)
     elif r.status == "warn":
         ET.SubElement(case, "system-out").text = f"WARNING: {r.message}\n{evidence}"
@@ -143,8 +155,8 @@ def _case(suite: ET.Element, r: CheckResult) -> None:
 def junit_xml(run: CheckRun) -> str:
     """JUnit XML: one testsuite per check, one testcase per fluid and subject.
 
-    Failures carry the message and the evidence, errors are ``<error>``, skips and waived
-    findings ``<skipped>``; warnings are passing cases with the message in ``<system-out>``.
+    Failures carry the message and the evidence, errors are ``<error>``, skips, waived and
+    excluded findings ``<skipped>``; warnings are passing cases with the message in ``<system-out>``.
     """
     root = ET.Element("testsuites", name=f"fluidledger check {run.run_id}")
     by_check: dict[str, list[CheckResult]] = defaultdict(list)
@@ -156,7 +168,7 @@ def junit_xml(run: CheckRun) -> str:
         results = sorted(by_check.get(check_id, []), key=lambda r: (r.fluid_id, r.subject))
         n = {"tests": len(results), "failures": sum(r.status == "fail" for r in results),
              "errors": sum(r.status == "error" for r in results),
-             "skipped": sum(r.status in ("skip", "waived") for r in results)}
+             "skipped": sum(r.status in ("skip", "waived", "excluded") for r in results)}
         seconds = sum(r.duration_s or 0.0 for r in results)
         suite = ET.SubElement(root, "testsuite", name=check_id, time=f"{seconds:.6f}",
                               **{k: str(v) for k, v in n.items()})
@@ -169,7 +181,8 @@ def junit_xml(run: CheckRun) -> str:
         root.set(k, str(v))
     root.set("time", f"{total_time:.6f}")
     ET.indent(root)
-    return ET.tostring(root, encoding="unicode", xml_declaration=True) + "\n"
+    # XML 1.0 forbids most control characters: escaped, they keep the file valid
+    return clean(ET.tostring(root, encoding="unicode", xml_declaration=True)) + "\n"
 
 
 def write_junit(run: CheckRun, path: str | os.PathLike) -> None:

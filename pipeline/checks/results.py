@@ -17,7 +17,7 @@ from pipeline.errors import EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_OK
 from pipeline.checks.findings import Status
 
 #: Order in which people read results: what needs action first.
-STATUS_ORDER = ("fail", "error", "warn", "waived", "skip", "pass")
+STATUS_ORDER = ("fail", "error", "warn", "waived", "excluded", "skip", "pass")
 
 
 def jsonable(value: Any) -> Any:
@@ -70,6 +70,12 @@ class CheckResult:
         return replace(self, status=Status.WAIVED.value, decision_id=decision_id,
                        message=self.message + note,
                        evidence={**(self.evidence or {}), "waived_status": self.status})
+
+    def exclude(self, decision_id: str, note: str) -> "CheckResult":
+        """This violation marked ``excluded``: it rests on data a curation decision excluded
+        (the run without those data does not find it); message kept, ``note`` appended."""
+        return replace(self, status=Status.EXCLUDED.value, decision_id=decision_id,
+                       message=f"{self.message} [{note}]")
 
     def asdict(self) -> dict[str, Any]:
         return {"check_id": self.check_id, "fluid_id": self.fluid_id, "subject": self.subject,

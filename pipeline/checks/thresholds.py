@@ -16,6 +16,7 @@ ignored setting); its values replace the defaults, its per-fluid tables add to t
 
 from __future__ import annotations
 
+import math
 import re
 import tomllib
 from importlib import resources
@@ -138,6 +139,10 @@ class Thresholds:
             if not _same_kind(known[check_id][key], value):
                 raise ConfigError(f"value {value!r} has the wrong type (default is "
                                   f"{known[check_id][key]!r})", file=name, key=f"{where}.{key}")
+            if isinstance(value, float) and not math.isfinite(value):
+                raise ConfigError(f"value {value!r} is not a finite number (NaN and infinity "
+                                  "would make every comparison false)", file=name,
+                                  key=f"{where}.{key}")
         if "severity" in table and table["severity"] not in SEVERITIES:
             raise ConfigError(f"severity {table['severity']!r} is not one of {SEVERITIES}",
                               file=name, key=f"{where}.severity")

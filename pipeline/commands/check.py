@@ -12,8 +12,10 @@ from pipeline.checks import Thresholds, load_fluid_data, run_checks, select_chec
 from pipeline.checks.render import print_run, write_json, write_junit
 from pipeline.checks import POSTPROCESSORS  # issue 8
 from pipeline.decisions import (  # issue 8: waivers and threshold overrides
-    WaiverStep, add_decisions_argument, load_decisions, with_threshold_overrides)
+    add_decisions_argument, load_decisions, with_threshold_overrides)
+from pipeline.decisions.checks import all_notes, check_inputs  # exclusions apply to checks
 from pipeline.errors import CheckError
+from pipeline.progress import brief
 from pipeline.store import open_store
 
 NAME = "check"
@@ -49,15 +51,16 @@ def run(args) -> int:
     thresholds = Thresholds.load(args.config)
     decisions = load_decisions(args.decisions)  # issue 8: overrides merged, waivers applied
     thresholds = with_threshold_overrides(thresholds, decisions)
-    waivers = WaiverStep(decisions)
     with open_store(args.store, create=False) as store:
         fluids = load_fluid_data(store.con, args.fluid)
         if not fluids:
             raise CheckError(f"the store {store.path} holds no fluids; run 'fluidledger ingest' first")
+        # excluded data leave the inputs; findings resting on them come back as 'excluded'
+        fluids, steps = check_inputs(store.con, decisions, fluids, thresholds)
         result = run_checks(fluids, checks=args.check, tags=args.tag, thresholds=thresholds,
                             con=store.con,
                             parameters={**_parameters(args), "decisions": decisions.path},
-                            postprocessors=(*POSTPROCESSORS, waivers))  # issue 8
+                            postprocessors=(*POSTPROCESSORS, *steps))  # issue 8
     if args.json:
         write_json(result, args.json)
     if args.junit:
@@ -65,7 +68,9 @@ def run(args) -> int:
     if args.quiet:
         print(result.asstr(), file=sys.stdout)
     else:
-        print_run(result, sys.stdout, show_all=args.show_all)
-        for line in waivers.notes():  # issue 8
+        # off a terminal (cron, CI): the findings needing attention and the verdict only
+        print_run(result, sys.stdout, show_all=args.show_all,
+                  counts_table=args.show_all or not brief(args))
+        for line in all_notes(steps):  # issue 8: waivers and exclusions applied
             print(line)
     return result.exit_code(args.fail_on)

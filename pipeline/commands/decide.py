@@ -11,6 +11,7 @@ import argparse
 import os
 from datetime import date
 
+from pipeline.commands import finite_float
 from pipeline.decisions.draft import draft
 from pipeline.decisions.edit import add_decision
 from pipeline.decisions.store import DEFAULT_PATH, DecisionsError, resolve_path
@@ -74,8 +75,8 @@ def _exclude_observations(p) -> None:
     p.add_argument("--fluid", help="filter: fluid (with --boundary, instead of --file)")
     p.add_argument("--boundary", choices=BOUNDARIES, help="filter: phase boundary")
     p.add_argument("--solid-phase", help="filter: solid phase label")
-    p.add_argument("--T-min", type=float, dest="T_min_K", metavar="K", help="filter: lowest T [K]")
-    p.add_argument("--T-max", type=float, dest="T_max_K", metavar="K", help="filter: highest T [K]")
+    p.add_argument("--T-min", type=finite_float, dest="T_min_K", metavar="K", help="filter: lowest T [K]")
+    p.add_argument("--T-max", type=finite_float, dest="T_max_K", metavar="K", help="filter: highest T [K]")
     p.add_argument("--quantity", choices=QUANTITIES,
                    help="only this quantity (default: every quantity of the rows)")
 

@@ -9,7 +9,8 @@ from pipeline.textout import print_table
 
 NAME = "diff"
 HELP = ("Compare two releases of the store: values added, removed and changed (old, new, the "
-        "change in units of the combined uncertainty) and the sources that caused each change.")
+        "change in units of the combined uncertainty; a curve by its value at its reference "
+        "temperature) and the sources that caused each change.")
 
 
 def add_arguments(p) -> None:
@@ -36,7 +37,8 @@ def run(args) -> int:
     if args.json:
         print(json.dumps(result.asdict(), indent=2, sort_keys=True))
         return 0
-    rows = [(c.change, c.value_id, _num(c.old), _num(c.new), c.unit,
+    rows = [(c.change, c.value_id, _num(c.old), _num(c.new),
+             c.unit + (f" at {c.T_ref_K:.6g} K" if c.T_ref_K is not None else ""),
              "" if c.z is None else f"{c.z:+.3g}",
              "; ".join(c.causes + [f"source added: {s}" for s in c.sources_added]
                        + [f"source dropped: {s}" for s in c.sources_removed]) or c.detail)

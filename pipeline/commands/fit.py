@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+from pipeline.commands import finite_float
 from pipeline.decisions import add_decisions_argument, exclusions_for_fit, load_decisions
+from pipeline.progress import brief
 from pipeline.store import open_store
 
 NAME = "fit"
@@ -13,7 +15,7 @@ HELP = ("Fit vapour-pressure, sublimation, melting and saturated-density correla
 def add_arguments(p) -> None:
     p.add_argument("--fluid", action="append", default=None, help="restrict to a fluid (repeatable)")
     p.add_argument("--full", action="store_true", help="refit every group, ignoring input hashes")
-    p.add_argument("--outlier-z", type=float, default=4.0,
+    p.add_argument("--outlier-z", type=finite_float, default=4.0,
                    help="flag points with |normalised residual| above this (default 4)")
     p.add_argument("--min-points", type=int, default=5, help="fewest points to fit (default 5)")
     add_decisions_argument(p)  # issue 8: curation decisions (exclusions)
@@ -28,6 +30,8 @@ def run(args) -> int:
         exclusions = exclusions_for_fit(store.con, decisions)  # issue 8
         result = run_fit(store.con, fluids=args.fluid, settings=settings, full=args.full,
                          exclusions=exclusions)
-    if not args.quiet:
+    if not brief(args):
         print(result.asstr())
+    elif result.changed:   # off a terminal: the counts line only, nothing when nothing changed
+        print("fit: " + result.asstr().splitlines()[-1])
     return 0

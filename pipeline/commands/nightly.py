@@ -1,5 +1,9 @@
 """``fluidledger nightly``: ingest, refit what changed, check, publish when clean, report.
 
+Off a terminal (cron, CI) and with ``--quiet`` it prints one line, the verdict with the counts
+and the report's path; warnings and errors go to stderr; the full log is in the run's
+nightly.log. On a terminal it shows a progress bar per stage and a short summary.
+
 Exit codes: 0 every check passed (warnings allowed; also when checks fail with ``--exit-zero``),
 1 a check failed, 2 a usage error or a raw batch that could not be ingested, 3 a check raised,
 the publish failed, the verify stage found the store or a release damaged, or an internal
@@ -10,6 +14,8 @@ from __future__ import annotations
 
 import sys
 from pathlib import Path
+
+from pipeline.progress import brief
 
 NAME = "nightly"
 HELP = ("Run the nightly job: ingest new or changed batches, refit the fluids whose data "
@@ -45,12 +51,7 @@ def run(args) -> int:
                              quiet=args.quiet, verbose=args.verbose, exit_zero=args.exit_zero,
                              decisions=args.decisions)
     result = run_nightly(options)
-    if args.quiet:
-        print(f"nightly {result.run_id}: {result.verdict.upper()} (exit {result.exit_code})"
-              + ("; no changes" if result.no_changes else ""))
-        print(f"report: {result.report['html']}")
-    else:
-        print(result.asstr())
+    print(result.verdict_line() if brief(args) else result.asstr())
     for err in result.stages["ingest"].detail.get("errors", []):
         print(f"fluidledger nightly: error: {err['batch']}: {err['error']}", file=sys.stderr)
     return result.exit_code

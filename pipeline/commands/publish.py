@@ -12,6 +12,7 @@ import json
 from pathlib import Path
 
 from pipeline.decisions import add_decisions_argument, load_decisions, publish_decisions  # issue 8
+from pipeline.progress import brief
 from pipeline.store import open_store
 
 NAME = "publish"
@@ -31,6 +32,9 @@ def add_arguments(p) -> None:
                         "(default: the store's folder)")
     p.add_argument("--policy", type=Path, default=None, metavar="FILE",
                    help="recommendation policy TOML (default: pipeline/publish/policy.toml)")
+    p.add_argument("--full", action="store_true",
+                   help="compute every fluid afresh instead of copying the rows of fluids whose "
+                        "inputs are unchanged since the previous release (same result, slower)")
     p.add_argument("--json", action="store_true", help="print the result as JSON")
     add_decisions_argument(p)  # issue 8: source exclusions and preferences
 
@@ -43,10 +47,11 @@ def run(args) -> int:
     with open_store(args.store, create=False) as store:
         result = publish(store.con, store.path, name=args.release,
                          allow_failures=args.allow_failures, out=args.out, policy=policy,
-                         decisions=publish_decisions(store.con, decisions))  # issue 8
+                         decisions=publish_decisions(store.con, decisions),  # issue 8
+                         full=args.full)
     if args.json:
         print(json.dumps(result.asdict(), indent=2, sort_keys=True))
-    elif not args.quiet:
+    elif not brief(args):
         print(result.asstr())
     else:
         print(f"release {result.release_id}" + (" (marked: failed checks)"

@@ -4,6 +4,10 @@ The database is opened read-only with file access outside it disabled; statement
 SELECT (DESCRIBE, SHOW, SUMMARIZE, FROM-first), EXPLAIN, PRAGMA and CALL are refused before
 they run (exit 2). The working store may be busy while a stage writes it (exit 75): the
 published file (``--published``) is never locked by a writer.
+
+``--published`` is a plain switch (the published file beside the store), so
+``fluidledger query --published "SQL"`` reads the SQL as SQL; another published file is named
+with ``--published-file PATH``, which implies ``--published``.
 """
 
 from __future__ import annotations
@@ -24,17 +28,19 @@ def add_arguments(p) -> None:
     p.add_argument("sql", metavar="SQL", help="one or more read statements; the last one's "
                                               "result is printed")
     p.add_argument("--csv", action="store_true", help="print CSV instead of a table")
-    p.add_argument("--published", nargs="?", const="", default=None, metavar="PATH",
-                   help="query the published file (default: published.duckdb beside the store)")
+    p.add_argument("--published", action="store_true",
+                   help="query the published file (published.duckdb beside the store)")
+    p.add_argument("--published-file", metavar="PATH", default=None,
+                   help="query this published file (implies --published)")
 
 
 def target_path(args) -> Path:
     from pipeline.publish.published import PUBLISHED_NAME
 
+    if args.published_file:
+        return Path(args.published_file)
     store = resolve_store_path(args.store)
-    if args.published is None:
-        return store
-    return Path(args.published) if args.published else store.parent / PUBLISHED_NAME
+    return store.parent / PUBLISHED_NAME if args.published else store
 
 
 def run(args) -> int:

@@ -402,6 +402,16 @@ def _check_rows(con, run_id: str | None, check_id: str, fluid_id: str) -> list[d
             for r in rows]
 
 
+def _excluded_checks(con, run_id: str | None, decision_id: str) -> list[dict]:
+    """Findings of the check run that rest on data the decision excluded."""
+    if run_id is None:
+        return []
+    rows = con.execute("SELECT check_id, fluid_id, subject, status FROM check_result WHERE "
+                       "run_id = ? AND decision_id = ? AND status = 'excluded' ORDER BY ALL",
+                       [run_id, decision_id]).fetchall()
+    return [dict(zip(("check_id", "fluid_id", "subject", "status"), r)) for r in rows]
+
+
 def _touch_exclusion(con, t: Touch) -> None:
     resolved = resolve_observations(con, t.decision)
     if resolved.dangling:
@@ -464,6 +474,9 @@ def resolve_all(con, decisions: DecisionSet | Sequence[Decision], *,
         t = Touch(d)
         if d.kind in ("exclude_observations", "exclude_source"):
             _touch_exclusion(con, t)
+            t.checks = _excluded_checks(con, run_id, d.id)
+            if t.state == "idle" and t.checks:
+                t.state, t.reason = "active", ""
         if d.kind in ("exclude_source", "prefer_source") and t.state != "dangling":
             dangling = source_rule_dangling(con, d)
             if dangling:

@@ -8,6 +8,8 @@ that would be dangling the moment it is written.
 
 from __future__ import annotations
 
+import math
+
 from datetime import date
 from typing import Any, Callable, Mapping
 
@@ -99,6 +101,10 @@ def coerce_value(text: str, default: Any) -> Any:
         except ValueError:
             raise DecisionsError(f"expected a number, got {text!r}",
                                  key="override_threshold.value") from None
+        if not math.isfinite(number):
+            raise DecisionsError(f"expected a finite number, got {text!r} (NaN and infinity "
+                                 "would make every comparison with the threshold false)",
+                                 key="override_threshold.value")
         return int(number) if isinstance(default, int) and number.is_integer() else number
     return text
 

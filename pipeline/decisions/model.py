@@ -17,7 +17,7 @@ ACTIONS = ("exclude_observations", "exclude_source", "prefer_source", "waive_che
 
 
 class _Frozen(BaseModel):
-    model_config = ConfigDict(frozen=True, extra="forbid")
+    model_config = ConfigDict(frozen=True, extra="forbid", allow_inf_nan=False)
 
 
 class ExcludeObservations(_Frozen):

@@ -13,7 +13,6 @@ Nothing here reads the store: whether a reference still points at something is
 
 from __future__ import annotations
 
-import tomllib
 from datetime import date, datetime
 from pathlib import Path
 from typing import Any, Mapping
@@ -22,7 +21,8 @@ import jsonschema
 
 from pipeline.decisions.model import ACTIONS, Decision, DecisionSet
 from pipeline.errors import ConfigError
-from pipeline.ingest.contract import key_path, load_schema
+from pipeline.ingest.contract import Validator, key_path, load_schema, schema_message
+from pipeline.ingest.rawread import MAX_TOML_BYTES, parse_toml, read_regular
 
 SCHEMA_NAME = "decisions.schema.json"
 DEFAULT_PATH = Path("raw") / "decisions.toml"
@@ -79,17 +79,17 @@ def add_decisions_argument(parser) -> None:
 
 
 def read_document(path: Path) -> dict:
-    """The parsed TOML of ``path``; a syntax error names the file and the line."""
-    try:
-        text = path.read_bytes().decode("utf-8-sig")
-    except FileNotFoundError:
-        raise DecisionsError("decisions file not found", file=str(path)) from None
-    except UnicodeDecodeError as err:
-        raise DecisionsError(f"not valid UTF-8 (byte {err.start})", file=str(path)) from None
-    try:
-        return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        raise DecisionsError(f"malformed TOML: {err}", file=str(path)) from None
+    """The parsed TOML of ``path``; a syntax error names the file and the line. Only a regular
+    file is read, within the size and nesting bounds of :mod:`pipeline.ingest.rawread`."""
+    data = read_regular(path, str(path), limit=MAX_TOML_BYTES, error=_read_error)
+    return parse_toml(data, str(path), _read_error)
+
+
+def _read_error(message: str, *, file: str | None = None) -> DecisionsError:
+    """How :mod:`pipeline.ingest.rawread` reports a problem of the decisions file."""
+    if message == "file not found":
+        message = "decisions file not found"
+    return DecisionsError(message, file=file)
 
 
 def parse_document(document: Mapping[str, Any], label: str) -> DecisionSet:
@@ -146,8 +146,8 @@ _FRIENDLY = {
 
 
 def _schema_problems(plain, names: list[str]) -> list[tuple[str | None, str | None, str]]:
-    validator = jsonschema.Draft202012Validator(
-        load_schema(SCHEMA_NAME), format_checker=jsonschema.Draft202012Validator.FORMAT_CHECKER)
+    validator = Validator(load_schema(SCHEMA_NAME),
+                          format_checker=jsonschema.Draft202012Validator.FORMAT_CHECKER)
     out = []
     for err in validator.iter_errors(plain):
         path = list(err.absolute_path)
@@ -157,7 +157,7 @@ def _schema_problems(plain, names: list[str]) -> list[tuple[str | None, str | No
         if len(path) >= 2 and path[0] == "decision" and isinstance(path[1], int):
             decision, rel = names[path[1]] if path[1] < len(names) else f"#{path[1] + 1}", path[2:]
         key = key_path(rel) if rel else None
-        message = err.message
+        message = schema_message(err)
         if err.validator == "required":
             missing = [p for p in err.validator_value if p not in err.instance]
             key = ".".join(filter(None, [key, missing[0]])) if missing else key

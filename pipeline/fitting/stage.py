@@ -29,6 +29,7 @@ from pipeline.errors import FitError
 from pipeline.fitting.groups import FIT_PLAN, FITTED_QUANTITIES, SOURCE_RANK, reference_point
 from pipeline.fitting.write import Writer, fit_id_of
 from pipeline.ingest.stage import new_run_id, utcnow
+from pipeline.store.runs import end_run
 
 
 @dataclass(frozen=True)
@@ -181,39 +182,50 @@ def run_fit(con: duckdb.DuckDBPyConnection, *, fluids: list[str] | None = None,
     clock = _Clock()
     run_id = run_id or new_run_id("fit")
     exclusions = exclusions or {}
+    if fluids:
+        known = [r[0] for r in con.execute("SELECT fluid_id FROM fluid ORDER BY 1").fetchall()]
+        unknown = [f for f in dict.fromkeys(fluids) if f not in known]
+        if unknown:
+            raise FitError(f"unknown fluid(s) {', '.join(unknown)}; the store holds: "
+                           f"{', '.join(known) or '(none)'}", key="--fluid")
     con.execute("INSERT INTO run VALUES (?, 'fit', ?, NULL, ?, ?, 'running', NULL)",
                 [run_id, utcnow(), __version__, json.dumps(
                     {"fluids": fluids, "full": full, **asdict(settings)}, sort_keys=True)])
-    rows = read_rows(con, fluids)
-    fixed = con.execute(_FP_SQL.format(where="WHERE list_contains(?, p.fluid_id)" if fluids else ""),
-                        [fluids] if fluids else []).df()      # small; NULL numbers as NaN
-    points: dict[str, list[dict]] = {}
-    for record in fixed.to_dict("records"):    # split per fluid once, as plain records
-        points.setdefault(record["fluid_id"], []).append(record)
-    current = dict(((r[0], r[1], r[2], r[3]), r[4]) for r in con.execute(
-        "SELECT fluid_id, boundary, solid_phase, quantity, input_hash FROM fit WHERE is_current"
-    ).fetchall())
-    clock.lap("read")
-    excluded_rows = np.isin(rows.obs_id, np.fromiter(exclusions, dtype=np.int64,
-                                                     count=len(exclusions)))
-    jobs = []
-    for j, key in enumerate(rows.keys):
-        if (key[1], key[3]) not in FIT_PLAN and key[3] != "pressure":
-            continue  # single-point properties (densities, enthalpies on solid boundaries)
-        lo, hi = int(rows.offsets[j]), int(rows.offsets[j + 1])
-        jobs.append(_prepare(key, rows, lo, hi, excluded_rows[lo:hi], points.get(key[0], []),
-                             settings, exclusions, current, full))
-    clock.lap("prepare")
-    todo = [j for j in jobs if j.series is not None]
-    if path == "per-group":
-        _fit_each(todo, settings)
-    else:
-        _fit_all(todo, settings, workers)
-    clock.lap("fit")
-    result, writer = FitRunResult(run_id), Writer(run_id, rows)
-    result.groups = [_finish(j, writer) for j in jobs]
-    clock.lap("finish")
-    writer.write(con)
+    try:
+        rows = read_rows(con, fluids)
+        where = "WHERE list_contains(?, p.fluid_id)" if fluids else ""
+        fixed = con.execute(_FP_SQL.format(where=where),
+                            [fluids] if fluids else []).df()      # small; NULL numbers as NaN
+        points: dict[str, list[dict]] = {}
+        for record in fixed.to_dict("records"):    # split per fluid once, as plain records
+            points.setdefault(record["fluid_id"], []).append(record)
+        current = dict(((r[0], r[1], r[2], r[3]), r[4]) for r in con.execute(
+            "SELECT fluid_id, boundary, solid_phase, quantity, input_hash FROM fit WHERE is_current"
+        ).fetchall())
+        clock.lap("read")
+        excluded_rows = np.isin(rows.obs_id, np.fromiter(exclusions, dtype=np.int64,
+                                                         count=len(exclusions)))
+        jobs = []
+        for j, key in enumerate(rows.keys):
+            if (key[1], key[3]) not in FIT_PLAN and key[3] != "pressure":
+                continue  # single-point properties (densities, enthalpies on solid boundaries)
+            lo, hi = int(rows.offsets[j]), int(rows.offsets[j + 1])
+            jobs.append(_prepare(key, rows, lo, hi, excluded_rows[lo:hi], points.get(key[0], []),
+                                 settings, exclusions, current, full))
+        clock.lap("prepare")
+        todo = [j for j in jobs if j.series is not None]
+        if path == "per-group":
+            _fit_each(todo, settings)
+        else:
+            _fit_all(todo, settings, workers)
+        clock.lap("fit")
+        result, writer = FitRunResult(run_id), Writer(run_id, rows)
+        result.groups = [_finish(j, writer) for j in jobs]
+        clock.lap("finish")
+        writer.write(con)
+    except BaseException as err:
+        end_run(con, run_id, err)
+        raise
     status = "ok" if result.changed else "no-changes"
     con.execute("UPDATE run SET finished_at = ?, status = ?, summary_json = ? WHERE run_id = ?",
                 [utcnow(), status, json.dumps(result.asdict(), sort_keys=True, default=str), run_id])

@@ -1,24 +1,34 @@
 """The raw batch contract: ``raw/fluids.toml`` and ``<batch>/batch.toml``.
 
-A manifest is parsed with :mod:`tomllib`, validated against its JSON Schema (2020-12) in
+A manifest is read once (:mod:`pipeline.ingest.rawread`: regular files only, bounded in size
+and nesting depth), parsed with :mod:`tomllib`, validated against its JSON Schema (2020-12) in
 ``schemas/`` before any row is read, and then parsed into frozen pydantic models. A violation
-is reported with the file, the key path and what was expected.
+is reported with the file, the key path and what was expected, quoting at most a short
+excerpt of the offending value.
+
+JSON has no NaN or infinity, so the schemas' ``number`` means a finite number here (TOML
+allows ``nan`` and ``inf``; they are refused), and a ``pattern`` has its ECMA-262 meaning:
+``$`` matches only at the end of the text (Python's ``$`` also matches before a final
+newline, which let ``"argon\\n"`` pass as a slug).
 """
 
 from __future__ import annotations
 
 import hashlib
 import json
-import tomllib
+import math
+import re
 from functools import lru_cache
 from importlib import resources
 from pathlib import Path
 from typing import Any
 
 import jsonschema
-from pydantic import BaseModel, ConfigDict, Field
+from jsonschema import validators
+from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from pipeline.errors import BatchError, ConfigError
+from pipeline.ingest.rawread import MAX_TOML_BYTES, parse_toml, read_regular
 
 SCHEMA_DIR = Path(__file__).resolve().parents[2] / "schemas"
 QUANTITY_COLUMNS = ("rho_liquid", "rho_vapour", "rho_solid",
@@ -43,36 +53,103 @@ def key_path(parts) -> str:
     return out or "(top level)"
 
 
+#: Longest excerpt of an offending value quoted in a schema error [characters]
+EXCERPT = 60
+
+
+def _finite_number(checker, instance) -> bool:
+    return (isinstance(instance, (int, float)) and not isinstance(instance, bool)
+            and (not isinstance(instance, float) or math.isfinite(instance)))
+
+
+@lru_cache(maxsize=None)
+def _ecma(pattern: str) -> re.Pattern:
+    """``pattern`` compiled with ECMA-262's ``$``: the end of the text, never before a final
+    newline (every unescaped ``$`` outside a character class becomes ``\\Z``)."""
+    out, escaped, in_class = [], False, False
+    for ch in pattern:
+        if escaped:
+            escaped = False
+        elif ch == "\\":
+            escaped = True
+        elif ch == "[":
+            in_class = True
+        elif ch == "]":
+            in_class = False
+        elif ch == "$" and not in_class:
+            ch = r"\Z"
+        out.append(ch)
+    return re.compile("".join(out))
+
+
+def _pattern(validator, pattern, instance, schema):
+    if validator.is_type(instance, "string") and not _ecma(pattern).search(instance):
+        yield jsonschema.ValidationError(f"{instance!r} does not match {pattern!r}")
+
+
+#: Draft 2020-12 with finite numbers and ECMA-262 patterns (see the module docstring): the
+#: batch, fluids and decisions files are validated with it
+Validator = validators.extend(
+    jsonschema.Draft202012Validator,
+    validators={"pattern": _pattern},
+    type_checker=jsonschema.Draft202012Validator.TYPE_CHECKER.redefine("number", _finite_number))
+
+
+def excerpt(value: Any, limit: int = EXCERPT) -> str:
+    """``repr(value)`` cut to ``limit`` characters, saying how long the whole was."""
+    text = repr(value)
+    if len(text) <= limit:
+        return text
+    return f"{text[:limit]}... ({len(text):,} characters)"
+
+
+def schema_message(err: jsonschema.ValidationError) -> str:
+    """What a violation expected, quoting at most a short excerpt of the value."""
+    instance = err.instance
+    if err.validator == "type" and isinstance(instance, float) and not math.isfinite(instance):
+        return f"{instance!r} is not a finite number (NaN and infinity are refused)"
+    message = err.message
+    if len(message) > 4 * EXCERPT:
+        long = repr(instance)
+        message = message.replace(long, excerpt(instance)) if long in message else \
+            message[:4 * EXCERPT] + f"... ({len(message):,} characters)"
+    if err.validator == "pattern" and isinstance(err.schema, dict) and \
+            err.schema.get("description"):
+        message += f" ({err.schema['description']})"
+    return message
+
+
 def schema_errors(document: Any, schema_name: str) -> list[tuple[str, str]]:
     """All violations of a schema, as (key path, what was expected), sorted by path."""
-    validator = jsonschema.Draft202012Validator(load_schema(schema_name))
+    validator = Validator(load_schema(schema_name))
     found = []
     for err in validator.iter_errors(document):
-        found.append((key_path(err.absolute_path), err.message))
+        found.append((key_path(err.absolute_path), schema_message(err)))
     return sorted(found)
 
 
-def read_toml(path: Path, error=BatchError) -> dict:
-    """Parse a TOML file; a syntax error names the file, line and column."""
-    try:
-        return tomllib.loads(path.read_bytes().decode("utf-8-sig"))
-    except FileNotFoundError:
-        raise error("file not found", file=str(path)) from None
-    except UnicodeDecodeError as err:
-        raise error(f"not valid UTF-8 (byte {err.start})", file=str(path)) from None
-    except tomllib.TOMLDecodeError as err:
-        raise error(f"malformed TOML: {err}", file=str(path)) from None
+def read_toml(path: Path, error=BatchError, *, data: bytes | None = None,
+              label: str | None = None) -> dict:
+    """Parse a TOML file (or its bytes ``data``, already read); a syntax error names the file,
+    line and column. Only a regular file is read, and only within the size and depth bounds
+    of :mod:`pipeline.ingest.rawread`."""
+    label = label or str(path)
+    if data is None:
+        data = read_regular(path, label, limit=MAX_TOML_BYTES, error=error)
+    return parse_toml(data, label, error)
 
 
-def validated(path: Path, schema_name: str, error=BatchError) -> dict:
+def validated(path: Path, schema_name: str, error=BatchError, *, data: bytes | None = None,
+              label: str | None = None) -> dict:
     """Parse and validate a manifest; raise ``error`` listing every violation."""
-    document = read_toml(path, error)
+    label = label or str(path)
+    document = read_toml(path, error, data=data, label=label)
     problems = schema_errors(document, schema_name)
     if problems:
         key, what = problems[0]
         more = f" (and {len(problems) - 1} more: " + "; ".join(
             f"{k}: {w}" for k, w in problems[1:4]) + ")" if len(problems) > 1 else ""
-        raise error(f"does not match {schema_name}: {what}{more}", file=str(path), key=key)
+        raise error(f"does not match {schema_name}: {what}{more}", file=label, key=key)
     return document
 
 
@@ -83,7 +160,8 @@ def canonical_hash(obj: Any) -> str:
 
 
 class _Frozen(BaseModel):
-    model_config = ConfigDict(frozen=True, extra="forbid", populate_by_name=True)
+    model_config = ConfigDict(frozen=True, extra="forbid", populate_by_name=True,
+                              allow_inf_nan=False)
 
 
 class QuantityValue(_Frozen):
@@ -196,12 +274,25 @@ class BatchManifest(_Frozen):
     constant: tuple[ConstantSpec, ...] = ()
 
 
+def parse_model(model: type[BaseModel], document: Any, label: str, error=BatchError,
+                prefix: tuple = ()):
+    """``model`` built from a schema-valid document; what the schema cannot say (a finite
+    number where the schema's types allow more) is refused naming the key."""
+    try:
+        return model.model_validate(document)
+    except ValidationError as err:
+        first = err.errors()[0]
+        raise error(f"does not match the batch contract: {first['msg']} (value "
+                    f"{excerpt(first.get('input'))})", file=label,
+                    key=key_path([*prefix, *first["loc"]])) from None
+
+
 def load_fluids(path: Path) -> dict[str, Fluid]:
     """``raw/fluids.toml`` validated and parsed; duplicate ids are an error."""
     doc = validated(path, "fluids.schema.json", ConfigError)
     fluids: dict[str, Fluid] = {}
     for i, entry in enumerate(doc["fluid"]):
-        fluid = Fluid.model_validate(entry)
+        fluid = parse_model(Fluid, entry, str(path), ConfigError, ("fluid", i))
         if fluid.id in fluids:
             raise ConfigError(f"fluid id '{fluid.id}' is listed twice", file=str(path),
                               key=f"fluid[{i}].id")
@@ -209,7 +300,9 @@ def load_fluids(path: Path) -> dict[str, Fluid]:
     return fluids
 
 
-def load_batch(path: Path) -> tuple[BatchManifest, dict]:
-    """A batch.toml validated and parsed; returns the model and the raw document."""
-    doc = validated(path, "batch.schema.json")
-    return BatchManifest.model_validate(doc), doc
+def load_batch(path: Path, *, data: bytes | None = None,
+               label: str | None = None) -> tuple[BatchManifest, dict]:
+    """A batch.toml (or its bytes ``data``, already read) validated and parsed; returns the
+    model and the raw document."""
+    doc = validated(path, "batch.schema.json", data=data, label=label)
+    return parse_model(BatchManifest, doc, label or str(path)), doc

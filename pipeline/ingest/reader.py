@@ -6,13 +6,22 @@ structurally bad lines go to DuckDB's reject table, which is copied out before t
 Each staged row carries its file row number (1 = first line after the header), computed
 from the file bytes so that skipped blank/comment lines and rejected lines keep numbering
 exact.
+
+The rows come from the bytes the caller read and hashed, never from a second read of the
+file: DuckDB reads a private copy of them (from the header line on, line endings made LF),
+so a file rewritten during the ingest cannot put one version's rows under the other's
+SHA-256. Before DuckDB sees anything the bytes are bounded: at most :data:`MAX_COLUMNS`
+header columns and :data:`MAX_LINE_BYTES` bytes per line (a longer line is no number). With
+``comment`` declared, comment and blank lines above the header are skipped too.
 """
 
 from __future__ import annotations
 
 import csv
 import io
+import os
 import re
+import tempfile
 from dataclasses import dataclass
 
 import duckdb
@@ -24,6 +33,10 @@ from pipeline.errors import BatchError
 ENCODINGS = {"utf-8": "utf-8", "utf-8-sig": "utf-8", "latin-1": "latin-1"}
 _DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}
 RESERVED_COLUMNS = ("row_number", "ord")  # added to the staging table by stage_csv
+#: Most columns a header may have (a batch maps a few; a wide export may carry some more)
+MAX_COLUMNS = 1024
+#: Longest line of a CSV file [bytes]; no cell of numbers comes near it
+MAX_LINE_BYTES = 1024 * 1024
 
 
 @dataclass(frozen=True)
@@ -48,16 +61,18 @@ def _decode(data: bytes, encoding: str, label: str) -> str:
                          row=line - 1) from None
 
 
-def read_header(text: str, spec, label: str) -> tuple[str, ...]:
-    """The header row, split with the declared delimiter and quote."""
-    first = text.split("\n", 1)[0].rstrip("\r")
-    if not text.strip():
-        raise BatchError("file is empty (no header, no rows)", file=label)
+def read_header(first: str, spec, label: str) -> tuple[str, ...]:
+    """The header row (the text of the header line), split with the declared delimiter and
+    quote; at most :data:`MAX_COLUMNS` columns."""
+    first = first.rstrip("\r")
     try:
         header = tuple(c.strip() for c in next(csv.reader(
             io.StringIO(first), delimiter=spec.delimiter, quotechar=spec.quote), []))
     except csv.Error as err:  # e.g. a lone carriage return inside the header line
         raise BatchError(f"header line cannot be read as CSV: {err}", file=label, row=0) from None
+    if len(header) > MAX_COLUMNS:
+        raise BatchError(f"header has {len(header):,} columns; the limit is {MAX_COLUMNS:,}",
+                         file=label, row=0)
     if len(set(header)) != len(header):
         dup = sorted({c for c in header if header.count(c) > 1})
         raise BatchError(f"header repeats column(s) {dup}", file=label, row=0)
@@ -85,42 +100,102 @@ def check_columns(header: tuple[str, ...], needed: dict[str, str], spec, label: 
                          "extra_columns = \"ignore\" for the table", file=label, column=extra[0])
 
 
-def _data_lines(data: bytes, comment: str) -> np.ndarray:
-    """File line numbers (1-based) of the lines DuckDB treats as records, header excluded.
+@dataclass(frozen=True)
+class _Lines:
+    """Where the physical lines of the file bytes are (1-based line i = index i - 1)."""
 
-    Vectorised over the raw bytes: a line is skipped when it is empty (or only ``\r``) or
-    starts with the comment character.
-    """
-    buf = np.frombuffer(data, dtype=np.uint8)
-    newlines = np.flatnonzero(buf == 10)
-    starts = np.concatenate(([0], newlines + 1))
-    ends = np.concatenate((newlines, [buf.size]))
-    if starts[-1] == buf.size:          # trailing newline: no last line
-        starts, ends = starts[:-1], ends[:-1]
-    length = ends - starts
-    cr = np.zeros_like(length, dtype=bool)
-    has = length > 0
-    cr[has] = buf[ends[has] - 1] == 13
-    content = length - cr
-    keep = content > 0
-    if comment:
-        first = np.zeros_like(keep)
-        first[has] = buf[starts[has]] == ord(comment)
-        keep &= ~first
-    numbers = np.flatnonzero(keep) + 1
-    return numbers[numbers > 1]
+    starts: np.ndarray       # byte offset of each line
+    content: np.ndarray      # its length without the line break (and a CR before it)
+    first_byte: np.ndarray   # its first byte (-1 for an empty line)
+
+    @classmethod
+    def of(cls, data: bytes) -> "_Lines":
+        buf = np.frombuffer(data, dtype=np.uint8)
+        newlines = np.flatnonzero(buf == 10)
+        starts = np.concatenate(([0], newlines + 1))
+        ends = np.concatenate((newlines, [buf.size]))
+        if starts[-1] == buf.size:          # trailing newline: no last line
+            starts, ends = starts[:-1], ends[:-1]
+        length = ends - starts
+        has = length > 0
+        cr = np.zeros_like(length, dtype=bool)
+        cr[has] = buf[ends[has] - 1] == 13
+        first = np.full(length.shape, -1, dtype=np.int64)
+        first[has] = buf[starts[has]]
+        return cls(starts, length - cr, first)
+
+    def skipped(self, comment: str) -> np.ndarray:
+        """Per line: blank (or only ``\\r``), or starting with the comment character."""
+        skip = self.content <= 0
+        if comment:
+            skip |= self.first_byte == ord(comment)
+        return skip
+
+
+class _Physical:
+    """The file's lines (``physical[i]`` is line i + 1), split only when first needed: a large
+    file without rejects or comments never pays for a list of its lines."""
+
+    def __init__(self, text: str):
+        self._text, self._lines = text, None
+
+    def _split(self) -> list[str]:
+        if self._lines is None:
+            self._lines = self._text.split("\n")
+        return self._lines
+
+    def __getitem__(self, i: int) -> str:
+        if i == 0 and self._lines is None:
+            end = self._text.find("\n")
+            return self._text if end < 0 else self._text[:end]
+        return self._split()[i]
+
+    def __len__(self) -> int:
+        return len(self._split())
+
+
+def _header_line(lines: _Lines, comment: str, label: str) -> int:
+    """The 1-based line of the header: the first line, or with ``comment`` declared the first
+    line that is neither blank nor a comment."""
+    if lines.content.size == 0 or not (lines.content > 0).any():
+        raise BatchError("file is empty (no header, no rows)", file=label)
+    if not comment:
+        return 1
+    candidates = np.flatnonzero(~lines.skipped(comment))
+    if candidates.size == 0:
+        raise BatchError("file holds only comment and blank lines (no header, no rows)",
+                         file=label)
+    return int(candidates[0]) + 1
+
+
+def _data_lines(lines: _Lines, comment: str, header: int) -> np.ndarray:
+    """File line numbers (1-based) of the lines DuckDB treats as records, after the header:
+    a line is skipped when it is empty (or only ``\\r``) or starts with the comment
+    character."""
+    numbers = np.flatnonzero(~lines.skipped(comment)) + 1
+    return numbers[numbers > header]
+
+
+def _check_line_lengths(lines: _Lines, header: int, label: str) -> None:
+    """Refuse a line longer than :data:`MAX_LINE_BYTES`, naming its row."""
+    long = np.flatnonzero(lines.content > MAX_LINE_BYTES)
+    if long.size:
+        line = int(long[0]) + 1
+        raise BatchError(f"line of {int(lines.content[long[0]]):,} bytes, over the limit of "
+                         f"{MAX_LINE_BYTES:,} bytes per line (no cell of numbers is that "
+                         "long); fix or remove the row", file=label, row=max(line - header, 0))
 
 
 _REJECT_TEXT_LIMIT = 10_000  # DuckDB cuts the csv_line of a reject at this many characters
 
 
-def _swallowed(rejects, text: str, lines: np.ndarray) -> list[tuple[int, None, str, str]]:
+def _swallowed(rejects, physical: _Physical, lines: np.ndarray, header_line: int
+               ) -> list[tuple[int, None, str, str]]:
     """Rejects for the data lines a rejected record swallowed (an unterminated quote runs on
     over the following lines, to the end of the file when DuckDB cut the record's text), so
-    that every data line is still one row."""
+    that every data line is still one row (``physical``: the file's lines)."""
     if not rejects:
         return []
-    physical = text.split("\n")
     out, taken = [], {int(r[0]) for r in rejects}
     for line, _, raw, message in rejects:
         span = (raw or "").strip("\r\n").count("\n")
@@ -130,67 +205,102 @@ def _swallowed(rejects, text: str, lines: np.ndarray) -> list[tuple[int, None, s
                 taken.add(int(swallowed))
                 out.append((int(swallowed), None, physical[swallowed - 1].rstrip("\r"),
                             f"{message.split(':')[0]}: line is inside the quoted value left "
-                            f"open on row {int(line) - 1}"))
+                            f"open on row {int(line) - header_line}"))
     return out
 
 
-def _reject_inline_comments(con, table: str, text: str, good_lines: np.ndarray, comment: str,
-                            rejects: list) -> int:
+def _reject_inline_comments(con, table: str, physical: _Physical, good_lines: np.ndarray,
+                            comment: str, rejects: list, header_line: int) -> int:
     """Move staged rows whose line holds the comment character to the rejects.
 
     DuckDB cuts a line at an unquoted comment character, so ``85.0,78.9#3`` would load as
     78.9; the contract skips whole comment lines only, so such a row is quarantined
     (bad-row-shape) rather than silently shortened. Returns the number of rows moved.
     """
-    physical = text.split("\n")
     inline = [int(n) for n in good_lines if comment in physical[n - 1]]
     if inline:
         con.execute(f"DELETE FROM {table} WHERE list_contains($rows, row_number)",
-                    {"rows": [n - 1 for n in inline]})
+                    {"rows": [n - header_line for n in inline]})
         rejects += [(n, None, physical[n - 1].rstrip("\r"),
                      f"INLINE COMMENT: comment character {comment!r} inside a data row (only "
                      "whole comment lines are skipped)") for n in inline]
     return len(inline)
 
 
-def stage_csv(con: duckdb.DuckDBPyConnection, path: str, data: bytes, spec, label: str,
+def _private_copy(data: bytes, start: int) -> str:
+    """Write ``data[start:]`` (CRLF made LF) to a private temporary file in chunks, without a
+    second copy of a large file in memory; return its path."""
+    view = memoryview(data)[start:]
+    fd, path = tempfile.mkstemp(prefix="fluidledger-stage-", suffix=".csv")
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            pos, size = 0, len(view)
+            while pos < size:
+                end = min(pos + _COPY_CHUNK, size)
+                while end < size and view[end - 1] == 13:   # keep a CR beside its LF
+                    end += 1
+                fh.write(bytes(view[pos:end]).replace(b"\r\n", b"\n"))
+                pos = end
+    except BaseException:
+        os.unlink(path)
+        raise
+    return path
+
+
+_COPY_CHUNK = 1 << 22
+
+
+def stage_csv(con: duckdb.DuckDBPyConnection, data: bytes, spec, label: str,
               needed: dict[str, str], table: str) -> StagedTable:
-    """Read ``path`` (whose bytes are ``data``) into temporary table ``table``."""
+    """Stage the CSV file whose bytes are ``data`` into temporary table ``table``."""
     text = _decode(data, spec.encoding, label)
-    header = read_header(text, spec, label)
+    body = data[3:] if data.startswith(b"\xef\xbb\xbf") else data
+    info = _Lines.of(body)
+    header_line = _header_line(info, spec.comment, label)
+    physical = _Physical(text)
+    first = physical[header_line - 1]
+    if first.count(spec.delimiter) >= MAX_COLUMNS and len(first) > MAX_LINE_BYTES:
+        raise BatchError(f"header has more than {MAX_COLUMNS:,} columns ({len(first):,} "
+                         f"characters); the limit is {MAX_COLUMNS:,} columns", file=label, row=0)
+    _check_line_lengths(info, header_line, label)
+    header = read_header(first, spec, label)
     check_columns(header, needed, spec, label)
-    lines = _data_lines(data[3:] if data.startswith(b"\xef\xbb\xbf") else data, spec.comment)
+    lines = _data_lines(info, spec.comment, header_line)
     if lines.size == 0:
         raise BatchError("file has a header but no data rows", file=label)
+    start = int(info.starts[header_line - 1])
+    del info                             # freed before DuckDB reads: its arrays are large
+    offset = header_line - 1             # DuckDB numbers the lines of the copy: + offset
     columns = {name: "VARCHAR" for name in header}
     options = dict(header=True, delim=spec.delimiter, quote=spec.quote, escape=spec.quote,
                    columns=columns, auto_detect=False, store_rejects=True, strict_mode=True,
                    all_varchar=True, null_padding=False, encoding=ENCODINGS[spec.encoding],
                    rejects_table="fl_reject_errors", rejects_scan="fl_reject_scans",
-                   rejects_limit=0)
-    if "\r\n" not in text[:4096]:
-        # pinned for LF files; CRLF files are left to the reader, because new_line = '\r\n'
-        # makes DuckDB 2.0 return no rows and no rejects for them
-        options["new_line"] = "\\n"
+                   rejects_limit=0, new_line="\\n")
     if spec.comment:
         options["comment"] = spec.comment
     option_sql = ", ".join(f"{k} = ${k}" for k in options)
     con.execute("DROP TABLE IF EXISTS fl_reject_errors; DROP TABLE IF EXISTS fl_reject_scans")
+    copy = _private_copy(body, start)
     try:
         con.execute(f"CREATE OR REPLACE TEMP TABLE {table} AS SELECT row_number() OVER () AS ord, * "
-                    f"FROM read_csv($path, {option_sql})", {"path": path, **options})
+                    f"FROM read_csv($path, {option_sql})", {"path": copy, **options})
     except duckdb.Error as err:
+        if type(err).__name__ == "InterruptException":
+            raise
         raise BatchError(f"cannot be read as CSV: {str(err).splitlines()[0]}", file=label) from None
-    rejects = con.execute(
-        "SELECT line, column_name, csv_line, error_type || ': ' || error_message "
-        "FROM fl_reject_errors ORDER BY line").fetchall()
-    rejects += _swallowed(rejects, text, lines)
+    finally:
+        os.unlink(copy)
+    rejects = [(int(line) + offset, column, raw, message) for line, column, raw, message in
+               con.execute("SELECT line, column_name, csv_line, error_type || ': ' || "
+                           "error_message FROM fl_reject_errors ORDER BY line").fetchall()]
+    rejects += _swallowed(rejects, physical, lines, header_line)
     reject_lines = np.unique(np.asarray([r[0] for r in rejects], dtype=np.int64))
     if not np.isin(reject_lines, lines).all():
         # DuckDB numbered a record on a line that is not a data line: it broke a line at a
         # lone carriage return, so its line numbers no longer match the file's
         cr = re.search("\r(?!\n)", text)
-        row = text.count("\n", 0, cr.start()) if cr else None
+        row = text.count("\n", 0, cr.start()) + 1 - header_line if cr else None
         raise BatchError("a carriage return not followed by a newline splits a row; remove it "
                          "or quote the cell", file=label, row=row)
     good_lines = lines[~np.isin(lines, reject_lines)]
@@ -198,20 +308,21 @@ def stage_csv(con: duckdb.DuckDBPyConnection, path: str, data: bytes, spec, labe
     if staged != good_lines.size:
         raise BatchError(f"reader accounting mismatch: {staged} rows staged but "
                          f"{good_lines.size} expected; check quoting and line endings", file=label)
-    if np.array_equal(good_lines, np.arange(2, staged + 2)):
+    if header_line == 1 and np.array_equal(good_lines, np.arange(2, staged + 2)):
         # the common case: no blank, comment or rejected lines, so row number = record ordinal
         con.execute(f"ALTER TABLE {table} RENAME COLUMN ord TO row_number")
     else:
         mapping = pa.table({"ord": np.arange(1, staged + 1, dtype=np.int64),
-                            "row_number": good_lines - 1})
+                            "row_number": good_lines - header_line})
         con.register("fl_row_map", mapping)
         con.execute(f"CREATE OR REPLACE TEMP TABLE {table} AS SELECT m.row_number, "
                     f"s.* EXCLUDE (ord) FROM {table} s JOIN fl_row_map m USING (ord)")
         con.unregister("fl_row_map")
     if spec.comment:
-        staged -= _reject_inline_comments(con, table, text, good_lines, spec.comment, rejects)
+        staged -= _reject_inline_comments(con, table, physical, good_lines, spec.comment,
+                                          rejects, header_line)
     seen = {}
     for line, column, raw, message in rejects:
-        seen.setdefault(int(line), (int(line) - 1, column, raw, message))
+        seen.setdefault(int(line), (int(line) - header_line, column, raw, message))
     return StagedTable(table=table, header=header, rows_read=int(staged + len(seen)),
                        rejects=tuple(seen.values()))

@@ -1,13 +1,20 @@
 """The ingest stage: raw batches -> store, one transaction per batch, nothing lost.
 
 Recipe for each batch folder (``<raw>/<batch>/batch.toml``):
-1. validate batch.toml against ``schemas/batch.schema.json`` before reading any row;
-2. hash every file (SHA-256) and compare with the current versions in ``raw_file``: unchanged
+1. read every file of the batch once (regular files only, :mod:`pipeline.ingest.rawread`) and
+   validate batch.toml against ``schemas/batch.schema.json`` before reading any row;
+2. hash those bytes (SHA-256) and compare with the current versions in ``raw_file``: unchanged
    content read the same way is skipped, so a second ingest is a no-op;
 3. in ONE transaction: supersede changed or removed files (old rows stay as history), stage
-   each changed CSV with a pinned dialect, normalise it, insert observations and quarantine
-   rows, record the file with rows_read = rows_loaded + rows_quarantined; any error rolls the
-   whole batch back, leaving the store exactly as before.
+   each changed CSV from the same bytes that were hashed, with a pinned dialect, normalise it,
+   insert observations and quarantine rows, record the file with rows_read = rows_loaded +
+   rows_quarantined; any error rolls the whole batch back, leaving the store exactly as before.
+
+Batches are isolated: whatever goes wrong inside one batch (a refused manifest, a file that is
+a FIFO, even an unexpected exception) refuses that batch with a message naming it, and the
+next batch is ingested. Only a problem of the machine (disk full, a store that cannot be
+written: :func:`pipeline.errors.environment_problem`) or Ctrl-C stops the run; the run row
+then ends ``interrupted`` (Ctrl-C) or ``error``.
 """
 
 from __future__ import annotations
@@ -25,7 +32,15 @@ import duckdb
 import numpy as np
 
 from pipeline import __version__
-from pipeline.errors import BatchError, FluidLedgerError, ScaleError, UnitError
+from pipeline.crashpoints import crash_point
+from pipeline.errors import (
+    BatchError,
+    FluidLedgerError,
+    ScaleError,
+    UnitError,
+    environment_problem,
+    is_interrupt,
+)
 from pipeline.ingest.contract import (
     BatchManifest,
     Fluid,
@@ -34,12 +49,22 @@ from pipeline.ingest.contract import (
     load_batch,
     load_fluids,
 )
+from pipeline.ingest.discover import (
+    absolute,
+    batch_problem,
+    discover_batches,
+    manifest_problem,
+    real_folder,
+    table_file,
+)
 from pipeline.ingest.normalise import QUANTITY_KIND, normalise, uncertainty_sql
 from pipeline.ingest.points import CONSTANT_KIND, constant_row, fixed_point_row
+from pipeline.ingest.rawread import MAX_TOML_BYTES, read_regular
 from pipeline.ingest.reader import stage_csv
 from pipeline.ingest.scales import get_scale
 from pipeline.ingest.units import conversion
 from pipeline.ingest.workbook import is_workbook, stage_workbook, table_path
+from pipeline.store.runs import end_run
 
 log = logging.getLogger(__name__)
 REMOVED = 0  # raw_file.superseded_by for a file that disappeared from raw/
@@ -68,6 +93,7 @@ class BatchResult:
     status: str            # loaded | unchanged | error
     files: list[FileResult] = field(default_factory=list)
     error: str | None = None
+    internal: bool = False  # the batch was refused because of a fault of the code (exit 3)
 
     @property
     def rows(self) -> tuple[int, int, int]:
@@ -105,29 +131,6 @@ class IngestResult:
         return "\n".join(lines)
 
 
-def discover_batches(root: Path) -> list[Path]:
-    """Batch folders under ``root`` (``root`` itself when it holds batch.toml), sorted."""
-    if (root / "batch.toml").is_file():
-        return [root]
-    return sorted(p.parent for p in root.rglob("batch.toml"))
-
-
-def _safe_file(batch_dir: Path, name: str, label: str) -> Path:
-    """The table file, refusing any path (or symlink) that leaves the batch folder."""
-    path = batch_dir / name
-    try:
-        resolved = path.resolve(strict=True)
-    except FileNotFoundError:
-        raise BatchError(f"table file '{name}' named in batch.toml does not exist",
-                         file=label) from None
-    if not resolved.is_relative_to(batch_dir.resolve()):
-        raise BatchError(f"table file '{name}' resolves outside the batch folder "
-                         f"({resolved}); refused", file=label)
-    if not resolved.is_file():
-        raise BatchError(f"table file '{name}' is not a regular file", file=label)
-    return resolved
-
-
 @dataclass
 class _Plan:
     """What one batch holds now, hashed, before anything is written."""
@@ -141,12 +144,18 @@ class _Plan:
 
 
 def plan_batch(root: Path, batch_dir: Path, fluids: dict[str, Fluid]) -> _Plan:
-    """Validate a batch and hash its files (reads, never writes)."""
+    """Validate a batch and read and hash its files, each once (reads, never writes)."""
+    problem = batch_problem(root, batch_dir)
+    if problem:
+        raise BatchError(problem, file=_label(root, batch_dir))
     rel_batch = batch_dir.relative_to(root).as_posix() if batch_dir != root else batch_dir.name
     manifest_file = batch_dir / "batch.toml"
     label = _label(root, manifest_file)
-    data = manifest_file.read_bytes()
-    manifest, doc = load_batch(manifest_file)
+    problem = manifest_problem(root, manifest_file)
+    if problem:
+        raise BatchError(problem, file=label)
+    data = read_regular(manifest_file, label, limit=MAX_TOML_BYTES)
+    manifest, doc = load_batch(manifest_file, data=data, label=label)
     for i, t in enumerate(manifest.table):
         _known_fluid(t.fluid, fluids, label, f"table[{i}].fluid")
     for kind, entries in (("fixed_point", manifest.fixed_point), ("constant", manifest.constant)):
@@ -159,9 +168,10 @@ def plan_batch(root: Path, batch_dir: Path, fluids: dict[str, Fluid]) -> _Plan:
                          "workbook need different sheets or ranges)", file=label)
     tables, read = [], {}
     for i, spec in enumerate(manifest.table):
-        path = _safe_file(batch_dir, spec.file, label)
-        if path not in read:        # the tables of one workbook share its bytes and hash
-            content = path.read_bytes()
+        path = table_file(batch_dir, spec.file, label)
+        # Read once: hashed and parsed from the same bytes; the tables of a workbook share them.
+        if path not in read:
+            content = read_regular(path, _label(root, batch_dir / spec.file))
             read[path] = (content, hashlib.sha256(content).hexdigest())
         content, sha = read[path]
         mapping = canonical_hash({"table": doc["table"][i], "source": doc["source"]})
@@ -197,6 +207,11 @@ def check_declarations(manifest: BatchManifest, fluids: dict[str, Fluid], label:
     for i, t in enumerate(manifest.table):
         M = fluids[t.fluid].molar_mass_kg_mol
         key = f"table[{i}]"
+        if t.solid_phase:
+            _declared_phase(t.solid_phase, fluids[t.fluid], label, f"{key}.solid_phase")
+        if t.comment and t.comment in (t.delimiter, t.quote, t.decimal):
+            raise BatchError(f"comment character {t.comment!r} is also the table's delimiter, "
+                             "quote or decimal separator", file=label, key=f"{key}.comment")
         _declared(label, f"{key}.temperature.unit", lambda: conversion(t.temperature.unit,
                                                                       "temperature"))
         _declared(label, f"{key}.temperature.scale", lambda: get_scale(t.temperature.scale))
@@ -211,6 +226,9 @@ def check_declarations(manifest: BatchManifest, fluids: dict[str, Fluid], label:
     kinds = {"T": "temperature", "p": "pressure", "rho": "density"}
     for i, fp in enumerate(manifest.fixed_point):
         M = fluids[fp.fluid].molar_mass_kg_mol
+        for j, phase in enumerate(fp.phases):
+            if phase not in GENERIC_PHASES:
+                _declared_phase(phase, fluids[fp.fluid], label, f"fixed_point[{i}].phases[{j}]")
         for name, kind in kinds.items():
             v = getattr(fp, name)
             if v is not None:
@@ -222,6 +240,20 @@ def check_declarations(manifest: BatchManifest, fluids: dict[str, Fluid], label:
             c.unit, kind, molar_mass_kg_mol=fluids[c.fluid].molar_mass_kg_mol))
         if kind == "temperature":
             _declared(label, f"constant[{i}].scale", lambda: get_scale(c.scale))
+
+
+#: Phase names every fluid has; polymorph labels (Ih, III...) must be declared in fluids.toml
+GENERIC_PHASES = ("vapour", "liquid", "solid")
+
+
+def _declared_phase(phase: str, fluid: Fluid, label: str, key: str) -> None:
+    """A solid-phase label must be one the fluid declares in fluids.toml."""
+    if phase not in fluid.solid_phases:
+        declared = (f"it declares {list(fluid.solid_phases)}" if fluid.solid_phases
+                    else "it declares none")
+        raise BatchError(f"solid phase {phase!r} is not declared for fluid '{fluid.id}' in "
+                         f"fluids.toml ({declared}); add it to its solid_phases",
+                         file=label, key=key)
 
 
 def _label(root: Path, path: Path) -> str:
@@ -262,11 +294,15 @@ class Ingestor:
 
     # -- one batch ------------------------------------------------------------------------
     def ingest(self, batch_dir: Path) -> BatchResult:
+        """Ingest one batch; any problem inside it refuses it (see the module docstring)."""
+        batch_dir = real_folder(batch_dir)
+        rel = _label(self.root, batch_dir)
         try:
             plan = plan_batch(self.root, batch_dir, self.fluids)
         except FluidLedgerError as err:
-            rel = _label(self.root, batch_dir)
             return BatchResult(rel, "error", error=str(err))
+        except Exception as err:  # noqa: BLE001 - isolated: this batch is refused, not the run
+            return _internal(rel, err)
         current = self._current(plan.batch)
         wanted = {plan.manifest_path: (plan.manifest_sha, plan.manifest_sha)}
         wanted.update({rel: (sha, mapping) for _, _, rel, _, _, sha, mapping in plan.tables})
@@ -282,10 +318,13 @@ class Ingestor:
             self.con.execute("COMMIT")
             return result
         except FluidLedgerError as err:
-            self.con.execute("ROLLBACK")
+            _rollback(self.con)
             return BatchResult(plan.batch, "error", error=str(err))
+        except Exception as err:  # noqa: BLE001 - isolated like an input error, but internal
+            _rollback(self.con)
+            return _internal(plan.batch, err)
         except BaseException:
-            self.con.execute("ROLLBACK")
+            _rollback(self.con)
             raise
 
     def _load(self, plan: _Plan, current, unchanged: set[str], removed: list[str]) -> BatchResult:
@@ -402,7 +441,7 @@ class Ingestor:
                         f"column '{column}'): {code} ({message})", staged.cell(column, row))
                        for row, column, raw, code, message in staged.rejects]
         else:
-            staged = stage_csv(self.con, str(path), content, spec, rel, needed, "fl_stage")
+            staged = stage_csv(self.con, content, spec, rel, needed, "fl_stage")
             rejects = [(row, column, raw, "bad-row-shape", f"row {row}" + (
                 f", column '{column}'" if column else "") + f": {message}", None)
                 for row, column, raw, message in staged.rejects]
@@ -497,6 +536,27 @@ class Ingestor:
                           json.dumps(rule, sort_keys=True) if rule else None])
 
 
+def _rollback(con) -> None:
+    """Roll the batch's transaction back; a failed COMMIT has already ended it."""
+    try:
+        con.execute("ROLLBACK")
+    except duckdb.Error:
+        pass
+
+
+def _internal(batch: str, err: Exception) -> BatchResult:
+    """The batch refused because of an unexpected exception; a problem of the machine or
+    Ctrl-C is no batch's fault and stops the run instead (re-raised)."""
+    if is_interrupt(err) or environment_problem(err) is not None:
+        raise err
+    log.debug("internal error while ingesting batch %s", batch, exc_info=True)  # --verbose
+    text = " ".join(str(err).split())[:300]
+    return BatchResult(batch, "error", internal=True,
+                       error=f"{batch}: internal error while ingesting this batch "
+                             f"({type(err).__name__}: {text}); the batch was left out, the "
+                             "others went on")
+
+
 def _upsert_fluids(con, fluids: dict[str, Fluid], run_id: str) -> None:
     con.execute("BEGIN TRANSACTION")
     for f in fluids.values():
@@ -508,9 +568,9 @@ def _upsert_fluids(con, fluids: dict[str, Fluid], run_id: str) -> None:
 def find_fluids_file(paths: list[Path]) -> Path:
     """``fluids.toml`` in the first path or one of its parents."""
     for start in paths:
-        for folder in [start, *start.resolve().parents]:
-            if (folder / "fluids.toml").is_file():
-                return folder / "fluids.toml"
+        for folder in [start, *absolute(start).parents]:
+            if os.path.lexists(folder / "fluids.toml"):
+                return absolute(folder / "fluids.toml")
     raise BatchError("fluids.toml not found in the raw folder or its parents",
                      file=str(paths[0] / "fluids.toml"))
 
@@ -518,25 +578,31 @@ def find_fluids_file(paths: list[Path]) -> Path:
 def run_ingest(con: duckdb.DuckDBPyConnection, paths: list[Path], *, fluids_file: Path | None = None,
                progress=None, run_id: str | None = None) -> IngestResult:
     """Ingest every batch under ``paths``; a path that is the raw root also retires batches
-    that disappeared from it."""
+    that disappeared from it. Relative, ``..`` and absolute paths name the same batches."""
     run_id = run_id or new_run_id("ingest")
-    fluids_path = fluids_file or find_fluids_file(paths)
-    fluids = load_fluids(fluids_path)
-    root = fluids_path.parent
     for p in paths:
-        if not p.exists():
+        if not os.path.lexists(p):
             raise BatchError("path does not exist", file=str(p))
+    paths = [absolute(Path(p)) for p in paths]
+    fluids_path = absolute(Path(fluids_file)) if fluids_file else find_fluids_file(paths)
+    fluids = load_fluids(fluids_path)
+    root = fluids_path.parent.resolve()
     con.execute("INSERT INTO run VALUES (?, 'ingest', ?, NULL, ?, ?, 'running', NULL)",
                 [run_id, utcnow(), __version__, json.dumps(
                     {"paths": [str(p) for p in paths]}, sort_keys=True)])
-    _upsert_fluids(con, fluids, run_id)
-    batches = [b for p in paths for b in discover_batches(p)]
-    results = []
-    for batch_dir in batches:
-        results.append(Ingestor(con, root, fluids, run_id).ingest(batch_dir))
-        if progress:
-            progress(batch_dir)
-    removed = _retire_missing(con, root, paths, {r.batch for r in results}, run_id)
+    try:
+        _upsert_fluids(con, fluids, run_id)
+        batches = [b for p in paths for b in discover_batches(p)]
+        results = []
+        for batch_dir in batches:
+            results.append(Ingestor(con, root, fluids, run_id).ingest(batch_dir))
+            if progress:
+                progress(batch_dir)
+            crash_point("ingest:batch-done")
+        removed = _retire_missing(con, root, paths, {r.batch for r in results}, run_id)
+    except BaseException as err:
+        end_run(con, run_id, err)
+        raise
     result = IngestResult(run_id, results, removed)
     status = "error" if result.errors else ("ok" if result.changed else "no-changes")
     con.execute("UPDATE run SET finished_at = ?, status = ?, summary_json = ? WHERE run_id = ?",

@@ -3,9 +3,10 @@
 Values are matched by ``value_id`` (stable across releases). A constant that changed reports
 old and new value and uncertainty and the change in units of the combined standard
 uncertainty, z = (new - old) / sqrt(u_old^2 + u_new^2). A curve that changed (form,
-coefficients or range) reports the largest such z over a grid of :data:`CURVE_GRID` points of
-the common range, with u from each curve's covariance (``Curve.u``), and the largest relative
-change. The causes come from the two provenance records: sources and raw entities that are used
+coefficients or range) reports its old and new value at the new curve's reference temperature
+(``T_ref_K``: Tc or Tt; the value the SQL user gets there), the largest z over a grid of
+:data:`CURVE_GRID` points of the common range, with u from each curve's covariance
+(``Curve.u``), and the largest relative change. The causes come from the two provenance records: sources and raw entities that are used
 in one release and not the other, raw files whose content hash changed, and candidates whose
 stated value changed.
 """
@@ -36,6 +37,7 @@ class ValueChange:
     u_new: float | None = None
     z: float | None = None
     relative: float | None = None
+    T_ref_K: float | None = None      # curves: old and new are the values at this temperature
     detail: str = ""
     causes: list[str] = field(default_factory=list)
     sources_added: list[str] = field(default_factory=list)
@@ -94,6 +96,29 @@ def _entity_key(e: dict) -> tuple:
     return (e["entity"], e["entity_id"], e["file_path"] or "")
 
 
+def _rows_text(rows) -> str:
+    """``1-3, 7`` for rows [1, 2, 3, 7]."""
+    rows, out = sorted(set(int(r) for r in rows)), []
+    for r in rows:
+        if out and r == out[-1][1] + 1:
+            out[-1][1] = r
+        else:
+            out.append([r, r])
+    return ", ".join(f"{a}" if a == b else f"{a}-{b}" for a, b in out)
+
+
+def _entity_text(e: dict) -> str:
+    """An entity in words: observations are counted (their id is the raw file's)."""
+    if e["entity"] == "observations":
+        rows = e.get("row_numbers") or []
+        n = len(rows) or len(e.get("obs_ids") or [])
+        what = f"{n} observation{'s' if n != 1 else ''}"
+        where = f" of {e['file_path']}" if e.get("file_path") else f" of raw file {e['entity_id']}"
+        return what + where + (f" (rows {_rows_text(rows)})" if rows else "")
+    return f"{e['entity']} {e['entity_id']}" + (
+        f" ({e['file_path']})" if e.get("file_path") else "")
+
+
 def causes(a: dict, b: dict) -> tuple[list[str], list[str], list[str]]:
     """(causes in words, sources newly used, sources no longer used) between two records."""
     used_a = {s["source_id"] for s in a.get("attributed", []) if s["used"]}
@@ -103,7 +128,7 @@ def causes(a: dict, b: dict) -> tuple[list[str], list[str], list[str]]:
     out = []
     for key in sorted(set(ents_a) | set(ents_b)):
         ea, eb = ents_a.get(key), ents_b.get(key)
-        where = f"{key[0]} {key[1]}" + (f" ({key[2]})" if key[2] else "")
+        where = _entity_text(eb if eb is not None and eb["used"] else ea or eb)
         src = (eb or ea)["source_id"]
         who = f" from {src}" if src else ""
         if ea is None or not ea["used"]:
@@ -121,13 +146,26 @@ def causes(a: dict, b: dict) -> tuple[list[str], list[str], list[str]]:
             out.append(f"{where}{who}: candidate {ea['value_si']!r} ± {ea['u_si']!r} -> "
                        f"{eb['value_si']!r} ± {eb['u_si']!r}")
         elif ea["row_numbers"] != eb["row_numbers"]:
-            out.append(f"{where}{who}: rows changed")
+            out.append(f"{where}{who}: rows changed (from {_entity_text(ea)})")
     return out, sorted(used_b - used_a), sorted(used_a - used_b)
 
 
 def _z(old, new, u_old, u_new) -> float | None:
     comb = math.hypot(u_old or 0.0, u_new or 0.0)
     return (new - old) / comb if comb > 0 else None
+
+
+def _at_reference(ca: Curve, cb: Curve, T_ref) -> tuple:
+    """(T_ref, old value, new value, old u, new u) at the new curve's reference temperature;
+    Nones when the new curve has none or a value is not finite there."""
+    if T_ref is None or not math.isfinite(T_ref):
+        return (None,) * 5
+    with np.errstate(all="ignore"):
+        vals = [float(c.value(T_ref, extrapolate=True)) for c in (ca, cb)]
+        us = [float(c.u(T_ref, extrapolate=True)) if c.covariance is not None else math.nan
+              for c in (ca, cb)]
+    fin = [v if math.isfinite(v) else None for v in vals + us]
+    return (float(T_ref), *fin)
 
 
 def _compare_curves(ra: dict, rb: dict) -> tuple[float | None, float | None, str]:
@@ -165,8 +203,12 @@ def diff_releases(con: duckdb.DuckDBPyConnection, release_a: str, release_b: str
         if va is None or vb is None:
             change = ValueChange(vid, "added" if va is None else "removed", kind, row["unit"])
             if kind == "constant":
-                change.new = row["value_si"] if va is None else None
-                change.old = row["value_si"] if vb is None else None
+                value = row["value_si"]
+            else:   # a curve: its value at its reference temperature
+                c = _curve(row)
+                change.T_ref_K, value, _, _, _ = _at_reference(c, c, row["T_ref_K"])
+            change.new = value if va is None else None
+            change.old = value if vb is None else None
             change.causes, change.sources_added, change.sources_removed = causes(va or {}, vb or {})
             changes.append(change)
             continue
@@ -180,14 +222,16 @@ def diff_releases(con: duckdb.DuckDBPyConnection, release_a: str, release_b: str
                                  _z(ra["value_si"], rb["value_si"], ra["u_si"], rb["u_si"]),
                                  abs(rb["value_si"] / ra["value_si"] - 1.0)
                                  if ra["value_si"] else None,
-                                 f"{ra['method']} -> {rb['method']}: {rb['method_detail']}")
+                                 detail=f"{ra['method']} -> {rb['method']}: "
+                                        f"{rb['method_detail']}")
         else:
             if all(ra[k] == rb[k] for k in _CURVE_KEYS):
                 unchanged += 1
                 continue
             z, rel, detail = _compare_curves(ra, rb)
-            change = ValueChange(vid, "changed", kind, rb["unit"], z=z, relative=rel,
-                                 detail=detail)
+            T_ref, old, new, u_old, u_new = _at_reference(_curve(ra), _curve(rb), rb["T_ref_K"])
+            change = ValueChange(vid, "changed", kind, rb["unit"], old, new, u_old, u_new, z=z,
+                                 relative=rel, T_ref_K=T_ref, detail=detail)
         change.causes, change.sources_added, change.sources_removed = causes(va, vb)
         changes.append(change)
     return ReleaseDiff(release_a, release_b, changes, unchanged)

@@ -7,11 +7,24 @@ tables ``release``, ``constants``, ``curves``, ``provenance``, and ``manifest.js
 The files are a deterministic function of the rows (no timestamps, fixed column order, rows
 sorted by value_id, floats written as their shortest round-trip text), so equal inputs give
 byte-identical files. CSV cells of list and struct columns hold sort-keyed compact JSON; an
-empty cell is NULL only in a nullable column.
+empty cell is NULL only in a nullable column. :func:`json_bytes` of :func:`json_document` and
+:func:`csv_bytes` define the text files; :mod:`pipeline.publish.render` writes the same bytes
+fast, in blocks of rows (:class:`Block`), so that a release can take the text of the rows it
+copies from the previous one (:mod:`pipeline.publish.incremental`).
 
-:func:`write_release_folder` writes into a temporary folder beside the final one, validates
-every file - the JSON document against ``schemas/release-<table>.schema.json``; the Parquet and
-CSV files by reading them back and comparing every row with the JSON rows - and only then renames the folder into place (an atomic rename).
+:func:`prepare_release_folder` writes into a temporary folder beside the final one and
+validates it (:func:`validate_folder`) before :func:`commit_release_folder` renames it into
+place (an atomic rename). Every exported row is schema-valid because
+
+* every row of every table is checked against ``schemas/release-<table>.schema.json`` as a
+  typed Arrow table, column by column (:mod:`pipeline.publish.schemacheck`; the document
+  around the rows and the first row with ``jsonschema`` too, so both keep agreeing);
+* the Parquet file is read back and must equal that table;
+* the JSON and CSV files are renderings of the same values: the renderer checks each value
+  against its column's Arrow type as it writes it, and text copied from the previous release
+  is that release's validated text (its manifest hash checked) with the release id replaced,
+  its rows counted and its first and last row the ones the store copies;
+* every file's SHA-256 and size are read back against the manifest.
 """
 
 from __future__ import annotations
@@ -26,12 +39,12 @@ import shutil
 from dataclasses import dataclass
 from pathlib import Path
 
-import jsonschema
 import pyarrow as pa
 import pyarrow.parquet as pq
 
 from pipeline.errors import PublishError
-from pipeline.ingest.contract import load_schema
+from pipeline.publish import schemacheck
+from pipeline.publish.render import RenderError, TableCodec
 
 MANIFEST = "manifest.json"
 FORMATS = ("parquet", "csv", "json")
@@ -163,63 +176,92 @@ def json_bytes(document: dict) -> bytes:
             + "\n").encode("utf-8")
 
 
-def parquet_bytes(table: str, rows: list[dict]) -> bytes:
+def parquet_bytes(table: str, rows: list[dict] | pa.Table) -> bytes:
+    data = rows if isinstance(rows, pa.Table) else arrow_table(table, rows)
     sink = pa.BufferOutputStream()
-    pq.write_table(arrow_table(table, rows), sink, compression="zstd", write_statistics=True)
+    pq.write_table(data.combine_chunks(), sink, compression="zstd", write_statistics=True)
     return sink.getvalue().to_pybytes()
+
+
+# --- blocks of rows ----------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class Block:
+    """The text of consecutive rows of an export table: one fluid's rows, or the release row.
+
+    ``json``: the rows as they stand in the ``rows`` array of the JSON document, joined by
+    ``,\n  ``; ``csv``: their CSV lines."""
+
+    key: str
+    n_rows: int
+    json: bytes
+    csv: bytes
+
+
+@dataclass(frozen=True)
+class ExportTable:
+    """One export table: all its rows as Arrow (sorted by value_id) and their text in blocks,
+    in the same order."""
+
+    name: str
+    rows: pa.Table
+    blocks: tuple[Block, ...]
+
+
+@functools.lru_cache(maxsize=None)
+def codec(table: str) -> TableCodec:
+    return TableCodec(table, SCHEMAS[table])
+
+
+def rendered_block(table: str, key: str, rows: list[dict]) -> Block:
+    """The text of ``rows`` (dicts), each value checked against its column's Arrow type."""
+    c = codec(table)
+    try:
+        text = c.JSON_SEPARATOR.join([c.json_row(r) for r in rows])
+        lines = c.csv_rows(rows)
+    except RenderError as err:
+        raise PublishError(str(err)) from None
+    return Block(key, len(rows), text.encode("utf-8"), lines.encode("utf-8"))
+
+
+def export_table(table: str, rows: list[dict]) -> ExportTable:
+    """An export table of dict rows in one block."""
+    return ExportTable(table, arrow_table(table, rows), (rendered_block(table, "", rows),))
 
 
 # --- validation ------------------------------------------------------------------------------
 
-def _inline_refs(node, defs):
-    """The schema with local ``#/$defs/...`` references replaced by their targets (the release
-    schemas are not recursive); spares the validator a reference lookup per value."""
-    if isinstance(node, dict):
-        if set(node) >= {"$ref"} and str(node["$ref"]).startswith("#/$defs/"):
-            target = _inline_refs(defs[node["$ref"].split("/")[-1]], defs)
-            rest = {k: _inline_refs(v, defs) for k, v in node.items() if k != "$ref"}
-            return {**target, **rest} if rest else target
-        return {k: _inline_refs(v, defs) for k, v in node.items() if k != "$defs"}
-    if isinstance(node, list):
-        return [_inline_refs(v, defs) for v in node]
-    return node
-
-
-@functools.lru_cache(maxsize=None)
-def _validator(schema_name: str) -> jsonschema.Draft202012Validator:
-    schema = load_schema(schema_name)
-    return jsonschema.Draft202012Validator(_inline_refs(schema, schema.get("$defs", {})))
-
-
 def check_schema(document, schema_name: str, what: str) -> None:
     """Raise :class:`PublishError` naming the first violation of ``schema_name``."""
-    validator = _validator(schema_name)
-    if validator.is_valid(document):
-        return
-    errors = sorted(validator.iter_errors(document), key=lambda e: list(e.absolute_path))
-    where = ".".join(str(p) for p in errors[0].absolute_path) or "(top level)"
-    raise PublishError(f"{what} does not match {schema_name} at {where}: {errors[0].message} "
-                       f"({len(errors)} problem(s))")
+    schemacheck.validate_json(document, schema_name, what)
 
 
-def validate_folder(folder: Path, release_id: str, tables: dict[str, list[dict]]) -> None:
-    """Every file of an export folder: the JSON document against its schema, the Parquet and
-    CSV files by reading them back and comparing every row with the JSON rows (so they satisfy
-    the same schema), and the manifest's hashes and sizes."""
+def validate_table(release_id: str, table: str, rows: pa.Table) -> None:
+    """Every row of one table against its schema (in bulk), the document around the rows and
+    the first row with ``jsonschema``."""
+    name, what = JSON_SCHEMAS[table], f"{table}.json"
+    schemacheck.validate_json({"release_id": release_id, "table": table,
+                               "columns": SCHEMAS[table].names}, name, what, part="envelope")
+    schemacheck.check_rows(rows, name, what)
+    if rows.num_rows:
+        schemacheck.validate_json(rows.slice(0, 1).to_pylist()[0], name, f"{what} row 0",
+                                  part="row")
+
+
+def validate_folder(folder: Path, release_id: str,
+                    tables: dict[str, pa.Table | list[dict]]) -> None:
+    """An export folder: every table's rows against its schema (:func:`validate_table`), the
+    Parquet files read back as those rows, and every file against the manifest's hash and size
+    (the JSON and CSV files are renderings of the same rows, see the module docstring)."""
     for table, rows in tables.items():
-        expected = json_document(release_id, table, rows)
-        doc = json.loads((folder / f"{table}.json").read_text("utf-8"))
-        check_schema(doc, JSON_SCHEMAS[table], f"{table}.json")
-        if doc != expected:
-            raise PublishError(f"{table}.json does not read back as written")
-        for fmt in ("csv", "parquet"):
-            path = folder / f"{table}.{fmt}"
-            back = read_csv_rows(table, path.read_bytes()) if fmt == "csv" else \
-                pq.read_table(path).to_pylist()
-            if back != doc["rows"]:
-                bad = next((i for i, (a, b) in enumerate(zip(back, doc["rows"])) if a != b),
-                           "count")
-                raise PublishError(f"{path.name} does not read back as written (row {bad})")
+        data = rows if isinstance(rows, pa.Table) else arrow_table(table, rows)
+        validate_table(release_id, table, data)
+        try:
+            back = pq.read_table(folder / f"{table}.parquet")
+        except (OSError, pa.ArrowException) as err:
+            raise PublishError(f"{table}.parquet cannot be read back: {err}") from None
+        if not back.equals(data):
+            raise PublishError(f"{table}.parquet does not read back as written")
     manifest = json.loads((folder / MANIFEST).read_text("utf-8"))
     check_schema(manifest, MANIFEST_SCHEMA, MANIFEST)
     for entry in manifest["files"]:
@@ -237,21 +279,53 @@ class ExportResult:
     written: bool     # False when an identical folder was already in place
 
 
+def _text_files(release_id: str, table: ExportTable) -> tuple[bytes, bytes, dict]:
+    """The JSON and CSV files of a table from its blocks, and where each block stands in them:
+    key -> {"json": [start, end], "csv": [start, end], "rows": n}."""
+    c = codec(table.name)
+    head = c.json_head(release_id, table.rows.num_rows).encode("utf-8")
+    sep = c.JSON_SEPARATOR.encode("utf-8")
+    json_parts, csv_parts, spans = [head], [c.csv_header().encode("utf-8")], {}
+    at_json, at_csv = len(head), len(csv_parts[0])
+    for i, block in enumerate(b for b in table.blocks if b.n_rows):
+        if i:
+            json_parts.append(sep)
+            at_json += len(sep)
+        json_parts.append(block.json)
+        csv_parts.append(block.csv)
+        spans[block.key] = {"json": [at_json, at_json + len(block.json)],
+                            "csv": [at_csv, at_csv + len(block.csv)], "rows": block.n_rows}
+        at_json += len(block.json)
+        at_csv += len(block.csv)
+    if table.rows.num_rows:
+        json_parts.append(c.json_tail().encode("utf-8"))
+    if sum(b.n_rows for b in table.blocks) != table.rows.num_rows:
+        raise PublishError(f"{table.name}: the text blocks hold "
+                           f"{sum(b.n_rows for b in table.blocks)} rows, the table "
+                           f"{table.rows.num_rows}")
+    return b"".join(json_parts), b"".join(csv_parts), spans
+
+
 def _write_files(folder: Path, release_id: str, fingerprint: str,
-                 tables: dict[str, list[dict]]) -> dict:
-    files = {}
-    for table, rows in tables.items():
-        files[f"{table}.parquet"] = parquet_bytes(table, rows)
-        files[f"{table}.csv"] = csv_bytes(table, rows)
-        files[f"{table}.json"] = json_bytes(json_document(release_id, table, rows))
+                 tables: dict[str, ExportTable]) -> tuple[dict, dict]:
+    files, spans = {}, {}
+    for name, table in tables.items():
+        files[f"{name}.parquet"] = parquet_bytes(name, table.rows)
+        files[f"{name}.json"], files[f"{name}.csv"], spans[name] = _text_files(release_id, table)
     entries = []
     for name in sorted(files):
-        (folder / name).write_bytes(files[name])
+        _write_read_only(folder / name, files[name])
         entries.append({"path": name, "sha256": hashlib.sha256(files[name]).hexdigest(),
                         "bytes": len(files[name])})
     manifest = {"release_id": release_id, "fingerprint": fingerprint, "files": entries}
-    (folder / MANIFEST).write_bytes(json_bytes(manifest))
-    return manifest
+    _write_read_only(folder / MANIFEST, json_bytes(manifest))
+    return manifest, spans
+
+
+def _write_read_only(path: Path, data: bytes) -> None:
+    """Write a release file and make it read-only (mode 0444): releases are immutable."""
+    path.write_bytes(data)
+    os.chmod(path, 0o444)
 
 
 def process_alive(pid: int) -> bool:
@@ -304,20 +378,25 @@ def remove_leftovers(root: Path) -> list[Path]:
 
 
 def prepare_release_folder(root: Path, release_id: str, fingerprint: str,
-                           tables: dict[str, list[dict]]) -> tuple[Path, dict]:
-    """Write and validate the exports in a temporary folder under ``root``; return it."""
+                           tables: dict[str, ExportTable | list[dict]]
+                           ) -> tuple[Path, dict, dict]:
+    """Write and validate the exports in a temporary folder under ``root``; return it, the
+    manifest and where each block of rows stands in the text files (see :func:`_text_files`).
+    """
+    tables = {name: t if isinstance(t, ExportTable) else export_table(name, t)
+              for name, t in tables.items()}
     root.mkdir(parents=True, exist_ok=True)
     tmp = root / f".tmp-{release_id}-{os.getpid()}"
     if tmp.exists():
         shutil.rmtree(tmp)
     tmp.mkdir()
     try:
-        manifest = _write_files(tmp, release_id, fingerprint, tables)
-        validate_folder(tmp, release_id, tables)
+        manifest, spans = _write_files(tmp, release_id, fingerprint, tables)
+        validate_folder(tmp, release_id, {name: t.rows for name, t in tables.items()})
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
-    return tmp, manifest
+    return tmp, manifest, spans
 
 
 def existing_folder_matches(final: Path, manifest: dict) -> bool:

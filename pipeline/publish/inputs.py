@@ -20,11 +20,15 @@ from typing import Any
 import duckdb
 
 from pipeline import __version__
+from pipeline.correlations import Curve
 from pipeline.errors import PublishError
 from pipeline.store.runs import latest_check_run_id
 
 ENTHALPY_QUANTITIES = ("h_fusion", "h_vaporization", "h_sublimation")
 BAD_STATUSES = ("fail", "error")
+
+
+_PLAIN = frozenset({int, str, bool, type(None)})
 
 
 def _clean(value: Any) -> Any:
@@ -34,14 +38,38 @@ def _clean(value: Any) -> Any:
     if isinstance(value, dict):
         return {k: _clean(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
+        if set(map(type, value)) <= _PLAIN:    # lists of ids: nothing to clean, one C call
+            return list(value)
         return [_clean(v) for v in value]
     return value
 
 
+#: column types whose values need no cleaning (no floats, lists or structs inside)
+_CLEAN_TYPES = frozenset({"VARCHAR", "BIGINT", "INTEGER", "SMALLINT", "TINYINT", "UBIGINT",
+                          "UINTEGER", "HUGEINT", "BOOLEAN", "DATE", "TIMESTAMP"})
+
+
 def _rows(con: duckdb.DuckDBPyConnection, sql: str, params: list | None = None) -> list[dict]:
+    """The rows as dicts, JSON-safe (:func:`_clean` on the columns that may need it)."""
     cur = con.execute(sql, params or [])
     names = [d[0] for d in cur.description]
-    return [_clean(dict(zip(names, r))) for r in cur.fetchall()]
+    dirty = [n for n, d in zip(names, cur.description) if str(d[1]) not in _CLEAN_TYPES]
+    rows = [dict(zip(names, r)) for r in cur.fetchall()]
+    for row in rows:
+        for name in dirty:
+            row[name] = _clean(row[name])
+    return rows
+
+
+_REF_KEYS = ('"fp_id', '"obs_id', '"fit_id"', '"basis"', '"discrepant"', "\\u")
+
+
+def _refs_of_text(text: str | None) -> dict[str, list]:
+    """:func:`evidence_refs` of an evidence JSON text; texts that cannot name an id (none of
+    the keys appears, nothing escaped) are not parsed."""
+    if not text or not any(key in text for key in _REF_KEYS):
+        return {"fp_ids": [], "obs_ids": [], "fit_ids": [], "discrepant": [], "stated": []}
+    return evidence_refs(json.loads(text))
 
 
 def evidence_refs(evidence: Any) -> dict[str, list]:
@@ -49,8 +77,9 @@ def evidence_refs(evidence: Any) -> dict[str, list]:
     stated constants (``"basis": "stated NAME (SOURCE)"``), found at any depth."""
     fp, obs, fits, stated = set(), set(), set(), set()
     discrepant: list[str] = []
-
-    def walk(node: Any) -> None:
+    stack = [evidence]
+    while stack:              # depth first, containers only: scalars name nothing by themselves
+        node = stack.pop()
         if isinstance(node, dict):
             for key, val in node.items():
                 if key == "fp_ids" and isinstance(val, list):
@@ -64,13 +93,10 @@ def evidence_refs(evidence: Any) -> dict[str, list]:
                 elif key == "basis" and isinstance(val, str) and val.startswith("stated "):
                     name, _, rest = val[len("stated "):].partition(" (")
                     stated.add((name, rest.rstrip(")")))
-                else:
-                    walk(val)
+                elif isinstance(val, (dict, list)):
+                    stack.append(val)
         elif isinstance(node, list):
-            for item in node:
-                walk(item)
-
-    walk(evidence)
+            stack.extend(item for item in node if isinstance(item, (dict, list)))
     if isinstance(evidence, dict) and isinstance(evidence.get("discrepant"), list):
         discrepant = sorted(str(s) for s in evidence["discrepant"])
     return {"fp_ids": sorted(fp), "obs_ids": sorted(obs), "fit_ids": sorted(fits),
@@ -92,6 +118,61 @@ class ReleaseInputs:
     fits: list[dict] = field(default_factory=list)
     fit_rows: dict[str, list[dict]] = field(default_factory=dict)
     checks: list[dict] = field(default_factory=list)
+    _fixed_point_index: dict | None = field(default=None, init=False, repr=False, compare=False)
+    _curves: dict = field(default_factory=dict, init=False, repr=False, compare=False)
+
+    def curve(self, fit: dict) -> Curve:
+        """The fitted curve of a fit row (built once per fit)."""
+        found = self._curves.get(fit["fit_id"])
+        if found is None:
+            found = self._curves[fit["fit_id"]] = Curve.from_dict(fit["curve"])
+        return found
+
+    #: the lists of rows that belong to one fluid each (by their ``fluid_id``)
+    PER_FLUID = ("fluids", "fixed_points", "constants", "enthalpy_observations", "fits", "checks")
+
+    def fixed_points_of(self, fluid_id: str, kind: str) -> list[dict]:
+        """The fixed points of one fluid and kind, in fp_id order (indexed on first use)."""
+        if self._fixed_point_index is None:
+            index: dict[tuple[str, str], list[dict]] = {}
+            for fp in self.fixed_points:
+                index.setdefault((fp["fluid_id"], fp["kind"]), []).append(fp)
+            self._fixed_point_index = index
+        return self._fixed_point_index.get((fluid_id, kind), [])
+
+    def _complete(self, whole: "ReleaseInputs") -> "ReleaseInputs":
+        """Fill fit rows, raw files and sources from ``whole`` for the rows this part holds."""
+        self.fit_rows = {f["fit_id"]: whole.fit_rows[f["fit_id"]] for f in self.fits
+                         if f["fit_id"] in whole.fit_rows}
+        rows = self.fixed_points + self.constants + self.enthalpy_observations
+        files = {int(r["file_id"]) for r in rows if r["file_id"] is not None}
+        files |= {int(r["file_id"]) for rs in self.fit_rows.values() for r in rs}
+        self.raw_files = {k: whole.raw_files[k] for k in sorted(files) if k in whole.raw_files}
+        sources = {r["source_id"] for r in rows} | {f["source_id"] for f in self.raw_files.values()}
+        self.sources = {k: whole.sources[k] for k in sorted(sources, key=str)
+                        if k in whole.sources}
+        return self
+
+    def subset(self, fluids) -> "ReleaseInputs":
+        """The inputs of some fluids only: their rows (in the same order) and the raw files and
+        sources those rows name. A release's rows of a fluid are a function of its subset."""
+        keep = set(fluids)
+        part = ReleaseInputs(self.check_run_id, self.pipeline_version)
+        for name in self.PER_FLUID:
+            setattr(part, name, [r for r in getattr(self, name) if r["fluid_id"] in keep])
+        return part._complete(self)
+
+    def partition(self) -> dict[str, "ReleaseInputs"]:
+        """:meth:`subset` of every fluid that any row names, in one pass."""
+        parts: dict[str, ReleaseInputs] = {}
+        for name in self.PER_FLUID:
+            for r in getattr(self, name):
+                part = parts.get(r["fluid_id"])
+                if part is None:
+                    part = parts[r["fluid_id"]] = ReleaseInputs(self.check_run_id,
+                                                                 self.pipeline_version)
+                getattr(part, name).append(r)
+        return {f: part._complete(self) for f, part in sorted(parts.items())}
 
     def counts(self) -> dict[str, int]:
         """Findings of the check run per status."""
@@ -117,6 +198,13 @@ class ReleaseInputs:
         doc = json.dumps(self.fingerprint_doc(policy, decisions), sort_keys=True,
                          separators=(",", ":"), allow_nan=False)
         return hashlib.sha256(doc.encode("utf-8")).hexdigest()
+
+    def fingerprints(self, policy: dict, decisions) -> tuple[str, dict[str, str]]:
+        """:meth:`fingerprint` of all inputs, and of each fluid's :meth:`subset` with the
+        decisions about it (``decisions``: a :class:`~pipeline.publish.policy.Decisions`)."""
+        per_fluid = {f: part.fingerprint(policy, decisions.restricted({f}).asdict())
+                     for f, part in self.partition().items()}
+        return self.fingerprint(policy, decisions.asdict()), per_fluid
 
 
 def latest_check_run(con: duckdb.DuckDBPyConnection) -> str:
@@ -183,6 +271,6 @@ def load_inputs(con: duckdb.DuckDBPyConnection, check_run_id: str | None = None)
     for r in _rows(con, "SELECT check_id, fluid_id, subject, status, message, evidence_json "
                         "FROM check_result WHERE run_id = ? ORDER BY check_id, fluid_id, subject",
                    [run_id]):
-        r["refs"] = evidence_refs(json.loads(r.pop("evidence_json") or "{}"))
+        r["refs"] = _refs_of_text(r.pop("evidence_json"))
         inp.checks.append(r)
     return inp

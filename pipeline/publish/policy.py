@@ -136,6 +136,12 @@ class Decisions:
     def preferred(self, fluid_id: str, key: str) -> tuple[str, str] | None:
         return self.prefer.get((fluid_id, key))
 
+    def restricted(self, fluids) -> "Decisions":
+        """The decisions about some fluids only (all a release's rows of them can depend on)."""
+        keep = set(fluids)
+        return Decisions({k: v for k, v in self.exclude.items() if k[0] in keep},
+                         {k: v for k, v in self.prefer.items() if k[0] in keep})
+
     def asdict(self) -> dict:
         return {
             "exclude": sorted([f, k, s, d] for (f, k), m in self.exclude.items()

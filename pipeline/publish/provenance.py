@@ -23,7 +23,7 @@ from typing import Iterable
 from pipeline.publish.inputs import BAD_STATUSES, ReleaseInputs
 
 #: Worst first; a value with no bearing finding has status "none".
-STATUS_SEVERITY = ("fail", "error", "warn", "waived", "pass", "skip")
+STATUS_SEVERITY = ("fail", "error", "warn", "waived", "excluded", "pass", "skip")
 
 
 def worst_status(statuses: Iterable[str]) -> str:
@@ -46,55 +46,90 @@ class Refs:
     files: frozenset[tuple[str, str]] = frozenset()   # (file path, curve key)
 
     def __or__(self, other: "Refs") -> "Refs":
-        return Refs(*(getattr(self, f) | getattr(other, f) for f in
-                      ("fp_ids", "obs_ids", "fit_ids", "stated", "subjects", "files")))
+        return Refs(*((a | b) if a and b else (a or b) for a, b in (
+            (self.fp_ids, other.fp_ids), (self.obs_ids, other.obs_ids),
+            (self.fit_ids, other.fit_ids), (self.stated, other.stated),
+            (self.subjects, other.subjects), (self.files, other.files))))
 
 
 class CheckIndex:
-    """The findings of one check run, indexed per fluid for the bearing rules."""
+    """The findings of one check run, indexed per fluid for the bearing rules.
+
+    Each fluid's findings are indexed by what they name (subject, fixed points, observations,
+    fits, stated constants, files), so that :meth:`bearing` looks up a value's inputs instead
+    of testing every finding against every value.
+    """
 
     def __init__(self, checks: list[dict]):
         self._by_fluid: dict[str, list[dict]] = {}
         for c in checks:
             self._by_fluid.setdefault(c["fluid_id"], []).append(c)
+        self._index: dict[str, _FluidFindings] = {}
+
+    def _of(self, fluid_id: str) -> "_FluidFindings":
+        found = self._index.get(fluid_id)
+        if found is None:
+            found = self._index[fluid_id] = _FluidFindings(self._by_fluid.get(fluid_id, []))
+        return found
 
     def bearing(self, fluid_id: str, refs: Refs) -> list[dict]:
         """Findings for ``fluid_id`` that name one of ``refs`` (ordered by check id, subject)."""
-        out = []
-        for c in self._by_fluid.get(fluid_id, ()):
-            r = c["refs"]
-            subject = c["subject"]
-            hit = (subject in refs.subjects
-                   or not refs.fp_ids.isdisjoint(r["fp_ids"])
-                   or not refs.obs_ids.isdisjoint(r["obs_ids"])
-                   or not refs.fit_ids.isdisjoint(r["fit_ids"])
-                   or any((n, s) in refs.stated for n, s in r["stated"]))
-            if not hit and subject.startswith("file:") and refs.files:
-                path, _, key = subject[len("file:"):].rpartition("|")
-                hit = (path, key) in refs.files
-            if hit:
-                out.append(c)
-        return out
+        return self._of(fluid_id).bearing(refs)
 
     def discrepant(self, fluid_id: str, subject: str) -> dict[str, str]:
         """Sources a failed ``sources.agreement`` finding on ``subject`` names -> its message."""
         out = {}
-        for c in self._by_fluid.get(fluid_id, ()):
-            if c["check_id"] == "sources.agreement" and c["subject"] == subject \
-                    and c["status"] in BAD_STATUSES:
+        for c in self._of(fluid_id).by_check.get(("sources.agreement", subject), ()):
+            if c["status"] in BAD_STATUSES:
                 for source in c["refs"]["discrepant"]:
                     out[source] = c["status"]
         return out
 
     def status(self, fluid_id: str, check_id: str, subject: str) -> str | None:
         """Status of one finding (``check_id``, ``subject``) of ``fluid_id``, None if absent."""
-        for c in self._by_fluid.get(fluid_id, ()):
-            if c["check_id"] == check_id and c["subject"] == subject:
-                return c["status"]
-        return None
+        found = self._of(fluid_id).by_check.get((check_id, subject))
+        return found[0]["status"] if found else None
 
     def bad(self, fluid_id: str, refs: Refs) -> list[dict]:
         return [c for c in self.bearing(fluid_id, refs) if c["status"] in BAD_STATUSES]
+
+
+class _FluidFindings:
+    """One fluid's findings, and which of them name each subject, id and file."""
+
+    def __init__(self, findings: list[dict]):
+        self.findings = findings
+        self.by_check: dict[tuple[str, str], list[dict]] = {}
+        self.keys: dict[str, dict] = {k: {} for k in ("subjects", "fp_ids", "obs_ids", "fit_ids",
+                                                      "stated", "files")}
+        for i, c in enumerate(findings):
+            self.by_check.setdefault((c["check_id"], c["subject"]), []).append(c)
+            r = c["refs"]
+            named = {"subjects": [c["subject"]], "fp_ids": r["fp_ids"], "obs_ids": r["obs_ids"],
+                     "fit_ids": r["fit_ids"], "stated": [tuple(x) for x in r["stated"]],
+                     "files": []}
+            if c["subject"].startswith("file:"):
+                path, _, key = c["subject"][len("file:"):].rpartition("|")
+                named["files"] = [(path, key)]
+            for kind, values in named.items():
+                index = self.keys[kind]
+                for v in values:
+                    index.setdefault(v, []).append(i)
+
+    def bearing(self, refs: Refs) -> list[dict]:
+        hits: set[int] = set()
+        for kind, index in self.keys.items():
+            wanted = getattr(refs, kind)
+            if not index or not wanted:
+                continue
+            if len(wanted) <= len(index):
+                for v in wanted:
+                    hits.update(index.get(v, ()))
+            else:
+                for v, found in index.items():
+                    if v in wanted:
+                        hits.update(found)
+        return [self.findings[i] for i in sorted(hits)]
 
 
 def check_entries(checks: Iterable[dict]) -> list[dict]:
@@ -115,9 +150,9 @@ def entity(kind: str, entity_id, *, source_id: str | None = None, file: dict | N
     return {"entity": kind, "entity_id": str(entity_id), "source_id": source_id,
             "file_sha256": file["sha256"] if file else None,
             "file_path": file["path"] if file else None,
-            "row_numbers": [int(r) for r in rows], "obs_ids": [int(o) for o in obs_ids],
+            "row_numbers": list(map(int, rows)), "obs_ids": list(map(int, obs_ids)),
             "value_si": value, "u_si": u, "used": bool(used), "note": note,
-            "cells": [str(c) for c in cells]}
+            "cells": list(map(str, cells))}
 
 
 _ROLE_NOTES = {"used": "used by the fit",
@@ -137,9 +172,8 @@ def fit_entities(inputs: ReleaseInputs, fit: dict) -> list[dict]:
                           cells=r["cells"]))
     T_ref = fit["curve"]["ref"].get("T_ref_K")
     kind = "critical" if fit["boundary"] == "liquid-vapour" else "triple"
-    for fp in inputs.fixed_points:
-        if fp["fluid_id"] == fit["fluid_id"] and fp["kind"] == kind and T_ref is not None \
-                and fp["T_K"] == T_ref:
+    for fp in inputs.fixed_points_of(fit["fluid_id"], kind):
+        if T_ref is not None and fp["T_K"] == T_ref:
             out.append(entity("fixed_point", fp["fp_id"], source_id=fp["source_id"],
                               file=inputs.raw_files.get(int(fp["file_id"])),
                               rows=[fp["entry_number"]], value=fp["T_K"], u=fp["u_T_K"],

@@ -28,6 +28,8 @@ from pipeline.publish.exports import STORE_TABLES, arrow_table
 STORAGE_VERSION = "v1.2.0"
 """Storage format of published files (DuckDB >= 1.2.0 reads it)."""
 PUBLISHED_NAME = "published.duckdb"
+READ_ONLY = 0o444
+"""Mode of the published file and of every release file: nobody's to change."""
 READ_STATEMENTS = frozenset({"SELECT", "EXPLAIN", "PRAGMA", "CALL"})
 _RELEASE_DDL = "release"  # the migrations whose DDL the published file repeats: this one and
 #                           those named "release <change>" after it (e.g. 006_release_cells)
@@ -49,15 +51,17 @@ def release_ddl() -> str:
     return "\n".join(steps)
 
 
-def insert_release_rows(con: duckdb.DuckDBPyConnection, tables: dict[str, list[dict]],
+def insert_release_rows(con: duckdb.DuckDBPyConnection,
+                        tables: dict[str, list[dict] | pa.Table],
                         extra: dict[str, object] | None = None) -> None:
-    """Insert the content rows (and the release row, completed by ``extra``) through Arrow."""
+    """Insert the content rows (and the release row, completed by ``extra``) through Arrow
+    (``tables``: dict rows or Arrow tables of the export schemas)."""
     for table, rows in tables.items():
         target = sqlmacros.ident(STORE_TABLES[table])
-        data = arrow_table(table, rows)
+        data = rows if isinstance(rows, pa.Table) else arrow_table(table, rows)
         if table == "release":
             for name, value in (extra or {}).items():
-                data = data.append_column(name, pa.array([value] * len(rows)))
+                data = data.append_column(name, pa.array([value] * data.num_rows))
         columns = ", ".join(sqlmacros.ident(n) for n in data.column_names)
         con.register("fl_release_rows", data)
         try:
@@ -81,13 +85,14 @@ def remove_leftovers(target: Path) -> list[Path]:
                                  folders=False)
 
 
-def build_published_file(target: Path, tables: dict[str, list[dict]], release_extra: dict,
-                         publication: dict) -> Path:
+def build_published_file(target: Path, tables: dict[str, list[dict] | pa.Table],
+                         release_extra: dict, publication: dict) -> Path:
     """Write a complete published file beside ``target``; returns the temporary file.
 
     The caller swaps it in with :func:`swap_in` once the store has committed the release.
     ``release_extra`` completes the release row (check_run_id, created_at, publish_run_id);
-    ``publication`` is the release_publication row (its sequence number is 1 in the file).
+    ``publication`` is the release_publication row (its sequence number is 1 in the file;
+    ``published_file`` defaults to ``target``).
     """
     target = Path(target)
     target.parent.mkdir(parents=True, exist_ok=True)
@@ -104,13 +109,14 @@ def build_published_file(target: Path, tables: dict[str, list[dict]], release_ex
                         "(nextval('release_publication_seq'), ?, ?, ?, ?, ?)",
                         [publication["release_id"], publication["published_at"],
                          publication["publish_run_id"], publication["export_dir"],
-                         str(target)])
+                         publication.get("published_file", str(target))])
             sqlmacros.install_macros(con)
             sqlmacros.comment_view_columns(con, sqlmacros.CURATED_VIEWS)
             con.execute("COMMIT")
             con.execute("CHECKPOINT")
         finally:
             con.close()
+        os.chmod(tmp, READ_ONLY)   # readers open it read-only; the verify checks its content
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise

@@ -32,7 +32,7 @@ import numpy as np
 
 from pipeline.checks.points import parse_phases, solid_label
 from pipeline.correlations import Curve
-from pipeline.publish import provenance as prov
+from pipeline.publish import derived as batch, provenance as prov
 from pipeline.publish.inputs import ReleaseInputs
 from pipeline.publish.policy import DERIVED, Decisions, Policy
 
@@ -171,23 +171,43 @@ def enthalpy_candidates(inputs: ReleaseInputs, vapour_triples: dict[str, tuple[s
     return out
 
 
-def vapour_pressure_fit(inputs: ReleaseInputs, fluid_id: str) -> dict | None:
+def vapour_pressure_fits(inputs: ReleaseInputs) -> dict[str, dict]:
+    """The (first) fitted vapour-pressure curve of each fluid."""
+    out: dict[str, dict] = {}
     for fit in inputs.fits:
-        if (fit["fluid_id"], fit["boundary"], fit["solid_phase"], fit["quantity"]) == \
-                (fluid_id, "liquid-vapour", "", "pressure"):
-            return fit
-    return None
+        if (fit["boundary"], fit["solid_phase"], fit["quantity"]) == \
+                ("liquid-vapour", "", "pressure"):
+            out.setdefault(fit["fluid_id"], fit)
+    return out
 
 
-def derived_normal_boiling(inputs: ReleaseInputs, fit: dict, policy: Policy) -> Candidate | str:
-    """T_nb from the vapour-pressure curve, or the reason there is none."""
-    curve = Curve.from_dict(fit["curve"])
+def vapour_pressure_fit(inputs: ReleaseInputs, fluid_id: str) -> dict | None:
+    return vapour_pressure_fits(inputs).get(fluid_id)
+
+
+def normal_boiling_points(fits: list[dict], policy: Policy, inputs: ReleaseInputs | None = None
+                          ) -> dict[str, tuple[float, ...]]:
+    """fit id -> (T_nb, slope, u_p) at the normal boiling pressure, all curves at once
+    (:mod:`pipeline.publish.derived`; what ``curve.inverse``, ``curve.slope``, ``curve.u``
+    give one by one)."""
+    curves = [inputs.curve(f) if inputs else Curve.from_dict(f["curve"]) for f in fits]
+    T = batch.inverse(curves, policy.derived.normal_boiling_pressure_Pa)
+    _, slope, u = batch.at(curves, T, extrapolate=False)
+    return {f["fit_id"]: (float(t), float(s), float(v)) for f, t, s, v in zip(fits, T, slope, u)}
+
+
+def derived_normal_boiling(inputs: ReleaseInputs, fit: dict, policy: Policy,
+                           at_nb: tuple[float, ...] | None = None) -> Candidate | str:
+    """T_nb from the vapour-pressure curve, or the reason there is none (``at_nb``: the
+    T_nb, slope and u_p of :func:`normal_boiling_points`, computed here when not given)."""
+    curve = inputs.curve(fit)
     p_nb = policy.derived.normal_boiling_pressure_Pa
-    T = float(curve.inverse(p_nb))
+    if at_nb is None:
+        at_nb = normal_boiling_points([fit], policy)[fit["fit_id"]]
+    T, slope, u_p = at_nb
     if not math.isfinite(T):
         return (f"fit {fit['fit_id']} ({curve.T_min_K:.6g}-{curve.T_max_K:.6g} K) does not reach "
                 f"{p_nb:g} Pa")
-    slope, u_p = float(curve.slope(T)), float(curve.u(T))
     u = _u(u_p / slope) if math.isfinite(u_p) and slope > 0 else None
     ent = prov.entity("fit", fit["fit_id"], value=T, u=u,
                       note=f"inverse of the fitted vapour-pressure curve at {p_nb:g} Pa")
@@ -197,18 +217,30 @@ def derived_normal_boiling(inputs: ReleaseInputs, fit: dict, policy: Policy) -> 
                      "fit covariance over the slope (delta method)", fit_id=fit["fit_id"])
 
 
-def derived_acentric(inputs: ReleaseInputs, fit: dict, Tc: Recommendation, pc: Recommendation,
-                     policy: Policy) -> Candidate | str:
-    """omega from the vapour-pressure curve and the recommended critical point."""
-    curve = Curve.from_dict(fit["curve"])
+def acentric_temperature(fit: dict, Tc: Recommendation, policy: Policy) -> float | str:
+    """Tr Tc, where the acentric factor reads the curve, or why the curve does not cover it."""
+    curve = fit["curve"]
     Tr = policy.derived.acentric_reduced_temperature
     T = Tr * Tc.value
-    if not (curve.T_min_K - policy.derived.max_extrapolation_K <= T <= curve.T_max_K):
-        return (f"fit {fit['fit_id']} ({curve.T_min_K:.6g}-{curve.T_max_K:.6g} K) does not cover "
-                f"{Tr:g} Tc = {T:.6g} K within {policy.derived.max_extrapolation_K:g} K")
-    p = float(curve.value(T, extrapolate=True))
-    slope = float(curve.slope(T, extrapolate=True))
-    u_p = float(curve.u(T, extrapolate=True))
+    if not (curve["T_min_K"] - policy.derived.max_extrapolation_K <= T <= curve["T_max_K"]):
+        return (f"fit {fit['fit_id']} ({curve['T_min_K']:.6g}-{curve['T_max_K']:.6g} K) does not "
+                f"cover {Tr:g} Tc = {T:.6g} K within {policy.derived.max_extrapolation_K:g} K")
+    return T
+
+
+def derived_acentric(inputs: ReleaseInputs, fit: dict, Tc: Recommendation, pc: Recommendation,
+                     policy: Policy, at_T: tuple[float, ...] | None = None) -> Candidate | str:
+    """omega from the vapour-pressure curve and the recommended critical point (``at_T``: the
+    curve's value, slope and u at Tr Tc, computed here when not given)."""
+    curve = inputs.curve(fit)
+    Tr = policy.derived.acentric_reduced_temperature
+    T = acentric_temperature(fit, Tc, policy)
+    if isinstance(T, str):
+        return T
+    if at_T is None:
+        v, s, u = batch.at([curve], np.array([T]), extrapolate=True)
+        at_T = (float(v[0]), float(s[0]), float(u[0]))
+    p, slope, u_p = at_T
     omega = -math.log10(p / pc.value) - 1.0
     terms = [(u_p if math.isfinite(u_p) else 0.0) / (p * LN10),
              Tr * (Tc.u or 0.0) * slope / (p * LN10), (pc.u or 0.0) / (pc.value * LN10)]
@@ -309,6 +341,22 @@ def _combine(fluid_id, point, prop, pool, left, policy, decision_ids) -> Recomme
                           pool, left, None, decision_ids)
 
 
+def _acentric_points(inputs: ReleaseInputs, vp: dict[str, dict], critical: dict,
+                     policy: Policy) -> dict[str, tuple[float, ...]]:
+    """fluid -> the curve's value, slope and u at Tr Tc, for all fluids at once."""
+    todo = []
+    for fluid, (Tc, pc) in critical.items():
+        if Tc and pc:
+            T = acentric_temperature(vp[fluid], Tc, policy)
+            if not isinstance(T, str):
+                todo.append((fluid, T))
+    if not todo:
+        return {}
+    curves = [inputs.curve(vp[f]) for f, _ in todo]
+    v, s, u = batch.at(curves, np.array([T for _, T in todo]), extrapolate=True)
+    return {f: (float(a), float(b), float(c)) for (f, _), a, b, c in zip(todo, v, s, u)}
+
+
 def recommend_all(inputs: ReleaseInputs, policy: Policy, decisions: Decisions,
                   checks: prov.CheckIndex) -> tuple[list[Recommendation], list[dict]]:
     """Every recommended constant, and the constants left without one (with the reason)."""
@@ -326,14 +374,21 @@ def recommend_all(inputs: ReleaseInputs, policy: Policy, decisions: Decisions,
     vapour_triples = {f: (p, r.value) for (f, p, prop), r in recs.items()
                       if prop == "Tt" and "vapour" in p.split(":", 1)[1].split(",")}
     extra = enthalpy_candidates(inputs, vapour_triples, policy)
-    for fluid in (row["fluid_id"] for row in inputs.fluids):
-        fit = vapour_pressure_fit(inputs, fluid)
+    fluids = [row["fluid_id"] for row in inputs.fluids]
+    vp = vapour_pressure_fits(inputs)
+    nb = normal_boiling_points([vp[f] for f in fluids if f in vp], policy, inputs)
+    critical = {f: (recs.get((f, "critical:vapour,liquid", "Tc")),
+                    recs.get((f, "critical:vapour,liquid", "pc"))) for f in fluids if f in vp}
+    at_Tr = _acentric_points(inputs, vp, critical, policy)
+    for fluid in fluids:
+        fit = vp.get(fluid)
         derived: dict[str, Candidate | str] = {}
         if fit is not None:
-            derived["normal_boiling_T"] = derived_normal_boiling(inputs, fit, policy)
-            Tc = recs.get((fluid, "critical:vapour,liquid", "Tc"))
-            pc = recs.get((fluid, "critical:vapour,liquid", "pc"))
-            derived["acentric_factor"] = derived_acentric(inputs, fit, Tc, pc, policy) \
+            derived["normal_boiling_T"] = derived_normal_boiling(inputs, fit, policy,
+                                                                 nb[fit["fit_id"]])
+            Tc, pc = critical[fluid]
+            derived["acentric_factor"] = derived_acentric(
+                inputs, fit, Tc, pc, policy, at_Tr.get(fluid)) \
                 if Tc and pc else "no recommended critical temperature and pressure"
         for prop in ("normal_boiling_T", "acentric_factor", "h_fusion_triple",
                      "h_vaporization_triple", "h_sublimation_triple"):

@@ -2,26 +2,30 @@
 
 Recipe of :func:`publish`:
 
-1. read the inputs (:func:`pipeline.publish.inputs.load_inputs`): the release rests on the
-   latest check run; none -> :class:`PublishError`;
+1. read the inputs (:func:`pipeline.publish.inputs.load_inputs`, a few set-based queries): the
+   release rests on the latest check run; none -> :class:`PublishError`;
 2. refuse (:class:`ReleaseRefused`, exit code 1) when a finding of that run failed or errored,
    unless ``allow_failures`` - then the release is marked ``with_failed_checks``;
 3. fingerprint the inputs; the release id is the given name or ``r-<12 hex of the fingerprint>``;
    an existing release of that id must have the same fingerprint (releases are immutable);
-4. build the content (:func:`build_content`): recommended constants, curves, one provenance
-   record per value - a pure function of inputs, policy and decisions;
-5. write the exports into a temporary folder and validate them; write the published DuckDB
+4. plan (:mod:`pipeline.publish.incremental`): fluids whose inputs are those of the previous
+   release are copied from it, the others recomputed;
+5. build the content of the recomputed fluids (:func:`content_rows`): recommended constants,
+   curves, one provenance record per value - a pure function of inputs, policy and decisions;
+   join the copied rows (one query per table) and the release row;
+6. write the exports into a temporary folder and validate them; write the published DuckDB
    file as a temporary file (temporary files left by a killed publish are removed first);
-6. rename the export folder into place (an atomic rename; a folder already there must hold
+7. rename the export folder into place (an atomic rename; a folder already there must hold
    the same manifest);
-7. one store transaction: the release rows (if new), a release_publication row, the SQL macros;
-8. swap the published file in (``os.replace``).
+8. one store transaction: the release rows if new (copied fluids by ``INSERT ... SELECT``, the
+   others from Arrow) and its per-fluid state, a release_publication row, the SQL macros;
+9. swap the published file in (``os.replace``).
 
 A re-publish of unchanged inputs adds only a publication row; the files come out identical.
 
-The order makes every crash recoverable by running the publish again: killed before 6, only
-temporary files remain; between 6 and 7, the folder is a complete, verifiable release that
-the store does not list yet, and the rerun adopts it (same manifest); between 7 and 8 the
+The order makes every crash recoverable by running the publish again: killed before 7, only
+temporary files remain; between 7 and 8, the folder is a complete, verifiable release that
+the store does not list yet, and the rerun adopts it (same manifest); between 8 and 9 the
 store lists the release while readers still see the previous published file, and the rerun
 republishes it. :mod:`pipeline.crashpoints` names these places for the tests.
 """
@@ -36,18 +40,22 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
 import duckdb
+import pyarrow as pa
+import pyarrow.compute as pc
 
 from pipeline import __version__
 from pipeline.correlations import Curve
 from pipeline.crashpoints import crash_point
 from pipeline.errors import EXIT_CHECK_FAILED, PublishError
 from pipeline.ingest.stage import new_run_id, utcnow
-from pipeline.publish import exports, provenance as prov, published, sqlmacros
+from pipeline.publish import exports, incremental, provenance as prov, published, sqlmacros
 from pipeline.publish.inputs import ReleaseInputs, load_inputs
+from pipeline.publish.integrity import file_parts
 from pipeline.publish.policy import NO_DECISIONS, Decisions, Policy
 from pipeline.publish.recommend import Recommendation, recommend_all
+from pipeline.store.runs import end_run
 
-RELEASE_NAME = re.compile(r"^[a-z0-9][a-z0-9._-]{0,63}$")
+RELEASE_NAME = re.compile(r"^[a-z0-9][a-z0-9._-]{0,63}\Z")  # \Z: no trailing newline
 CURVE_UNITS = {"pressure": "Pa", "rho_liquid": "kg/m^3", "rho_vapour": "kg/m^3"}
 
 
@@ -74,9 +82,15 @@ class PublishResult:
     published_file: str
     exports_written: bool
     unresolved: list[dict] = field(default_factory=list)
+    fluids_copied: int = 0         # fluids whose rows were copied from the previous release
+    fluids_computed: int = 0       # fluids whose rows were computed
+    #: digests of the published file's parts, kept in the run row for ``verify``
+    published_content: dict = field(default_factory=dict, repr=False)
 
     def asdict(self) -> dict:
-        return asdict(self)
+        out = asdict(self)
+        out.pop("published_content")
+        return out
 
     def asstr(self) -> str:
         state = "made" if self.created else "re-published (unchanged)"
@@ -89,6 +103,9 @@ class PublishResult:
         lines.append(f"  exports: {self.export_dir}"
                      + ("" if self.exports_written else " (already in place, identical)"))
         lines.append(f"  published file: {self.published_file}")
+        if self.fluids_copied:
+            lines.append(f"  {self.fluids_computed} fluid(s) computed, {self.fluids_copied} "
+                         "unchanged fluid(s) copied from the previous release")
         for u in self.unresolved:
             lines.append(f"  no value: {u['fluid_id']} {u['property']}: {u['reason']}")
         return "\n".join(lines)
@@ -111,7 +128,7 @@ def _fit_decision_ids(inputs: ReleaseInputs, fit_ids) -> list[str]:
 
 
 def _constant_record(inputs: ReleaseInputs, r: Recommendation, policy: Policy,
-                     checks: prov.CheckIndex) -> prov.Record:
+                     checks: prov.CheckIndex, policy_sha256: str | None = None) -> prov.Record:
     entities = []
     for c in r.used:
         entities.append({**c.entities[0], "used": True, "note": c.entities[0]["note"]
@@ -123,7 +140,8 @@ def _constant_record(inputs: ReleaseInputs, r: Recommendation, policy: Policy,
     for c in r.used:
         refs = refs | c.refs
     fits = sorted({c.fit_id for c in r.used if c.fit_id})
-    activity = (f"fluidledger publish: recommendation by policy {policy.sha256[:12]} "
+    activity = (f"fluidledger publish: recommendation by policy "
+                f"{(policy_sha256 or policy.sha256)[:12]} "
                 f"({r.method}: {r.detail})")
     return prov.Record(r.value_id, r.fluid_id, "constant", r.method,
                        fits[0] if len(fits) == 1 else None, activity, entities,
@@ -151,7 +169,7 @@ def valid_to_tc(fit: dict, curve: Curve, checks: prov.CheckIndex) -> bool:
 
 def _curve_rows(inputs: ReleaseInputs, fit: dict, release_id: str,
                 checks: prov.CheckIndex) -> tuple[dict, prov.Record]:
-    curve = Curve.from_dict(fit["curve"])
+    curve = inputs.curve(fit)
     to_tc = valid_to_tc(fit, curve, checks)
     form = curve.correlation_form
     exps = list(curve.ref["exponents"])
@@ -192,14 +210,17 @@ class Content:
     unresolved: list[dict]
 
 
-def build_content(inputs: ReleaseInputs, policy: Policy, decisions: Decisions,
-                  release_id: str, fingerprint: str) -> Content:
-    """The release tables: a pure function of the inputs, the policy and the decisions."""
+def content_rows(inputs: ReleaseInputs, policy: Policy, decisions: Decisions,
+                 release_id: str) -> tuple[dict[str, list[dict]], list[dict]]:
+    """The constants, curves and provenance rows (each sorted by value_id) of the fluids of
+    ``inputs``, and the constants left without a value: a pure function of the inputs, the
+    policy and the decisions."""
     checks = prov.CheckIndex(inputs.checks)
     recs, unresolved = recommend_all(inputs, policy, decisions, checks)
     constants, curves, records = [], [], []
+    policy_sha256 = policy.sha256
     for r in recs:
-        record = _constant_record(inputs, r, policy, checks)
+        record = _constant_record(inputs, r, policy, checks, policy_sha256)
         constants.append(_constant_row(r, release_id,
                                        prov.worst_status(c["status"] for c in record.checks)))
         records.append(record)
@@ -209,19 +230,46 @@ def build_content(inputs: ReleaseInputs, policy: Policy, decisions: Decisions,
         records.append(record)
     curves.sort(key=lambda r: r["value_id"])
     records.sort(key=lambda r: r.value_id)
+    return ({"constants": constants, "curves": curves,
+             "provenance": [rec.row(inputs, release_id) for rec in records]}, unresolved)
+
+
+def release_row(inputs: ReleaseInputs, policy: Policy, decisions: Decisions, release_id: str,
+                fingerprint: str, n_rows: dict[str, int]) -> dict:
+    """The release's own row (``n_rows``: rows of constants, curves and provenance)."""
     counts = inputs.counts()
-    release = {"release_id": release_id, "fingerprint": fingerprint,
-               "pipeline_version": inputs.pipeline_version,
-               "with_failed_checks": bool(inputs.bad_checks()),
-               "checks_failed": counts.get("fail", 0), "checks_errored": counts.get("error", 0),
-               "checks_warned": counts.get("warn", 0), "n_constants": len(constants),
-               "n_curves": len(curves), "n_provenance": len(records),
-               "policy_sha256": policy.sha256,
-               "policy_json": json.dumps(policy.asdict(), sort_keys=True),
-               "decisions_json": json.dumps(decisions.asdict(), sort_keys=True)}
-    tables = {"release": [release], "constants": constants, "curves": curves,
-              "provenance": [rec.row(inputs, release_id) for rec in records]}
-    return Content(tables, unresolved)
+    return {"release_id": release_id, "fingerprint": fingerprint,
+            "pipeline_version": inputs.pipeline_version,
+            "with_failed_checks": bool(inputs.bad_checks()),
+            "checks_failed": counts.get("fail", 0), "checks_errored": counts.get("error", 0),
+            "checks_warned": counts.get("warn", 0), "n_constants": n_rows["constants"],
+            "n_curves": n_rows["curves"], "n_provenance": n_rows["provenance"],
+            "policy_sha256": policy.sha256,
+            "policy_json": json.dumps(policy.asdict(), sort_keys=True),
+            "decisions_json": json.dumps(decisions.asdict(), sort_keys=True)}
+
+
+def build_content(inputs: ReleaseInputs, policy: Policy, decisions: Decisions,
+                  release_id: str, fingerprint: str) -> Content:
+    """The release tables of every fluid, computed (what a full publish writes)."""
+    rows, unresolved = content_rows(inputs, policy, decisions, release_id)
+    release = release_row(inputs, policy, decisions, release_id, fingerprint,
+                          {t: len(r) for t, r in rows.items()})
+    return Content({"release": [release], **rows}, unresolved)
+
+
+def _unresolved(fresh: list[dict], p: incremental.Plan) -> tuple[list[dict], dict]:
+    """Constants without a value, in the order a full publish lists them (point constants by
+    fluid, then the others by fluid), and per fluid for the release state."""
+    per_fluid: dict[str, list[dict]] = {f: [] for f in p.digests}
+    for u in fresh:
+        per_fluid.setdefault(u["fluid_id"], []).append(u)
+    for f in p.reuse:
+        per_fluid[f] = list(p.previous.unresolved.get(f, []))
+    order = sorted(per_fluid)
+    merged = [u for f in order for u in per_fluid[f] if "point" in u] + \
+        [u for f in order for u in per_fluid[f] if "point" not in u]
+    return merged, per_fluid
 
 
 def _refusal(inputs: ReleaseInputs) -> ReleaseRefused:
@@ -237,7 +285,8 @@ def _refusal(inputs: ReleaseInputs) -> ReleaseRefused:
 
 def publish(con: duckdb.DuckDBPyConnection, store_path: Path, *, name: str | None = None,
             allow_failures: bool = False, out: Path | None = None,
-            policy: Policy | None = None, decisions: Decisions = NO_DECISIONS) -> PublishResult:
+            policy: Policy | None = None, decisions: Decisions = NO_DECISIONS,
+            full: bool = False) -> PublishResult:
     """Make (or re-publish) a release from the store open on ``con`` (writable).
 
     Parameters
@@ -254,6 +303,9 @@ def publish(con: duckdb.DuckDBPyConnection, store_path: Path, *, name: str | Non
         Output root: ``<out>/<release>/`` for the exports and ``<out>/published.duckdb``.
     policy, decisions
         Recommendation policy (default: the package's policy.toml) and curation decisions.
+    full : bool
+        Recompute every fluid instead of copying the rows of fluids whose inputs are those of
+        the previous release (the result is the same; see :mod:`pipeline.publish.incremental`).
     """
     policy = policy or Policy.load()
     if name is not None and not RELEASE_NAME.match(name):
@@ -261,19 +313,21 @@ def publish(con: duckdb.DuckDBPyConnection, store_path: Path, *, name: str | Non
                            f"({RELEASE_NAME.pattern})", key="--release")
     root = Path(out) if out is not None else Path(store_path).parent
     run_id = new_run_id("publish")
-    params = {"release": name, "allow_failures": allow_failures, "out": str(root)}
+    params = {"release": name, "allow_failures": allow_failures, "out": str(root),
+              "full": full}
     con.execute("INSERT INTO run VALUES (?, 'publish', ?, NULL, ?, ?, 'running', NULL)",
                 [run_id, utcnow(), __version__,
                  json.dumps(params, sort_keys=True)])
     try:
-        result = _publish(con, root, run_id, name, allow_failures, policy, decisions)
+        result = _publish(con, root, run_id, name, allow_failures, policy, decisions, full)
     except ReleaseRefused as err:
         _finish(con, run_id, "failed", {"refused": str(err)})
         raise
     except BaseException as err:
-        _finish(con, run_id, "error", {"error": f"{type(err).__name__}: {err}"})
+        end_run(con, run_id, err)
         raise
-    _finish(con, run_id, "ok" if result.created else "no-changes", result.asdict())
+    _finish(con, run_id, "ok" if result.created else "no-changes",
+            {**result.asdict(), "published_content": result.published_content})
     return result
 
 
@@ -282,11 +336,11 @@ def _finish(con, run_id: str, status: str, summary: dict) -> None:
                 [utcnow(), status, json.dumps(summary, sort_keys=True, default=str), run_id])
 
 
-def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisions):
+def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisions, full):
     inputs = load_inputs(con)
     if inputs.bad_checks() and not allow_failures:
         raise _refusal(inputs)
-    fingerprint = inputs.fingerprint(policy.asdict(), decisions.asdict())
+    fingerprint, digests = inputs.fingerprints(policy.asdict(), decisions)
     release_id = name or f"r-{fingerprint[:12]}"
     row = con.execute("SELECT fingerprint, check_run_id, created_at FROM release "
                       "WHERE release_id = ?", [release_id]).fetchone()
@@ -294,7 +348,14 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
         raise PublishError(f"release {release_id} exists with other inputs (fingerprint "
                            f"{row[0][:12]} vs {fingerprint[:12]}); releases are immutable: "
                            "publish under another name", key="--release")
-    content = build_content(inputs, policy, decisions, release_id, fingerprint)
+    plan = incremental.plan(con, digests, incremental=not full)
+    fresh, fresh_unresolved = content_rows(inputs.subset(plan.recompute), policy, decisions,
+                                           release_id)
+    tables = incremental.assemble(con, plan, fresh, release_id)
+    release = release_row(inputs, policy, decisions, release_id, fingerprint,
+                          {t: tables[t].rows.num_rows for t in incremental.TEXT_TABLES})
+    tables = {"release": exports.export_table("release", [release]), **tables}
+    unresolved, unresolved_per_fluid = _unresolved(fresh_unresolved, plan)
     now = utcnow()
     extra = {"check_run_id": row[1] if row else inputs.check_run_id,
              "created_at": row[2] if row else now, "publish_run_id": run_id}
@@ -302,15 +363,17 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
     target = root / published.PUBLISHED_NAME
     exports.remove_leftovers(root)
     published.remove_leftovers(target)
-    tmp_dir, manifest = exports.prepare_release_folder(root, release_id, fingerprint,
-                                                       content.tables)
+    tmp_dir, manifest, spans = exports.prepare_release_folder(root, release_id, fingerprint,
+                                                              tables)
     crash_point("publish:exports-written")
     publication = {"release_id": release_id, "published_at": now, "publish_run_id": run_id,
                    "export_dir": str(final_dir)}
+    arrow = {t: table.rows for t, table in tables.items()}
     tmp_pub = None
     try:
         already = exports.existing_folder_matches(final_dir, manifest)
-        tmp_pub = published.build_published_file(target, content.tables, extra, publication)
+        tmp_pub = published.build_published_file(target, arrow, extra, publication)
+        content_parts = file_parts(tmp_pub)
         crash_point("publish:file-built")
         written = exports.commit_release_folder(tmp_dir, final_dir, already)
     except BaseException:
@@ -322,7 +385,9 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
     con.execute("BEGIN TRANSACTION")
     try:
         if row is None:
-            published.insert_release_rows(con, content.tables, extra)
+            incremental.copy_store_rows(con, plan, release_id)
+            published.insert_release_rows(con, _not_copied(arrow, plan), extra)
+            incremental.insert_state(con, plan, release_id, unresolved_per_fluid, spans)
         con.execute("INSERT INTO release_publication VALUES "
                     "(nextval('release_publication_seq'), ?, ?, ?, ?, ?)",
                     [release_id, now, run_id, str(final_dir), str(target)])
@@ -341,6 +406,16 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
     counts = inputs.counts()
     return PublishResult(release_id, fingerprint, inputs.check_run_id, row is None,
                          bool(inputs.bad_checks()), counts.get("fail", 0),
-                         counts.get("error", 0), len(content.tables["constants"]),
-                         len(content.tables["curves"]), str(final_dir), str(target), written,
-                         content.unresolved)
+                         counts.get("error", 0), tables["constants"].rows.num_rows,
+                         tables["curves"].rows.num_rows, str(final_dir), str(target), written,
+                         unresolved, len(plan.reuse), len(plan.recompute), content_parts)
+
+
+def _not_copied(arrow: dict[str, pa.Table], plan: incremental.Plan) -> dict[str, pa.Table]:
+    """The rows the store does not get by copying: the release row, the recomputed fluids'."""
+    if not plan.reuse:
+        return arrow
+    copied = pa.array(plan.reuse, pa.string())
+    return {t: rows if t not in incremental.TEXT_TABLES else
+            rows.filter(pc.invert(pc.is_in(rows["fluid_id"], value_set=copied)))
+            for t, rows in arrow.items()}

@@ -9,12 +9,13 @@ their equation written out (:data:`NONLINEAR_SQL`). A form without an SQL expres
 error at publish time, so a new form cannot be released without one.
 
 Coefficients live in ``curated_curves`` (``params``, ``exponents`` as DOUBLE lists, 1-based in
-SQL); the sum is unrolled over :data:`MAX_TERMS` terms, unused ones contributing
-``0 * phi(exponent 0)``. Macros persist in the DuckDB file and work from the plain ``duckdb``
-client; their parameter names never equal a column name of ``curated_curves`` (DuckDB would
-refuse the binding), and every name inside them (table aliases, CTEs, their columns) starts
-with ``fl__`` (reserved: do not give your own tables or aliases such names) so that an argument
-expression such as ``c.fluid_id`` is never captured by a name of the macro body.
+SQL); the sum is unrolled over :data:`MAX_TERMS` terms, those beyond the curve's exponents
+contributing 0 without being evaluated. Macros persist in the DuckDB file and work from the
+plain ``duckdb`` client; their parameter names never equal a column name of
+``curated_curves`` (DuckDB would refuse the binding), and every name inside them (table
+aliases, CTEs, their columns) starts with ``fl__`` (reserved: do not give your own tables or
+aliases such names) so that an argument expression such as ``c.fluid_id`` is never captured
+by a name of the macro body.
 
 The saturation temperature mirrors :meth:`pipeline.correlations.Curve.inverse`: the form is
 evaluated in its fit space on the same 129-point grid, the first sign change is bracketed, and
@@ -79,7 +80,7 @@ NONLINEAR_PARAM_NAMES: dict[type, tuple[str, ...]] = {
     SimonGlatzel: ("ref_Pa", "a_Pa", "c"),
 }
 
-_IDENT = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+_IDENT = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*\Z")
 
 
 def ident(name: str) -> str:
@@ -120,9 +121,13 @@ def form_sql(form: CorrelationForm) -> str:
     fmt = {"x": _X, "r": _R}
     if isinstance(form, LinearForm):
         basis = _basis_template(form)
+        # term i exists when the curve has more than i exponents (a linear form has one per
+        # coefficient after the first, and at least one); absent terms are 0 without
+        # evaluating them (a power per absent term made the macro several times slower)
         terms = " + ".join(
-            f"coalesce({_P}[{i + 2}], 0) * "
-            + basis.format(e=f"coalesce({_E}[{i + 1}], 0)", **fmt)
+            ("" if i == 0 else f"CASE WHEN len({_E}) > {i} THEN ")
+            + f"{_P}[{i + 2}] * " + basis.format(e=f"{_E}[{i + 1}]", **fmt)
+            + ("" if i == 0 else " ELSE 0 END")
             for i in range(MAX_TERMS))
         if form.link == "log":
             return f"exp({_P}[1] + ({terms}))"
@@ -140,9 +145,11 @@ def form_value_macro() -> str:
     by_sql: dict[str, list[str]] = {}
     for name in sorted(FORMS):
         by_sql.setdefault(form_sql(FORMS[name]), []).append(name)
+    # the branch shared by most forms first: a row is tested against fewer branches
+    ordered = sorted(by_sql.items(), key=lambda item: (-len(item[1]), item[1][0]))
     branches = "\n    ".join(
         "WHEN form_name IN (" + ", ".join(text_literal(n) for n in names) + f") THEN {sql}"
-        for sql, names in by_sql.items())
+        for sql, names in ordered)
     return (f"CREATE OR REPLACE MACRO fl_form_value(form_name, {_P}, {_E}, {_R}, {_X}) AS "
             f"CASE\n    {branches}\n    END")
 

@@ -91,7 +91,7 @@ def release_value_changes(con, release_a: str, release_b: str) -> list[dict]:
         if c.causes:
             note += "; causes: " + "; ".join(c.causes[:3])
         out.append({"fluid_id": fluid, "group": c.value_id, "name": f"{c.kind} {c.value_id}",
-                    "unit": c.unit or "", "T_ref_K": None, "before": _num(c.old),
+                    "unit": c.unit or "", "T_ref_K": c.T_ref_K, "before": _num(c.old),
                     "after": _num(c.new), "delta": _num(delta), "u": _num(u),
                     "shift_u": _num(c.z), "fit_before": None, "fit_after": None,
                     "note": note})

@@ -2,8 +2,9 @@
 
 :func:`fluid_sections` returns, for each fluid, its fits (with the reference value each fit
 recommends and its standard uncertainty), stated fixed points, sources with their citations,
-and the observations the phase diagram needs (only for fluids whose plot is not cached).
-:func:`flagged_from_results` turns failing check evidence into the observations to mark.
+and the observations the figures need (only for fluids whose figures are not cached), drawn
+corrected where the unit mix-up check diagnosed their file. :func:`flagged_from_results`
+turns failing check evidence into the observations to mark; :func:`flag_groups` numbers them.
 """
 
 from __future__ import annotations
@@ -18,7 +19,7 @@ import numpy as np
 from pipeline.report.plots import (
     CurveSpec,
     FixedPointMark,
-    FlaggedPoint,
+    FlagGroup,
     Observations,
     PhaseDiagramData,
 )
@@ -55,6 +56,7 @@ class FitRow:
     T_ref_K: float | None = None
     ref_value: float | None = None
     ref_u: float | None = None
+    ref_slope: float | None = None     # d value/dT at T_ref [unit/K]
 
     @property
     def group(self) -> str:
@@ -78,21 +80,27 @@ class FluidSection:
     n_observations: int = 0
 
 
-def fit_reference(curve_json: str | None) -> tuple[float | None, float | None, float | None]:
-    """(T_ref [K], value at T_ref, its standard uncertainty) of a stored fit's curve."""
+def _reference(curve_json: str | None) -> tuple:
+    """(T_ref [K], value at T_ref, its standard uncertainty, slope there) of a stored curve."""
     if not curve_json:
-        return None, None, None
+        return None, None, None, None
     from pipeline.correlations import Curve
 
     curve = Curve.from_dict(json.loads(curve_json))
     T_ref = curve.ref.get("T_ref_K")
     if T_ref is None:
-        return None, None, None
+        return None, None, None, None
     with np.errstate(all="ignore"):
         value = float(curve.value(T_ref, extrapolate=True))
         u = float(curve.u(T_ref, extrapolate=True)) if curve.covariance is not None else math.nan
-    return (float(T_ref), value if math.isfinite(value) else None,
-            u if math.isfinite(u) else None)
+        slope = float(curve.slope(T_ref, extrapolate=True))
+    fin = [x if math.isfinite(x) else None for x in (value, u, slope)]
+    return (float(T_ref), *fin)
+
+
+def fit_reference(curve_json: str | None) -> tuple[float | None, float | None, float | None]:
+    """(T_ref [K], value at T_ref, its standard uncertainty) of a stored fit's curve."""
+    return _reference(curve_json)[:3]
 
 
 def _opt(x, kind=float):
@@ -127,10 +135,14 @@ FROM used u LEFT JOIN source s ON s.source_id = u.source_id
 WHERE $ids IS NULL OR list_contains($ids, u.fluid_id) ORDER BY u.fluid_id, u.source_id"""
 _NOBS_SQL = """SELECT f.fluid_id, sum(f.rows_loaded) FROM raw_file_current f
 WHERE f.role = 'table' AND ($ids IS NULL OR list_contains($ids, f.fluid_id)) GROUP BY ALL"""
-_OBS_SQL = """SELECT o.fluid_id, o.obs_id, o.boundary, o.T_K, o.value_si, o.source_id,
-       o.file_path, coalesce(r.is_outlier, false) AS is_outlier
+_OBS_SQL = """SELECT o.fluid_id, o.obs_id, o.boundary, coalesce(o.solid_phase, '') AS solid_phase,
+       o.T_K, o.value_si, o.source_id, coalesce(s.kind, 'unknown') AS source_kind, o.file_path,
+       o.row_number, o.value_unit, o.T_unit, o.T_scale,
+       coalesce(r.is_outlier, false) AS is_outlier, coalesce(r.excluded_by, '') AS excluded_by
 FROM observation_current o
-LEFT JOIN (SELECT fr.obs_id, bool_or(fr.is_outlier) AS is_outlier FROM fit_residual fr
+LEFT JOIN source s ON s.source_id = o.source_id
+LEFT JOIN (SELECT fr.obs_id, bool_or(fr.is_outlier) AS is_outlier,
+                  min(fr.excluded_by) AS excluded_by FROM fit_residual fr
            JOIN fit f ON f.fit_id = fr.fit_id WHERE f.is_current AND f.status = 'fitted'
            GROUP BY fr.obs_id) r ON r.obs_id = o.obs_id
 WHERE o.quantity = 'pressure' AND list_contains($ids, o.fluid_id)
@@ -147,10 +159,10 @@ def fluid_sections(con, fluid_ids: Sequence[str] | None = None) -> dict[str, Flu
          t_min, t_max, chi2, reason, curve_json) = row
         if fid not in out:
             continue
-        T_ref, value, u = fit_reference(curve_json) if status == "fitted" else (None, None, None)
+        ref = _reference(curve_json) if status == "fitted" else (None,) * 4
         out[fid].fits.append(FitRow(fit_id, boundary, phase or "", quantity, status, form,
                                     int(n_points), int(n_used), int(n_flagged), _opt(t_min),
-                                    _opt(t_max), _opt(chi2), reason, T_ref, value, u))
+                                    _opt(t_max), _opt(chi2), reason, *ref))
     for fid, kind, phases, T, uT, pp, up, source in con.execute(_FIXED_SQL, p).fetchall():
         if fid in out:
             out[fid].fixed_points.append(FixedPointMark(kind, phases, float(T), float(pp),
@@ -179,33 +191,112 @@ def _walk_obs_ids(value: Any, found: set[int]) -> None:
 
 
 def flagged_from_results(results: Iterable) -> dict[str, dict[str, Any]]:
-    """Per fluid: {"obs": {obs_id: check ids}, "files": {file path: check ids}} named by
-    failing (fail or error) results: observation ids found anywhere in the evidence, and raw
-    files that are the subject of a per-file finding (``file:<path>|...``)."""
+    """Per fluid, what the figures mark: ``obs`` {obs id: check ids} and ``files`` {file path:
+    check ids} named by failing (fail or error) results — observation ids anywhere in the
+    evidence, raw files that are the subject of a per-file finding (``file:<path>|...``) — and
+    ``corrections`` {file path: [mix-up name, ambient pressure]} of the files the unit mix-up
+    check diagnosed (whatever the finding's status: waived or excluded, the diagnosis stands)."""
     out: dict[str, dict[str, Any]] = {}
     for r in results:
+        entry = out.setdefault(r.fluid_id, {"obs": {}, "files": {}, "corrections": {}})
+        path = r.subject[len("file:"):].split("|", 1)[0] if r.subject.startswith("file:") else None
+        if r.check_id == "data.unit-mixup" and path and isinstance(r.evidence, Mapping) \
+                and r.evidence.get("diagnosis"):
+            entry["corrections"][path] = [str(r.evidence["diagnosis"]),
+                                          float(r.thresholds.get("p_atm_Pa", 101325.0))]
         if r.status not in ("fail", "error"):
             continue
-        entry = out.setdefault(r.fluid_id, {"obs": {}, "files": {}})
         ids: set[int] = set()
         _walk_obs_ids(r.evidence, ids)
         for i in ids:
             entry["obs"].setdefault(i, set()).add(r.check_id)
-        if r.subject.startswith("file:"):
-            path = r.subject[len("file:"):].split("|", 1)[0]
+        if path:
             entry["files"].setdefault(path, set()).add(r.check_id)
     return out
 
 
+def corrected(T: np.ndarray, p: np.ndarray, units: tuple[str, str, str],
+              correction: Sequence | None) -> tuple[np.ndarray, np.ndarray, str]:
+    """(T, p, name) of a file's points undone by its diagnosed mix-up (the hypothesis of
+    :mod:`pipeline.checks.unit_mixup` of that name); unchanged with '' when none applies."""
+    if not correction:
+        return T, p, ""
+    from pipeline.checks.unit_mixup import hypotheses
+
+    name, p_atm = correction
+    for h in hypotheses(*units, float(p_atm)):
+        if h.name == name:
+            T2, p2 = h.undo(T.astype(float), p.astype(float))
+            if np.all(np.isfinite(T2)) and np.all(np.isfinite(p2)):
+                return np.asarray(T2, dtype=float), np.asarray(p2, dtype=float), name
+    return T, p, ""
+
+
+def flag_groups(g, named: Mapping[str, Any], numbers: np.ndarray,
+                corrections: Mapping[str, str]) -> list[FlagGroup]:
+    """Number the flagged points of one fluid (frame ``g`` of :data:`_OBS_SQL` rows): points
+    of one file flagged for the same failing checks form a group (fit outliers alone form
+    their own), numbered in order of their first observation; ``numbers`` gets each point's
+    group number."""
+    groups: dict[tuple, list[int]] = {}
+    for i, row in enumerate(g.itertuples(index=False)):
+        checks = set(named["obs"].get(int(row.obs_id), ())) | \
+            set(named["files"].get(row.file_path, ()))
+        if not checks and not row.is_outlier:
+            continue
+        key = (row.file_path, tuple(sorted(checks)) or ("fit outlier",))
+        groups.setdefault(key, []).append(i)
+    out = []
+    ordered = sorted(groups.items(), key=lambda kv: int(g["obs_id"].iat[kv[1][0]]))
+    for n, ((path, reasons), idx) in enumerate(ordered, start=1):
+        numbers[idx] = n
+        sub = g.iloc[idx]
+        out.append(FlagGroup(n, path, str(sub["source_id"].iat[0]), reasons,
+                             tuple(int(x) for x in sub["obs_id"]),
+                             tuple(int(x) for x in sub["row_number"]),
+                             float(sub["T_K"].min()), float(sub["T_K"].max()),
+                             int(sub["is_outlier"].sum()), corrections.get(path, "")))
+    return out
+
+
+def _observations(g, named: Mapping[str, Any]) -> tuple[Observations, list[FlagGroup]]:
+    """One fluid's pressure observations as drawn: corrected where a mix-up is diagnosed,
+    with their flag group numbers."""
+    T_stored, p_stored = g["T_K"].to_numpy(float), g["value_si"].to_numpy(float)
+    T, p = T_stored.copy(), p_stored.copy()
+    correction = np.full(len(g), "", dtype=object)
+    done: dict[str, str] = {}
+    paths = g["file_path"].to_numpy(object)
+    for path, spec in named.get("corrections", {}).items():
+        sel = paths == path
+        if not sel.any():
+            continue
+        first = np.flatnonzero(sel)[0]
+        units = (str(g["value_unit"].iat[first]), str(g["T_unit"].iat[first]),
+                 str(g["T_scale"].iat[first]))
+        T[sel], p[sel], name = corrected(T[sel], p[sel], units, spec)
+        correction[sel] = name
+        if name:
+            done[path] = name
+    numbers = np.zeros(len(g), dtype=np.int64)
+    flags = flag_groups(g, named, numbers, done)
+    obs = Observations(T, p, g["source_id"].to_numpy(object), g["boundary"].to_numpy(object),
+                       g["obs_id"].to_numpy(np.int64), g["solid_phase"].to_numpy(object),
+                       g["source_kind"].to_numpy(object), paths,
+                       g["row_number"].to_numpy(np.int64), T_stored, p_stored, correction,
+                       numbers, g["excluded_by"].to_numpy(object))
+    return obs, flags
+
+
 def diagram_data(con, sections: Mapping[str, FluidSection], fluid_ids: Sequence[str],
                  flagged: Mapping[str, dict[str, Any]]) -> dict[str, PhaseDiagramData]:
-    """Phase-diagram inputs for ``fluid_ids`` (one query for all their observations)."""
+    """Figure inputs for ``fluid_ids`` (one query for all their observations)."""
     from pipeline.correlations import Curve
 
     if not fluid_ids:
         return {}
     frame = con.execute(_OBS_SQL, _param(fluid_ids)).df()
-    groups = {fid: g for fid, g in frame.groupby("fluid_id", sort=False)}
+    groups = {fid: g.reset_index(drop=True) for fid, g in frame.groupby("fluid_id", sort=False)}
     curves: dict[str, list[CurveSpec]] = {}
     rows = con.execute("SELECT fluid_id, boundary, solid_phase, curve_json FROM fit WHERE "
                        "is_current AND status = 'fitted' AND quantity = 'pressure' AND "
@@ -214,29 +305,14 @@ def diagram_data(con, sections: Mapping[str, FluidSection], fluid_ids: Sequence[
     for fid, boundary, phase, curve_json in rows:
         curves.setdefault(fid, []).append(
             CurveSpec(boundary, phase or "", Curve.from_dict(json.loads(curve_json))))
+    empty = {"obs": {}, "files": {}, "corrections": {}}
     out = {}
     for fid in fluid_ids:
         sec = sections[fid]
         g = groups.get(fid)
-        if g is None:
-            obs = Observations.empty()
-            marks: list[FlaggedPoint] = []
-        else:
-            obs = Observations(g["T_K"].to_numpy(float), g["value_si"].to_numpy(float),
-                               g["source_id"].to_numpy(object), g["boundary"].to_numpy(object),
-                               g["obs_id"].to_numpy(np.int64))
-            named = flagged.get(fid, {"obs": {}, "files": {}})
-            marks = []
-            for row in g.itertuples(index=False):
-                reasons = set(named["obs"].get(int(row.obs_id), ()))
-                reasons |= named["files"].get(row.file_path, set())
-                if row.is_outlier:
-                    reasons.add("fit outlier")
-                if reasons:
-                    marks.append(FlaggedPoint(int(row.obs_id), float(row.T_K),
-                                              float(row.value_si), row.boundary,
-                                              ", ".join(sorted(reasons))))
+        obs, flags = (Observations.empty(), []) if g is None else \
+            _observations(g, flagged.get(fid, empty))
         title = sec.name + (f" ({sec.formula})" if sec.formula else "")
         out[fid] = PhaseDiagramData(fid, title, obs, curves.get(fid, []), sec.fixed_points,
-                                    marks)
+                                    tuple(flags))
     return out

@@ -1,5 +1,5 @@
 """Writing a report folder: results.json (schema-validated), junit.xml, summary.md,
-report.html, the ``latest`` pointer, and the plot cache.
+report.html, the ``latest`` pointer, and the figure cache.
 
 ``results.json`` follows ``schemas/nightly-results.schema.json``: a ``nightly`` block (the
 nightly run record) beside the check run's ``run`` block and ``results``, which are
@@ -188,13 +188,15 @@ def source_hash(*modules) -> str:
 
 @dataclass
 class PlotCache:
-    """PNG files keyed by a hash of everything a plot shows, under ``reports/.cache/plots``."""
+    """A fluid's drawn figures (:meth:`FluidFigures.to_json` bytes) keyed by a hash of
+    everything they show, under ``reports/.cache/plots``."""
 
     folder: Path
     enabled: bool = True
+    suffix: str = ".json"
 
     def path(self, key: str) -> Path:
-        return self.folder / f"{key}.png"
+        return self.folder / f"{key}{self.suffix}"
 
     def get(self, key: str) -> bytes | None:
         p = self.path(key)
@@ -202,17 +204,17 @@ class PlotCache:
             return p.read_bytes()
         return None
 
-    def put(self, key: str, png: bytes) -> None:
+    def put(self, key: str, data: bytes) -> None:
         self.folder.mkdir(parents=True, exist_ok=True)
-        _atomic_write(self.path(key), png)
+        _atomic_write(self.path(key), data)
 
     def prune(self, keep: set[str]) -> int:
         """Delete cached plots whose key is not in ``keep``; returns how many."""
         if not self.folder.is_dir():
             return 0
         gone = 0
-        for p in self.folder.glob("*.png"):
-            if p.stem not in keep:
+        for p in self.folder.iterdir():   # figures of older versions (.png) go too
+            if p.is_file() and p.suffix in (".json", ".png") and p.stem not in keep:
                 p.unlink(missing_ok=True)
                 gone += 1
         return gone

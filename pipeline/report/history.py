@@ -1,8 +1,8 @@
 """Run history: how each check's status moved between check runs, computed from the store.
 
 Every check run keeps all its findings in ``check_result``. For each (check, fluid) pair a run
-has one *status*: the worst over the pair's subjects (fail, error, warn, waived, pass, skip, in
-that order), plus the set of subjects that fail. :func:`transitions` walks the runs in order and
+has one *status*: the worst over the pair's subjects (fail, error, warn, waived, excluded, pass,
+skip, in that order), plus the set of subjects that fail. :func:`transitions` walks the runs in order and
 reports every pair whose status or failing subjects differ from the last run that checked the
 pair (a run that did not check a fluid leaves its last known status untouched). One SQL query
 with a window over the runs does the walk, so it stays fast for thousands of fluids.
@@ -18,7 +18,7 @@ from dataclasses import dataclass, field
 from typing import Iterable, Sequence
 
 #: Status order, worst first; a (check, fluid) pair has the worst status of its subjects.
-STATUS_RANK = ("fail", "error", "warn", "waived", "pass", "skip")
+STATUS_RANK = ("fail", "error", "warn", "waived", "excluded", "pass", "skip")
 FAILING = frozenset({"fail", "error"})
 
 _RANK_SQL = "CASE c.status " + " ".join(
@@ -132,16 +132,20 @@ class RunEntry:
     nightly_verdict: str | None
     counts: dict[str, int]
     transitions: list[Transition] = field(default_factory=list)
+    partial: str | None = None    # what the run was restricted to (None: every check, fluid)
 
     def asdict(self) -> dict:
         return {"run_id": self.run_id, "started_at": self.started_at, "status": self.status,
                 "nightly_run_id": self.nightly_run_id, "nightly_verdict": self.nightly_verdict,
-                "counts": self.counts, "transitions": [t.asdict() for t in self.transitions]}
+                "partial": self.partial, "counts": self.counts,
+                "transitions": [t.asdict() for t in self.transitions]}
 
     def asstr(self) -> str:
         counts = ", ".join(f"{n} {s}" for s, n in self.counts.items() if n)
         via = f" (nightly {self.nightly_run_id})" if self.nightly_run_id else ""
-        lines = [f"{self.started_at}  {self.run_id}{via}: {self.status}; {counts or 'no results'}"]
+        part = f" [PARTIAL: {self.partial}]" if self.partial else ""
+        lines = [f"{self.started_at}  {self.run_id}{via}{part}: {self.status}; "
+                 f"{counts or 'no results'}"]
         if not self.transitions:
             lines.append("    no status changes")
         for t in self.transitions:
@@ -153,10 +157,33 @@ class RunEntry:
         return "\n".join(lines)
 
 
+def partial_text(parameters: dict) -> str | None:
+    """What a check run was restricted to, from its recorded parameters: a selection of checks
+    (``--check``, ``--tag``) or of fluids (``--fluid``); None for a run of everything."""
+    def names(key: str) -> list[str]:
+        value = parameters.get(key)
+        return [str(v) for v in value] if isinstance(value, list) else []
+
+    def listing(items: list[str]) -> str:
+        return ", ".join(items[:4]) + (f" and {len(items) - 4} more" if len(items) > 4 else "")
+
+    parts = []
+    if names("checks_requested") or names("tags"):
+        ran = names("checks")
+        how = " and ".join(x for x in (
+            f"--check {listing(names('checks_requested'))}" if names("checks_requested") else "",
+            f"--tag {listing(names('tags'))}" if names("tags") else "") if x)
+        parts.append(f"{len(ran)} check{'s' if len(ran) != 1 else ''} ({how})")
+    if names("fluids"):
+        parts.append(f"fluid{'s' if len(names('fluids')) != 1 else ''} "
+                     f"{listing(names('fluids'))}")
+    return "; ".join(parts) or None
+
+
 _RUNS_SQL = """
 SELECT r.run_id, strftime(r.started_at, '%Y-%m-%d %H:%M:%S') AS started, r.status,
        json_extract_string(r.parameters_json, '$.nightly_run_id') AS nightly,
-       json_extract_string(n.summary_json, '$.verdict') AS verdict
+       json_extract_string(n.summary_json, '$.verdict') AS verdict, r.parameters_json
 FROM run r LEFT JOIN run n ON n.run_id = json_extract_string(r.parameters_json, '$.nightly_run_id')
 WHERE r.kind = 'check'
   AND ($fluids IS NULL OR EXISTS (SELECT 1 FROM check_result c WHERE c.run_id = r.run_id
@@ -193,8 +220,8 @@ def run_history(con, *, fluids: Iterable[str] | None = None, limit: int = 20) ->
         return "error" if c["error"] else "failed" if c["fail"] else "ok"
 
     return [RunEntry(run_id, started, status(counts[run_id]), nightly, verdict, counts[run_id],
-                     by_run[run_id])
-            for run_id, started, _, nightly, verdict in rows]
+                     by_run[run_id], partial_text(json.loads(params or "{}")))
+            for run_id, started, _, nightly, verdict, params in rows]
 
 
 def history_json(entries: list[RunEntry]) -> str:

@@ -1,23 +1,28 @@
-"""The nightly report as one self-contained HTML file (no script, no network, images inline).
+"""The nightly report as one self-contained HTML file (no script, no network, figures inline).
 
-Reading order: the verdict and what changed since the previous run; failures with their
-evidence; warnings; curation decisions; then one section per fluid with its phase diagram,
-fits, fixed points and sources. Every string that comes from data (citations, messages, ids,
-evidence) goes through :func:`e` (``html.escape`` with quotes), so a citation holding markup
-shows as text.
+Reading order: the verdict and what changed since the previous run; failures and warnings,
+each a card with its evidence as tables and the exact ``fluidledger decide ...`` commands that
+would waive it or exclude the data it names; waived and excluded findings with their decision;
+curation decisions; then one section per fluid with its phase diagram (flagged points numbered,
+the numbers explained beside it), deviation plots, fits, fixed points and sources. Every
+string that comes from data (citations, messages, ids, evidence) goes through :func:`e`
+(``html.escape`` with quotes), so a citation holding markup shows as text; the figures are SVG
+written by matplotlib with hover titles escaped by ElementTree.
 """
 
 from __future__ import annotations
 
-import base64
-import json
 import math
 from dataclasses import dataclass, field
 from html import escape
 from typing import Any, Callable, Mapping, Sequence
 
 from pipeline.checks.results import STATUS_ORDER, CheckResult, CheckRun
+from pipeline.report.actions import DecideContext, decide_commands
 from pipeline.report.content import FluidSection
+from pipeline.report.evidence import evidence_table, relative
+from pipeline.report.fluid_html import fluid_section
+from pipeline.safetext import clean
 
 CAUTION = ("Curated values support engineering judgement. They do not replace the applicable "
            "codes, standards and licensed professional practice for pressure equipment, relief "
@@ -31,7 +36,7 @@ VERDICT_TEXT = {
 }
 
 _CSS = """
-body{font-family:system-ui,-apple-system,"Segoe UI",sans-serif;margin:0 auto;max-width:1180px;
+body{font-family:system-ui,-apple-system,"Segoe UI",sans-serif;margin:0 auto;max-width:1240px;
 padding:0 18px 40px;color:#1b1b1b;line-height:1.4}
 h1{font-size:1.5em;margin:18px 0 6px}
 h2{border-bottom:1px solid #ccc;padding-bottom:3px;margin-top:34px}
@@ -43,18 +48,34 @@ table{border-collapse:collapse;margin:6px 0 12px;font-size:.9em}
 th,td{border:1px solid #ddd;padding:3px 7px;text-align:left;vertical-align:top}
 th{background:#f3f3f3}td.num{text-align:right;font-variant-numeric:tabular-nums}
 .s-fail,.s-error{color:#a01010;font-weight:600}.s-warn{color:#8a6000;font-weight:600}
-.s-pass{color:#186018}.s-skip,.s-waived{color:#666}
+.s-pass{color:#186018}.s-skip,.s-waived,.s-excluded{color:#666}
 .card{border:1px solid #e0b4b4;border-radius:5px;padding:8px 12px;margin:8px 0;background:#fffafa}
 .card.warn{border-color:#e6d3a0;background:#fffdf5}
 pre{white-space:pre-wrap;word-break:break-word;font-size:.8em;background:#f7f7f7;padding:6px;
-max-height:340px;overflow:auto}figure{margin:8px 0}img.plot{max-width:100%;height:auto;
-border:1px solid #eee}nav ul{columns:3;font-size:.9em}.muted{color:#666}code{font-size:.9em}
+max-height:340px;overflow:auto}figure{margin:8px 0}nav ul{columns:3;font-size:.9em}
+.muted{color:#666}code{font-size:.9em}
+.figrow{display:flex;flex-wrap:wrap;gap:14px;align-items:flex-start}
+figure.phase{flex:0 1 780px;min-width:560px}figure.deviation{max-width:1000px}
+svg.plot{width:100%;height:auto;display:block;border:1px solid #eee;background:#fff}
+svg.plot .fl-points use{cursor:crosshair}
+.flagbox{flex:1 1 340px;min-width:300px}.flagbox h4{margin:4px 0}
+table.flags{font-size:.8em}table.flags code{font-size:.95em}
+.flagno{display:inline-block;min-width:1.3em;text-align:center;color:#d62728;font-weight:700;
+border:1px solid #d62728;border-radius:4px}
+table.evidence{font-size:.85em;margin:4px 0}table.evidence th{font-weight:600}
+table.evidence.kv>tbody>tr>th{background:#f7f7f7;text-align:left;white-space:nowrap}
+table.evidence table.evidence{margin:0}span.num{font-variant-numeric:tabular-nums}
+details.group{border:1px solid #e6d3a0;border-radius:5px;padding:6px 12px;margin:8px 0;
+background:#fffdf5}details.group>summary{cursor:pointer}
+.decide{margin:6px 0 0}.decide li{margin:3px 0}
+.decide code{display:block;background:#f4f4f4;padding:3px 6px;white-space:pre-wrap;
+word-break:break-all;font-size:.8em}
 """
 
 
 def e(value: Any) -> str:
     """Escape ``value`` for HTML text or a quoted attribute."""
-    return escape("" if value is None else str(value), quote=True)
+    return escape("" if value is None else clean(value), quote=True)
 
 
 def fmt(value: Any, digits: int = 6) -> str:
@@ -82,10 +103,10 @@ class ReportPage:
     nightly: Mapping[str, Any]
     check_run: CheckRun
     sections: Mapping[str, FluidSection]
-    images: Mapping[str, bytes | None]
-    image_size: tuple[int, int] = (900, 414)
+    figures: Mapping[str, Any]        # fluid -> pipeline.report.figures.FluidFigures | None
     decisions: Sequence[Mapping[str, Any]] | None = None
     fluid_order: Sequence[str] = field(default_factory=list)
+    decide: DecideContext = field(default_factory=DecideContext)
 
     def results_of(self, fluid_id: str) -> list[CheckResult]:
         """The check results of one fluid (grouped once for all fluids)."""
@@ -120,9 +141,19 @@ def _header(page: ReportPage) -> str:
             f'UTC, finished {e(n["finished_at"])} UTC ({fmt(n["duration_s"], 3)} s); pipeline '
             f'{e(n["pipeline_version"])}; check run <code>{e(n.get("check_run_id"))}</code></p>'
             f'<div class="verdict v-{e(verdict)}">{e(VERDICT_TEXT.get(verdict, verdict))} '
-            f'(exit code {e(n["exit_code"])})</div>'
+            f'(exit code {e(n["exit_code"])})</div>' + _refused(n) +
             f"<p>{e(count_text or 'no check results')}</p>"
             f'<div class="caution"><strong>Caution.</strong> {e(CAUTION)}</div>')
+
+
+def _refused(n: Mapping[str, Any]) -> str:
+    """The batches the ingest stage refused, named under the verdict."""
+    errors = n.get("stages", {}).get("ingest", {}).get("detail", {}).get("errors", [])
+    if not errors:
+        return ""
+    items = "".join(f"<li><code>{e(x['batch'])}</code>: {e(x['error'])}</li>" for x in errors)
+    return (f"<p>Refused batches, not ingested ({len(errors)}; the other batches were "
+            f"loaded):</p><ul>{items}</ul>")
 
 
 def _transition_items(items: Sequence[Mapping[str, Any]]) -> str:
@@ -166,11 +197,13 @@ def _changes(page: ReportPage) -> str:
         out.append(f'<p class="muted">{e(basis)}</p>')
     if values:
         rows = [[f'<a href="#{e(anchor(v["fluid_id"]))}">{e(v["fluid_id"])}</a>', e(v["name"]),
-                 e(v.get("unit", "")), fmt(v.get("before")), fmt(v.get("after")),
-                 fmt(v.get("delta"), 4), fmt(v.get("u"), 3), fmt(v.get("shift_u"), 3),
-                 e(v.get("note", ""))] for v in values]
-        out.append(_table(["fluid", "value", "unit", "before", "after", "change", "u (k=1)",
-                           "change / u", "note"], rows, num=(3, 4, 5, 6, 7)))
+                 e(v.get("unit", "")) + (f" at {fmt(v['T_ref_K'])} K"
+                                         if v.get("T_ref_K") is not None else ""),
+                 fmt(v.get("before")), fmt(v.get("after")), fmt(v.get("delta"), 4),
+                 fmt(v.get("u"), 3), e(relative(v.get("u"), v.get("after", v.get("before")))),
+                 fmt(v.get("shift_u"), 3), e(v.get("note", ""))] for v in values]
+        out.append(_table(["fluid", "value", "unit", "before", "after", "change", "u (k = 1)",
+                           "u relative", "change / u", "note"], rows, num=(3, 4, 5, 6, 7, 8)))
     else:
         out.append('<p class="muted">none</p>')
     out.append(_stages(n))
@@ -199,20 +232,32 @@ def _stages(n: Mapping[str, Any]) -> str:
                                       num=(2,)) + extra
 
 
-def _evidence(r: CheckResult) -> str:
-    text = json.dumps(r.evidence, indent=1, sort_keys=True, default=str)
-    return f"<details><summary>evidence</summary><pre>{e(text)}</pre></details>"
+def card_id(r: CheckResult) -> str:
+    """Element id of a finding's card."""
+    raw = f"{r.check_id}-{r.fluid_id}-{r.subject}"
+    return "f-" + "".join(c if c.isalnum() or c in "-_." else "_" for c in raw)
 
 
-def _card(r: CheckResult, warn: bool = False) -> str:
+def _decide(r: CheckResult, ctx: DecideContext) -> str:
+    commands = decide_commands(r, ctx)
+    if not commands:
+        return ""
+    items = "".join(f"<li>{e(what)}:<code>{e(cmd)}</code></li>" for what, cmd in commands)
+    return (f'<details class="decide"><summary>curate it: {len(commands)} decide '
+            f'command{"s" if len(commands) > 1 else ""}</summary><ul>{items}</ul></details>')
+
+
+def _card(r: CheckResult, ctx: DecideContext, warn: bool = False) -> str:
     measured = ""
     if r.measured is not None or r.limit is not None:
         measured = (f"<br>{e(r.statistic or 'measured')} = {e(fmt(r.measured, 4) or 'n/a')}, "
                     f"limit {e(fmt(r.limit, 4) or 'n/a')}")
     subject = f" &middot; <code>{e(r.subject)}</code>" if r.subject else ""
-    return (f'<div class="card{" warn" if warn else ""}">{_status(r.status)} '
+    evidence = (f"<details><summary>evidence</summary>{evidence_table(r.evidence)}</details>")
+    return (f'<div class="card{" warn" if warn else ""}" id="{e(card_id(r))}">{_status(r.status)} '
             f'<code>{e(r.check_id)}</code> &middot; <a href="#{e(anchor(r.fluid_id))}">'
-            f'{e(r.fluid_id)}</a>{subject}<br>{e(r.message)}{measured}{_evidence(r)}</div>')
+            f'{e(r.fluid_id)}</a>{subject}<br>{e(r.message)}{measured}{evidence}'
+            f"{_decide(r, ctx)}</div>")
 
 
 def _findings(page: ReportPage) -> str:
@@ -220,15 +265,62 @@ def _findings(page: ReportPage) -> str:
     failing = run.by_status(("fail", "error"))
     warns = run.by_status(("warn",))
     out = [f'<h2 id="failures">Failures ({len(failing)})</h2>']
-    out += [_card(r) for r in failing] or ['<p class="muted">no check failed</p>']
+    out += [_card(r, page.decide) for r in failing] or ['<p class="muted">no check failed</p>']
     out.append(f'<h2 id="warnings">Warnings ({len(warns)})</h2>')
-    out += [_card(r, warn=True) for r in warns] or ['<p class="muted">no warnings</p>']
+    out.append(_grouped(warns, page.decide) if warns else '<p class="muted">no warnings</p>')
+    out.append(_set_aside(page))
     per: dict[str, dict[str, int]] = {c: dict.fromkeys(STATUS_ORDER, 0) for c in run.checks}
     for r in run.results:
         per.setdefault(r.check_id, dict.fromkeys(STATUS_ORDER, 0))[r.status] += 1
     rows = [[f"<code>{e(c)}</code>"] + [str(v[s]) for s in STATUS_ORDER] for c, v in per.items()]
     out.append("<h3>Results per check</h3>" + _table(["check", *STATUS_ORDER], rows,
-                                                       num=range(1, 7)))
+                                                       num=range(1, len(STATUS_ORDER) + 1)))
+    return "".join(out)
+
+
+#: A check with more warnings than this has its cards folded under one line.
+OPEN_WARNINGS = 3
+
+
+def _grouped(warns: Sequence[CheckResult], ctx: DecideContext) -> str:
+    """Warning cards grouped by check; a check with many warnings is folded, so one check
+    cannot bury the others."""
+    by_check: dict[str, list[CheckResult]] = {}
+    for r in warns:
+        by_check.setdefault(r.check_id, []).append(r)
+    out = []
+    for check, rs in by_check.items():
+        fluids = ", ".join(dict.fromkeys(r.fluid_id for r in rs))
+        cards = "".join(_card(r, ctx, warn=True) for r in rs)
+        if len(rs) <= OPEN_WARNINGS:
+            out.append(cards)
+        else:
+            out.append(f'<details class="group"><summary><span class="s-warn">warn</span> '
+                       f"<code>{e(check)}</code>: {len(rs)} findings ({e(fluids)})</summary>"
+                       f"{cards}</details>")
+    return "".join(out)
+
+
+def _set_aside(page: ReportPage) -> str:
+    """Waived and excluded findings, each with the decision behind it."""
+    found = page.check_run.by_status(("waived", "excluded"))
+    out = [f'<h2 id="waived">Waived and excluded findings ({len(found)})</h2>']
+    if not found:
+        return out[0] + '<p class="muted">none: no curation decision set a finding aside</p>'
+    why = {d.get("id"): d for d in (page.decisions or [])}
+    rows = []
+    for r in found:
+        d = why.get(r.decision_id, {})
+        decision = (f"<code>{e(r.decision_id)}</code> {e(d.get('what', ''))}<br>"
+                    f'<span class="muted">{e(d.get("why", ""))} &mdash; {e(d.get("who", ""))}, '
+                    f"{e(d.get('when', ''))}</span>" if d else f"<code>{e(r.decision_id)}</code>")
+        rows.append([_status(r.status), f"<code>{e(r.check_id)}</code>",
+                     f'<a href="#{e(anchor(r.fluid_id))}">{e(r.fluid_id)}</a>',
+                     f"<code>{e(r.subject)}</code>", decision, e(r.message)])
+    out.append('<p class="muted">Waived: a waiver holds the finding until its date or until '
+               "the check's inputs change. Excluded: the finding rests only on data a decision "
+               "excluded; the checks without those data do not find it.</p>")
+    out.append(_table(["status", "check", "fluid", "subject", "decision", "finding"], rows))
     return "".join(out)
 
 
@@ -252,58 +344,8 @@ DECISIONS_SECTION: Callable[[Sequence[Mapping[str, Any]] | None], str] = decisio
 
 
 def _fluid(page: ReportPage, fid: str) -> str:
-    sec = page.sections[fid]
-    results = page.results_of(fid)
-    counts = {s: sum(r.status == s for r in results) for s in STATUS_ORDER}
-    count_text = ", ".join(f"{counts[s]} {s}" for s in STATUS_ORDER if counts[s])
-    title = sec.name + (f" ({sec.formula})" if sec.formula else "")
-    out = [f'<section><h2 id="{e(anchor(fid))}">{e(title)} <span class="muted">'
-           f"&middot; <code>{e(fid)}</code></span></h2>",
-           f"<p>{e(count_text or 'not checked')}; {sec.n_observations} observations.</p>"]
-    png = page.images.get(fid)
-    if png:
-        w, h = page.image_size
-        data = base64.b64encode(png).decode("ascii")
-        out.append(f'<figure><img class="plot" src="data:image/png;base64,{data}" width="{w}" '
-                   f'height="{h}" alt="phase diagram of {e(title)}" data-fluid="{e(fid)}">'
-                   "<figcaption class=\"muted\">Left: pressure (log scale) against temperature, "
-                   "data by source, fitted curves with k = 2 bands, triple and critical points "
-                   "with k = 2 error bars, flagged points circled. Right: melting curve(s) on "
-                   "a linear pressure axis.</figcaption></figure>")
-    else:
-        out.append('<p class="muted">no plot (no pressure data)</p>')
-    bad = [r for r in results if r.status in ("fail", "error", "warn")]
-    if bad:
-        out.append("<h3>Findings needing attention</h3><ul>" + "".join(
-            f"<li>{_status(r.status)} <code>{e(r.check_id)}</code> {e(r.subject)}: "
-            f"{e(r.message)}</li>" for r in sorted(bad, key=lambda r: (
-                STATUS_ORDER.index(r.status), r.check_id, r.subject))) + "</ul>")
-    if sec.fits:
-        rows = []
-        for f in sec.fits:
-            ref = ""
-            if f.ref_value is not None:
-                ref = f"{fmt(f.ref_value)} {e(f.unit)} at {fmt(f.T_ref_K)} K"
-                if f.ref_u is not None:
-                    ref += f" &plusmn; {fmt(f.ref_u, 3)}"
-            rng = f"{fmt(f.T_min_K, 5)}&ndash;{fmt(f.T_max_K, 5)}" if f.T_min_K is not None else ""
-            rows.append([e(f.group), e(f.status), e(f.form or ""), f"{f.n_used}/{f.n_points}",
-                         str(f.n_flagged), rng, ref,
-                         e(fmt(f.reduced_chi2, 3) if f.status == "fitted" else f.reason or "")])
-        out.append("<h3>Fits</h3>" + _table(
-            ["group", "status", "form", "used/points", "flagged", "T range [K]",
-             "value at T_ref (± u, k=1)", "reduced chi2 / reason"], rows, num=(3, 4)))
-    if sec.fixed_points:
-        rows = [[e(p.kind), e(p.phases), fmt(p.T_K, 7), fmt(p.u_T_K, 3), fmt(p.p_Pa, 7),
-                 fmt(p.u_p_Pa, 3), e(p.source_id)] for p in sec.fixed_points]
-        out.append("<h3>Stated fixed points</h3>" + _table(
-            ["kind", "phases", "T [K]", "u(T) [K]", "p [Pa]", "u(p) [Pa]", "source"], rows,
-            num=(2, 3, 4, 5)))
-    if sec.sources:
-        rows = [[f"<code>{e(s)}</code>", e(k), e(c)] for s, k, c in sec.sources]
-        out.append("<h3>Sources</h3>" + _table(["source", "kind", "citation"], rows))
-    out.append("</section>")
-    return "".join(out)
+    return fluid_section(page.sections[fid], page.results_of(fid), page.figures.get(fid),
+                         anchor(fid), card_id)
 
 
 def render_html(page: ReportPage) -> str:
@@ -313,15 +355,17 @@ def render_html(page: ReportPage) -> str:
     body = [_header(page),
             '<nav><strong>Contents:</strong> <a href="#changes">changes</a> &middot; '
             '<a href="#failures">failures</a> &middot; <a href="#warnings">warnings</a> '
-            f'&middot; <a href="#decisions">decisions</a><ul>{nav}</ul></nav>',
+            '&middot; <a href="#waived">waived and excluded</a> &middot; '
+            f'<a href="#decisions">decisions</a><ul>{nav}</ul></nav>',
             _changes(page), _findings(page), DECISIONS_SECTION(page.decisions)]
     body += [_fluid(page, f) for f in order if f in page.sections]
     body.append(f'<footer><div class="caution"><strong>Caution.</strong> {e(CAUTION)}</div>'
                 "</footer>")
     title = f"FluidLedger nightly {page.nightly['run_id']}: {page.nightly['verdict']}"
-    return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
-            "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
-            "<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; "
-            "img-src data:; style-src 'unsafe-inline'\">"
-            f"<title>{e(title)}</title><style>{_CSS}</style></head><body>"
-            + "".join(body) + "</body></html>\n")
+    # every data string went through e(); the last clean() also covers any that did not
+    return clean("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+                 "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
+                 "<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; "
+                 "img-src data:; style-src 'unsafe-inline'\">"
+                 f"<title>{e(title)}</title><style>{_CSS}</style></head><body>"
+                 + "".join(body) + "</body></html>\n")

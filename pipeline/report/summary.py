@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import Any, Mapping
 
 from pipeline.checks.results import STATUS_ORDER
+from pipeline.safetext import clean
 
 #: At most this many items of each list are written (the report has them all).
 MAX_ITEMS = 8
@@ -69,4 +70,4 @@ def render_summary(nightly: Mapping[str, Any], report_html: str) -> str:
               + (f" ({pub.get('release_id') or pub.get('reason')})"
                  if pub.get("release_id") or pub.get("reason") else ""),
               f"Report: {report_html}"]
-    return "\n".join(lines) + "\n"
+    return clean("\n".join(lines)) + "\n"

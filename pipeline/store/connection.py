@@ -7,6 +7,7 @@ DuckDB reports it, instead of a traceback or a hang.
 
 from __future__ import annotations
 
+import contextlib
 import os
 import re
 from dataclasses import dataclass
@@ -14,7 +15,7 @@ from pathlib import Path
 
 import duckdb
 
-from pipeline.errors import StoreBusyError, StoreError
+from pipeline.errors import StoreBusyError, StoreError, StoreFileError, environment_problem
 from pipeline.store.migrations import migrate
 
 DEFAULT_STORE = Path("curated") / "fluidledger.duckdb"
@@ -62,9 +63,9 @@ def _create(target: Path) -> None:
     leave a partial file that no later open can read; this way ``target`` is either absent
     or complete. A store created meanwhile by another process is kept (link never replaces)."""
     tmp = target.with_name(f".{target.name}.creating-{os.getpid()}")
-    for leftover in (tmp, tmp.with_name(tmp.name + ".wal")):
-        leftover.unlink(missing_ok=True)
     try:
+        for leftover in (tmp, tmp.with_name(tmp.name + ".wal")):
+            leftover.unlink(missing_ok=True)
         con = duckdb.connect(str(tmp))
         try:
             migrate(con)
@@ -77,10 +78,23 @@ def _create(target: Path) -> None:
         except OSError:  # a file system without hard links
             if not target.exists():
                 os.replace(tmp, target)
-    except duckdb.Error as err:
+    except (duckdb.Error, OSError) as err:
+        problem = environment_problem(err, str(target))
+        if problem is not None:
+            raise StoreFileError(f"cannot create store {target}: {problem.detail}") from None
         raise StoreError(f"cannot create store {target}: {err}") from None
     finally:
-        tmp.unlink(missing_ok=True)
+        with contextlib.suppress(OSError):     # a read-only folder refuses even this
+            tmp.unlink(missing_ok=True)
+
+
+def _unreadable(target: Path, err: Exception) -> StoreError:
+    """The error for a store DuckDB cannot open: a problem of the file or the machine (exit
+    74) when DuckDB reports one (truncated, corrupt, permission), else a store error."""
+    problem = environment_problem(err, str(target))
+    if problem is None:
+        return StoreError(f"cannot open store {target}: {err}")
+    return StoreFileError(f"cannot open store {target}: {problem.detail}")
 
 
 def open_store(path: str | os.PathLike | None = None, *, read_only: bool = False,
@@ -101,11 +115,12 @@ def open_store(path: str | os.PathLike | None = None, *, read_only: bool = False
         if _is_lock_error(err):
             m = _PID.search(str(err))
             holder = f" (held by PID {m.group(1)})" if m else ""
-            raise StoreBusyError(f"store {target} is busy{holder}: another FluidLedger process "
-                                 "is writing it; retry later") from None
-        raise StoreError(f"cannot open store {target}: {err}") from None
+            raise StoreBusyError(f"store {target} is busy{holder}: another process has it open "
+                                 "(a FluidLedger run, 'fluidledger query' or a DuckDB client, "
+                                 "reading or writing); retry later") from None
+        raise _unreadable(target, err) from None
     except duckdb.Error as err:
-        raise StoreError(f"cannot open store {target}: {err}") from None
+        raise _unreadable(target, err) from None
     if not read_only:
         migrate(con)
     return Store(path=target, con=con, read_only=read_only)

@@ -85,3 +85,19 @@ def test_plain_table_lists_failures_first_and_ends_with_the_verdict(run):
     out = io.StringIO()
     print_run(run, out, show_all=True)
     assert "PASS" in out.getvalue()
+
+
+class _Terminal(io.StringIO):
+    def isatty(self) -> bool:
+        return True
+
+
+def test_terminal_findings_never_split_a_check_id(run, monkeypatch):
+    """On a narrow terminal every check id and fluid id of a listed finding stays on one line
+    (the message wraps instead)."""
+    monkeypatch.setenv("COLUMNS", "60")
+    out = _Terminal()
+    print_run(run, out)
+    text = out.getvalue()
+    for r in run.by_status(("fail", "warn")):
+        assert any(r.check_id in line and r.fluid_id in line for line in text.splitlines()), r

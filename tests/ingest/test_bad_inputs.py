@@ -65,7 +65,7 @@ def test_failed_batch_does_not_stop_the_others(raw_root, store_path, capsys):
     write_batch(raw_root, "b-bad", GOOD.replace("rig-a", "rig-b"), {"vp.csv": ""})
     code, out, err = run_cli(capsys, "ingest", str(raw_root), "--store", str(store_path))
     assert code == 2 and "b-bad/vp.csv: file is empty" in err
-    assert "loaded  a-good: 3 rows read, 3 loaded, 0 quarantined" in out
+    assert "ingest: 1 batch(es) loaded (3 rows read, 3 loaded, 0 quarantined)" in out
 
 
 def test_utf8_bom_is_accepted(raw_root, store_path, capsys):

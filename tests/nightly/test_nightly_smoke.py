@@ -31,7 +31,7 @@ def test_nightly_on_demo_data_writes_report_and_second_run_changes_nothing(tmp_p
     suites = ET.parse(folder / "junit.xml").getroot()
     assert suites.iter("testcase") and any(True for _ in suites.iter("failure"))
     html = (folder / "report.html").read_text()
-    assert "engineering judgement" in html and "<img" in html
+    assert "engineering judgement" in html and html.count("<svg") == 8   # 2 figures x 4 fluids
     capsys.readouterr()
     assert main(argv[:-1]) == 1
     assert "no changes" in capsys.readouterr().out

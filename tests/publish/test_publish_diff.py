@@ -66,3 +66,61 @@ def test_diff_explains_a_change_made_by_a_new_batch(demo_store, tmp_path, capsys
     assert doc["release_a"] == "before" and any(
         c["value_id"] == tc.value_id for c in doc["changes"])
     assert main(["diff", "before", "nope", "--store", str(demo_store)]) == 2
+
+
+LAB_BATCH = """
+format_version = 1
+
+[source]
+id = "argon-vp-extra-campaign"
+kind = "measurement"
+citation = "Invented argon vapour-pressure campaign (test data of the FluidLedger suite)"
+
+[[table]]
+file = "vp.csv"
+fluid = "argon"
+boundary = "liquid-vapour"
+temperature = { column = "T", unit = "K" }
+pressure = { column = "p", unit = "Pa" }
+[table.uncertainty]
+temperature = { value = 0.002, unit = "K" }
+pressure = { relative = 0.0002, unit = "Pa" }
+"""
+
+
+def test_diff_gives_curve_values_at_their_reference_temperature(demo_store, tmp_path, capsys):
+    """A new argon lab campaign changes the vapour-pressure curve: the diff gives the curve's
+    old and new value at its reference temperature (Tc) and counts the new observations."""
+    from pipeline.correlations import reference_curve
+
+    out = tmp_path / "out"
+    assert main(["publish", "--store", str(demo_store), "--out", str(out), "--allow-failures",
+                 "--release", "before", "-q"]) == 0
+    raw = tmp_path / "raw"
+    shutil.copytree(RAW, raw, ignore=shutil.ignore_patterns("*.py", "__pycache__"))
+    batch = raw / "argon-vp-extra-campaign"
+    batch.mkdir()
+    (batch / "batch.toml").write_text(LAB_BATCH, "utf-8")
+    vp = reference_curve("argon", "liquid-vapour", "pressure")   # Tegeler et al. (1999)
+    rows = [f"{T:.3f},{float(vp.value(T)) * 1.0003:.2f}" for T in (90, 100, 110, 120, 130, 140)]
+    (batch / "vp.csv").write_text("T,p\n" + "\n".join(rows) + "\n", "utf-8")
+    build(demo_store, raw)
+    assert main(["publish", "--store", str(demo_store), "--out", str(out), "--allow-failures",
+                 "--release", "after", "-q"]) == 0
+
+    con = duckdb.connect(str(demo_store), read_only=True)
+    curve = {c.value_id: c for c in diff_releases(con, "before", "after").changes}[
+        "argon/curve:liquid-vapour/pressure"]
+    con.close()
+    assert curve.change == "changed" and curve.T_ref_K == 150.687   # Tc (Tegeler et al. 1999)
+    assert abs(curve.old / 4.863e6 - 1) < 2e-3 and abs(curve.new / 4.863e6 - 1) < 2e-3
+    assert curve.old != curve.new and curve.u_old > 0 and curve.u_new > 0
+    assert "now uses 6 observations of argon-vp-extra-campaign/vp.csv (rows 1-6) from " \
+           "argon-vp-extra-campaign" in curve.causes
+
+    capsys.readouterr()
+    assert main(["diff", "before", "after", "--store", str(demo_store), "--csv"]) == 0
+    line = next(x for x in capsys.readouterr().out.splitlines()
+                if x.startswith("changed,argon/curve:liquid-vapour/pressure,"))
+    cells = line.split(",")
+    assert cells[2] and cells[3] and cells[4] == "Pa at 150.687 K"

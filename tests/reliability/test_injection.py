@@ -126,7 +126,7 @@ def test_hostile_header_names_in_ignored_columns_load_safely(raw_root, store_pat
     write_batch(raw_root, "attack", manifest, {"vp.csv": csv_text})
     code, out, err = ingest(raw_root, store_path, capsys)
     assert code == 0, err
-    assert "loaded  attack: 2 rows read, 2 loaded, 0 quarantined" in out
+    assert "ingest: 1 batch(es) loaded (2 rows read, 2 loaded, 0 quarantined)" in out
     sentinel()
 
 
@@ -186,7 +186,7 @@ def test_hostile_texts_in_free_fields_are_stored_verbatim(raw_root, store_path, 
     write_batch(raw_root, "attack", manifest, {"vp.csv": csv_text})
     code, out, err = ingest(raw_root, store_path, capsys)
     assert code == 0, err
-    assert "loaded  attack: 4 rows read, 1 loaded, 3 quarantined" in out
+    assert "ingest: 1 batch(es) loaded (4 rows read, 1 loaded, 3 quarantined)" in out
     with open_store(store_path, read_only=True) as s:
         assert s.con.execute("SELECT citation FROM source WHERE source_id = 'rig-hostile'"
                              ).fetchone()[0] == citation

@@ -107,7 +107,8 @@ def _exists(pattern: str, out: Path):
     return lambda probe: any(out.glob(pattern))
 
 
-KILL_POINTS = ["writing-exports", "building-published-file", *CRASH_POINTS]
+PUBLISH_POINTS = [p for p in CRASH_POINTS if p.startswith("publish:")]
+KILL_POINTS = ["writing-exports", "building-published-file", *PUBLISH_POINTS]
 
 
 def test_reference_publish_is_whole(reference):
@@ -121,7 +122,7 @@ def test_reference_publish_is_whole(reference):
 def test_killed_publish_recovers(base, reference, tmp_path, point):
     """SIGKILL at ``point``: verify passes, readers see a whole release, a rerun converges."""
     store, out = _copy(base, tmp_path / "run")
-    if point in CRASH_POINTS:
+    if point in PUBLISH_POINTS:
         outcome = kill_cli(_publish_argv(out), store, lambda probe: False,
                            env={KILL_ENV: point})
     else:

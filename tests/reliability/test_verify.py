@@ -10,7 +10,7 @@ import duckdb
 import pytest
 
 from pipeline.cli import main
-from pipeline.store import SCHEMA_VERSION, open_store
+from pipeline.store import SCHEMA_VERSION
 from pipeline.verify import STORE_RULES, verify, verify_release_manifests
 from tests.conftest import FLUIDS_TOML, SIMPLE_BATCH, SIMPLE_CSV, write_batch
 

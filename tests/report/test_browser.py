@@ -1,8 +1,9 @@
 """The nightly report in a real browser: headless Chromium opens report.html from disk.
 
 Chromium is driven over the DevTools protocol on a pipe (``--remote-debugging-pipe``: commands
-on fd 3, replies on fd 4, NUL-terminated JSON), which reports console errors and uncaught
-exceptions as events and lets the test read each image's natural size after the page loaded.
+on fd 3, replies on fd 4, NUL-terminated JSON), which reports console errors, uncaught
+exceptions and every network request as events, and lets the test measure each figure and
+hit-test a point after the page loaded.
 A full-page screenshot is written to ``tests/artifacts/`` (git-ignored). Without Chromium the
 test fails with instructions (CI installs it), it is never skipped.
 """
@@ -146,9 +147,39 @@ def report(tmp_path_factory):
     return Path(result.report["html"]), result
 
 
-def test_report_renders_in_chromium_with_every_plot(report, tmp_path):
-    """Chromium loads report.html from disk with no console error, shows the verdict, and
-    decodes one phase-diagram image per fluid at its natural size; a screenshot is saved."""
+#: What the page holds once loaded: the figures with their drawn size and content, and the
+#: hover text of the point under the pointer at the centre of a flagged CO2 lab point.
+PROBE = """(() => {
+  const figs = Array.from(document.querySelectorAll('svg.plot')).map(s => {
+    const r = s.getBoundingClientRect();
+    return {fluid: s.dataset.fluid, figure: s.dataset.figure, w: r.width, h: r.height,
+            points: s.querySelectorAll('use').length,
+            rasters: Array.from(s.querySelectorAll('image')).map(i => i.getBBox().width),
+            titles: s.querySelectorAll('title').length};
+  });
+  const target = Array.from(document.querySelectorAll(
+      'svg.plot[data-fluid="carbon-dioxide"][data-figure="phase"] g.fl-points use'))
+    .find(u => (u.querySelector('title') || {}).textContent.includes('flag 1'));
+  let hover = null;
+  if (target) {
+    target.scrollIntoView({block: 'center'});
+    const r = target.getBoundingClientRect();
+    const hit = document.elementFromPoint(r.left + r.width / 2, r.top + r.height / 2);
+    let el = hit;
+    while (el && !(el.querySelector && el.querySelector(':scope > title'))) el = el.parentNode;
+    hover = {tag: hit ? hit.tagName : null,
+             text: el ? el.querySelector(':scope > title').textContent : null};
+  }
+  return JSON.stringify({verdict: document.querySelector('.verdict').innerText,
+                         title: document.title, figures: figs, hover: hover});
+})()"""
+
+
+def test_report_renders_in_chromium_with_every_figure(report, tmp_path):
+    """Chromium loads report.html from disk with no console error and no request beyond the
+    file itself; every fluid's phase diagram and deviation plots render (drawn size, points,
+    the rasterised layer of equation samples); resting the pointer on a flagged point shows
+    its source, file and row; a screenshot is saved."""
     binary = _chromium()
     html_path, result = report
     tools = DevTools(binary, tmp_path / "profile")
@@ -156,15 +187,11 @@ def test_report_renders_in_chromium_with_every_plot(report, tmp_path):
         target = tools.send("Target.createTarget", {"url": "about:blank"})["targetId"]
         session = tools.send("Target.attachToTarget",
                              {"targetId": target, "flatten": True})["sessionId"]
-        for domain in ("Runtime.enable", "Log.enable", "Page.enable"):
+        for domain in ("Runtime.enable", "Log.enable", "Page.enable", "Network.enable"):
             tools.send(domain, session=session)
         tools.send("Page.navigate", {"url": html_path.as_uri()}, session=session)
         tools.wait_for("Page.loadEventFired")
-        probe = ("JSON.stringify({verdict: document.querySelector('.verdict').innerText, "
-                 "title: document.title, images: Array.from(document.images).map(i => "
-                 "({fluid: i.dataset.fluid, w: i.naturalWidth, h: i.naturalHeight, "
-                 "done: i.complete}))})")
-        page = json.loads(tools.send("Runtime.evaluate", {"expression": probe,
+        page = json.loads(tools.send("Runtime.evaluate", {"expression": PROBE,
                                                           "returnByValue": True},
                                      session=session)["result"]["value"])
         size = tools.send("Page.getLayoutMetrics", session=session)["cssContentSize"]
@@ -173,6 +200,8 @@ def test_report_renders_in_chromium_with_every_plot(report, tmp_path):
             "clip": {"x": 0, "y": 0, "width": size["width"],
                      "height": min(size["height"], 16000), "scale": 1}}, session=session)
         problems = tools.problems()
+        requests = [e["params"]["request"]["url"] for e in tools.events
+                    if e.get("method") == "Network.requestWillBeSent"]
     finally:
         tools.close()
     ARTIFACTS.mkdir(parents=True, exist_ok=True)
@@ -180,8 +209,17 @@ def test_report_renders_in_chromium_with_every_plot(report, tmp_path):
     artefact.write_bytes(base64.b64decode(shot["data"]))
     assert artefact.stat().st_size > 10_000
     assert problems == []
+    assert requests and all(u == html_path.as_uri() or u.startswith("data:") for u in requests), \
+        requests
     assert page["verdict"].startswith("FAIL") and result.run_id in page["title"]
     fluids = {"argon", "carbon-dioxide", "nitrogen", "water"}
-    assert {i["fluid"] for i in page["images"]} == fluids
-    for img in page["images"]:
-        assert img["done"] and (img["w"], img["h"]) == (900, 414), img
+    figures = {(f["fluid"], f["figure"]): f for f in page["figures"]}
+    assert set(figures) == {(f, k) for f in fluids for k in ("phase", "deviation")}
+    for key, fig in figures.items():
+        assert fig["w"] > 500 and fig["h"] > 250, key
+        assert fig["points"] > 20 and fig["titles"] > 10, key
+        assert fig["rasters"] and all(w > 50 for w in fig["rasters"]), key
+    assert page["hover"]["tag"] == "use", page["hover"]
+    text = page["hover"]["text"]
+    assert "brackenridge-rig-a-co2-2024-05/co2-vle-rig-a.csv row 16" in text
+    assert text.startswith("brackenridge-rig-a-co2-2024-05 (measurement)") and "T = " in text

@@ -57,7 +57,8 @@ def _document(results):
     run = {"run_id": "check-x", "kind": "check", "started_at": "2026-01-01T00:00:00Z",
            "finished_at": "2026-01-01T00:00:00Z", "duration_s": 0.0, "pipeline_version": "0",
            "parameters": {}, "status": "ok", "checks": ["data.ranges"], "fluids": ["argon"],
-           "counts": dict.fromkeys(("pass", "warn", "fail", "skip", "error", "waived"), 0)}
+           "counts": dict.fromkeys(("pass", "warn", "fail", "skip", "error", "waived",
+                                    "excluded"), 0)}
     return json.loads(json.dumps({"nightly": nightly, "run": run, "results": results}))
 
 

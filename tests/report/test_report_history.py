@@ -93,3 +93,18 @@ def test_run_history_lists_newest_first_with_counts(con):
     water = run_history(con, fluids=["water"], limit=10)
     assert [e.run_id for e in water] == ["r4", "r3", "r2", "r1"]
     assert water[1].status == "ok" and water[2].status == "failed"
+
+
+def test_partial_runs_are_marked_with_what_they_were_restricted_to(con):
+    """A run of a selection of checks or fluids is marked PARTIAL with that selection; a run
+    of everything is not."""
+    rows = [CheckResult("data.ranges", "water", "", "pass", "fail", "ok")]
+    store_run(con, CheckRun("r7", "2026-01-01T00:00:07Z", "2026-01-01T00:00:07Z", "0.1.0",
+                            {"checks_requested": ["data.ranges"], "tags": None,
+                             "fluids": ["water"], "checks": ["data.ranges"]},
+                            ["data.ranges"], ["water"], rows))
+    entries = run_history(con, limit=2)
+    assert entries[0].partial == "1 check (--check data.ranges); fluid water"
+    assert "r7 [PARTIAL: 1 check (--check data.ranges); fluid water]: ok" in entries[0].asstr()
+    assert entries[1].partial is None and "PARTIAL" not in entries[1].asstr()
+    assert entries[0].asdict()["partial"] == entries[0].partial

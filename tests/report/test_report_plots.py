@@ -1,29 +1,44 @@
-"""Phase-diagram plots: what is drawn for given data (pure: data in, figure out)."""
+"""Report figures: what the phase diagram and the deviation plots draw for given data (pure:
+data in, figure out), and the SVG they become."""
 
 from __future__ import annotations
 
+import re
+import xml.etree.ElementTree as ET
+
 import numpy as np
 import pytest
-from matplotlib.collections import PolyCollection
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.collections import PathCollection, PolyCollection
+from matplotlib.colors import to_hex
 
 from pipeline.correlations import reference_curve
+from pipeline.report.deviation import deviation_figure, y_range
+from pipeline.report.figures import FluidFigures, render_figures
 from pipeline.report.plots import (
     CurveSpec,
     FixedPointMark,
-    FlaggedPoint,
+    FlagGroup,
     Observations,
     PhaseDiagramData,
-    figure_png,
+    decade_label,
     phase_diagram,
 )
+from pipeline.report.svg import SVG_NS, figure_svg
 
 # Argon: Tegeler, Span & Wagner (1999) ancillary equations via pipeline.correlations.reference.
 VAP = reference_curve("argon", "liquid-vapour", "pressure")
 MELT = reference_curve("argon", "solid-liquid", "pressure")
+SUB = reference_curve("argon", "solid-vapour", "pressure")
+# Water: IAPWS R14-08(2011) melting pressure of ices Ih and III.
+ICE_IH = reference_curve("water", "solid-liquid", "pressure", "Ih")
+ICE_III = reference_curve("water", "solid-liquid", "pressure", "III")
 
 
 class _WithBand:
     """A curve with a 0.5 % standard uncertainty (stands in for a fitted Curve.u)."""
+
+    form = "test-form"
 
     def __init__(self, curve):
         self.curve, self.T_min_K, self.T_max_K = curve, curve.T_min_K, curve.T_max_K
@@ -32,85 +47,206 @@ class _WithBand:
         return self.curve.value(T)
 
     def u(self, T):
-        return 0.005 * self.curve.value(T)
+        return 0.005 * np.asarray(self.curve.value(T))
 
 
-def _data(with_melting=True, flagged=()):
-    T_v = np.linspace(85.0, 145.0, 12)
-    T_m = np.linspace(90.0, 140.0, 6) if with_melting else np.zeros(0)
-    T = np.concatenate([T_v, T_m])
-    p = np.concatenate([VAP.value(T_v), MELT.value(T_m)])
-    src = np.array(["lab-a"] * 6 + ["lab-b"] * 6 + ["paper-c"] * len(T_m), dtype=object)
-    bnd = np.array(["liquid-vapour"] * 12 + ["solid-liquid"] * len(T_m), dtype=object)
-    obs = Observations(T, p, src, bnd, np.arange(1, len(T) + 1))
-    curves = [CurveSpec("liquid-vapour", "", _WithBand(VAP))]
-    if with_melting:
-        curves.append(CurveSpec("solid-liquid", "", MELT))
+def _data(flag_lab: bool = False, lab_offset: float = 0.0) -> PhaseDiagramData:
+    """Argon: 40 equation samples (evaluated), 10 lab points 0.1 % high (measurement) of which
+    the first may be flagged, 6 melting points; fitted curves with bands; fixed points."""
+    T_eq = np.linspace(85.0, 148.0, 40)
+    T_lab = np.linspace(90.0, 140.0, 10)
+    T_m = np.linspace(90.0, 140.0, 6)
+    T = np.concatenate([T_eq, T_lab, T_m])
+    p = np.concatenate([VAP.value(T_eq), VAP.value(T_lab) * (1.001 + lab_offset),
+                        MELT.value(T_m)])
+    n_eq, n_lab, n_m = len(T_eq), len(T_lab), len(T_m)
+    src = ["eq-src"] * n_eq + ["lab-a"] * n_lab + ["paper-c"] * n_m
+    kind = ["evaluated"] * n_eq + ["measurement"] * n_lab + ["literature"] * n_m
+    bnd = ["liquid-vapour"] * (n_eq + n_lab) + ["solid-liquid"] * n_m
+    files = ["eq/vp.csv"] * n_eq + ["lab-a/vp.csv"] * n_lab + ["paper-c/melt.csv"] * n_m
+    rows = list(range(1, n_eq + 1)) + list(range(1, n_lab + 1)) + list(range(1, n_m + 1))
+    flag = np.zeros(len(T), dtype=np.int64)
+    flags = ()
+    if flag_lab:
+        flag[n_eq] = 1
+        flags = (FlagGroup(1, "lab-a/vp.csv", "lab-a", ("fit outlier",), (n_eq + 1,), (1,),
+                           90.0, 90.0, 1),)
+    obs = Observations.build(T, p, src, bnd, np.arange(1, len(T) + 1), source_kind=kind,
+                             file_path=files, row_number=rows, flag=flag)
+    curves = [CurveSpec("liquid-vapour", "", _WithBand(VAP)),
+              CurveSpec("solid-liquid", "", _WithBand(MELT))]
     fixed = [FixedPointMark("critical", "vapour,liquid", 150.687, 4.863e6, 0.015, 3e3, "ev"),
              FixedPointMark("triple", "vapour,liquid,solid", 83.8058, 68.891e3, 2e-4, 5.0, "ev")]
-    return PhaseDiagramData("argon", "argon (Ar)", obs, curves, fixed, list(flagged))
+    return PhaseDiagramData("argon", "argon (Ar)", obs, curves, fixed, flags)
 
 
-def test_left_panel_is_log_pressure_with_a_legend_entry_per_source():
-    """The first panel has a log pressure axis; every source gets its own legend entry."""
-    fig = phase_diagram(_data())
-    ax, ax_m = fig.axes[:2]
-    assert ax.get_yscale() == "log" and ax_m.get_yscale() == "linear"
-    labels = [t.get_text() for t in fig.legends[0].get_texts()]
-    for source in ("lab-a", "lab-b", "paper-c"):
-        assert labels.count(source) == 1
-    assert "critical point (k = 2)" in labels and "triple point (k = 2)" in labels
+def _collections(ax):
+    return [c for c in ax.collections if isinstance(c, PathCollection)]
 
 
-def test_a_curve_with_uncertainty_gets_a_k2_band():
-    """Curve.u gives a filled band of half-width 2u around the fitted curve."""
+def test_measured_data_sit_above_equation_samples_and_the_curves():
+    """Lab points are drawn over the fitted curves, which are drawn over the (rasterised)
+    samples of evaluated equations."""
     fig = phase_diagram(_data())
     ax = fig.axes[0]
-    bands = [c for c in ax.collections if isinstance(c, PolyCollection)]
-    assert len(bands) == 1
-    ys = bands[0].get_paths()[0].vertices[:, 1]
-    T_mid = 0.5 * (VAP.T_min_K + VAP.T_max_K)
-    p_mid = float(VAP.value(T_mid))
-    assert ys.max() == pytest.approx(float(VAP.value(VAP.T_max_K)) * 1.01, rel=1e-6)
-    assert ys.min() < p_mid  # the band reaches below the curve as well
-    assert "fit uncertainty (k = 2)" in [t.get_text() for t in fig.legends[0].get_texts()]
+    eq = [c for c in _collections(ax) if c.get_rasterized()]
+    lab = [c for c in _collections(ax) if not c.get_rasterized()
+           and len(c.get_offsets()) == 10]
+    lines = [ln.get_zorder() for ln in ax.lines]
+    assert len(eq) == 1 and len(lab) == 1
+    assert eq[0].get_zorder() < min(lines) <= max(lines) < lab[0].get_zorder()
 
 
-def test_flagged_points_are_circled_and_labelled():
-    """Flagged observations are circled and labelled with their id and reason."""
-    flagged = [FlaggedPoint(3, 95.0, float(VAP.value(95.0)), "liquid-vapour", "fit outlier"),
-               FlaggedPoint(14, 100.0, float(MELT.value(100.0)), "solid-liquid",
-                            "clapeyron.slope-sign")]
-    fig = phase_diagram(_data(flagged=flagged))
-    texts = [t.get_text() for t in fig.axes[0].texts]
-    assert "obs 3: fit outlier" in texts and "obs 14: clapeyron.slope-sign" in texts
-    circled = [c for c in fig.axes[0].collections
-               if c.get_label().startswith("flagged")]
-    assert len(circled) == 1 and len(circled[0].get_offsets()) == 2
-    # the melting panel circles the melting point only
-    m_circled = [c for c in fig.axes[1].collections if len(c.get_offsets()) == 1
-                 and np.allclose(c.get_edgecolor()[0][:3], (0.839, 0.153, 0.157), atol=0.01)]
-    assert m_circled
-
-
-def test_melting_panel_is_linear_in_mpa():
-    """The melting panel plots pressures in MPa on a linear axis."""
+def test_one_legend_entry_per_source_and_no_in_plot_text():
+    """Every source has one legend entry; without flags the panels carry no text at all
+    (titles and axis labels aside)."""
     fig = phase_diagram(_data())
-    ax_m = fig.axes[1]
+    labels = [t.get_text() for t in fig.legends[0].get_texts()]
+    for source in ("eq-src", "lab-a", "paper-c"):
+        assert labels.count(source) == 1
+    assert "critical point" in labels and "triple point" in labels
+    assert all(not ax.texts for ax in fig.axes[:2])
+
+
+def test_log_axis_has_no_band_and_plain_decade_labels():
+    """No uncertainty band is drawn on the log panel (it would be thinner than the line); its
+    ticks read 10⁵ without mathtext."""
+    fig = phase_diagram(_data())
+    assert not [c for c in fig.axes[0].collections if isinstance(c, PolyCollection)]
+    assert decade_label(1e5) == "10\u2075" and decade_label(0.1) == "10\u207b\u00b9"
+    assert decade_label(3e4) == ""
+
+
+def test_melting_curves_of_solid_phases_differ_by_colour():
+    """Ice Ih and ice III melting curves are drawn in two different colours, same style."""
+    obs = Observations.empty()
+    data = PhaseDiagramData("water", "water", obs, [CurveSpec("solid-liquid", "Ih", ICE_IH),
+                                                    CurveSpec("solid-liquid", "III", ICE_III)])
+    ax_m = phase_diagram(data).axes[1]
+    colours = {to_hex(ln.get_color()) for ln in ax_m.lines}
+    styles = {ln.get_linestyle() for ln in ax_m.lines}
+    assert len(ax_m.lines) == 2 and len(colours) == 2 and len(styles) == 1
     assert "MPa" in ax_m.get_ylabel()
-    top = max(np.max(c.get_offsets()[:, 1]) for c in ax_m.collections if len(c.get_offsets()))
-    assert top == pytest.approx(float(MELT.value(140.0)) / 1e6, rel=1e-6)
 
 
-def test_no_melting_data_says_so():
-    """Without melting data the second panel says so instead of plotting an empty axis."""
-    fig = phase_diagram(_data(with_melting=False))
-    assert [t.get_text() for t in fig.axes[1].texts] == ["no melting data"]
+def test_flagged_points_are_circled_and_numbered_once_per_panel():
+    """A flagged lab point gets a red ring and its group number beside it."""
+    fig = phase_diagram(_data(flag_lab=True))
+    ax = fig.axes[0]
+    assert [t.get_text() for t in ax.texts] == ["1"]
+    rings = [c for c in _collections(ax) if len(c.get_offsets()) == 1
+             and np.allclose(c.get_edgecolor()[0][:3], (0.839, 0.153, 0.157), atol=0.01)]
+    assert len(rings) == 1
 
 
-def test_figure_png_gives_png_bytes():
-    """figure_png renders a PNG of the requested size."""
-    png = figure_png(phase_diagram(_data(), width_in=5.0, height_in=2.5), dpi=40)
-    assert png[:8] == b"\x89PNG\r\n\x1a\n"
-    width, height = int.from_bytes(png[16:20], "big"), int.from_bytes(png[20:24], "big")
-    assert (width, height) == (200, 100)
+def test_many_flag_numbers_never_overlap_and_stay_in_their_panel():
+    """Twelve flag groups on neighbouring points: every number placed lies inside the panel
+    and no two number boxes overlap."""
+    d = _data()
+    obs = d.observations
+    flag = np.zeros(len(obs), dtype=np.int64)
+    lab = np.flatnonzero(obs.source_id == "lab-a")
+    eq = np.flatnonzero(obs.source_id == "eq-src")[10:12]
+    for n, i in enumerate(list(lab) + list(eq), start=1):
+        flag[i] = n
+    obs = Observations.build(obs.T_K, obs.p_Pa, obs.source_id, obs.boundary, obs.obs_id,
+                             source_kind=obs.source_kind, file_path=obs.file_path, flag=flag)
+    fig = phase_diagram(PhaseDiagramData("argon", "argon", obs, d.curves, d.fixed_points))
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    renderer = canvas.get_renderer()
+    ax = fig.axes[0]
+    boxes = [t.get_bbox_patch().get_window_extent(renderer) for t in ax.texts]
+    frame = ax.get_window_extent(renderer)
+    assert len(boxes) >= 10
+    for i, a in enumerate(boxes):
+        assert frame.x0 <= a.x0 and a.x1 <= frame.x1 and frame.y0 <= a.y0 and a.y1 <= frame.y1
+        for b in boxes[i + 1:]:
+            assert not a.overlaps(b), (a, b)
+
+
+def test_a_corrected_file_is_drawn_hollow_where_it_belongs():
+    """Points drawn corrected (a unit mix-up) are hollow and named as such in the legend."""
+    d = _data()
+    obs = d.observations
+    corr = np.where(obs.source_id == "lab-a", "kPa recorded as Pa (factor 1000)", "")
+    obs = Observations.build(obs.T_K, obs.p_Pa, obs.source_id, obs.boundary, obs.obs_id,
+                             source_kind=obs.source_kind, correction=corr)
+    fig = phase_diagram(PhaseDiagramData("argon", "argon", obs, d.curves, d.fixed_points))
+    labels = [t.get_text() for t in fig.legends[0].get_texts()]
+    assert "lab-a (drawn corrected)" in labels
+    (hollow,) = [c for c in _collections(fig.axes[0]) if len(c.get_offsets()) == 10]
+    assert len(hollow.get_facecolor()) == 0 or hollow.get_facecolor()[0][3] == 0.0
+
+
+def test_deviation_plot_has_one_panel_per_curve_with_its_k2_band():
+    """One panel per fitted pressure curve; the band is +/- 2u/p [%] (here 1 %); the lab points
+    sit at +0.1 %."""
+    fig = deviation_figure(_data())
+    panels = [ax for ax in fig.axes if ax.get_visible()]
+    assert [ax.get_title() for ax in panels] == ["vapour pressure (test-form)",
+                                                 "melting (test-form)"]
+    ax = panels[0]
+    (band,) = [c for c in ax.collections if isinstance(c, PolyCollection)]
+    assert band.get_paths()[0].vertices[:, 1].max() == pytest.approx(1.0, rel=1e-6)
+    (lab,) = [c for c in _collections(ax) if len(c.get_offsets()) == 10]
+    assert np.allclose(lab.get_offsets()[:, 1], 0.1, rtol=1e-6)
+    assert "fit uncertainty band (k = 2)" in [t.get_text() for t in fig.legends[0].get_texts()]
+
+
+def test_a_gross_outlier_sits_on_the_edge_and_does_not_stretch_the_axis():
+    """A flagged point 8 % off is drawn as a triangle on the panel's edge; the axis follows
+    the band and the other points."""
+    assert y_range(np.array([0.1, -0.2, 8.0]), np.array([False, False, True]),
+                   np.array([0.05])) == pytest.approx(0.23)
+    d = _data(flag_lab=True)
+    p = d.observations.p_Pa.copy()
+    p[40] *= 1.08
+    obs = Observations.build(d.observations.T_K, p, d.observations.source_id,
+                             d.observations.boundary, d.observations.obs_id,
+                             source_kind=d.observations.source_kind, flag=d.observations.flag)
+    fig = deviation_figure(PhaseDiagramData("argon", "argon", obs, d.curves, d.fixed_points,
+                                            d.flags))
+    ax = fig.axes[0]
+    lo, hi = ax.get_ylim()
+    assert hi < 2.0
+    edge = [c for c in _collections(ax) if c.get_paths()[0].vertices[:, 1].max() > 0.4
+            and len(c.get_offsets()) == 1 and c.get_offsets()[0][1] == pytest.approx(hi / 1.06)]
+    assert edge
+
+
+def test_svg_titles_name_source_file_row_T_and_p():
+    """The SVG gives every measured point a <title> naming source, file, row, T and p; ids
+    carry the figure's prefix; nothing points outside the document."""
+    text = figure_svg(phase_diagram(_data(flag_lab=True)), prefix="x1-", figure="phase",
+                      fluid_id="argon", label="phase diagram")
+    root = ET.fromstring(text)
+    titles = [t.text for t in root.iter(f"{{{SVG_NS}}}title")]
+    lab = [t for t in titles if t.startswith("lab-a (measurement)")]
+    assert len(lab) >= 10
+    assert any("lab-a/vp.csv row 1 (obs 41)" in t and "T = 90 K, p = " in t and
+               "flag 1" in t for t in lab)
+    ids = [el.get("id") for el in root.iter() if el.get("id")]
+    assert ids and all(i.startswith("x1-") for i in ids)
+    assert not re.search(r"(?:href|src)=\"(?!#|data:)", text)
+    assert root.get("data-figure") == "phase" and root.get("data-fluid") == "argon"
+
+
+def test_render_figures_round_trips_through_the_cache_form():
+    """Both figures and the flag rows survive the JSON the figure cache stores."""
+    figs = render_figures(_data(flag_lab=True))
+    back = FluidFigures.from_json(figs.to_json())
+    assert back == figs and back.deviation_svg and back.flags[0]["number"] == 1
+
+
+def test_hover_texts_with_markup_are_escaped_in_the_svg():
+    """A source id or file name holding markup reaches the SVG as text, never as elements."""
+    d = _data()
+    obs = d.observations
+    evil = "<script>alert(1)</script>"
+    src = np.where(obs.source_id == "lab-a", evil, obs.source_id).astype(object)
+    obs = Observations.build(obs.T_K, obs.p_Pa, src, obs.boundary, obs.obs_id,
+                             source_kind=obs.source_kind, file_path=obs.file_path)
+    text = figure_svg(phase_diagram(PhaseDiagramData("argon", "argon", obs, d.curves)),
+                      prefix="e-", figure="phase", fluid_id="argon", label="x")
+    assert "<script" not in text and "&lt;script&gt;alert(1)&lt;/script&gt;" in text
