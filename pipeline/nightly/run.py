@@ -113,15 +113,19 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
     code = VERDICT_EXIT[result.verdict]
     result.exit_code = EXIT_OK if opts.exit_zero and code == EXIT_CHECK_FAILED else code
     t_report = time.perf_counter()
-    report, page = report_stage(con, opts, result, check_run, selected, check_fp, curation)
+    report, page = report_stage(con, opts, result, check_run, selected, check_fp, curation,
+                                folder)
     result.stages["report"] = report
     result.finished_at = _utc()
     result.duration_s = time.perf_counter() - t0
     result.report = {"dir": str(folder), **{k: str(folder / v) for k, v in FILES.items()}}
     page.nightly = result.asdict()
-    memo = ValidatedItems(None if opts.full else opts.reports / ".cache" /
+    # kept under --full too: an item valid against these schemas (the key) stays valid
+    memo = ValidatedItems(opts.reports / ".cache" /
                           f"valid-results-{ValidatedItems.schema_key()}.txt")
+    t_files = time.perf_counter()
     write_report(folder, page.nightly, page, memo=memo)
+    report.detail["files_s"] = round(time.perf_counter() - t_files, 3)   # run row only
     report.duration_s = time.perf_counter() - t_report   # the run row gets the full time
     state = {f: {"data": data_fp.get(f), "check": check_fp[f], "check_run": check_run.run_id,
                  "fits": fits_now.get(f, {})} for f in selected}
