@@ -100,7 +100,7 @@ def main() -> None:
                 f"{med / TARGET_S:6.2f}  {'ok' if med <= TARGET_S else 'OVER'}")
             print(f"{name:<30}{min(ts):8.3f}{med:8.3f}{max(ts):8.3f}   {target}")
         bare = statistics.median(times["python -c pass (yardstick)"])
-        print(f"above the bare interpreter (median): " + ", ".join(
+        print("above the bare interpreter (median): " + ", ".join(
             f"{n.split(' ', 1)[1]} {statistics.median(t) - bare:.3f} s"
             for n, t in times.items() if n.startswith("fluidledger")))
         if args.before:

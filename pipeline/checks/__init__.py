@@ -14,7 +14,7 @@ selected fluids (a :class:`CheckBatch`) and returns its findings as columns
 ``fluidledger explain CHECK_ID`` prints a check's physics and the thresholds in force.
 """
 
-from pipeline.checks.data import CheckBatch, FittedCurve, FluidData, ObsSeries, sample_series
+from pipeline.checks.inputs import CheckBatch, FittedCurve, FluidData, ObsSeries, sample_series
 from pipeline.checks.engine import POSTPROCESSORS, run_checks, store_run
 from pipeline.checks.loader import load_fluid_data
 from pipeline.checks.findings import Finding, Findings, Status, judge, skipped

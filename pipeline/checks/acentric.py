@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 
-from pipeline.checks.data import CheckBatch, FluidData
+from pipeline.checks.inputs import CheckBatch, FluidData
 from pipeline.checks.findings import Findings
 from pipeline.checks.points import u0
 from pipeline.checks.registry import register_check

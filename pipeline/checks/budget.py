@@ -216,7 +216,7 @@ def curve_budget(series, fitted: np.ndarray, model: UncertaintyModel,
                  policy: ExtrapolationPolicy, kept: np.ndarray | None = None) -> CurveBudget:
     """The :class:`CurveBudget` of a fitted curve from the observations it was fitted to.
 
-    ``series`` is the group's :class:`~pipeline.checks.data.ObsSeries`; ``kept`` the positions
+    ``series`` is the group's :class:`~pipeline.checks.inputs.ObsSeries`; ``kept`` the positions
     of the observations that enter (fit outliers and non-finite values are left out; computed
     when None) and ``fitted`` the fitted curve's values at them (extrapolating).
     """

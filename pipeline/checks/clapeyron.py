@@ -15,7 +15,7 @@ import math
 import numpy as np
 
 from pipeline.checks.curves import grids
-from pipeline.checks.data import CheckBatch, FittedCurve, FluidData, ObsSeries
+from pipeline.checks.inputs import CheckBatch, FittedCurve, FluidData, ObsSeries
 from pipeline.checks.findings import Findings
 from pipeline.checks.physics import (
     PHASES_OF,

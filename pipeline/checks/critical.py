@@ -7,7 +7,7 @@ import math
 
 import numpy as np
 
-from pipeline.checks.data import CheckBatch, FluidData
+from pipeline.checks.inputs import CheckBatch, FluidData
 from pipeline.checks.findings import WARN, Findings
 from pipeline.checks.points import u0
 from pipeline.checks.registry import register_check

@@ -1,6 +1,6 @@
 """Fitted curves as the checks read them, many points at once.
 
-:meth:`FluidData.at <pipeline.checks.data.FluidData.at>` is the one way a check reads a fitted
+:meth:`FluidData.at <pipeline.checks.inputs.FluidData.at>` is the one way a check reads a fitted
 curve: the value, slope and their standard uncertainties at one temperature under the one
 uncertainty budget and the one extrapolation policy (:mod:`pipeline.checks.budget`). A check
 over many fluids asks for many such points; :func:`evaluate_points` answers a whole list of
@@ -31,7 +31,7 @@ from pipeline.checks.points import curve_label
 from pipeline.correlations.base import Curve
 
 if TYPE_CHECKING:  # pragma: no cover
-    from pipeline.checks.data import FluidData
+    from pipeline.checks.inputs import FluidData
 
 CurveKey = tuple[str, str, str]  # (boundary, solid_phase, quantity)
 #: (fluid, curve key, temperature [K]) asked of :func:`evaluate_points`
@@ -346,7 +346,7 @@ def curve_budgets(pairs: Iterable[tuple["FluidData", CurveKey]]) -> None:
 @dataclass
 class PointColumns:
     """Curve points as columns, one row per request: what :meth:`FluidData.at
-    <pipeline.checks.data.FluidData.at>` gives, without an object per point. ``ok`` marks the
+    <pipeline.checks.inputs.FluidData.at>` gives, without an object per point. ``ok`` marks the
     rows read; ``reasons`` says why the others were not. ``u_slope`` is NaN when not asked."""
 
     requests: Sequence[Request]

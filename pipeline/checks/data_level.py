@@ -2,7 +2,7 @@
 with T, values in physical ranges, residual outliers, duplicates across files.
 
 The observations of the batch are numpy columns (:attr:`CheckBatch.stacked
-<pipeline.checks.data.CheckBatch.stacked>`); text columns are grouped and compared through
+<pipeline.checks.inputs.CheckBatch.stacked>`); text columns are grouped and compared through
 their integer codes, so a run over thousands of fluids groups hundreds of thousands of rows
 in a few integer sorts.
 """
@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 
 from pipeline.checks.curves import curves_at
-from pipeline.checks.data import CheckBatch, Stacked
+from pipeline.checks.inputs import CheckBatch, Stacked
 from pipeline.checks.findings import Findings
 from pipeline.checks.physics import curve_label
 from pipeline.checks.registry import register_check

@@ -27,7 +27,7 @@ import pandas as pd
 
 from pipeline import __version__
 from pipeline.checks.budget import Budget
-from pipeline.checks.data import CheckBatch, FluidData
+from pipeline.checks.inputs import CheckBatch, FluidData
 from pipeline.checks.findings import SKIP, VIOLATED, Finding, Findings, Status
 from pipeline.checks.registry import CheckSpec, select_checks
 from pipeline.checks.results import CheckResult, CheckRun, ResultTable, _scalar, jsonable
@@ -192,7 +192,7 @@ def run_checks(fluids: Mapping[str, FluidData] | Sequence[FluidData] | CheckBatc
     Parameters
     ----------
     fluids : mapping of fluid id to FluidData, sequence of FluidData, or CheckBatch
-        The data (see :func:`pipeline.checks.data.load_fluid_data`).
+        The data (see :func:`pipeline.checks.loader.load_fluid_data`).
     checks, tags : iterable of str, optional
         Check ids and tags to run (a check is selected by either); all checks when both empty.
     fluid_ids : iterable of str, optional

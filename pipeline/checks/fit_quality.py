@@ -12,7 +12,7 @@ import math
 
 import numpy as np
 
-from pipeline.checks.data import CheckBatch, FluidData, ObsSeries
+from pipeline.checks.inputs import CheckBatch, FluidData, ObsSeries
 from pipeline.checks.findings import PASS, VIOLATED, Findings, num
 from pipeline.checks.physics import curve_label
 from pipeline.checks.registry import register_check

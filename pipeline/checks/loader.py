@@ -3,8 +3,8 @@
 :func:`load_fluid_data` reads the store with five queries whatever the number of fluids
 (fluids, observations with their source kind and fit residuals, fixed points, stated
 constants, current fits); :func:`fluids_from_tables` normalises the stacked tables once, orders
-them by fluid and hands each :class:`~pipeline.checks.data.FluidData` slices of the stacked
-numpy columns (:class:`~pipeline.checks.data.FluidRows`): no per-fluid pandas work, which
+them by fluid and hands each :class:`~pipeline.checks.inputs.FluidData` slices of the stacked
+numpy columns (:class:`~pipeline.checks.inputs.FluidRows`): no per-fluid pandas work, which
 measured ~2.7 s per 1,000 fluids when each fluid's frames were split and converted apart.
 """
 
@@ -17,7 +17,7 @@ from typing import Any, Iterable, Mapping
 import numpy as np
 import pandas as pd
 
-from pipeline.checks.data import (
+from pipeline.checks.inputs import (
     _SEP,
     CONSTANT_COLUMNS,
     FIXED_POINT_COLUMNS,
@@ -89,7 +89,7 @@ def _group_positions(cols: Mapping[str, np.ndarray], spans: Mapping[str, tuple[i
                      ) -> dict[str, dict[CurveKey, np.ndarray]]:
     """Per fluid, the positions (within its slice) of each (boundary, solid_phase, quantity)
     group, groups in sorted order, positions in row order: what
-    :meth:`FluidData.groups <pipeline.checks.data.FluidData.groups>` computes per fluid,
+    :meth:`FluidData.groups <pipeline.checks.inputs.FluidData.groups>` computes per fluid,
     computed for all at once."""
     n = len(cols["obs_id"])
     if not n:

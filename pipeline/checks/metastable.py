@@ -8,7 +8,7 @@ import math
 import numpy as np
 
 from pipeline.checks.curves import PointColumns, evaluate_point_columns
-from pipeline.checks.data import CheckBatch, FluidData
+from pipeline.checks.inputs import CheckBatch, FluidData
 from pipeline.checks.findings import Findings
 from pipeline.checks.physics import curve_label
 from pipeline.checks.registry import register_check

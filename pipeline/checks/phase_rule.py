@@ -8,7 +8,7 @@ import itertools
 import numpy as np
 
 from pipeline.checks.curves import grid_values, linspace_rows
-from pipeline.checks.data import CheckBatch, FluidData
+from pipeline.checks.inputs import CheckBatch, FluidData
 from pipeline.checks.findings import Findings
 from pipeline.checks.physics import curve_label
 from pipeline.checks.points import curve_phases, u0

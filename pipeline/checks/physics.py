@@ -13,7 +13,7 @@ from typing import Iterable
 
 import numpy as np
 
-from pipeline.checks.data import FluidData
+from pipeline.checks.inputs import FluidData
 from pipeline.checks.points import SINGLE_SOLID, curve_label, solid_label  # noqa: F401 (re-exported)
 
 R_GAS = 8.314462618  # molar gas constant [J/(mol K)] (CODATA 2018, exact since the 2019 SI)
@@ -42,7 +42,7 @@ class Looked:
 
 def lookup_requests(fluid: FluidData, T: float) -> list[tuple[FluidData, tuple, float]]:
     """The curve points a look-up at ``T`` may read (every fitted curve covering T), for
-    :meth:`~pipeline.checks.data.CheckBatch.prefetch`."""
+    :meth:`~pipeline.checks.inputs.CheckBatch.prefetch`."""
     return [(fluid, key, T) for key, fitted in fluid.curves.items() if fitted.covers(T)]
 
 

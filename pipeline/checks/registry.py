@@ -12,7 +12,7 @@ Two shapes of check function exist:
   called once per fluid with that fluid's thresholds.
 
 The decorator returns a vectorised function wrapped so that it may also be called with one
-:class:`~pipeline.checks.data.FluidData` (or a mapping or sequence of them) and a plain mapping
+:class:`~pipeline.checks.inputs.FluidData` (or a mapping or sequence of them) and a plain mapping
 of thresholds, as the tests call it; the registry keeps the function itself.
 
 The function's docstring is the check's explanation (physics, equation, usual causes of a
@@ -80,9 +80,9 @@ class FixedThresholds:
 
 
 def as_batch(data: Any):
-    """A :class:`~pipeline.checks.data.CheckBatch` of ``data``: a batch, one FluidData, or a
+    """A :class:`~pipeline.checks.inputs.CheckBatch` of ``data``: a batch, one FluidData, or a
     mapping or sequence of them."""
-    from pipeline.checks.data import CheckBatch, FluidData
+    from pipeline.checks.inputs import CheckBatch, FluidData
 
     if isinstance(data, CheckBatch):
         return data

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from pipeline.checks.data import CheckBatch, FluidData
+from pipeline.checks.inputs import CheckBatch, FluidData
 from pipeline.checks.findings import Findings
 from pipeline.checks.points import SOURCE_RANK, parse_phases
 from pipeline.checks.registry import register_check

@@ -6,7 +6,7 @@ import math
 
 import numpy as np
 
-from pipeline.checks.data import CheckBatch, FluidData
+from pipeline.checks.inputs import CheckBatch, FluidData
 from pipeline.checks.findings import Findings
 from pipeline.checks.physics import curve_label, delta_v, density, enthalpy, lookup_requests
 from pipeline.checks.points import StatedPoint, u0

@@ -25,7 +25,7 @@ from typing import Callable
 import numpy as np
 
 from pipeline.checks.consensus import poly_design, robust_fit, wagner_design
-from pipeline.checks.data import CheckBatch, FluidData, ObsSeries
+from pipeline.checks.inputs import CheckBatch, FluidData, ObsSeries
 from pipeline.checks.estimates import estimate_from_constants
 from pipeline.checks.findings import VIOLATED, WARN, Findings
 from pipeline.checks.points import SOURCE_RANK

@@ -8,7 +8,10 @@ Pure numpy/scipy, no I/O. Modules, one per physical topic:
 * :mod:`~pipeline.correlations.melting` - Simon-Glatzel, polynomial, IAPWS melting forms;
 * :mod:`~pipeline.correlations.density` - saturated liquid and vapour density forms;
 * :mod:`~pipeline.correlations.linalg` - weighted linear least squares by equilibrated SVD;
-* :mod:`~pipeline.correlations.fitting` - weighted, outlier-flagging fits with model selection;
+* :mod:`~pipeline.correlations.regression` - weighted, outlier-flagging fits with model selection
+  (the per-series reference; :mod:`~pipeline.correlations.batched` fits many series at once),
+  what they give (:mod:`~pipeline.correlations.outcomes`) and the screening of a series before
+  a fit (:mod:`~pipeline.correlations.screening`);
 * :mod:`~pipeline.correlations.reference` - published water, CO2, N2 and Ar equations.
 
 Importing the package registers every form. Bibliographic details in docstrings are from
@@ -18,7 +21,8 @@ memory of the publications; DOIs are given only where recalled with confidence.
 from pipeline.correlations import density, melting, sublimation, vapour_pressure  # registers
 from pipeline.correlations.base import (FORMS, CorrelationForm, Curve, LinearForm,
                                         NonlinearForm, evaluate_batch, get_form, register_form)
-from pipeline.correlations.fitting import FitOutcome, fit_curve, fit_form
+from pipeline.correlations.outcomes import FitOutcome
+from pipeline.correlations.regression import fit_curve, fit_form
 from pipeline.correlations.reference import (REFERENCE_CAS, REFERENCE_CONSTANTS,
                                              REFERENCE_CURVES, reference_curve,
                                              reference_fluid)

@@ -1,7 +1,7 @@
 """Fit many phase-boundary series at once: the batched path of the fit stage.
 
-:func:`fit_curves` gives every series the :class:`~pipeline.correlations.fitting.FitOutcome`
-that :func:`~pipeline.correlations.fitting.fit_curve` gives it alone. ``fit_curve`` stays the
+:func:`fit_curves` gives every series the :class:`~pipeline.correlations.regression.FitOutcome`
+that :func:`~pipeline.correlations.regression.fit_curve` gives it alone. ``fit_curve`` stays the
 reference implementation (one series, readable, the specification); this module runs the same
 algorithm for all series that share their candidate forms in lockstep, so that the linear
 algebra is done on stacked arrays:
@@ -36,11 +36,12 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from pipeline.correlations.base import CorrelationForm, Curve, LinearForm, get_form
-from pipeline.correlations.fitting import (CRITERIA, MAX_OUTLIER_FRACTION, MAX_OUTLIER_ROUNDS,
-                                           FitOutcome, PointFlag, SkipCode, _as_arrays, _Best,
-                                           _Candidate, _crossing_reason, _inflate,
-                                           _monotonic_reason, _no_model, _screen_values, _skip,
-                                           _solve_nonlinear)
+from pipeline.correlations.outcomes import FitOutcome, PointFlag, SkipCode
+from pipeline.correlations.regression import (CRITERIA, MAX_OUTLIER_FRACTION, MAX_OUTLIER_ROUNDS,
+                                              _Best, _Candidate, _inflate, _no_model,
+                                              _solve_nonlinear)
+from pipeline.correlations.screening import (as_arrays, crossing_reason, monotonic_reason,
+                                             screen_values, skipped_outcome)
 from pipeline.correlations.robust import robust_start_masks
 from pipeline.errors import FitError
 
@@ -102,7 +103,7 @@ def fit_curves(candidate_forms: str | Sequence[str], series: Sequence[Series], *
     series : sequence of Series
         The data sets.
     outlier_z, min_points, criterion, n_terms, above_reference
-        As for :func:`pipeline.correlations.fitting.fit_curve`.
+        As for :func:`pipeline.correlations.regression.fit_curve`.
 
     Returns
     -------
@@ -135,16 +136,16 @@ def fit_curves(candidate_forms: str | Sequence[str], series: Sequence[Series], *
 def _screen(forms, index: int, s: Series, criterion: str) -> _Live | FitOutcome:
     """The checks of ``fit_curve`` that need no candidate: shapes and values."""
     try:
-        T, y, u_y, u_T = _as_arrays(s.T, s.y, s.u_y, s.u_T)
+        T, y, u_y, u_T = as_arrays(s.T, s.y, s.u_y, s.u_T)
     except ValueError as exc:
-        return _skip(np.size(s.T), SkipCode.BAD_SHAPE, f"inputs do not match in shape: {exc}")
+        return skipped_outcome(np.size(s.T), SkipCode.BAD_SHAPE, f"inputs do not match in shape: {exc}")
     n = T.size
     if y.shape != T.shape or T.ndim != 1:
-        return _skip(n, SkipCode.BAD_SHAPE, f"T has shape {T.shape}, value {y.shape}; "
+        return skipped_outcome(n, SkipCode.BAD_SHAPE, f"T has shape {T.shape}, value {y.shape}; "
                      "both must be one-dimensional of equal length", criterion=criterion)
-    screened = _screen_values(forms, T, y, u_y, u_T, s.ref)
+    screened = screen_values(forms, T, y, u_y, u_T, s.ref)
     if screened:
-        return _skip(n, *screened, criterion=criterion)
+        return skipped_outcome(n, *screened, criterion=criterion)
     trusted = None if s.trusted is None else np.asarray(s.trusted, dtype=bool)
     return _Live(index, T, y, u_y, u_T, s.ref, trusted)
 
@@ -217,15 +218,15 @@ class _Batch:
             m.codes = codes[m.lo:m.hi].copy()
             n = m.T.size
             if np.any((m.codes == 1) | (m.codes == 2)):
-                crossing = _crossing_reason(_flag_list(m.codes), m.T,
+                crossing = crossing_reason(_flag_list(m.codes), m.T,
                                             float(m.ref.get("T_ref_K", math.nan)))
                 if crossing and self.above_reference == "skip":
-                    done.append((m, _skip(n, SkipCode.CROSSES_REFERENCE, crossing,
+                    done.append((m, skipped_outcome(n, SkipCode.CROSSES_REFERENCE, crossing,
                                           _flag_list(m.codes), self.criterion)))
                     continue
             m.base = m.codes == 0
             if m.base.sum() < self.min_points:
-                done.append((m, _skip(n, SkipCode.TOO_FEW_POINTS, f"too few points: "
+                done.append((m, skipped_outcome(n, SkipCode.TOO_FEW_POINTS, f"too few points: "
                                       f"{int(m.base.sum())} usable of {n}, at least "
                                       f"{self.min_points} needed", _flag_list(m.codes),
                                       self.criterion)))
@@ -236,9 +237,9 @@ class _Batch:
         if any(f.increasing for f in self.forms):
             kept = []
             for m, start in zip(live, starts):
-                reason = _monotonic_reason(m.T[start], m.y[start], m.u_y[start], m.u_T[start])
+                reason = monotonic_reason(m.T[start], m.y[start], m.u_y[start], m.u_T[start])
                 if reason:
-                    done.append((m, _skip(m.T.size, SkipCode.NON_MONOTONIC, reason,
+                    done.append((m, skipped_outcome(m.T.size, SkipCode.NON_MONOTONIC, reason,
                                           _flag_list(m.codes), self.criterion)))
                 else:
                     m.mask = start

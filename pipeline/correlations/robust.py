@@ -1,13 +1,13 @@
 """Batched robust starting fits: soft-L1 linear regression of many series at once.
 
 The fit of a phase-boundary series starts from an inlier set found by a robust fit (see
-:func:`pipeline.correlations.fitting._robust_start`): each linear candidate form is fitted with
+:func:`pipeline.correlations.regression._robust_start`): each linear candidate form is fitted with
 a few terms and the soft-L1 loss, and points far from the best of those fits start outside.
 :func:`robust_start_masks` computes the same inlier sets for many series in one pass:
 the soft-L1 problems of all (series, form) pairs with equal column counts are solved together
 by :func:`soft_l1_batch`, a damped Newton method on stacked arrays.
 
-Why Newton, not the reweighting of :func:`pipeline.correlations.fitting.soft_l1_linear`: the
+Why Newton, not the reweighting of :func:`pipeline.correlations.regression.soft_l1_linear`: the
 loss ``sum_i 2 (sqrt(1 + r_i^2) - 1)`` is smooth and strictly convex in the residuals, so its
 Newton step ``-(A^T H A)^-1 A^T g`` (``g_i = r_i / sqrt(1 + r_i^2)``,
 ``H_i = (1 + r_i^2)^(-3/2)``) with a backtracking line search converges quadratically to the
@@ -193,7 +193,7 @@ def robust_start_masks(cands: list[tuple], base: np.ndarray, fit_on: np.ndarray,
                        starts: list[np.ndarray] | None = None
                        ) -> tuple[np.ndarray, list[np.ndarray]]:
     """Starting inlier sets of many series at once, each as the per-series robust start
-    (``pipeline.correlations.fitting._robust_start``) gives it.
+    (``pipeline.correlations.regression._robust_start``) gives it.
 
     Parameters
     ----------

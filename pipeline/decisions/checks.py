@@ -102,9 +102,9 @@ def _without_constants(fixed, consts, fluid_id: str, excl: CheckExclusions):
 
 
 def without_excluded(fluid, excl: CheckExclusions):
-    """``fluid`` (a :class:`~pipeline.checks.data.FluidData`) without its excluded data; the
+    """``fluid`` (a :class:`~pipeline.checks.inputs.FluidData`) without its excluded data; the
     same object when nothing of it is excluded."""
-    from pipeline.checks.data import FluidData
+    from pipeline.checks.inputs import FluidData
 
     ids = fluid.observation_ids()
     hit = np.isin(ids, np.fromiter(excl.observations, dtype=np.int64, count=len(excl.observations)))

@@ -24,7 +24,7 @@ import numpy as np
 
 from pipeline import __version__
 from pipeline.correlations.batched import Series, fit_batch, fit_batches
-from pipeline.correlations.fitting import fit_curve
+from pipeline.correlations.regression import fit_curve
 from pipeline.errors import FitError
 from pipeline.fitting.groups import FIT_PLAN, FITTED_QUANTITIES, SOURCE_RANK, reference_point
 from pipeline.fitting.write import Writer, fit_id_of
@@ -175,7 +175,7 @@ def run_fit(con: duckdb.DuckDBPyConnection, *, fluids: list[str] | None = None,
     ``full``. ``exclusions`` maps obs_id -> curation decision id (points left out of fits).
     ``workers``: processes that fit the groups (default: :func:`fit_workers`). ``path``:
     "batched" (:func:`pipeline.correlations.batched.fit_curves`, the stage's way) or
-    "per-group" (the reference :func:`pipeline.correlations.fitting.fit_curve` for each group
+    "per-group" (the reference :func:`pipeline.correlations.regression.fit_curve` for each group
     in this process; the same results, for tests and benchmarks)."""
     if path not in ("batched", "per-group"):
         raise KeyError(f"path must be 'batched' or 'per-group', not {path!r}")

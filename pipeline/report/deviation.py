@@ -14,6 +14,7 @@ triangles pointing the way they are off, their hover text giving the true deviat
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -31,6 +32,9 @@ from pipeline.report.plots import (
     source_styles,
     style_axes,
 )
+
+if TYPE_CHECKING:   # matplotlib is imported only when a figure is drawn
+    from matplotlib.figure import Figure
 
 #: Panels per row.
 COLUMNS = 3

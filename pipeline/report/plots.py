@@ -24,11 +24,14 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from typing import Any, Sequence
+from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
 
 from pipeline.report.labels import place_numbers
+
+if TYPE_CHECKING:   # matplotlib is imported only when a figure is drawn
+    from matplotlib.figure import Figure
 
 #: Coverage factor of the error bars and bands drawn.
 K_COVERAGE = 2.0

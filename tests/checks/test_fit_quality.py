@@ -8,11 +8,11 @@ import pytest
 
 from check_fixtures import sample_series
 from pipeline.checks import FluidData
-from pipeline.checks.data import FittedCurve
+from pipeline.checks.inputs import FittedCurve
 from pipeline.checks.fit_quality import reduced_chi2
 from pipeline.checks.thresholds import Thresholds
 from pipeline.correlations import reference_curve
-from pipeline.correlations.fitting import fit_curve
+from pipeline.correlations.regression import fit_curve
 
 # Argon: Tegeler, Span & Wagner (1999) vapour-pressure ancillary and critical point
 # Tc = 150.687 K, pc = 4.863 MPa (via pipeline.correlations.reference).

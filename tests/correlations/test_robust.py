@@ -7,9 +7,9 @@ import pytest
 from scipy.optimize import least_squares
 
 from pipeline.correlations import reference_curve
-from pipeline.correlations.fitting import (_fit_space_arrays, _make_candidates, _robust_start,
-                                           soft_l1_linear)
 from pipeline.correlations.base import get_form
+from pipeline.correlations.regression import (_fit_space_arrays, _make_candidates, _robust_start,
+                                              soft_l1_linear)
 from pipeline.correlations.robust import robust_start_masks, soft_l1_batch
 
 

@@ -7,7 +7,7 @@ The check results of three data sets are frozen here, with the inputs they were 
 - ``synthetic``: the benchmark's synthetic fluids (``benchmarks/synthetic_fluids.py``, built in
   memory, so only their results are stored).
 
-For a store, the inputs are the five tables :func:`pipeline.checks.data.load_fluid_data` reads
+For a store, the inputs are the five tables :func:`pipeline.checks.loader.load_fluid_data` reads
 (fluids, observations, fixed points, stated constants, current fits), written as Parquet, so
 the test does not depend on the ingest and fit stages (whose own changes would move the
 numbers). The results of :func:`pipeline.checks.run_checks` on them (default thresholds, no

@@ -37,7 +37,6 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from enum import Enum
 
 import numpy as np
 from scipy.optimize import least_squares
@@ -45,129 +44,20 @@ from scipy.optimize import least_squares
 from pipeline.correlations.base import CorrelationForm, Curve, LinearForm, get_form
 from pipeline.correlations.linalg import (column_norms, covariance_from_jacobian,
                                           weighted_linear_solve)
+from pipeline.correlations.outcomes import FitOutcome, FormFit, PointFlag, SkipCode
+from pipeline.correlations.screening import (as_arrays, crossing_reason, domain_flags,
+                                             monotonic_reason, screen_values, skipped_outcome)
 from pipeline.errors import FitError
 
 MAX_OUTLIER_ROUNDS = 10
 MAX_OUTLIER_FRACTION = 0.45   # never flag more than 45 % of the usable points as outliers
 SOFT_L1_F_SCALE = 3.0
-MONOTONIC_K = 3.0            # a step "falls" when it drops by more than 3 combined u
-MONOTONIC_MAX_FRACTION = 0.1  # more than 10 % falling steps (and more than 2): non-monotonic
 
 CRITERIA = {
     "bic": lambda chi2, k, n: chi2 + k * math.log(n),
     "aic": lambda chi2, k, n: chi2 + 2.0 * k,
 }
 """Model-selection criteria from chi-square, parameter count and point count."""
-
-
-class PointFlag(str, Enum):
-    """Why a point was not used in the final fit."""
-
-    OUTLIER = "outlier"
-    ABOVE_CRITICAL = "above-critical-temperature"
-    ABOVE_TRIPLE = "above-triple-temperature"
-    OUTSIDE_DOMAIN = "outside-form-domain"
-    NON_FINITE_SLOPE = "non-finite-slope"
-
-
-class SkipCode(str, Enum):
-    """Why a fit was not made."""
-
-    BAD_SHAPE = "bad-shape"
-    NON_FINITE = "non-finite"
-    NON_POSITIVE = "non-positive"
-    NO_REFERENCE = "no-reference-temperature"
-    CROSSES_REFERENCE = "crosses-reference-temperature"
-    TOO_FEW_POINTS = "too-few-points"
-    NON_MONOTONIC = "non-monotonic"
-    SINGULAR = "singular-design"
-    OPTIMISER_FAILED = "optimiser-failed"
-
-
-# --- Result records ------------------------------------------------------------------------------
-
-@dataclass(frozen=True, eq=False)
-class FormFit:
-    """One weighted fit of one form with a fixed number of terms (no outlier handling)."""
-
-    form: str
-    params: np.ndarray
-    covariance: np.ndarray  # scaled by max(1, reduced chi-square)
-    chi2: float
-    n: int
-    exponents: tuple[float, ...]
-    method: str             # "linear" | "nonlinear"
-    nfev: int = 0
-
-    @property
-    def n_params(self) -> int:
-        """Number of fitted parameters."""
-        return int(self.params.size)
-
-    @property
-    def reduced_chi2(self) -> float:
-        """chi2 / (n - k); NaN with no degrees of freedom."""
-        dof = self.n - self.n_params
-        return self.chi2 / dof if dof > 0 else math.nan
-
-
-@dataclass(frozen=True, eq=False)
-class FitOutcome:
-    """Result of :func:`fit_curve`: the selected curve and what happened to every point.
-
-    Arrays (``outlier_mask``, ``z``) are in the order of the input points. ``z`` holds the
-    normalised residuals (obs - model)/u_z of all points, flagged ones included (NaN where the
-    form is undefined). ``point_flags[i]`` is "" for a used point, else a :class:`PointFlag`
-    value. ``weighted_rms`` is sqrt(sum w r^2 / sum w) of the fit-space residuals r of the used
-    points (``fit_space`` says which space: ln(value) residuals are relative).
-    """
-
-    curve: Curve | None
-    form: str | None
-    n_used: int
-    n_flagged: int
-    outlier_mask: np.ndarray
-    z: np.ndarray
-    weighted_rms: float
-    reduced_chi2: float
-    bic: float
-    skipped_reason: str | None = None
-    skip_code: str | None = None
-    point_flags: tuple[str, ...] = ()
-    candidates: tuple[tuple[str, int, float], ...] = ()
-    criterion: str = "bic"
-    fit_space: str = ""
-
-    @property
-    def fitted(self) -> bool:
-        """True when a curve was fitted."""
-        return self.skipped_reason is None
-
-    def asdict(self) -> dict:
-        """Machine form (JSON-safe)."""
-        def num(x):
-            return None if x is None or not math.isfinite(x) else float(x)
-        return {
-            "curve": None if self.curve is None else self.curve.to_dict(),
-            "form": self.form, "n_used": self.n_used, "n_flagged": self.n_flagged,
-            "outlier_mask": [bool(v) for v in self.outlier_mask],
-            "z": [num(v) for v in self.z],
-            "weighted_rms": num(self.weighted_rms), "reduced_chi2": num(self.reduced_chi2),
-            "bic": num(self.bic), "skipped_reason": self.skipped_reason,
-            "skip_code": self.skip_code, "point_flags": list(self.point_flags),
-            "candidates": [[f, k, num(c)] for f, k, c in self.candidates],
-            "criterion": self.criterion, "fit_space": self.fit_space,
-        }
-
-    def asstr(self) -> str:
-        """Human form, one line."""
-        if not self.fitted:
-            return f"skipped ({self.skip_code}): {self.skipped_reason}"
-        n_out = int(np.sum(self.outlier_mask))
-        return (f"{self.form} ({len(self.curve.params)} params): {self.n_used} points used, "
-                f"{self.n_flagged} flagged ({n_out} outliers |z| > threshold); "
-                f"reduced chi2 = {self.reduced_chi2:.3g}, weighted RMS = "
-                f"{self.weighted_rms:.3g} in {self.fit_space}, BIC = {self.bic:.2f}")
 
 
 # --- Single-form solvers -------------------------------------------------------------------------
@@ -465,90 +355,6 @@ def _robust_select(cands, T, z_by_link, u_by_link, base, n_terms, criterion, out
     return best, mask, table, errors
 
 
-# --- Input screening -----------------------------------------------------------------------------
-
-def _skip(n: int, code: SkipCode, reason: str, flags=None, criterion="bic") -> FitOutcome:
-    return FitOutcome(curve=None, form=None, n_used=0, n_flagged=0,
-                      outlier_mask=np.zeros(n, dtype=bool), z=np.full(n, np.nan),
-                      weighted_rms=math.nan, reduced_chi2=math.nan, bic=math.nan,
-                      skipped_reason=reason, skip_code=code.value,
-                      point_flags=tuple(flags) if flags is not None else ("",) * n,
-                      criterion=criterion)
-
-
-def _as_arrays(T, y, u_y, u_T):
-    T = np.atleast_1d(np.asarray(T, dtype=float))
-    y = np.atleast_1d(np.asarray(y, dtype=float))
-    u_y = np.broadcast_to(np.asarray(u_y, dtype=float), T.shape).copy()
-    u_T = np.broadcast_to(np.asarray(0.0 if u_T is None else u_T, dtype=float), T.shape).copy()
-    return T, y, u_y, u_T
-
-
-def _screen_values(forms, T, y, u_y, u_T, ref) -> tuple[SkipCode, str] | None:
-    bad = ~(np.isfinite(T) & np.isfinite(y) & np.isfinite(u_y) & np.isfinite(u_T))
-    if bad.any():
-        return SkipCode.NON_FINITE, (f"non-finite values: {int(bad.sum())} of {T.size} points "
-                                     f"have NaN or inf in T, value or uncertainty (first at "
-                                     f"index {int(np.argmax(bad))})")
-    if np.any(u_y <= 0) or np.any(u_T < 0):
-        i = int(np.argmax((u_y <= 0) | (u_T < 0)))
-        return SkipCode.NON_POSITIVE, (f"uncertainties must be u_value > 0 and u_T >= 0; "
-                                       f"index {i} has u_value = {u_y[i]:g}, u_T = {u_T[i]:g}")
-    if np.any(T <= 0):
-        return SkipCode.NON_POSITIVE, f"temperatures must be > 0 K; minimum is {T.min():g} K"
-    if any(f.link == "log" for f in forms) and np.any(y <= 0):
-        return SkipCode.NON_POSITIVE, (f"{int(np.sum(y <= 0))} values are <= 0; a form fitted "
-                                       f"in ln(value) needs positive values")
-    T_ref = ref.get("T_ref_K")
-    needs = [f.name for f in forms if f.reference_point]
-    if needs and not (T_ref is not None and math.isfinite(T_ref) and T_ref > 0):
-        return SkipCode.NO_REFERENCE, (f"forms {needs} need ref['T_ref_K'] (Tc or Tt) > 0; "
-                                       f"got {T_ref!r}")
-    return None
-
-
-def _domain_flags(cands, T) -> list[str]:
-    """Per point: "" inside every candidate's domain, else the first reason found."""
-    flags = [""] * T.size
-    for cand in cands:
-        ok = cand.form.domain(T, cand.T_ref, cand.exps)
-        above = T > cand.T_ref
-        kind = {"critical": PointFlag.ABOVE_CRITICAL, "triple": PointFlag.ABOVE_TRIPLE}.get(
-            cand.form.reference_point, PointFlag.OUTSIDE_DOMAIN)
-        for i in np.flatnonzero(~ok):
-            if not flags[i]:
-                flags[i] = (kind if above[i] else PointFlag.OUTSIDE_DOMAIN).value
-    return flags
-
-
-def _crossing_reason(flags, T, T_ref) -> str | None:
-    above = [i for i, f in enumerate(flags)
-             if f in (PointFlag.ABOVE_CRITICAL.value, PointFlag.ABOVE_TRIPLE.value)]
-    if not above:
-        return None
-    which = "critical temperature Tc" if flags[above[0]] == PointFlag.ABOVE_CRITICAL.value \
-        else "triple-point temperature Tt"
-    return (f"{len(above)} of {T.size} points lie above the {which} = {T_ref:g} K (highest "
-            f"{T[above].max():g} K), where this boundary does not exist; fix the data or the "
-            f"reference point, or pass above_reference='exclude' to fit without them "
-            f"(they are then flagged)")
-
-
-def _monotonic_reason(T, y, u_y, u_T) -> str | None:
-    """Reason text when the series clearly does not rise with T, else None."""
-    order = np.lexsort((y, T))
-    T, y, u_y, u_T = T[order], y[order], u_y[order], u_T[order]
-    dT = np.diff(T)
-    judged = dT > MONOTONIC_K * np.hypot(u_T[1:], u_T[:-1])
-    falls = judged & (-np.diff(y) > MONOTONIC_K * np.hypot(u_y[1:], u_y[:-1]))
-    n_j, n_f = int(judged.sum()), int(falls.sum())
-    if n_f > max(2, MONOTONIC_MAX_FRACTION * n_j):
-        return (f"pressure does not rise with temperature: {n_f} of {n_j} steps fall by more "
-                f"than {MONOTONIC_K:g} combined standard uncertainties (a vapour or "
-                f"sublimation pressure must increase with T)")
-    return None
-
-
 # --- fit_curve -----------------------------------------------------------------------------------
 
 def _fit_space_arrays(cands, y, u_eff):
@@ -605,12 +411,12 @@ def _stage(cands, T, y, u_eff, base, n_terms, criterion, outlier_z, min_points, 
 
 def _no_model(n, errors, base, flags, criterion):
     if errors and all("singular" in e for e in errors):
-        return _skip(n, SkipCode.SINGULAR, "design matrix is singular for every candidate "
+        return skipped_outcome(n, SkipCode.SINGULAR, "design matrix is singular for every candidate "
                      f"(e.g. too few distinct temperatures): {errors[0]}", flags, criterion)
     if errors:
-        return _skip(n, SkipCode.OPTIMISER_FAILED, "; ".join(sorted(set(errors))), flags,
+        return skipped_outcome(n, SkipCode.OPTIMISER_FAILED, "; ".join(sorted(set(errors))), flags,
                      criterion)
-    return _skip(n, SkipCode.TOO_FEW_POINTS, f"too few points: {int(base.sum())} usable, "
+    return skipped_outcome(n, SkipCode.TOO_FEW_POINTS, f"too few points: {int(base.sum())} usable, "
                  "every candidate needs at least its parameter count + 2", flags, criterion)
 
 
@@ -660,25 +466,25 @@ def fit_curve(candidate_forms: str | Sequence[str], T, y, u_y, u_T, ref: dict, *
     if above_reference not in ("skip", "exclude"):
         raise KeyError(f"above_reference must be 'skip' or 'exclude', not {above_reference!r}")
     try:
-        T, y, u_y, u_T = _as_arrays(T, y, u_y, u_T)
+        T, y, u_y, u_T = as_arrays(T, y, u_y, u_T)
     except ValueError as exc:
-        return _skip(np.size(T), SkipCode.BAD_SHAPE, f"inputs do not match in shape: {exc}")
+        return skipped_outcome(np.size(T), SkipCode.BAD_SHAPE, f"inputs do not match in shape: {exc}")
     n = T.size
     if y.shape != T.shape or T.ndim != 1:
-        return _skip(n, SkipCode.BAD_SHAPE, f"T has shape {T.shape}, value {y.shape}; "
+        return skipped_outcome(n, SkipCode.BAD_SHAPE, f"T has shape {T.shape}, value {y.shape}; "
                      "both must be one-dimensional of equal length", criterion=criterion)
-    screened = _screen_values(forms, T, y, u_y, u_T, ref)
+    screened = screen_values(forms, T, y, u_y, u_T, ref)
     if screened:
-        return _skip(n, *screened, criterion=criterion)
+        return skipped_outcome(n, *screened, criterion=criterion)
 
     cands = _make_candidates(forms, T, ref)
-    flags = _domain_flags(cands, T)
-    crossing = _crossing_reason(flags, T, float(ref.get("T_ref_K", math.nan)))
+    flags = domain_flags(cands, T)
+    crossing = crossing_reason(flags, T, float(ref.get("T_ref_K", math.nan)))
     if crossing and above_reference == "skip":
-        return _skip(n, SkipCode.CROSSES_REFERENCE, crossing, flags, criterion)
+        return skipped_outcome(n, SkipCode.CROSSES_REFERENCE, crossing, flags, criterion)
     base = np.array([f == "" for f in flags])
     if base.sum() < min_points:
-        return _skip(n, SkipCode.TOO_FEW_POINTS, f"too few points: {int(base.sum())} usable "
+        return skipped_outcome(n, SkipCode.TOO_FEW_POINTS, f"too few points: {int(base.sum())} usable "
                      f"of {n}, at least {min_points} needed", flags, criterion)
     trusted = None if trusted is None else np.asarray(trusted, dtype=bool)
     start = None
@@ -687,9 +493,9 @@ def fit_curve(candidate_forms: str | Sequence[str], T, y, u_y, u_T, ref: dict, *
         # the same inlier set starts stage 1 below (same inputs), so it is computed once
         zs, us = _fit_space_arrays(cands, y, u_y)
         start = _robust_start(cands, T, zs, us, base, outlier_z, trusted)
-        reason = _monotonic_reason(T[start], y[start], u_y[start], u_T[start])
+        reason = monotonic_reason(T[start], y[start], u_y[start], u_T[start])
         if reason:
-            return _skip(n, SkipCode.NON_MONOTONIC, reason, flags, criterion)
+            return skipped_outcome(n, SkipCode.NON_MONOTONIC, reason, flags, criterion)
 
     # Stage 1: u_y only, to get the slope; stage 2: u_eff with u_T carried through the slope.
     args = (n_terms, criterion, outlier_z, min_points, trusted)

@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import math
 from dataclasses import dataclass
 from functools import cached_property
 from typing import Any, Iterable, Iterator, Mapping, Sequence
