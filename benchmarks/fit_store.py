@@ -45,37 +45,11 @@ sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "benchmarks"))
 
 from fit import BOUNDARIES, make_fluids, make_series  # noqa: E402
+from tests.storekit import batch_toml, source, vp_table  # noqa: E402
 
 TARGET_S = 8.0             # issue 14: the fit stage for 1,000 fluids x 3 boundaries x 200 points
 FILES = {"liquid-vapour": "vp.csv", "solid-vapour": "sub.csv", "solid-liquid": "melt.csv"}
 REL_U = {"liquid-vapour": 1e-3, "solid-vapour": 2e-3, "solid-liquid": 2e-3}
-
-TABLE = """
-[[table]]
-file = "{file}"
-fluid = "{fluid}"
-boundary = "{boundary}"
-temperature = {{ column = "T", unit = "K" }}
-pressure = {{ column = "p", unit = "Pa" }}
-[table.uncertainty]
-temperature = {{ value = 0.01, unit = "K" }}
-pressure = {{ relative = {rel} }}
-"""
-
-POINTS = """
-[[fixed_point]]
-fluid = "{fluid}"
-kind = "critical"
-T = {{ value = {Tc!r}, unit = "K", u = 0.01 }}
-p = {{ value = {pc!r}, unit = "Pa", u = {u_pc!r} }}
-
-[[fixed_point]]
-fluid = "{fluid}"
-kind = "triple"
-phases = ["vapour", "liquid", "solid"]
-T = {{ value = {Tt!r}, unit = "K", u = 0.01 }}
-p = {{ value = {pt!r}, unit = "Pa", u = {u_pt!r} }}
-"""
 
 
 def write_raw(root: Path, n_fluids: int, n_points: int, seed: int) -> int:
@@ -90,21 +64,25 @@ def write_raw(root: Path, n_fluids: int, n_points: int, seed: int) -> int:
                        'molar_mass = { value = 40.0, unit = "g/mol" }\n')
         batch = root / fid
         batch.mkdir()
-        parts = ['format_version = 1\n\n[source]\n'
-                 f'id = "bench-{fid}"\nkind = "literature"\n'
-                 f'citation = "Synthetic benchmark series for {fid}"\n']
+        tables = []
         for boundary in BOUNDARIES:
             s = make_series(fluid, boundary, n_points, rng)
             text = "T,p\n" + "\n".join(f"{t:.6f},{p:.9g}" for t, p in zip(s.T, s.y)) + "\n"
             (batch / FILES[boundary]).write_text(text, encoding="utf-8")
-            parts.append(TABLE.format(file=FILES[boundary], fluid=fid, boundary=boundary,
-                                      rel=REL_U[boundary]))
+            tables.append(vp_table(file=FILES[boundary], fluid=fid, boundary=boundary,
+                                   p_unit="Pa", u_T_K=0.01, u_p_rel=REL_U[boundary]))
             rows += len(s.T)
         vap = fluid.curves["liquid-vapour"]
         pc, pt = math.exp(vap.params[0]), float(vap.value(fluid.Tt))
-        parts.append(POINTS.format(fluid=fid, Tc=fluid.Tc, pc=pc, u_pc=1e-4 * pc, Tt=fluid.Tt,
-                                   pt=pt, u_pt=1e-4 * pt))
-        (batch / "batch.toml").write_text("".join(parts), encoding="utf-8")
+        points = [{"fluid": fid, "kind": "critical",
+                   "T": {"value": fluid.Tc, "unit": "K", "u": 0.01},
+                   "p": {"value": pc, "unit": "Pa", "u": 1e-4 * pc}},
+                  {"fluid": fid, "kind": "triple", "phases": ["vapour", "liquid", "solid"],
+                   "T": {"value": fluid.Tt, "unit": "K", "u": 0.01},
+                   "p": {"value": pt, "unit": "Pa", "u": 1e-4 * pt}}]
+        manifest = batch_toml(source(f"bench-{fid}", f"Synthetic benchmark series for {fid}",
+                                     "literature"), tables, points)
+        (batch / "batch.toml").write_text(manifest, encoding="utf-8")
     (root / "fluids.toml").write_text("\n".join(entries), encoding="utf-8")
     return rows
 
