@@ -55,6 +55,7 @@ from pipeline.errors import (
 )
 from pipeline.progress import stage_progress
 from pipeline.safetext import SafeFormatter
+from pipeline.stagemeter import Meter, measure
 from pipeline.store.runs import end_run
 
 log = logging.getLogger(__name__)
@@ -96,10 +97,12 @@ class Stage:
     duration_s: float
     text: str
     detail: dict = field(default_factory=dict)
+    usage: dict | None = None        # pipeline.stagemeter.StageUsage.asdict(): time, peak RSS
 
     def asdict(self) -> dict:
-        return {"status": self.status, "duration_s": round(self.duration_s, 6),
-                "text": self.text, "detail": self.detail}
+        out = {"status": self.status, "duration_s": round(self.duration_s, 6),
+               "text": self.text, "detail": self.detail}
+        return out if self.usage is None else dict(out, usage=self.usage)
 
 
 @dataclass
@@ -146,7 +149,8 @@ class NightlyResult:
                 + (f" {pub['release_id']}" if pub.get("release_id") else "")
                 + (f"; report: {self.report['html']}" if self.report.get("html") else ""))
 
-    def asstr(self) -> str:
+    def asstr(self, verbose: bool = False) -> str:
+        """The run for people; ``verbose`` adds each stage's peak RSS."""
         counts = ", ".join(f"{n} {s}" for s, n in self.counts.items() if n)
         lines = [f"nightly {self.run_id}: {self.verdict.upper()} (exit {self.exit_code}); "
                  f"checks: {counts or 'none'}"]
@@ -159,6 +163,8 @@ class NightlyResult:
                          "refitted, check results reused")
         for name, s in self.stages.items():
             lines.append(f"  {name:<8} {s.status:<11} {s.duration_s:7.2f} s  {s.text}")
+            if verbose and s.usage:
+                lines.append(f"  {'':<8} {'':<11} {'':>9}  {usage_text(s.usage)}")
         ch = self.changes
         if self.previous_run_id is None:
             lines.append("first nightly run on this store: nothing to compare with")
@@ -178,6 +184,23 @@ class NightlyResult:
         if self.report.get("html"):
             lines.append(f"report: {self.report['html']}")
         return "\n".join(lines)
+
+
+def usage_text(usage: Mapping[str, Any]) -> str:
+    """A stage's measured figures in words (run log and ``--verbose``)."""
+    text = f"peak RSS {usage['peak_rss_mib']:,.0f} MiB"
+    if usage.get("method") != "stage":
+        text += " (process peak so far)"
+    if usage.get("children_peak_rss_mib") is not None:
+        text += f", worker peak {usage['children_peak_rss_mib']:,.0f} MiB"
+    return text + f", wall {usage['wall_s']:.2f} s"
+
+
+def _measured(name: str, stage: Stage, usage, level: int = logging.INFO) -> Stage:
+    """Attach the stage's measured time and memory and log them with what it did."""
+    stage.usage = usage.asdict()
+    log.log(level, "%s: %s [%s]", name, stage.text, usage_text(stage.usage))
+    return stage
 
 
 def refused_batches(nightly: Mapping[str, Any]) -> list[str]:
@@ -795,36 +818,42 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
     prev = previous_state(con, result.run_id)
     result.previous_run_id = prev.run_id
     contexts: dict = {}
-    ingest = result.stages["ingest"] = _ingest(con, opts, prev, contexts)
-    log.info("ingest: %s", ingest.text)
+    with measure() as usage:
+        ingest = _ingest(con, opts, prev, contexts)
+    result.stages["ingest"] = _measured("ingest", ingest, usage)
     selected = _select(con, opts.fluids)
     data_fp = data_fingerprints(con)
-    fit = result.stages["fit"] = _fit(con, opts, prev, contexts, selected, data_fp, curation)
-    log.info("fit: %s", fit.text)
+    with measure() as usage:
+        fit = _fit(con, opts, prev, contexts, selected, data_fp, curation)
+    result.stages["fit"] = _measured("fit", fit, usage)
     fits_now = current_fits(con)
     check_fp = {f: _h(data_fp.get(f), sorted(fits_now.get(f, {}).items())) for f in selected}
-    check_run, check = _check(con, opts, prev, contexts, selected, check_fp, result.run_id,
-                              curation)
-    result.stages["check"] = check
-    log.info("check: %s", check.text)
+    with measure() as usage:
+        check_run, check = _check(con, opts, prev, contexts, selected, check_fp,
+                                  result.run_id, curation)
+    result.stages["check"] = _measured("check", check, usage)
     result.check_run_id = check_run.run_id
     result.counts = check_run.counts()
     result.no_changes = (prev.run_id is not None and ingest.status == "no-changes"
                          and fit.status == "no-changes" and check.status == "reused")
     baseline = [prev.of(f)["check_run"] for f in selected if prev.of(f).get("check_run")]
     result.changes.update(status_changes(con, baseline, check_run.run_id, selected))
-    pub_stage, pub = _publish(con, opts, prev, result, ingest, publisher, store_path, curation)
-    result.stages["publish"] = pub_stage
+    with measure() as usage:
+        pub_stage, pub = _publish(con, opts, prev, result, ingest, publisher, store_path,
+                                  curation)
+    result.stages["publish"] = _measured("publish", pub_stage, usage)
     result.publish = {k: pub.get(k) for k in ("status", "release_id", "reason")}
-    log.info("publish: %s", pub_stage.text)
     values, basis = _value_changes(con, prev, pub, selected, fits_now)
     result.changes.update(values=values, values_basis=basis)
-    verify = result.stages["verify"] = _verify(con, store_path, result.run_id)
-    (log.info if verify.status == "ok" else log.error)("verify: %s", verify.text)
+    with measure() as usage:
+        verify = _verify(con, store_path, result.run_id)
+    result.stages["verify"] = _measured("verify", verify, usage,
+                                        logging.INFO if verify.status == "ok" else logging.ERROR)
     result.verdict = _verdict(result.counts, ingest, pub, verify)
     code = VERDICT_EXIT[result.verdict]
     result.exit_code = EXIT_OK if opts.exit_zero and code == EXIT_CHECK_FAILED else code
     t_report = time.perf_counter()
+    meter = Meter()                      # stopped after write_report, like report.duration_s
     report, page = _report(con, opts, result, check_run, selected, check_fp, curation)
     result.stages["report"] = report
     result.finished_at = _utc()
@@ -835,6 +864,7 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
                           f"valid-results-{ValidatedItems.schema_key()}.txt")
     write_report(folder, page.nightly, page, memo=memo)
     report.duration_s = time.perf_counter() - t_report   # the run row gets the full time
+    _measured("report", report, meter.stop())
     state = {f: {"data": data_fp.get(f), "check": check_fp[f], "check_run": check_run.run_id,
                  "fits": fits_now.get(f, {})} for f in selected}
     return {"fluids": state, "contexts": contexts}
