@@ -13,9 +13,12 @@ How the peak is taken, best first:
 
 The reset also resets what ``getrusage`` reports for this process afterwards (Linux keeps one
 high-water mark): after a measured run, the process peak is the largest stage peak, which the
-run record holds. Worker processes (the fit stage may spawn some) are not in the parent's RSS:
-``children_peak_rss_mib`` is the largest child process that ended during the stage
-(``RUSAGE_CHILDREN``), or None when no child larger than every earlier one ended in it.
+run record holds. Worker processes (the fit stage may spawn some) are not in the parent's RSS,
+and ``RUSAGE_CHILDREN`` cannot tell them apart from it: a child started by fork and exec keeps
+the parent's high-water mark of the moment it was started as its own starting peak, so a
+child's ``ru_maxrss`` is max(parent's peak so far, the child's own). ``children_peak_rss_mib``
+is therefore given only when a child that ended during the stage peaked above the stage's own
+peak (then the figure is the child's own); None means no worker grew larger than the parent.
 """
 
 from __future__ import annotations
@@ -99,12 +102,14 @@ class Meter:
         hwm = _status_bytes("VmHWM") if self._stage else None
         peak = hwm if hwm is not None else _ru_maxrss(resource.RUSAGE_SELF)
         children = _ru_maxrss(resource.RUSAGE_CHILDREN)
+        peak = max(peak, self._start or 0, end or 0)
+        larger = children > self._children0 and children > peak
         return StageUsage(
-            wall_s=wall, peak_rss_mib=max(peak, self._start or 0, end or 0) / MIB,
+            wall_s=wall, peak_rss_mib=peak / MIB,
             rss_start_mib=None if self._start is None else self._start / MIB,
             rss_end_mib=None if end is None else end / MIB,
             method="stage" if hwm is not None else "process",
-            children_peak_rss_mib=children / MIB if children > self._children0 else None)
+            children_peak_rss_mib=children / MIB if larger else None)
 
 
 @contextmanager

@@ -51,15 +51,16 @@ def test_without_the_reset_the_process_peak_is_reported_and_never_decreases(monk
 
 
 def test_a_worker_process_that_ends_in_the_block_is_reported_apart():
-    """A child process larger than every earlier one that ends inside the block appears as the
-    worker peak; a block without children has none."""
+    """A child process larger than the parent and every earlier child that ends inside the
+    block appears as the worker peak; a block without children has none."""
     import subprocess
     import sys
 
     import resource
 
-    before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * stagemeter.RU_UNIT
-    mib = max(400, int(before / stagemeter.MIB) + 200)   # larger than any earlier child
+    before = max(resource.getrusage(who).ru_maxrss for who in
+                 (resource.RUSAGE_CHILDREN, resource.RUSAGE_SELF)) * stagemeter.RU_UNIT
+    mib = max(400, int(before / stagemeter.MIB) + 200)   # larger than this process and any child
     code = f"import numpy as np; b = np.ones({mib} * 1024 * 1024 // 8); print(b[::4096].sum())"
     with measure() as usage:
         subprocess.run([sys.executable, "-c", code], check=True, capture_output=True)
