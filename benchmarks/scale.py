@@ -21,9 +21,13 @@ this process's). Printed: per stage and size, time and peak RSS; the ratio betwe
 (``os.getloadavg``, what ``uptime`` shows) is printed with every run: the machine is shared.
 
     python benchmarks/scale.py [--sizes 1000 10000] [--points 10] [--keep DIR] [--json PATH]
+                               [--with EARLIER.json] [--predict 10000]
 
 ``--keep DIR`` writes the raw roots, stores and reports to DIR/n<N>/ and keeps them (a folder
-already there is replaced); ``--json PATH`` writes every figure after each size. The synthetic
+already there is replaced); ``--json PATH`` writes every figure after each size; ``--with``
+adds an earlier run's figures to the tables (sizes measured on different days: compare their
+load averages); with two sizes or more, a straight line through the two largest predicts
+``--predict`` fluids, printed as a prediction. The synthetic
 fluids are test data, not property estimates.
 """
 
@@ -166,27 +170,62 @@ def print_tables(results: list[dict]) -> None:
                   and full["stages"][s]["duration_s"] > 0))
 
 
+def predict(results: list[dict], n: int) -> None:
+    """A straight line through the two largest sizes, per stage, for time and peak RSS at
+    ``n`` fluids: a prediction, printed as one, never a measurement."""
+    if len(results) < 2 or n <= results[-1]["fluids"]:
+        return
+    a, b = results[-2], results[-1]
+    na, nb = a["fluids"], b["fluids"]
+
+    def line(ya: float, yb: float) -> float:
+        return ya + (yb - ya) * (n - na) / (nb - na)
+
+    print(f"\nPREDICTED (not measured) for {n} fluids, a straight line through {na} and {nb}:")
+    for kind in ("full", "incremental"):
+        parts = []
+        for stage in STAGES:
+            sa, sb = a[kind]["stages"].get(stage), b[kind]["stages"].get(stage)
+            if sa and sb and sa.get("peak_rss_mib") and sb.get("peak_rss_mib"):
+                parts.append(f"{stage} {line(sa['duration_s'], sb['duration_s']):.0f} s "
+                             f"{line(sa['peak_rss_mib'], sb['peak_rss_mib']):.0f} MiB")
+        total = line(a[kind]["wall_s"], b[kind]["wall_s"])
+        rss = line(a[kind]["peak_rss_mib"], b[kind]["peak_rss_mib"])
+        print(f"  {kind:<11} {total:.0f} s, peak {rss:.0f} MiB; " + "; ".join(parts))
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--sizes", type=int, nargs="+", default=[1000, 10000],
-                    help="numbers of fluids, smallest first (default: 1000 10000)")
+    ap.add_argument("--sizes", type=int, nargs="*", default=[1000, 10000],
+                    help="numbers of fluids (default: 1000 10000; none: only the --with figures)")
     ap.add_argument("--points", type=int, default=10,
                     help="rows per table as a multiple of benchmarks/nightly.py's "
                          "(default 10: 1,000 observations per fluid)")
     ap.add_argument("--keep", type=Path, default=None,
                     help="work in this folder (DIR/n<N>/) and keep it")
     ap.add_argument("--json", type=Path, default=None, help="also write the figures here")
+    ap.add_argument("--with", dest="earlier", type=Path, action="append", default=[],
+                    metavar="PATH", help="add the sizes of an earlier run's --json file to "
+                                         "the tables (repeatable; sizes run now win)")
+    ap.add_argument("--predict", type=int, default=10000,
+                    help="also print a straight-line prediction for this many fluids when it "
+                         "is above the sizes run (default 10000)")
     args = ap.parse_args(argv)
     root = args.keep or Path(tempfile.mkdtemp(prefix="fl-scale-"))
     print(f"scale benchmark: sizes {args.sizes}, {args.points}x rows, in {root}; "
           f"{os.cpu_count()} cores, {load()}", flush=True)
+    earlier = {r["fluids"]: r for path in args.earlier for r in json.loads(path.read_text())}
     results = []
     try:
         for n in sorted(args.sizes):
             results.append(measure_size(n, args.points, root / f"n{n}"))
             if args.json:
                 args.json.write_text(json.dumps(results, indent=1))
+        fresh = {r["fluids"] for r in results}
+        results = sorted(results + [r for n, r in earlier.items() if n not in fresh],
+                         key=lambda r: r["fluids"])
         print_tables(results)
+        predict(results, args.predict)
     finally:
         if args.keep is None:
             shutil.rmtree(root, ignore_errors=True)
