@@ -15,8 +15,8 @@ sublimation points - so 10^7 observations at 10,000 fluids). Then, each in its o
 
 Each run's per-stage wall time and peak RSS come from the run itself (the ``usage`` the
 nightly records per stage in ``run.summary_json``, ``pipeline/stagemeter.py``); the process's
-own wall time and peak RSS are measured here (``os.wait4``: the child's ``ru_maxrss``, never
-this process's). Printed: per stage and size, time and peak RSS; the ratio between sizes
+own wall time, CPU time and peak RSS are measured here (``os.wait4``: the child's, its
+workers included, never this process's). Printed: per stage and size, time and peak RSS; the ratio between sizes
 (10x the fluids: 10 is linear); incremental / full (target <= 5 %). The load average
 (``os.getloadavg``, what ``uptime`` shows) is printed with every run: the machine is shared.
 
@@ -74,7 +74,7 @@ def run_nightly(work: Path) -> dict:
     proc.returncode = os.waitstatus_to_exitcode(status)
     summary = latest_summary(work / "store.duckdb")
     return {"exit": proc.returncode, "wall_s": wall,
-            "peak_rss_mib": usage.ru_maxrss / 1024, "load_before": load_before,
+            "cpu_s": usage.ru_utime + usage.ru_stime, "peak_rss_mib": usage.ru_maxrss / 1024, "load_before": load_before,
             "load_after": load(), "run_id": summary["run_id"],
             "verdict": summary["verdict"], "publish": summary["publish"]["status"],
             "stages": {k: {"duration_s": v["duration_s"], "status": v["status"],
@@ -123,25 +123,30 @@ def measure_size(n: int, points: int, work: Path) -> dict:
 
 def _cell(run: dict, stage: str) -> str:
     if stage == "process":
-        return f"{run['wall_s']:8.2f} {run['peak_rss_mib']:7.0f}"
+        return f"{run['wall_s']:8.2f} {run.get('cpu_s', float('nan')):8.2f} " \
+               f"{run['peak_rss_mib']:7.0f}"
     s = run["stages"].get(stage)
     if s is None:
-        return f"{'-':>8} {'-':>7}"
+        return f"{'-':>8} {'-':>8} {'-':>7}"
+    cpu = s.get("cpu_s", float("nan")) + s.get("children_cpu_s", 0.0)
     rss = s.get("peak_rss_mib")
-    return f"{s['duration_s']:8.2f} " + (f"{rss:7.0f}" if rss is not None else f"{'?':>7}")
+    return f"{s['duration_s']:8.2f} {cpu:8.2f} " + (f"{rss:7.0f}" if rss is not None
+                                                    else f"{'?':>7}")
 
 
 def print_tables(results: list[dict]) -> None:
     """Per stage: time [s] and peak RSS [MiB] of every run; the size ratio; incremental/full."""
     runs = [(f"{r['fluids']} {kind}", r[kind]) for r in results
             for kind in ("full", "incremental")]
-    print("\nper stage: wall time [s] and peak RSS [MiB] (the run's own figures)")
-    print(f"{'':<9}" + "".join(f" | {name:>16}" for name, _ in runs))
-    print(f"{'stage':<9}" + "".join(f" | {'s':>8} {'MiB':>7}" for _ in runs))
+    print("\nper stage: wall time [s], CPU time [s] (workers included) and peak RSS [MiB] "
+          "(the run's own figures)")
+    print(f"{'':<9}" + "".join(f" | {name:>25}" for name, _ in runs))
+    print(f"{'stage':<9}" + "".join(f" | {'wall s':>8} {'CPU s':>8} {'MiB':>7}" for _ in runs))
     for stage in STAGES + ("process",):
         print(f"{stage:<9}" + "".join(f" | {_cell(run, stage)}" for _, run in runs))
-    print("(process: the whole child process, start-up included, from os.wait4; a stage's peak "
-          "is its own where the run's method is 'stage')")
+    print("(process: the whole child process and its workers, start-up included, from "
+          "os.wait4; a stage's peak is its own where the run's method is 'stage'; on a loaded "
+          "machine CPU time is the steadier figure)")
     if len(results) >= 2:
         small, big = results[0], results[-1]
         k = big["fluids"] / small["fluids"]
@@ -168,6 +173,9 @@ def print_tables(results: list[dict]) -> None:
                   f"{s} {inc['stages'][s]['duration_s'] / full['stages'][s]['duration_s']:.1%}"
                   for s in STAGES if s in inc["stages"] and s in full["stages"]
                   and full["stages"][s]["duration_s"] > 0))
+        if full.get("cpu_s") and inc.get("cpu_s"):
+            print(f"  by CPU time: {inc['cpu_s']:.1f} / {full['cpu_s']:.1f} s = "
+                  f"{inc['cpu_s'] / full['cpu_s']:.1%}")
 
 
 def predict(results: list[dict], n: int) -> None:

@@ -193,7 +193,8 @@ def usage_text(usage: Mapping[str, Any]) -> str:
         text += " (process peak so far)"
     if usage.get("children_peak_rss_mib") is not None:
         text += f", worker peak {usage['children_peak_rss_mib']:,.0f} MiB"
-    return text + f", wall {usage['wall_s']:.2f} s"
+    cpu = usage.get("cpu_s", 0.0) + usage.get("children_cpu_s", 0.0)
+    return text + f", wall {usage['wall_s']:.2f} s, CPU {cpu:.2f} s"
 
 
 def _measured(name: str, stage: Stage, usage, level: int = logging.INFO) -> Stage:

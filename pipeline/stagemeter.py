@@ -1,4 +1,8 @@
-"""Wall time and peak resident memory (RSS) of one stage of a run.
+"""Wall time, CPU time and peak resident memory (RSS) of one stage of a run.
+
+CPU time (``cpu_s``: user + system of every thread of the process; ``children_cpu_s``: of the
+worker processes that ended during the stage) is what a stage costs whatever else the machine
+runs; wall time is what it took, and grows with the machine's load.
 
 How the peak is taken, best first:
 
@@ -63,6 +67,11 @@ def _ru_maxrss(who: int) -> int:
     return resource.getrusage(who).ru_maxrss * RU_UNIT
 
 
+def _cpu(who: int) -> float:
+    ru = resource.getrusage(who)
+    return ru.ru_utime + ru.ru_stime
+
+
 @dataclass
 class StageUsage:
     """What a stage used: wall time [s], peak and start/end RSS [MiB], and how the peak was
@@ -74,6 +83,8 @@ class StageUsage:
     rss_end_mib: float | None = None
     method: str = "process"
     children_peak_rss_mib: float | None = None
+    cpu_s: float = 0.0
+    children_cpu_s: float = 0.0
 
     def asdict(self) -> dict:
         def mib(x):
@@ -82,7 +93,8 @@ class StageUsage:
         return {"wall_s": round(self.wall_s, 6), "peak_rss_mib": mib(self.peak_rss_mib),
                 "rss_start_mib": mib(self.rss_start_mib), "rss_end_mib": mib(self.rss_end_mib),
                 "method": self.method,
-                "children_peak_rss_mib": mib(self.children_peak_rss_mib)}
+                "children_peak_rss_mib": mib(self.children_peak_rss_mib),
+                "cpu_s": round(self.cpu_s, 3), "children_cpu_s": round(self.children_cpu_s, 3)}
 
 
 
@@ -91,6 +103,7 @@ class Meter:
 
     def __init__(self) -> None:
         self._children0 = _ru_maxrss(resource.RUSAGE_CHILDREN)
+        self._cpu0 = (_cpu(resource.RUSAGE_SELF), _cpu(resource.RUSAGE_CHILDREN))
         self._start = _status_bytes("VmRSS")
         self._stage = reset_peak() and _status_bytes("VmHWM") is not None
         self._t0 = time.perf_counter()
@@ -109,7 +122,9 @@ class Meter:
             rss_start_mib=None if self._start is None else self._start / MIB,
             rss_end_mib=None if end is None else end / MIB,
             method="stage" if hwm is not None else "process",
-            children_peak_rss_mib=children / MIB if larger else None)
+            children_peak_rss_mib=children / MIB if larger else None,
+            cpu_s=_cpu(resource.RUSAGE_SELF) - self._cpu0[0],
+            children_cpu_s=_cpu(resource.RUSAGE_CHILDREN) - self._cpu0[1])
 
 
 @contextmanager

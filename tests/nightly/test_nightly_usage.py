@@ -52,6 +52,7 @@ def test_every_stage_records_a_plausible_time_and_peak(verbose_run, capsys):
             if usage[key] is not None:
                 assert usage[key] <= usage["peak_rss_mib"] + 0.1, (name, key)
         assert usage["method"] in ("stage", "process")
+        assert usage["cpu_s"] >= 0 and usage["children_cpu_s"] >= 0
     methods = {summary["stages"][n]["usage"]["method"] for n in STAGES}
     if methods == {"process"}:     # one process peak: it can only grow from stage to stage
         peaks = [summary["stages"][n]["usage"]["peak_rss_mib"] for n in STAGES]
@@ -68,7 +69,8 @@ def test_the_log_and_the_verbose_output_show_each_stage_peak(verbose_run, capsys
     code, out, err, run_id, summary = _run(tmp, raw, capsys)
     log = (tmp / "reports" / run_id / "nightly.log").read_text()
     for name in STAGES:
-        assert re.search(rf"{name}: .*\[peak RSS [\d,]+ MiB.*, wall \d+\.\d\d s\]", log), name
+        assert re.search(rf"{name}: .*\[peak RSS [\d,]+ MiB.*, wall \d+\.\d\d s, CPU \d+\.\d\d s\]",
+                         log), name
     lines = out.splitlines()
     for name in STAGES:
         i = next(k for k, line in enumerate(lines) if line.startswith(f"  {name} "))

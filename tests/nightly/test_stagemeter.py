@@ -70,12 +70,32 @@ def test_a_worker_process_that_ends_in_the_block_is_reported_apart():
     assert none.children_peak_rss_mib is None
 
 
+def test_cpu_time_counts_the_work_of_the_block_and_of_its_workers():
+    """A block that computes for a while shows CPU time; a block that sleeps shows next to
+    none; a worker's CPU time is counted apart."""
+    import subprocess
+    import sys
+
+    with measure() as busy:
+        x = 0
+        t0 = time.process_time()
+        while time.process_time() - t0 < 0.2:
+            x += 1
+    with measure() as idle:
+        time.sleep(0.2)
+    with measure() as worker:
+        subprocess.run([sys.executable, "-c", "import time\nt=time.process_time()\n"
+                        "while time.process_time() - t < 0.2: pass"], check=True)
+    assert busy.cpu_s >= 0.19 and idle.cpu_s < 0.1
+    assert worker.children_cpu_s >= 0.19 and busy.children_cpu_s == 0
+
+
 def test_the_machine_form_rounds_and_names_the_method():
     """asdict() gives wall time, MiB figures rounded to 0.1 and the method, as the run record
     and its schema expect."""
     meter = Meter()
     d = meter.stop().asdict()
     assert set(d) == {"wall_s", "peak_rss_mib", "rss_start_mib", "rss_end_mib", "method",
-                      "children_peak_rss_mib"}
+                      "children_peak_rss_mib", "cpu_s", "children_cpu_s"}
     assert d["method"] in ("stage", "process") and d["peak_rss_mib"] > 0
     assert d["peak_rss_mib"] == round(d["peak_rss_mib"], 1)
