@@ -13,11 +13,11 @@ sublimation points - so 10^7 observations at 10,000 fluids). Then, each in its o
    data): one batch ingested, one fluid refitted and rechecked, an incremental release, one
    figure drawn.
 
-Each run's per-stage wall time and peak RSS come from the run itself (the ``usage`` the
-nightly records per stage in ``run.summary_json``, ``pipeline/stagemeter.py``); the process's
-own wall time, CPU time and peak RSS are measured here (``os.wait4``: the child's, its
-workers included, never this process's). Printed: per stage and size, time and peak RSS; the ratio between sizes
-(10x the fluids: 10 is linear); incremental / full (target <= 5 %). The load average
+Each run's per-stage wall time, CPU time and peak RSS come from the run itself (the ``usage``
+the nightly records per stage in ``run.summary_json``, ``pipeline/stagemeter.py``); the
+process's own wall time, CPU time and peak RSS are measured here (``os.wait4``: the child's,
+its workers included, never this process's). Printed: per stage and size, the three figures;
+the ratio between sizes (10x the fluids: 10 is linear); incremental / full (target <= 5 %). The load average
 (``os.getloadavg``, what ``uptime`` shows) is printed with every run: the machine is shared.
 
     python benchmarks/scale.py [--sizes 1000 10000] [--points 10] [--keep DIR] [--json PATH]
@@ -27,8 +27,8 @@ workers included, never this process's). Printed: per stage and size, time and p
 already there is replaced); ``--json PATH`` writes every figure after each size; ``--with``
 adds an earlier run's figures to the tables (sizes measured on different days: compare their
 load averages); with two sizes or more, a straight line through the two largest predicts
-``--predict`` fluids, printed as a prediction. The synthetic
-fluids are test data, not property estimates.
+``--predict`` fluids, printed as a prediction. The synthetic fluids are test data, not
+property estimates.
 """
 
 from __future__ import annotations
@@ -74,8 +74,8 @@ def run_nightly(work: Path) -> dict:
     proc.returncode = os.waitstatus_to_exitcode(status)
     summary = latest_summary(work / "store.duckdb")
     return {"exit": proc.returncode, "wall_s": wall,
-            "cpu_s": usage.ru_utime + usage.ru_stime, "peak_rss_mib": usage.ru_maxrss / 1024, "load_before": load_before,
-            "load_after": load(), "run_id": summary["run_id"],
+            "cpu_s": usage.ru_utime + usage.ru_stime, "peak_rss_mib": usage.ru_maxrss / 1024,
+            "load_before": load_before, "load_after": load(), "run_id": summary["run_id"],
             "verdict": summary["verdict"], "publish": summary["publish"]["status"],
             "stages": {k: {"duration_s": v["duration_s"], "status": v["status"],
                            **(v.get("usage") or {})}
