@@ -17,8 +17,9 @@ Each run's per-stage wall time, CPU time and peak RSS come from the run itself (
 the nightly records per stage in ``run.summary_json``, ``pipeline/stagemeter.py``); the
 process's own wall time, CPU time and peak RSS are measured here (``os.wait4``: the child's,
 its workers included, never this process's). Printed: per stage and size, the three figures;
-the ratio between sizes (10x the fluids: 10 is linear); incremental / full (target <= 5 %). The load average
-(``os.getloadavg``, what ``uptime`` shows) is printed with every run: the machine is shared.
+the ratio between sizes (10x the fluids: 10 is linear); incremental / full (target <= 5 %).
+The load average (``os.getloadavg``, what ``uptime`` shows) is printed with every run: the
+machine is shared.
 
     python benchmarks/scale.py [--sizes 1000 10000] [--points 10] [--keep DIR] [--json PATH]
                                [--with EARLIER.json] [--predict 10000]
