@@ -187,8 +187,8 @@ def predict(results: list[dict], n: int) -> None:
     a, b = results[-2], results[-1]
     na, nb = a["fluids"], b["fluids"]
 
-    def line(ya: float, yb: float) -> float:
-        return ya + (yb - ya) * (n - na) / (nb - na)
+    def line(ya: float, yb: float) -> float:     # a stage that does not grow: never below 0
+        return max(0.0, ya + (yb - ya) * (n - na) / (nb - na))
 
     print(f"\nPREDICTED (not measured) for {n} fluids, a straight line through {na} and {nb}:")
     for kind in ("full", "incremental"):
