@@ -6,7 +6,8 @@ fluid is argon scaled by corresponding states: its vapour-pressure, saturated-de
 melting and sublimation data are the published argon curves of
 :func:`pipeline.correlations.reference.reference_curve` evaluated at ``T / s_T`` and multiplied
 by ``s_p`` (pressures) or ``s_rho`` (densities), with small normal noise drawn from the stated
-uncertainties; the critical and triple points are scaled the same way. One batch per fluid.
+uncertainties; the critical and triple points are scaled the same way. One batch per fluid,
+100 observations (``points=1``; ``benchmarks/scale.py`` writes 10x as many).
 
 Then, each in a fresh child process (so imports and caches do not carry over):
   1. full:        ``fluidledger nightly --full`` on an empty store;
