@@ -6,7 +6,8 @@ fluid is argon scaled by corresponding states: its vapour-pressure, saturated-de
 melting and sublimation data are the published argon curves of
 :func:`pipeline.correlations.reference.reference_curve` evaluated at ``T / s_T`` and multiplied
 by ``s_p`` (pressures) or ``s_rho`` (densities), with small normal noise drawn from the stated
-uncertainties; the critical and triple points are scaled the same way. One batch per fluid.
+uncertainties; the critical and triple points are scaled the same way. One batch per fluid,
+100 observations (``points=1``; ``benchmarks/scale.py`` writes 10x as many).
 
 Then, each in a fresh child process (so imports and caches do not carry over):
   1. full:        ``fluidledger nightly --full`` on an empty store;
@@ -111,8 +112,9 @@ def _csv(header: str, columns: list[np.ndarray], formats: list[str]) -> str:
     return "\n".join(lines) + "\n"
 
 
-def write_fluid(raw: Path, i: int, variant: int = 0) -> None:
-    """Write the batch of synthetic fluid ``i``; ``variant`` changes the noise (a new campaign)."""
+def write_fluid(raw: Path, i: int, variant: int = 0, points: int = 1) -> None:
+    """Write the batch of synthetic fluid ``i``; ``variant`` changes the noise (a new campaign);
+    ``points`` multiplies the rows of each table (1: 100 observations per fluid, 10: 1,000)."""
     fid = fluid_id(i)
     s_T, s_p, s_rho = _scales(i)
     rng = np.random.default_rng([SEED, i, variant])
@@ -128,16 +130,16 @@ def write_fluid(raw: Path, i: int, variant: int = 0) -> None:
 
     folder = raw / fid
     folder.mkdir(parents=True, exist_ok=True)
-    T = np.linspace(Tt + 0.5, Tc - 1.5, 24)
+    T = np.linspace(Tt + 0.5, Tc - 1.5, 24 * points)
     sat = _csv("T_K,p_kPa,rho_l,rho_v",
                [T * s_T, noisy(curve("liquid-vapour", "pressure", T), 2e-4) * s_p / 1e3,
                 noisy(curve("liquid-vapour", "rho_liquid", T), 5e-4) * s_rho,
                 noisy(curve("liquid-vapour", "rho_vapour", T), 1e-3) * s_rho],
                ["%.5f", "%.7g", "%.6g", "%.6g"])
-    Tm = np.linspace(Tt + 1.0, 140.0, 16)
+    Tm = np.linspace(Tt + 1.0, 140.0, 16 * points)
     melt = _csv("T_K,p_MPa", [Tm * s_T, noisy(curve("solid-liquid", "pressure", Tm), 1e-3)
                               * s_p / 1e6], ["%.5f", "%.7g"])
-    Ts = np.linspace(70.0, Tt - 0.5, 12)
+    Ts = np.linspace(70.0, Tt - 0.5, 12 * points)
     sub = _csv("T_K,p_kPa", [Ts * s_T, noisy(curve("solid-vapour", "pressure", Ts), 1e-3)
                              * s_p / 1e3], ["%.5f", "%.7g"])
     (folder / "saturation.csv").write_text(sat)
@@ -148,15 +150,16 @@ def write_fluid(raw: Path, i: int, variant: int = 0) -> None:
         rhoc=c["rhoc_kg_m3"] * s_rho, Tt=Tt * s_T, pt=pt * s_p / 1e3, upt=0.005 * s_p))
 
 
-def make_raw(raw: Path, n: int) -> None:
-    """A raw root with ``fluids.toml`` and one batch per synthetic fluid."""
+def make_raw(raw: Path, n: int, points: int = 1) -> None:
+    """A raw root with ``fluids.toml`` and one batch per synthetic fluid (``points``: see
+    :func:`write_fluid`)."""
     raw.mkdir(parents=True, exist_ok=True)
     entries = []
     for i in range(n):
         s_T, s_p, s_rho = _scales(i)
         entries.append(f'[[fluid]]\nid = "{fluid_id(i)}"\nname = "synthetic fluid {i}"\n'
                        f'molar_mass = {{ value = {39.948 * s_rho:.4f}, unit = "g/mol" }}\n')
-        write_fluid(raw, i)
+        write_fluid(raw, i, points=points)
     (raw / "fluids.toml").write_text("\n".join(entries))
 
 

@@ -51,7 +51,7 @@ def run(args) -> int:
                              quiet=args.quiet, verbose=args.verbose, exit_zero=args.exit_zero,
                              decisions=args.decisions)
     result = run_nightly(options)
-    print(result.verdict_line() if brief(args) else result.asstr())
+    print(result.verdict_line() if brief(args) else result.asstr(verbose=args.verbose))
     for err in result.stages["ingest"].detail.get("errors", []):
         print(f"fluidledger nightly: error: {err['batch']}: {err['error']}", file=sys.stderr)
     return result.exit_code

@@ -40,10 +40,12 @@ class Stage:
     duration_s: float
     text: str
     detail: dict = field(default_factory=dict)
+    usage: dict | None = None        # pipeline.stagemeter.StageUsage.asdict(): time, peak RSS
 
     def asdict(self) -> dict:
-        return {"status": self.status, "duration_s": round(self.duration_s, 6),
-                "text": self.text, "detail": self.detail}
+        out = {"status": self.status, "duration_s": round(self.duration_s, 6),
+               "text": self.text, "detail": self.detail}
+        return out if self.usage is None else dict(out, usage=self.usage)
 
 
 @dataclass
@@ -89,7 +91,8 @@ class NightlyResult:
                 + (f" {pub['release_id']}" if pub.get("release_id") else "")
                 + (f"; report: {self.report['html']}" if self.report.get("html") else ""))
 
-    def asstr(self) -> str:
+    def asstr(self, verbose: bool = False) -> str:
+        """The run for people; ``verbose`` adds each stage's peak RSS."""
         counts = ", ".join(f"{n} {s}" for s, n in self.counts.items() if n)
         lines = [f"nightly {self.run_id}: {self.verdict.upper()} (exit {self.exit_code}); "
                  f"checks: {counts or 'none'}"]
@@ -102,6 +105,8 @@ class NightlyResult:
                          "refitted, check results reused")
         for name, s in self.stages.items():
             lines.append(f"  {name:<8} {s.status:<11} {s.duration_s:7.2f} s  {s.text}")
+            if verbose and s.usage:
+                lines.append(f"  {'':<8} {'':<11} {'':>9}  {usage_text(s.usage)}")
         ch = self.changes
         if self.previous_run_id is None:
             lines.append("first nightly run on this store: nothing to compare with")
@@ -121,6 +126,17 @@ class NightlyResult:
         if self.report.get("html"):
             lines.append(f"report: {self.report['html']}")
         return "\n".join(lines)
+
+
+def usage_text(usage: Mapping[str, Any]) -> str:
+    """A stage's measured figures in words (run log and ``--verbose``)."""
+    text = f"peak RSS {usage['peak_rss_mib']:,.0f} MiB"
+    if usage.get("method") != "stage":
+        text += " (process peak so far)"
+    if usage.get("children_peak_rss_mib") is not None:
+        text += f", worker peak {usage['children_peak_rss_mib']:,.0f} MiB"
+    cpu = usage.get("cpu_s", 0.0) + usage.get("children_cpu_s", 0.0)
+    return text + f", wall {usage['wall_s']:.2f} s, CPU {cpu:.2f} s"
 
 
 def refused_batches(nightly: Mapping[str, Any]) -> list[str]:

@@ -14,17 +14,26 @@ from pipeline.checks.engine import _utc, new_run_id
 from pipeline.errors import EXIT_CHECK_FAILED, EXIT_OK, BatchError, CheckError
 from pipeline.nightly.curation import Curation
 from pipeline.nightly.logs import run_log
-from pipeline.nightly.model import VERDICT_EXIT, NightlyOptions, NightlyResult, verdict
+from pipeline.nightly.model import (VERDICT_EXIT, NightlyOptions, NightlyResult, Stage, usage_text,
+                                   verdict)
 from pipeline.nightly.publishing import publish_adapter, publish_stage, value_changes
 from pipeline.nightly.reporting import report_stage
 from pipeline.nightly.stages import check_stage, fit_stage, ingest_stage, verify_stage
 from pipeline.nightly.state import current_fits, data_fingerprints, digest, previous_state
 from pipeline.report.changes import status_changes
 from pipeline.report.files import FILES, ValidatedItems, update_latest, write_report
+from pipeline.stagemeter import Meter, measure
 from pipeline.store import open_store
 from pipeline.store.runs import end_run
 
 log = logging.getLogger("pipeline.nightly")
+
+
+def _measured(name: str, stage: Stage, usage, level: int = logging.INFO) -> Stage:
+    """Attach the stage's measured time and memory and log them with what it did."""
+    stage.usage = usage.asdict()
+    log.log(level, "%s: %s [%s]", name, stage.text, usage_text(stage.usage))
+    return stage
 
 
 def select_fluids(con, wanted: Sequence[str] | None) -> list[str]:
@@ -82,37 +91,42 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
     prev = previous_state(con, result.run_id)
     result.previous_run_id = prev.run_id
     contexts: dict = {}
-    ingest = result.stages["ingest"] = ingest_stage(con, opts, prev, contexts)
-    log.info("ingest: %s", ingest.text)
+    with measure() as usage:
+        ingest = ingest_stage(con, opts, prev, contexts)
+    result.stages["ingest"] = _measured("ingest", ingest, usage)
     selected = select_fluids(con, opts.fluids)
     data_fp = data_fingerprints(con)
-    fit = result.stages["fit"] = fit_stage(con, opts, prev, contexts, selected, data_fp, curation)
-    log.info("fit: %s", fit.text)
+    with measure() as usage:
+        fit = fit_stage(con, opts, prev, contexts, selected, data_fp, curation)
+    result.stages["fit"] = _measured("fit", fit, usage)
     fits_now = current_fits(con)
     check_fp = {f: digest(data_fp.get(f), sorted(fits_now.get(f, {}).items())) for f in selected}
-    check_run, check = check_stage(con, opts, prev, contexts, selected, check_fp,
-                                   result.run_id, curation)
-    result.stages["check"] = check
-    log.info("check: %s", check.text)
+    with measure() as usage:
+        check_run, check = check_stage(con, opts, prev, contexts, selected, check_fp,
+                                       result.run_id, curation)
+    result.stages["check"] = _measured("check", check, usage)
     result.check_run_id = check_run.run_id
     result.counts = check_run.counts()
     result.no_changes = (prev.run_id is not None and ingest.status == "no-changes"
                          and fit.status == "no-changes" and check.status == "reused")
     baseline = [prev.of(f)["check_run"] for f in selected if prev.of(f).get("check_run")]
     result.changes.update(status_changes(con, baseline, check_run.run_id, selected))
-    pub_stage, pub = publish_stage(con, opts, prev, result, ingest, publisher, store_path,
-                                   curation)
-    result.stages["publish"] = pub_stage
+    with measure() as usage:
+        pub_stage, pub = publish_stage(con, opts, prev, result, ingest, publisher, store_path,
+                                       curation)
+    result.stages["publish"] = _measured("publish", pub_stage, usage)
     result.publish = {k: pub.get(k) for k in ("status", "release_id", "reason")}
-    log.info("publish: %s", pub_stage.text)
     values, basis = value_changes(con, prev, pub, selected, fits_now)
     result.changes.update(values=values, values_basis=basis)
-    verify = result.stages["verify"] = verify_stage(con, store_path, result.run_id)
-    (log.info if verify.status == "ok" else log.error)("verify: %s", verify.text)
+    with measure() as usage:
+        verify = verify_stage(con, store_path, result.run_id)
+    result.stages["verify"] = _measured("verify", verify, usage,
+                                        logging.INFO if verify.status == "ok" else logging.ERROR)
     result.verdict = verdict(result.counts, ingest, pub, verify)
     code = VERDICT_EXIT[result.verdict]
     result.exit_code = EXIT_OK if opts.exit_zero and code == EXIT_CHECK_FAILED else code
     t_report = time.perf_counter()
+    meter = Meter()                      # stopped after write_report, like report.duration_s
     report, page = report_stage(con, opts, result, check_run, selected, check_fp, curation,
                                 folder)
     result.stages["report"] = report
@@ -127,6 +141,7 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
     write_report(folder, page.nightly, page, memo=memo)
     report.detail["files_s"] = round(time.perf_counter() - t_files, 3)   # run row only
     report.duration_s = time.perf_counter() - t_report   # the run row gets the full time
+    _measured("report", report, meter.stop())
     state = {f: {"data": data_fp.get(f), "check": check_fp[f], "check_run": check_run.run_id,
                  "fits": fits_now.get(f, {})} for f in selected}
     return {"fluids": state, "contexts": contexts}
