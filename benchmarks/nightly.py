@@ -35,64 +35,43 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from pipeline.correlations.reference import REFERENCE_CONSTANTS, reference_curve  # noqa: E402
+from tests.storekit import batch_toml, source  # noqa: E402
 
 BASE = "argon"
 SEED = 20261202
 
-BATCH = """format_version = 1
+def batch_manifest(fid: str, s_T: float, s_p: float, s_rho: float) -> str:
+    """batch.toml of synthetic fluid ``fid``: argon's saturation, melting and sublimation tables
+    and its critical and triple points, scaled (numbers written as the tables round them)."""
+    c = REFERENCE_CONSTANTS[BASE]
+    Tc, pc, Tt = c["Tc_K"], c["pc_Pa"], c["triple_points"][0]["T_K"]
+    pt = c["triple_points"][0]["p_Pa"]
 
-[source]
-id = "synthetic-{fid}"
-kind = "evaluated"
-citation = "Synthetic benchmark fluid {fid}: argon scaled by s_T = {sT:.6f}, s_p = {sp:.6f}"
+    def table(file, boundary, p_col, p_unit, u_p, u_T=None, **extra):
+        u = {} if u_T is None else {"temperature": {"value": u_T, "unit": "K"}}
+        u["pressure"] = {"relative": u_p, "unit": p_unit}
+        return {"file": file, "fluid": fid, "boundary": boundary,
+                "temperature": {"column": "T_K", "unit": "K"},
+                "pressure": {"column": p_col, "unit": p_unit}, "uncertainty": u, **extra}
 
-[[table]]
-file = "saturation.csv"
-fluid = "{fid}"
-boundary = "liquid-vapour"
-temperature = {{ column = "T_K", unit = "K" }}
-pressure = {{ column = "p_kPa", unit = "kPa" }}
-[table.uncertainty]
-pressure = {{ relative = 0.0002, unit = "kPa" }}
-rho_liquid = {{ relative = 0.0005, unit = "kg/m^3" }}
-rho_vapour = {{ relative = 0.001, unit = "kg/m^3" }}
-[table.columns]
-rho_liquid = {{ column = "rho_l", unit = "kg/m^3" }}
-rho_vapour = {{ column = "rho_v", unit = "kg/m^3" }}
-
-[[table]]
-file = "melting.csv"
-fluid = "{fid}"
-boundary = "solid-liquid"
-temperature = {{ column = "T_K", unit = "K" }}
-pressure = {{ column = "p_MPa", unit = "MPa" }}
-[table.uncertainty]
-temperature = {{ value = 0.002, unit = "K" }}
-pressure = {{ relative = 0.001, unit = "MPa" }}
-
-[[table]]
-file = "sublimation.csv"
-fluid = "{fid}"
-boundary = "solid-vapour"
-temperature = {{ column = "T_K", unit = "K" }}
-pressure = {{ column = "p_kPa", unit = "kPa" }}
-[table.uncertainty]
-pressure = {{ relative = 0.001, unit = "kPa" }}
-
-[[fixed_point]]
-fluid = "{fid}"
-kind = "critical"
-T = {{ value = {Tc:.6f}, unit = "K", u = 0.015 }}
-p = {{ value = {pc:.6f}, unit = "MPa", u = {upc:.6f} }}
-rho = {{ value = {rhoc:.4f}, unit = "kg/m^3", u = 1.1 }}
-
-[[fixed_point]]
-fluid = "{fid}"
-kind = "triple"
-phases = ["vapour", "liquid", "solid"]
-T = {{ value = {Tt:.6f}, unit = "K", u = 0.0002 }}
-p = {{ value = {pt:.6f}, unit = "kPa", u = {upt:.6f} }}
-"""
+    saturation = table("saturation.csv", "liquid-vapour", "p_kPa", "kPa", 0.0002)
+    saturation["uncertainty"].update(rho_liquid={"relative": 0.0005, "unit": "kg/m^3"},
+                                     rho_vapour={"relative": 0.001, "unit": "kg/m^3"})
+    saturation["columns"] = {"rho_liquid": {"column": "rho_l", "unit": "kg/m^3"},
+                             "rho_vapour": {"column": "rho_v", "unit": "kg/m^3"}}
+    points = [
+        {"fluid": fid, "kind": "critical",
+         "T": {"value": round(Tc * s_T, 6), "unit": "K", "u": 0.015},
+         "p": {"value": round(pc * s_p / 1e6, 6), "unit": "MPa", "u": round(0.003 * s_p, 6)},
+         "rho": {"value": round(c["rhoc_kg_m3"] * s_rho, 4), "unit": "kg/m^3", "u": 1.1}},
+        {"fluid": fid, "kind": "triple", "phases": ["vapour", "liquid", "solid"],
+         "T": {"value": round(Tt * s_T, 6), "unit": "K", "u": 0.0002},
+         "p": {"value": round(pt * s_p / 1e3, 6), "unit": "kPa", "u": round(0.005 * s_p, 6)}}]
+    return batch_toml(
+        source(f"synthetic-{fid}", f"Synthetic benchmark fluid {fid}: argon scaled by s_T = "
+               f"{s_T:.6f}, s_p = {s_p:.6f}", "evaluated"),
+        [saturation, table("melting.csv", "solid-liquid", "p_MPa", "MPa", 0.001, u_T=0.002),
+         table("sublimation.csv", "solid-vapour", "p_kPa", "kPa", 0.001)], points)
 
 
 def fluid_id(i: int) -> str:
@@ -119,8 +98,7 @@ def write_fluid(raw: Path, i: int, variant: int = 0, points: int = 1) -> None:
     s_T, s_p, s_rho = _scales(i)
     rng = np.random.default_rng([SEED, i, variant])
     c = REFERENCE_CONSTANTS[BASE]
-    Tc, pc, Tt = c["Tc_K"], c["pc_Pa"], c["triple_points"][0]["T_K"]
-    pt = c["triple_points"][0]["p_Pa"]
+    Tc, Tt = c["Tc_K"], c["triple_points"][0]["T_K"]
 
     def curve(boundary, quantity, T):
         return reference_curve(BASE, boundary, quantity).value(T)
@@ -145,9 +123,7 @@ def write_fluid(raw: Path, i: int, variant: int = 0, points: int = 1) -> None:
     (folder / "saturation.csv").write_text(sat)
     (folder / "melting.csv").write_text(melt)
     (folder / "sublimation.csv").write_text(sub)
-    (folder / "batch.toml").write_text(BATCH.format(
-        fid=fid, sT=s_T, sp=s_p, Tc=Tc * s_T, pc=pc * s_p / 1e6, upc=0.003 * s_p,
-        rhoc=c["rhoc_kg_m3"] * s_rho, Tt=Tt * s_T, pt=pt * s_p / 1e3, upt=0.005 * s_p))
+    (folder / "batch.toml").write_text(batch_manifest(fid, s_T, s_p, s_rho))
 
 
 def make_raw(raw: Path, n: int, points: int = 1) -> None:
