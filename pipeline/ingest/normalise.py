@@ -167,15 +167,15 @@ def normalise(con: duckdb.DuckDBPyConnection, staged: str, spec: TableSpec,
     """Create temp table ``out``: ``row_number``, and per mapped column ``txt_<key>`` (the cell
     as written), ``empty_<key>`` and ``si_<key>`` (its SI value), and ``fault``.
 
-    Returns the uncertainty rules per quantity key for the loader. Two statements: the row
-    numbers of duplicate rows (a hash of their mapped cells, grouped once - not a window
+    Returns the uncertainty rules per quantity key for the loader. One statement (a fixed
+    cost per file counts when thousands of small files arrive): a materialised CTE of the
+    row numbers of duplicate rows (a hash of their mapped cells, grouped once - not a window
     sort), then one pass that parses, converts units and the temperature scale (SQL
     arithmetic generated from the published coefficients, :mod:`pipeline.ingest.scales`)
     and names each row's first fault.
     """
     cols, rules = _plan(spec, molar_mass)
-    duplicates = f"{out}_dups"
-    con.execute(f"CREATE OR REPLACE TEMP TABLE {duplicates} AS {_duplicates_sql(staged, cols)}")
+    duplicates = "fl_duplicate_rows"   # a CTE of the one statement below
     scale = get_scale(spec.temperature.scale).name
     if scale != "ITS-90" and scale not in SQL_CONVERSIONS:
         raise AssertionError(f"no SQL conversion for the supported scale {scale}")
@@ -188,9 +188,9 @@ def normalise(con: duckdb.DuckDBPyConnection, staged: str, spec: TableSpec,
     kept = ", ".join(f"{kind}_{c.key}" for c in cols for kind in ("txt", "empty", "si"))
     con.execute(
         f"CREATE OR REPLACE TEMP TABLE {out} AS "
+        f"WITH {duplicates} AS MATERIALIZED ({_duplicates_sql(staged, cols)}) "
         f"SELECT row_number, {kept}, CASE {scale_arm}WHEN true THEN fault END AS fault FROM "
         f"(SELECT *, {_fault_sql(cols)} AS fault FROM ({parsed}))")
-    con.execute(f"DROP TABLE {duplicates}")
     return rules
 
 

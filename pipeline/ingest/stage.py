@@ -68,6 +68,8 @@ from pipeline.store.runs import end_run
 
 log = logging.getLogger(__name__)
 REMOVED = 0  # raw_file.superseded_by for a file that disappeared from raw/
+#: Rows above which the observation insert is told it need not keep row order
+LARGE_FILE_ROWS = 100_000
 
 
 def utcnow() -> datetime:
@@ -283,13 +285,20 @@ class Ingestor:
             "WHERE batch = ? AND superseded_by IS NULL", [batch]).fetchall()
         return {path: (fid, sha, mapping) for path, fid, sha, mapping in rows}
 
-    def _duplicate_of(self, sha: str, path: str, file: str) -> str | None:
+    def _tables_like(self, plan: _Plan) -> dict[str, str]:
+        """Current tables (path -> SHA-256) whose content is that of one of the batch's files:
+        read once per batch, then kept up to date as the batch's files are loaded."""
+        shas = sorted({sha for *_, sha, _ in plan.tables})
+        return dict(self.con.execute(
+            "SELECT path, sha256 FROM raw_file WHERE list_contains(?, sha256) AND role = 'table' "
+            "AND superseded_by IS NULL", [shas]).fetchall())
+
+    @staticmethod
+    def _duplicate_of(tables: dict[str, str], sha: str, path: str, file: str) -> str | None:
         """A current table of the same content from another file (the worksheets of one
         workbook share its hash and are not duplicates of each other)."""
-        rows = self.con.execute(
-            "SELECT path FROM raw_file WHERE sha256 = ? AND path <> ? AND role = 'table' "
-            "AND superseded_by IS NULL ORDER BY path", [sha, path]).fetchall()
-        twins = [p for (p,) in rows if p != file and not p.startswith(file + "#")]
+        twins = sorted(p for p, s in tables.items() if s == sha and p != path and p != file
+                       and not p.startswith(file + "#"))
         return twins[0] if twins else None
 
     # -- one batch ------------------------------------------------------------------------
@@ -332,15 +341,18 @@ class Ingestor:
         for path in removed:
             self._supersede(current[path][0], REMOVED)
         result = BatchResult(plan.batch, "loaded")
+        self._next_obs = None        # the next free obs_id, read once per batch
         if plan.manifest_path not in unchanged:
             result.files.append(self._load_manifest(plan, current.get(plan.manifest_path)))
         else:
             result.files.append(FileResult(plan.manifest_path, "unchanged"))
+        changed = any(t[2] not in unchanged for t in plan.tables)
+        tables = self._tables_like(plan) if changed else {}
         for i, spec, rel, path, content, sha, mapping in plan.tables:
             if rel in unchanged:
                 result.files.append(FileResult(rel, "unchanged"))
                 continue
-            twin = self._duplicate_of(sha, rel, rel.removesuffix(table_path("", spec)))
+            twin = self._duplicate_of(tables, sha, rel, rel.removesuffix(table_path("", spec)))
             if twin is not None:
                 raise BatchError(f"has the same content (SHA-256 {sha[:12]}…) as the already "
                                  f"ingested file '{twin}'; a duplicated file is refused", file=rel)
@@ -348,6 +360,7 @@ class Ingestor:
             file_id = self._new_file(rel, plan, "table", sha, mapping, len(content), spec, i)
             if old is not None:
                 self._supersede(old[0], file_id)
+            tables[rel] = sha          # the new version is current; the old one no more
             result.files.append(self._load_table(file_id, rel, path, content, sha, spec, plan))
         return result
 
@@ -365,13 +378,12 @@ class Ingestor:
             [s.id, s.kind, s.citation, s.doi or None, s.license or None, plan.batch, self.run_id])
 
     def _new_file(self, rel, plan, role, sha, mapping, size, spec=None, index=None) -> int:
-        file_id = self.con.execute("SELECT nextval('file_id_seq')").fetchone()[0]
-        self.con.execute(
-            "INSERT INTO raw_file VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0, 0, 0, ?, ?, NULL, NULL)",
-            [file_id, sha, mapping, rel, plan.batch, role, plan.manifest.source.id, index,
+        return self.con.execute(
+            "INSERT INTO raw_file VALUES (nextval('file_id_seq'), ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, "
+            "?, 0, 0, 0, ?, ?, NULL, NULL) RETURNING file_id",
+            [sha, mapping, rel, plan.batch, role, plan.manifest.source.id, index,
              spec.fluid if spec else None, spec.boundary if spec else None,
-             spec.solid_phase if spec else None, size, self.run_id, utcnow()])
-        return file_id
+             spec.solid_phase if spec else None, size, self.run_id, utcnow()]).fetchone()[0]
 
     def _supersede(self, old_id: int, new_id: int) -> None:
         self.con.execute("UPDATE raw_file SET superseded_by = ?, superseded_run_id = ? "
@@ -447,9 +459,23 @@ class Ingestor:
                 for row, column, raw, message in staged.rejects]
         molar_mass = self.fluids[spec.fluid].molar_mass_kg_mol
         rules = normalise(self.con, "fl_stage", spec, molar_mass, "fl_norm")
+        quantities = list(spec.value_columns())
+        loaded, bad, *last_rows = self.con.execute(
+            "SELECT count(*) FILTER (WHERE fault IS NULL), count(*) FILTER (WHERE fault IS NOT "
+            "NULL), " + ", ".join(f"max(row_number) FILTER (WHERE fault IS NULL AND NOT "
+                                  f"empty_{q})" for q in quantities) + " FROM fl_norm").fetchone()
         for row, column, raw, code, message, cell in rejects:
             self._quarantine(file_id, sha, rel, row, column, raw, code, f"{rel}, {message}", cell)
-        self._insert_observations(file_id, spec, rules, staged)
+        self._insert_observations(file_id, spec, rules, staged, last_rows)
+        if bad:
+            self._quarantine_faults(file_id, sha, rel, spec, staged)
+        quarantined = bad + len(rejects)
+        self._count(file_id, staged.rows_read, loaded, quarantined)
+        self.con.execute("DROP TABLE fl_stage; DROP TABLE fl_norm")
+        return FileResult(rel, "loaded", staged.rows_read, loaded, quarantined)
+
+    def _quarantine_faults(self, file_id, sha, rel, spec: TableSpec, staged) -> None:
+        """The rows of fl_norm with a fault, to quarantine with their reason and cell."""
         cell_ref, cell_params = self._cell_ref(spec, staged)
         where = ("printf('row %d%s', row_number, CASE WHEN split_part(fault, '|', 2) <> '' THEN "
                  "printf(', column ''%s''', split_part(fault, '|', 2)) ELSE '' END)")
@@ -464,13 +490,6 @@ class Ingestor:
             f"SELECT *, {self._raw_text(spec)} AS raw, {self._cell(spec)} AS cell, "
             f"{cell_ref} AS cell_ref FROM fl_norm WHERE fault IS NOT NULL)",
             [file_id, sha, rel, rel, self.run_id, *cell_params])
-        loaded, bad = self.con.execute(
-            "SELECT count(*) FILTER (WHERE fault IS NULL), count(*) FILTER (WHERE fault IS NOT NULL) "
-            "FROM fl_norm").fetchone()
-        quarantined = bad + len(rejects)
-        self._count(file_id, staged.rows_read, loaded, quarantined)
-        self.con.execute("DROP TABLE fl_stage; DROP TABLE fl_norm")
-        return FileResult(rel, "loaded", staged.rows_read, loaded, quarantined)
 
     @staticmethod
     def _raw_text(spec: TableSpec) -> str:
@@ -504,36 +523,55 @@ class Ingestor:
             params += [column, staged.cell_prefix(column), staged.header_row]
         return "CASE " + " ".join(arms) + " END", params
 
-    def _insert_observations(self, file_id, spec: TableSpec, rules, staged) -> None:
-        """Narrow bulk inserts (per-file facts go to raw_column once); ids are allocated as a
-        block after the current maximum, so no sequence is touched per row. A workbook's
-        values keep their cells (``VLE!C14``): the column's prefix and the sheet row."""
+    def _insert_observations(self, file_id, spec: TableSpec, rules, staged,
+                             last_rows: list[int | None]) -> None:
+        """Narrow bulk inserts (per-file facts go to raw_column once, in one statement); ids
+        are allocated as a block after the current maximum, so no sequence is touched per
+        row, and every quantity goes in the same statement. A workbook's values keep their
+        cells (``VLE!C14``): the column's prefix and the sheet row. ``last_rows`` is the
+        last row number loaded per quantity (None: none), which gives the next free id
+        without asking the store again."""
         quantities = list(spec.value_columns().items())
-        base = self.con.execute("SELECT coalesce(max(obs_id), 0) + 1 FROM observation"
-                                ).fetchall()[0][0]
+        if self._next_obs is None:
+            self._next_obs = self.con.execute(
+                "SELECT coalesce(max(obs_id), 0) + 1 FROM observation").fetchall()[0][0]
+        base = self._next_obs
         t = spec.temperature
-        self._column(file_id, "temperature", t.column, t.unit, t.scale, "K", rules.get("T"))
+        columns = [("temperature", t.column, t.unit, t.scale, "K", rules.get("T"))]
+        columns += [(q, cs.column, cs.unit, None, QUANTITY_KIND[q][1], rules.get(q))
+                    for q, cs in quantities]
+        self.con.execute(
+            "INSERT INTO raw_column VALUES " + ", ".join(["(?, ?, ?, ?, ?, ?, ?)"] * len(columns)),
+            [v for quantity, column, unit, scale, si_unit, rule in columns
+             for v in (file_id, quantity, column, unit, scale, si_unit,
+                       json.dumps(rule, sort_keys=True) if rule else None)])
+        if all(last is None for last in last_rows):
+            return
         uT = uncertainty_sql("T", rules)
         workbook = is_workbook(spec.file)
         cells = "concat(?, row_number + ?), concat(?, row_number + ?)" if workbook else "NULL, NULL"
-        # ids and row numbers are explicit, so the bulk insert need not keep row order
-        self.con.execute("SET preserve_insertion_order = false")
+        selects, params = [], []
         for qi, (q, cs) in enumerate(quantities):
-            self._column(file_id, q, cs.column, cs.unit, None, QUANTITY_KIND[q][1], rules.get(q))
-            params = [base, file_id, q]
+            if last_rows[qi] is None:
+                continue
+            params += [base, file_id, q]
             if workbook:
                 params += [staged.cell_prefix(t.column), staged.header_row,
                            staged.cell_prefix(cs.column), staged.header_row]
-            self.con.execute(
-                f"INSERT INTO observation SELECT ? + (row_number - 1) * {len(quantities)} + {qi}, "
-                f"?, row_number, ?, si_T, {uT}, si_{q}, {uncertainty_sql(q, rules)}, txt_T, txt_{q}, "
-                f"{cells} FROM fl_norm WHERE fault IS NULL AND NOT empty_{q}", params)
-        self.con.execute("RESET preserve_insertion_order")
-
-    def _column(self, file_id, quantity, column, unit, scale, si_unit, rule) -> None:
-        self.con.execute("INSERT INTO raw_column VALUES (?, ?, ?, ?, ?, ?, ?)",
-                         [file_id, quantity, column, unit, scale, si_unit,
-                          json.dumps(rule, sort_keys=True) if rule else None])
+            selects.append(
+                f"SELECT ? + (row_number - 1) * {len(quantities)} + {qi}, ?, row_number, ?, "
+                f"si_T, {uT}, si_{q}, {uncertainty_sql(q, rules)}, txt_T, txt_{q}, {cells} "
+                f"FROM fl_norm WHERE fault IS NULL AND NOT empty_{q}")
+        # ids and row numbers are explicit, so a large bulk insert need not keep row order
+        # (a small one skips the two statements that say so)
+        large = staged.rows_read > LARGE_FILE_ROWS
+        if large:
+            self.con.execute("SET preserve_insertion_order = false")
+        self.con.execute("INSERT INTO observation " + " UNION ALL ".join(selects), params)
+        if large:
+            self.con.execute("RESET preserve_insertion_order")
+        self._next_obs = max(base + (last - 1) * len(quantities) + qi
+                             for qi, last in enumerate(last_rows) if last is not None) + 1
 
 
 def _rollback(con) -> None:
