@@ -19,8 +19,11 @@ repeat (``--repeat``, default 3), so the machine's load weighs on both alike; ti
 as min / median / max and the ratios are of the medians. The machine's load average is printed
 before and after.
 
+With ``--before DIR`` the ingest of the checkout at DIR (for example a worktree of the code
+before a change) is measured too, in the same repeats, and its ratios printed beside.
+
     python benchmarks/ingest.py [--rows 2000000] [--batches 1000] [--repeat 3] [--skip-big]
-                                [--skip-small]
+                                [--skip-small] [--before DIR]
 """
 
 from __future__ import annotations
@@ -36,7 +39,8 @@ import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE.parent))
+# --before DIR: the child measures the ingest of another checkout (e.g. a worktree of main)
+sys.path.insert(0, os.environ.get("FL_INGEST_CODE") or str(HERE.parent))
 
 TARGET_BIG_TIME = 2.5
 TARGET_BIG_RSS = 2.0
@@ -176,11 +180,12 @@ def child_ingest(raw: Path, db: Path) -> dict:
     return {"seconds": seconds, "rows": rows, "files": files}
 
 
-def run_child(side: str, raw: Path, db: Path) -> dict:
+def run_child(side: str, raw: Path, db: Path, code: str | None = None) -> dict:
     if db.exists():
         db.unlink()
+    env = dict(os.environ, FL_INGEST_CODE=code) if code else None
     out = subprocess.run([sys.executable, __file__, "--child", side, str(raw), str(db)],
-                         check=True, capture_output=True, text=True)
+                         check=True, capture_output=True, text=True, env=env)
     db.unlink(missing_ok=True)
     return json.loads(out.stdout.strip().splitlines()[-1])
 
@@ -196,14 +201,30 @@ def load() -> str:
     return "load average " + " ".join(f"{x:.2f}" for x in os.getloadavg())
 
 
-def compare(name: str, raw: Path, tmp: Path, repeat: int) -> tuple[list[dict], list[dict]]:
-    bare, full = [], []
+def compare(name: str, raw: Path, tmp: Path, repeat: int, before: str | None
+            ) -> tuple[list[dict], list[dict], list[dict]]:
+    bare, full, old = [], [], []
     for r in range(repeat):
         bare.append(run_child("bare", raw, tmp / f"{name}-bare.duckdb"))
         full.append(run_child("ingest", raw, tmp / f"{name}-store.duckdb"))
-        print(f"  {name} repeat {r + 1}: bare {bare[-1]['seconds']:.3f} s, "
-              f"ingest {full[-1]['seconds']:.3f} s ({load()})", flush=True)
-    return bare, full
+        line = (f"  {name} repeat {r + 1}: bare {bare[-1]['seconds']:.3f} s, "
+                f"ingest {full[-1]['seconds']:.3f} s")
+        if before:
+            old.append(run_child("ingest", raw, tmp / f"{name}-old.duckdb", before))
+            line += f", ingest before {old[-1]['seconds']:.3f} s"
+        print(f"{line} ({load()})", flush=True)
+    return bare, full, old
+
+
+def report_before(full: list[dict], old: list[dict], bare: list[dict], per: float = 1.0,
+                  unit: str = "s") -> None:
+    if not old:
+        return
+    to = [o["seconds"] * per for o in old]
+    print(f"  ingest before (--before):              {spread(to, '.2f')} {unit}, peak RSS "
+          f"{spread([o['peak_mib'] for o in old], '.0f')} MiB; ratio to bare "
+          f"{statistics.median(to) / statistics.median([b['seconds'] * per for b in bare]):.2f}, "
+          f"speed-up now / before {statistics.median(to) / statistics.median([f['seconds'] * per for f in full]):.2f}x")
 
 
 def report_big(bare: list[dict], full: list[dict], rows: int) -> None:
@@ -250,6 +271,7 @@ def main() -> None:
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--skip-big", action="store_true")
     ap.add_argument("--skip-small", action="store_true")
+    ap.add_argument("--before", metavar="DIR", help="also measure the ingest of this checkout")
     ap.add_argument("--child", nargs=3, metavar=("SIDE", "RAW", "DB"), help=argparse.SUPPRESS)
     args = ap.parse_args()
     if args.child:
@@ -263,12 +285,14 @@ def main() -> None:
         tmp = Path(tmp)
         if not args.skip_big:
             raw = make_big(tmp, args.rows)
-            bare, full = compare("big", raw, tmp, args.repeat)
+            bare, full, old = compare("big", raw, tmp, args.repeat, args.before)
             report_big(bare, full, args.rows)
+            report_before(full, old, bare)
         if not args.skip_small:
             raw = make_small(tmp, args.batches)
-            bare, full = compare("small", raw, tmp, args.repeat)
+            bare, full, old = compare("small", raw, tmp, args.repeat, args.before)
             report_small(bare, full, args.batches)
+            report_before(full, old, bare, 1e3 / full[0]["files"], "ms per file")
     print(f"after: {load()}")
 
 

@@ -41,6 +41,7 @@ from pipeline.errors import (
     environment_problem,
     is_interrupt,
 )
+from pipeline.ingest import grouped
 from pipeline.ingest.contract import (
     BatchManifest,
     Fluid,
@@ -271,19 +272,35 @@ def _known_fluid(fluid: str, fluids: dict[str, Fluid], label: str, key: str) -> 
                          file=label, key=key)
 
 
+@dataclass
+class Pending:
+    """A planned batch with changes to load: what is current in the store, what is not."""
+
+    plan: _Plan
+    current: dict[str, tuple[int, str, str]]
+    unchanged: set[str]
+    removed: list[str]
+
+
 class Ingestor:
     """Loads batches into an open store connection (one transaction per batch)."""
 
     def __init__(self, con: duckdb.DuckDBPyConnection, root: Path, fluids: dict[str, Fluid],
                  run_id: str):
         self.con, self.root, self.fluids, self.run_id = con, root, fluids, run_id
+        self._current_files: dict | None = None     # see _current
 
     # -- what is in the store -------------------------------------------------------------
     def _current(self, batch: str) -> dict[str, tuple[int, str, str]]:
-        rows = self.con.execute(
-            "SELECT path, file_id, sha256, mapping_sha256 FROM raw_file "
-            "WHERE batch = ? AND superseded_by IS NULL", [batch]).fetchall()
-        return {path: (fid, sha, mapping) for path, fid, sha, mapping in rows}
+        """The current files of a batch: path -> (file_id, sha256, mapping_sha256). Read for
+        every batch at once and kept until the next load writes to the store."""
+        if self._current_files is None:
+            self._current_files = {}
+            for b, path, fid, sha, mapping in self.con.execute(
+                    "SELECT batch, path, file_id, sha256, mapping_sha256 FROM raw_file "
+                    "WHERE superseded_by IS NULL").fetchall():
+                self._current_files.setdefault(b, {})[path] = (fid, sha, mapping)
+        return dict(self._current_files.get(batch, {}))
 
     def _tables_like(self, plan: _Plan) -> dict[str, str]:
         """Current tables (path -> SHA-256) whose content is that of one of the batch's files:
@@ -304,6 +321,12 @@ class Ingestor:
     # -- one batch ------------------------------------------------------------------------
     def ingest(self, batch_dir: Path) -> BatchResult:
         """Ingest one batch; any problem inside it refuses it (see the module docstring)."""
+        prepared = self.prepare(batch_dir)
+        return prepared if isinstance(prepared, BatchResult) else self.load_alone(prepared)
+
+    def prepare(self, batch_dir: Path) -> BatchResult | Pending:
+        """Plan a batch (reads, never writes): its result when it is refused or unchanged,
+        else what loading it needs."""
         batch_dir = real_folder(batch_dir)
         rel = _label(self.root, batch_dir)
         try:
@@ -321,9 +344,15 @@ class Ingestor:
         if len(unchanged) == len(wanted) and not removed:
             return BatchResult(plan.batch, "unchanged",
                                [FileResult(p, "unchanged") for p in sorted(wanted)])
+        return Pending(plan, current, unchanged, removed)
+
+    def load_alone(self, pending: Pending) -> BatchResult:
+        """Load one prepared batch in its own transaction."""
+        plan = pending.plan
+        self._current_files = None
         self.con.execute("BEGIN TRANSACTION")
         try:
-            result = self._load(plan, current, unchanged, removed)
+            result = self._load(plan, pending.current, pending.unchanged, pending.removed)
             self.con.execute("COMMIT")
             return result
         except FluidLedgerError as err:
@@ -337,11 +366,21 @@ class Ingestor:
             raise
 
     def _load(self, plan: _Plan, current, unchanged: set[str], removed: list[str]) -> BatchResult:
+        self._next_obs = None        # the next free obs_id, read once per batch
+        result = BatchResult(plan.batch, "loaded")
+        for i, spec, rel, path, content, sha, file_id in self.begin(plan, current, unchanged,
+                                                                    removed, result):
+            result.files.append(self._load_table(file_id, rel, path, content, sha, spec, plan))
+        return result
+
+    def begin(self, plan: _Plan, current, unchanged: set[str], removed: list[str],
+              result: BatchResult):
+        """Write a batch's source, retirements and manifest entries into ``result``; then
+        yield each changed table with its new ``raw_file`` row's id, in order, for the
+        caller to load (an unchanged table is noted in ``result`` in its place)."""
         self._upsert_source(plan)
         for path in removed:
             self._supersede(current[path][0], REMOVED)
-        result = BatchResult(plan.batch, "loaded")
-        self._next_obs = None        # the next free obs_id, read once per batch
         if plan.manifest_path not in unchanged:
             result.files.append(self._load_manifest(plan, current.get(plan.manifest_path)))
         else:
@@ -361,8 +400,7 @@ class Ingestor:
             if old is not None:
                 self._supersede(old[0], file_id)
             tables[rel] = sha          # the new version is current; the old one no more
-            result.files.append(self._load_table(file_id, rel, path, content, sha, spec, plan))
-        return result
+            yield i, spec, rel, path, content, sha, file_id
 
     def _upsert_source(self, plan: _Plan) -> None:
         s = plan.manifest.source
@@ -383,7 +421,7 @@ class Ingestor:
             "?, 0, 0, 0, ?, ?, NULL, NULL) RETURNING file_id",
             [sha, mapping, rel, plan.batch, role, plan.manifest.source.id, index,
              spec.fluid if spec else None, spec.boundary if spec else None,
-             spec.solid_phase if spec else None, size, self.run_id, utcnow()]).fetchone()[0]
+             spec.solid_phase if spec else None, size, self.run_id, utcnow()]).fetchall()[0][0]
 
     def _supersede(self, old_id: int, new_id: int) -> None:
         self.con.execute("UPDATE raw_file SET superseded_by = ?, superseded_run_id = ? "
@@ -463,7 +501,7 @@ class Ingestor:
         loaded, bad, *last_rows = self.con.execute(
             "SELECT count(*) FILTER (WHERE fault IS NULL), count(*) FILTER (WHERE fault IS NOT "
             "NULL), " + ", ".join(f"max(row_number) FILTER (WHERE fault IS NULL AND NOT "
-                                  f"empty_{q})" for q in quantities) + " FROM fl_norm").fetchone()
+                                  f"empty_{q})" for q in quantities) + " FROM fl_norm").fetchall()[0]
         for row, column, raw, code, message, cell in rejects:
             self._quarantine(file_id, sha, rel, row, column, raw, code, f"{rel}, {message}", cell)
         self._insert_observations(file_id, spec, rules, staged, last_rows)
@@ -631,12 +669,7 @@ def run_ingest(con: duckdb.DuckDBPyConnection, paths: list[Path], *, fluids_file
     try:
         _upsert_fluids(con, fluids, run_id)
         batches = [b for p in paths for b in discover_batches(p)]
-        results = []
-        for batch_dir in batches:
-            results.append(Ingestor(con, root, fluids, run_id).ingest(batch_dir))
-            if progress:
-                progress(batch_dir)
-            crash_point("ingest:batch-done")
+        results = _ingest_batches(Ingestor(con, root, fluids, run_id), batches, progress)
         removed = _retire_missing(con, root, paths, {r.batch for r in results}, run_id)
     except BaseException as err:
         end_run(con, run_id, err)
@@ -646,6 +679,60 @@ def run_ingest(con: duckdb.DuckDBPyConnection, paths: list[Path], *, fluids_file
     con.execute("UPDATE run SET finished_at = ?, status = ?, summary_json = ? WHERE run_id = ?",
                 [utcnow(), status, json.dumps(result.asdict(), sort_keys=True), run_id])
     return result
+
+
+def _ingest_batches(ingestor: Ingestor, batches: list[Path], progress) -> list[BatchResult]:
+    """Every batch's result, in order. Consecutive batches of small CSV files load together
+    (:mod:`pipeline.ingest.grouped`); any other batch loads alone."""
+    results: list[BatchResult | None] = []
+    pending: list[tuple[int, Path, Pending]] = []
+    size = [0, 0]
+
+    def done(slot: int, batch_dir: Path, result: BatchResult) -> None:
+        results[slot] = result
+        if progress:
+            progress(batch_dir)
+        crash_point("ingest:batch-done")
+
+    def flush() -> None:
+        if len(pending) == 1:
+            loaded = [ingestor.load_alone(pending[0][2])]
+        else:
+            loaded = grouped.load_group(ingestor, [p for _, _, p in pending])
+        for (slot, batch_dir, _), result in zip(pending, loaded):
+            done(slot, batch_dir, result)
+        pending.clear()
+        size[:] = [0, 0]
+
+    for batch_dir in batches:
+        results.append(None)
+        prepared = ingestor.prepare(batch_dir)
+        if isinstance(prepared, BatchResult):
+            done(len(results) - 1, batch_dir, prepared)
+            continue
+        if not grouped.groupable(prepared):
+            if pending:
+                flush()
+            done(len(results) - 1, batch_dir, ingestor.load_alone(prepared))
+            continue
+        files, nbytes = grouped.weight(prepared)
+        if any(p.plan.batch == prepared.plan.batch for _, _, p in pending):
+            # the same batch named twice (two paths): the first must load before the second
+            # is compared with the store
+            flush()
+            prepared = ingestor.prepare(batch_dir)
+            if isinstance(prepared, BatchResult):
+                done(len(results) - 1, batch_dir, prepared)
+                continue
+        if pending and (len(pending) >= grouped.GROUP_BATCHES or size[0] + files >
+                        grouped.GROUP_FILES or size[1] + nbytes > grouped.GROUP_BYTES):
+            flush()
+        pending.append((len(results) - 1, batch_dir, prepared))
+        size[0] += files
+        size[1] += nbytes
+    if pending:
+        flush()
+    return results
 
 
 def _retire_missing(con, root: Path, paths: list[Path], seen: set[str], run_id: str) -> list[str]:
