@@ -26,7 +26,9 @@ refuses only the faulty batch and names it. A problem of the machine or Ctrl-C s
 from __future__ import annotations
 
 import logging
+from pathlib import Path
 
+from pipeline.crashpoints import crash_point
 from pipeline.errors import BatchError, environment_problem, is_interrupt
 from pipeline.ingest.normalise import QUANTITY_KIND, ident, layout, uncertainty_sql
 from pipeline.ingest.reader import stage_csv
@@ -53,6 +55,63 @@ def weight(pending) -> tuple[int, int]:
     """Table files and bytes a prepared batch adds to a group."""
     tables = [t for t in pending.plan.tables if t[2] not in pending.unchanged]
     return len(tables), sum(len(t[4]) for t in tables)
+
+
+def ingest_batches(ingestor, batches: list[Path], progress) -> list:
+    """Every batch's result, in order. Consecutive batches of small CSV files load together
+    (:func:`load_group`); any other batch loads alone. ``progress(batch_dir)`` and the crash
+    point ``ingest:batch-done`` follow each batch once it is committed (with its group) or
+    refused."""
+    from pipeline.ingest.stage import BatchResult
+    results: list = []
+    pending: list = []
+    size = [0, 0]
+
+    def done(slot: int, batch_dir: Path, result: BatchResult) -> None:
+        results[slot] = result
+        if progress:
+            progress(batch_dir)
+        crash_point("ingest:batch-done")
+
+    def flush() -> None:
+        if len(pending) == 1:
+            loaded = [ingestor.load_alone(pending[0][2])]
+        else:
+            loaded = load_group(ingestor, [p for _, _, p in pending])
+        for (slot, batch_dir, _), result in zip(pending, loaded):
+            done(slot, batch_dir, result)
+        pending.clear()
+        size[:] = [0, 0]
+
+    for batch_dir in batches:
+        results.append(None)
+        prepared = ingestor.prepare(batch_dir)
+        if isinstance(prepared, BatchResult):
+            done(len(results) - 1, batch_dir, prepared)
+            continue
+        if not groupable(prepared):
+            if pending:
+                flush()
+            done(len(results) - 1, batch_dir, ingestor.load_alone(prepared))
+            continue
+        files, nbytes = weight(prepared)
+        if any(p.plan.batch == prepared.plan.batch for _, _, p in pending):
+            # the same batch named twice (two paths): the first must load before the second
+            # is compared with the store
+            flush()
+            prepared = ingestor.prepare(batch_dir)
+            if isinstance(prepared, BatchResult):
+                done(len(results) - 1, batch_dir, prepared)
+                continue
+        if pending and (len(pending) >= GROUP_BATCHES or size[0] + files >
+                        GROUP_FILES or size[1] + nbytes > GROUP_BYTES):
+            flush()
+        pending.append((len(results) - 1, batch_dir, prepared))
+        size[0] += files
+        size[1] += nbytes
+    if pending:
+        flush()
+    return results
 
 
 def load_group(ingestor, pendings: list) -> list:

@@ -10,6 +10,11 @@ Recipe for each batch folder (``<raw>/<batch>/batch.toml``):
    insert observations and quarantine rows, record the file with rows_read = rows_loaded +
    rows_quarantined; any error rolls the whole batch back, leaving the store exactly as before.
 
+Consecutive batches whose changed tables are small CSV files load together, in one
+transaction with shared passes (:mod:`pipeline.ingest.grouped`), leaving the store exactly as
+loading them one at a time would; a group that fails is rolled back and its batches loaded
+one at a time.
+
 Batches are isolated: whatever goes wrong inside one batch (a refused manifest, a file that is
 a FIFO, even an unexpected exception) refuses that batch with a message naming it, and the
 next batch is ingested. Only a problem of the machine (disk full, a store that cannot be
@@ -29,15 +34,11 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 import duckdb
-import numpy as np
 
 from pipeline import __version__
-from pipeline.crashpoints import crash_point
 from pipeline.errors import (
     BatchError,
     FluidLedgerError,
-    ScaleError,
-    UnitError,
     environment_problem,
     is_interrupt,
 )
@@ -50,6 +51,7 @@ from pipeline.ingest.contract import (
     load_batch,
     load_fluids,
 )
+from pipeline.ingest.declarations import check_declarations
 from pipeline.ingest.discover import (
     absolute,
     batch_problem,
@@ -59,11 +61,9 @@ from pipeline.ingest.discover import (
     table_file,
 )
 from pipeline.ingest.normalise import QUANTITY_KIND, normalise, uncertainty_sql
-from pipeline.ingest.points import CONSTANT_KIND, constant_row, fixed_point_row
+from pipeline.ingest.points import constant_row, fixed_point_row
 from pipeline.ingest.rawread import MAX_TOML_BYTES, read_regular
 from pipeline.ingest.reader import stage_csv
-from pipeline.ingest.scales import get_scale
-from pipeline.ingest.units import conversion
 from pipeline.ingest.workbook import is_workbook, stage_workbook, table_path
 from pipeline.store.runs import end_run
 
@@ -181,82 +181,6 @@ def plan_batch(root: Path, batch_dir: Path, fluids: dict[str, Fluid]) -> _Plan:
         tables.append((i, spec, table_path(_label(root, batch_dir / spec.file), spec), path,
                        content, sha, mapping))
     return _Plan(rel_batch, manifest, label, hashlib.sha256(data).hexdigest(), len(data), tables)
-
-
-def _declared(label: str, key: str, check):
-    """Run ``check()``; a unit or scale error is re-raised naming the batch.toml key."""
-    try:
-        return check()
-    except (UnitError, ScaleError) as err:
-        raise type(err)(err.detail, file=label, key=key) from None
-
-
-def _column_rule(label: str, key: str, v, kind: str, molar_mass: float) -> None:
-    """Check the unit (with its reference and ambient) of one column or point value."""
-    ambient = None
-    if v.ambient is not None:
-        ambient = _declared(label, f"{key}.ambient.unit", lambda: conversion(
-            v.ambient.unit, "pressure").apply(np.array([v.ambient.value]))[0])
-        if v.reference == "gauge" and not (np.isfinite(ambient) and ambient > 0):
-            raise UnitError(f"the ambient pressure of a gauge value must be positive, got "
-                            f"{v.ambient.value} {v.ambient.unit}", file=label, key=f"{key}.ambient")
-    _declared(label, f"{key}.unit", lambda: conversion(
-        v.unit, kind, molar_mass_kg_mol=molar_mass, reference=v.reference, ambient_Pa=ambient))
-
-
-def check_declarations(manifest: BatchManifest, fluids: dict[str, Fluid], label: str) -> None:
-    """Every unit and scale in batch.toml converts, before any row is read; an unknown,
-    misspelt or dimensionally wrong unit, or a refused scale, names its key."""
-    for i, t in enumerate(manifest.table):
-        M = fluids[t.fluid].molar_mass_kg_mol
-        key = f"table[{i}]"
-        if t.solid_phase:
-            _declared_phase(t.solid_phase, fluids[t.fluid], label, f"{key}.solid_phase")
-        if t.comment and t.comment in (t.delimiter, t.quote, t.decimal):
-            raise BatchError(f"comment character {t.comment!r} is also the table's delimiter, "
-                             "quote or decimal separator", file=label, key=f"{key}.comment")
-        _declared(label, f"{key}.temperature.unit", lambda: conversion(t.temperature.unit,
-                                                                      "temperature"))
-        _declared(label, f"{key}.temperature.scale", lambda: get_scale(t.temperature.scale))
-        for q, cs in t.value_columns().items():
-            where = f"{key}.pressure" if q == "pressure" else f"{key}.columns.{q}"
-            _column_rule(label, where, cs, QUANTITY_KIND[q][0], M)
-        for q, u in t.uncertainty.items():
-            if u.relative is None:
-                kind = "temperature" if q == "temperature" else QUANTITY_KIND[q][0]
-                _declared(label, f"{key}.uncertainty.{q}.unit", lambda: conversion(
-                    u.unit, kind, molar_mass_kg_mol=M, difference=True))
-    kinds = {"T": "temperature", "p": "pressure", "rho": "density"}
-    for i, fp in enumerate(manifest.fixed_point):
-        M = fluids[fp.fluid].molar_mass_kg_mol
-        for j, phase in enumerate(fp.phases):
-            if phase not in GENERIC_PHASES:
-                _declared_phase(phase, fluids[fp.fluid], label, f"fixed_point[{i}].phases[{j}]")
-        for name, kind in kinds.items():
-            v = getattr(fp, name)
-            if v is not None:
-                _column_rule(label, f"fixed_point[{i}].{name}", v, kind, M)
-        _declared(label, f"fixed_point[{i}].T.scale", lambda: get_scale(fp.T.scale))
-    for i, c in enumerate(manifest.constant):
-        kind = CONSTANT_KIND[c.name][0]
-        _declared(label, f"constant[{i}].unit", lambda: conversion(
-            c.unit, kind, molar_mass_kg_mol=fluids[c.fluid].molar_mass_kg_mol))
-        if kind == "temperature":
-            _declared(label, f"constant[{i}].scale", lambda: get_scale(c.scale))
-
-
-#: Phase names every fluid has; polymorph labels (Ih, III...) must be declared in fluids.toml
-GENERIC_PHASES = ("vapour", "liquid", "solid")
-
-
-def _declared_phase(phase: str, fluid: Fluid, label: str, key: str) -> None:
-    """A solid-phase label must be one the fluid declares in fluids.toml."""
-    if phase not in fluid.solid_phases:
-        declared = (f"it declares {list(fluid.solid_phases)}" if fluid.solid_phases
-                    else "it declares none")
-        raise BatchError(f"solid phase {phase!r} is not declared for fluid '{fluid.id}' in "
-                         f"fluids.toml ({declared}); add it to its solid_phases",
-                         file=label, key=key)
 
 
 def _label(root: Path, path: Path) -> str:
@@ -669,7 +593,8 @@ def run_ingest(con: duckdb.DuckDBPyConnection, paths: list[Path], *, fluids_file
     try:
         _upsert_fluids(con, fluids, run_id)
         batches = [b for p in paths for b in discover_batches(p)]
-        results = _ingest_batches(Ingestor(con, root, fluids, run_id), batches, progress)
+        results = grouped.ingest_batches(Ingestor(con, root, fluids, run_id), batches,
+                                         progress)
         removed = _retire_missing(con, root, paths, {r.batch for r in results}, run_id)
     except BaseException as err:
         end_run(con, run_id, err)
@@ -679,60 +604,6 @@ def run_ingest(con: duckdb.DuckDBPyConnection, paths: list[Path], *, fluids_file
     con.execute("UPDATE run SET finished_at = ?, status = ?, summary_json = ? WHERE run_id = ?",
                 [utcnow(), status, json.dumps(result.asdict(), sort_keys=True), run_id])
     return result
-
-
-def _ingest_batches(ingestor: Ingestor, batches: list[Path], progress) -> list[BatchResult]:
-    """Every batch's result, in order. Consecutive batches of small CSV files load together
-    (:mod:`pipeline.ingest.grouped`); any other batch loads alone."""
-    results: list[BatchResult | None] = []
-    pending: list[tuple[int, Path, Pending]] = []
-    size = [0, 0]
-
-    def done(slot: int, batch_dir: Path, result: BatchResult) -> None:
-        results[slot] = result
-        if progress:
-            progress(batch_dir)
-        crash_point("ingest:batch-done")
-
-    def flush() -> None:
-        if len(pending) == 1:
-            loaded = [ingestor.load_alone(pending[0][2])]
-        else:
-            loaded = grouped.load_group(ingestor, [p for _, _, p in pending])
-        for (slot, batch_dir, _), result in zip(pending, loaded):
-            done(slot, batch_dir, result)
-        pending.clear()
-        size[:] = [0, 0]
-
-    for batch_dir in batches:
-        results.append(None)
-        prepared = ingestor.prepare(batch_dir)
-        if isinstance(prepared, BatchResult):
-            done(len(results) - 1, batch_dir, prepared)
-            continue
-        if not grouped.groupable(prepared):
-            if pending:
-                flush()
-            done(len(results) - 1, batch_dir, ingestor.load_alone(prepared))
-            continue
-        files, nbytes = grouped.weight(prepared)
-        if any(p.plan.batch == prepared.plan.batch for _, _, p in pending):
-            # the same batch named twice (two paths): the first must load before the second
-            # is compared with the store
-            flush()
-            prepared = ingestor.prepare(batch_dir)
-            if isinstance(prepared, BatchResult):
-                done(len(results) - 1, batch_dir, prepared)
-                continue
-        if pending and (len(pending) >= grouped.GROUP_BATCHES or size[0] + files >
-                        grouped.GROUP_FILES or size[1] + nbytes > grouped.GROUP_BYTES):
-            flush()
-        pending.append((len(results) - 1, batch_dir, prepared))
-        size[0] += files
-        size[1] += nbytes
-    if pending:
-        flush()
-    return results
 
 
 def _retire_missing(con, root: Path, paths: list[Path], seen: set[str], run_id: str) -> list[str]:
