@@ -1,28 +1,13 @@
-"""Shared fixtures: tiny raw folders written into tmp_path, and a store opener."""
+"""Shared fixtures: tiny raw folders written into tmp_path, and a store opener; SIMPLE_BATCH is
+the canonical small batch whose text the bad-input tests alter (tests/storekit.py builds others)."""
 
 from __future__ import annotations
 
-import textwrap
 from pathlib import Path
 
 import pytest
 
-FLUIDS_TOML = """
-[[fluid]]
-id = "water"
-name = "water"
-formula = "H2O"
-cas_rn = "7732-18-5"
-solid_phases = ["Ih", "III"]
-molar_mass = { value = 18.015268, unit = "g/mol" }   # IAPWS-95
-
-[[fluid]]
-id = "argon"
-name = "argon"
-formula = "Ar"
-cas_rn = "7440-37-1"
-molar_mass = { value = 39.948, unit = "g/mol" }      # Tegeler, Span & Wagner (1999)
-"""
+from tests.storekit import FLUIDS_TOML, write_batch  # noqa: F401 (the tests import them from here)
 
 SIMPLE_BATCH = """
 [source]
@@ -43,20 +28,6 @@ pressure = {{ relative = 0.001 }}
 
 # argon vapour pressures near the normal boiling point (approximate values, test data only)
 SIMPLE_CSV = "T,p\n85.0,78.9\n87.3,101.3\n90.0,133.6\n"
-
-
-def write_batch(root: Path, name: str, manifest: str, files: dict[str, str | bytes]) -> Path:
-    """Write raw/<name>/batch.toml and its files; return the batch folder."""
-    folder = root / name
-    folder.mkdir(parents=True, exist_ok=True)
-    (folder / "batch.toml").write_text(textwrap.dedent(manifest), encoding="utf-8")
-    for fname, content in files.items():
-        target = folder / fname
-        if isinstance(content, bytes):
-            target.write_bytes(content)
-        else:
-            target.write_text(content, encoding="utf-8")
-    return folder
 
 
 @pytest.fixture

@@ -7,6 +7,7 @@ Pure numpy/scipy, no I/O. Modules, one per physical topic:
 * :mod:`~pipeline.correlations.sublimation` - sublimation forms;
 * :mod:`~pipeline.correlations.melting` - Simon-Glatzel, polynomial, IAPWS melting forms;
 * :mod:`~pipeline.correlations.density` - saturated liquid and vapour density forms;
+* :mod:`~pipeline.correlations.linalg` - weighted linear least squares by equilibrated SVD;
 * :mod:`~pipeline.correlations.fitting` - weighted, outlier-flagging fits with model selection;
 * :mod:`~pipeline.correlations.reference` - published water, CO2, N2 and Ar equations.
 

@@ -42,9 +42,9 @@ from enum import Enum
 import numpy as np
 from scipy.optimize import least_squares
 
-from pipeline.correlations.base import (CorrelationForm, Curve, LinearForm, column_norms,
-                                        covariance_from_jacobian, get_form,
-                                        weighted_linear_solve)
+from pipeline.correlations.base import CorrelationForm, Curve, LinearForm, get_form
+from pipeline.correlations.linalg import (column_norms, covariance_from_jacobian,
+                                          weighted_linear_solve)
 from pipeline.errors import FitError
 
 MAX_OUTLIER_ROUNDS = 10

@@ -10,7 +10,8 @@ from __future__ import annotations
 import numpy as np
 
 from pipeline.correlations.base import (LinearForm, NonlinearForm, TauPowerBasis, power,
-                                        register_form, weighted_linear_solve)
+                                        register_form)
+from pipeline.correlations.linalg import weighted_linear_solve
 
 WAGNER_CITATION = "W. Wagner, Cryogenics 13, 470-482 (1973)"
 WAGNER_PRUSS_CITATION = ("W. Wagner, A. Pruss, J. Phys. Chem. Ref. Data 22, 783-787 (1993), "

@@ -40,7 +40,7 @@ import pytest
 from pipeline.cli import main
 from pipeline.store import open_store
 from pipeline.verify import verify
-from tests.conftest import FLUIDS_TOML
+from tests.storekit import FLUIDS_TOML, batch_toml, source, vp_table
 
 CORPUS = Path(__file__).resolve().parent
 CASES = sorted(p.name for p in CORPUS.iterdir() if (p / "expected.toml").is_file())
@@ -49,20 +49,12 @@ DATA_TABLES = ("fluid", "source", "raw_file", "raw_column", *ROW_TABLES)
 RESIDENT, SIBLING = "aa-corpus-resident", "zz-corpus-sibling"
 NEIGHBOURS = {RESIDENT: "T,p\n100.0,323.0\n110.0,667.0\n",     # contents no case uses
               SIBLING: "T,p\n120.0,1213.0\n130.0,2025.0\n"}
-NEIGHBOUR_BATCH = """format_version = 1
 
-[source]
-id = "{name}"
-kind = "measurement"
-citation = "Invented rig beside the bad-input corpus"
 
-[[table]]
-file = "vp.csv"
-fluid = "argon"
-boundary = "liquid-vapour"
-temperature = {{ column = "T", unit = "K" }}
-pressure = {{ column = "p", unit = "kPa" }}
-"""
+def neighbour_batch(name: str) -> str:
+    """A small argon batch loaded beside every case (no uncertainty stated)."""
+    return batch_toml(source(name, "Invented rig beside the bad-input corpus"),
+                      [vp_table(p_unit="kPa", u_p_rel=None)])
 
 
 def load_expected(case: str) -> dict:
@@ -72,7 +64,7 @@ def load_expected(case: str) -> dict:
 def write_neighbour(raw: Path, name: str) -> None:
     folder = raw / name
     folder.mkdir(parents=True)
-    (folder / "batch.toml").write_text(NEIGHBOUR_BATCH.format(name=name), encoding="utf-8")
+    (folder / "batch.toml").write_text(neighbour_batch(name), encoding="utf-8")
     (folder / "vp.csv").write_text(NEIGHBOURS[name], encoding="utf-8")
 
 

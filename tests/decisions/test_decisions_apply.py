@@ -20,9 +20,9 @@ from pipeline.decisions import (
 )
 from pipeline.decisions.apply import latest_check_run
 from pipeline.decisions.edit import add_decision
-from pipeline.ingest.stage import run_ingest
 from pipeline.store import open_store
 from tests.conftest import write_batch
+from tests.storekit import ARGON_CRITICAL, batch_toml, build_store, source, vp_table
 
 
 @pytest.fixture()
@@ -58,27 +58,9 @@ def test_decide_records_the_file_hash_and_the_fit_names_the_decision(demo):
     assert demo.query("SELECT count(*) FROM fit WHERE is_current AND n_excluded > 0")[0][0] == 1
 
 
-ARGON_LAB = """
-[source]
-id = "lab-ar"
-kind = "measurement"
-citation = "Invented argon campaign for the test suite"
-
-[[table]]
-file = "vp.csv"
-fluid = "argon"
-boundary = "liquid-vapour"
-temperature = { column = "T", unit = "K" }
-pressure = { column = "p", unit = "Pa" }
-[table.uncertainty]
-pressure = { relative = 0.0005 }
-
-[[fixed_point]]
-fluid = "argon"
-kind = "critical"
-T = { value = 150.687, unit = "K", u = 0.015 }
-p = { value = 4.863, unit = "MPa", u = 0.003 }
-"""
+ARGON_LAB = batch_toml(source("lab-ar", "Invented argon campaign for the test suite"),
+                       [vp_table(p_unit="Pa", u_p_rel=0.0005)], [ARGON_CRITICAL],
+                       format_version=None)
 
 
 def _release(store_path, decisions, out) -> dict:
@@ -107,8 +89,7 @@ def test_an_excluded_outlier_changes_the_fit_and_the_recommended_value(raw_root,
                 {"vp.csv": "T,p\n" + "".join(f"{t:.4f},{v:.9g}\n" for t, v in zip(T, p))})
     decisions = tmp_path / "decisions.toml"
     decisions.write_text("format_version = 1\n", encoding="utf-8")
-    with open_store(store_path) as s:
-        run_ingest(s.con, [raw_root])
+    build_store(store_path, [raw_root])
     before = _release(store_path, decisions, tmp_path / "out")
     add_decision(decisions, who=CURATOR, why="pressure spike", action="exclude_observations",
                  spec={"source": "lab-ar", "file": "lab-ar/vp.csv", "rows": [2]})

@@ -13,29 +13,17 @@ from pipeline.fitting.stage import run_fit
 from pipeline.ingest.stage import run_ingest
 from pipeline.store import open_store
 from tests.conftest import write_batch
+from tests.storekit import (ARGON_CRITICAL, TEGELER_1999, batch_toml, build_store, source,
+                            vp_table)
 
-ARGON_REF = """
-[source]
-id = "{source}"
-kind = "evaluated"
-citation = "Tegeler, Span & Wagner, J. Phys. Chem. Ref. Data 28, 779 (1999), ancillary equations"
 
-[[table]]
-file = "vp.csv"
-fluid = "argon"
-boundary = "liquid-vapour"
-temperature = {{ column = "T", unit = "K" }}
-pressure = {{ column = "p", unit = "Pa" }}
-[table.uncertainty]
-pressure = {{ relative = 0.0005 }}
-
-[[fixed_point]]
-fluid = "argon"
-kind = "critical"
-T = {{ value = 150.687, unit = "K", u = 0.015 }}
-p = {{ value = 4.863, unit = "MPa", u = 0.003 }}
-rho = {{ value = 535.6, unit = "kg/m^3", u = 1.0 }}
-"""
+def argon_ref(source_id: str) -> str:
+    """Argon's vapour pressures from its ancillary equation with its critical point."""
+    return batch_toml(
+        source(source_id, f"{TEGELER_1999}, ancillary equations", "evaluated"),
+        [vp_table(p_unit="Pa", u_p_rel=0.0005)],
+        [{**ARGON_CRITICAL, "rho": {"value": 535.6, "unit": "kg/m^3", "u": 1.0}}],
+        format_version=None)
 
 
 def vp_csv(T: np.ndarray, factor: np.ndarray | None = None) -> str:
@@ -47,9 +35,8 @@ def vp_csv(T: np.ndarray, factor: np.ndarray | None = None) -> str:
 
 
 def build(raw_root, store_path, csv: str, source="ref-argon"):
-    write_batch(raw_root, source, ARGON_REF.format(source=source), {"vp.csv": csv})
-    with open_store(store_path) as s:
-        run_ingest(s.con, [raw_root])
+    write_batch(raw_root, source, argon_ref(source), {"vp.csv": csv})
+    build_store(store_path, [raw_root])
 
 
 def fit(store_path, **kw):
@@ -129,21 +116,8 @@ def test_exclusions_leave_points_out_and_name_the_decision(raw_root, store_path)
     assert excluded == [(obs, "D-7")] and n_excluded == (1, 19)
 
 
-LAB_BATCH = """
-[source]
-id = "lab-argon"
-kind = "measurement"
-citation = "invented lab campaign for the test suite"
-
-[[table]]
-file = "vp.csv"
-fluid = "argon"
-boundary = "liquid-vapour"
-temperature = { column = "T", unit = "K" }
-pressure = { column = "p", unit = "Pa" }
-[table.uncertainty]
-pressure = { relative = 0.002 }
-"""
+LAB_BATCH = batch_toml(source("lab-argon", "invented lab campaign for the test suite"),
+                       [vp_table(p_unit="Pa", u_p_rel=0.002)], format_version=None)
 
 
 def test_a_file_in_the_wrong_unit_is_flagged_not_fitted(raw_root, store_path):
@@ -152,8 +126,7 @@ def test_a_file_in_the_wrong_unit_is_flagged_not_fitted(raw_root, store_path):
     build(raw_root, store_path, vp_csv(np.linspace(84.0, 148.0, 30)))
     write_batch(raw_root, "lab-argon", LAB_BATCH,
                 {"vp.csv": vp_csv(np.linspace(85.5, 140.5, 20), np.full(20, 1e-3))})
-    with open_store(store_path) as s:
-        run_ingest(s.con, [raw_root])
+    build_store(store_path, [raw_root])
     result, rows = fit(store_path)
     assert result.groups[0].status == "fitted"
     with open_store(store_path) as s:
@@ -198,26 +171,11 @@ def test_worker_processes_give_the_same_fits_as_one_process(tmp_path, monkeypatc
         fit_workers(10)
 
 
-ARGON_SUB_T_ONLY = """
-[source]
-id = "sub-t-only"
-kind = "literature"
-citation = "Tegeler, Span & Wagner, J. Phys. Chem. Ref. Data 28, 779 (1999), sublimation ancillary"
-
-[[table]]
-file = "sub.csv"
-fluid = "argon"
-boundary = "solid-vapour"
-temperature = { column = "T", unit = "K" }
-pressure = { column = "p", unit = "Pa" }
-[table.uncertainty]
-pressure = { relative = 0.002 }
-
-[[fixed_point]]
-fluid = "argon"
-kind = "triple"
-T = { value = 83.8058, unit = "K" }
-"""
+ARGON_SUB_T_ONLY = batch_toml(
+    source("sub-t-only", f"{TEGELER_1999}, sublimation ancillary", "literature"),
+    [vp_table(file="sub.csv", boundary="solid-vapour", p_unit="Pa", u_p_rel=0.002)],
+    [{"fluid": "argon", "kind": "triple", "T": {"value": 83.8058, "unit": "K"}}],
+    format_version=None)
 
 
 def test_a_temperature_only_triple_point_anchors_a_sublimation_fit(raw_root, store_path):

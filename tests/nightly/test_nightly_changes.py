@@ -11,6 +11,7 @@ import pytest
 from nightly_fixtures import (ARGON_BATCHES, DISCREPANT_ARGON, add_batch, cli, copy_demo,
                               next_second, nightly)
 from pipeline.report.history import run_history
+from tests.storekit import batch_toml, source, vp_table
 
 
 @pytest.fixture(scope="module")
@@ -112,24 +113,10 @@ def test_history_command_prints_transitions(scenario, capsys):
     assert scenario["clean"].check_run_id not in out   # --limit 2 leaves the oldest out
 
 
-SHIFTED_ARGON = """
-format_version = 1
-
-[source]
-id = "lab-argon-shifted"
-kind = "measurement"
-citation = "Invented test campaign: argon vapour pressures 0.25 % above the reference"
-
-[[table]]
-file = "vp.csv"
-fluid = "argon"
-boundary = "liquid-vapour"
-temperature = { column = "T", unit = "K" }
-pressure = { column = "p", unit = "kPa" }
-[table.uncertainty]
-temperature = { value = 0.002, unit = "K" }
-pressure = { relative = 0.001 }
-"""
+SHIFTED_ARGON = batch_toml(
+    source("lab-argon-shifted",
+           "Invented test campaign: argon vapour pressures 0.25 % above the reference"),
+    [vp_table(p_unit="kPa", u_T_K=0.002, u_p_rel=0.001)])
 
 
 def test_a_changed_fit_lists_its_reference_value_in_units_of_u(scenario):

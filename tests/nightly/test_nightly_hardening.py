@@ -9,25 +9,15 @@ from pathlib import Path
 import duckdb
 import pytest
 
+from tests.storekit import batch_toml, source, vp_table
 from nightly_fixtures import ARGON_BATCHES, add_batch, cli, copy_demo, nightly, next_second
 
-GOOD = """
-format_version = 1
+def good(source_id: str, relative: float) -> str:
+    """An argon vapour-pressure batch stating u(p) = relative * p."""
+    return batch_toml(source(source_id, "Invented rig for the nightly hardening tests"),
+                      [vp_table(p_unit="kPa", u_p_rel=relative)])
 
-[source]
-id = "{source}"
-kind = "measurement"
-citation = "Invented rig for the nightly hardening tests"
 
-[[table]]
-file = "vp.csv"
-fluid = "argon"
-boundary = "liquid-vapour"
-temperature = {{ column = "T", unit = "K" }}
-pressure = {{ column = "p", unit = "kPa" }}
-[table.uncertainty]
-pressure = {{ relative = {relative} }}
-"""
 CSV = {"vp.csv": "T,p\n85.0,78.9\n87.3,101.3\n90.0,133.6\n"}
 
 
@@ -36,7 +26,7 @@ def hostile(tmp_path_factory):
     """Argon's two demo batches beside three batches that each once aborted the whole run."""
     tmp = tmp_path_factory.mktemp("nightly-hostile")
     raw = copy_demo(tmp, ARGON_BATCHES)
-    add_batch(raw, "x-nan-relative", GOOD.format(source="x-nan", relative="nan"), CSV)
+    add_batch(raw, "x-nan-relative", good("x-nan", float("nan")), CSV)
     add_batch(raw, "x-deep", "x = " + "[" * 4000 + "]" * 4000 + "\n")
     (raw / "x-dir" / "batch.toml").mkdir(parents=True)
     return tmp, raw, nightly(tmp, raw)

@@ -12,6 +12,7 @@ from pipeline.cli import main
 from pipeline.publish.diff import diff_releases
 
 from conftest import RAW, build
+from tests.storekit import batch_toml, source, vp_table
 
 NEW_BATCH = """
 format_version = 1
@@ -68,24 +69,10 @@ def test_diff_explains_a_change_made_by_a_new_batch(demo_store, tmp_path, capsys
     assert main(["diff", "before", "nope", "--store", str(demo_store)]) == 2
 
 
-LAB_BATCH = """
-format_version = 1
-
-[source]
-id = "argon-vp-extra-campaign"
-kind = "measurement"
-citation = "Invented argon vapour-pressure campaign (test data of the FluidLedger suite)"
-
-[[table]]
-file = "vp.csv"
-fluid = "argon"
-boundary = "liquid-vapour"
-temperature = { column = "T", unit = "K" }
-pressure = { column = "p", unit = "Pa" }
-[table.uncertainty]
-temperature = { value = 0.002, unit = "K" }
-pressure = { relative = 0.0002, unit = "Pa" }
-"""
+LAB_BATCH = batch_toml(
+    source("argon-vp-extra-campaign",
+           "Invented argon vapour-pressure campaign (test data of the FluidLedger suite)"),
+    [vp_table(p_unit="Pa", u_T_K=0.002, u_p_rel=0.0002)])
 
 
 def test_diff_gives_curve_values_at_their_reference_temperature(demo_store, tmp_path, capsys):

@@ -31,7 +31,7 @@ import pytest
 
 from pipeline.cli import main
 from pipeline.store import open_store
-from tests.conftest import FLUIDS_TOML
+from tests.storekit import FLUIDS_TOML, batch_toml, source, vp_table
 from tests.reliability.crashkit import (REPO, Probe, after_commit, assert_store_recovers, creating,
                                         exists, file_size, grown_to, kill_cli, snapshot)
 
@@ -39,29 +39,15 @@ ROWS = int(os.environ.get("FLUIDLEDGER_CRASH_ROWS", "150000"))
 BATCHES = 3
 BAD_EVERY = 9973  # every so many rows a cell that must be quarantined
 
-BATCH_TOML = """format_version = 1
+def batch_toml_of(b: int) -> str:
+    """Crash-test campaign ``b``: an argon vapour-pressure table and a critical point."""
+    return batch_toml(source(f"crash-rig-{b}", f"Invented crash-test campaign {b}, rig K"),
+                      [vp_table(p_unit="kPa", u_T_K=0.005, u_p_rel=0.001)],
+                      [{"fluid": "argon", "kind": "critical",
+                        "T": {"value": 150.7, "unit": "K", "u": 0.01},
+                        "p": {"value": 4.86, "unit": "MPa", "u": 0.005}}])
 
-[source]
-id = "crash-rig-{b}"
-kind = "measurement"
-citation = "Invented crash-test campaign {b}, rig K"
 
-[[table]]
-file = "vp.csv"
-fluid = "argon"
-boundary = "liquid-vapour"
-temperature = {{ column = "T", unit = "K" }}
-pressure = {{ column = "p", unit = "kPa" }}
-[table.uncertainty]
-temperature = {{ value = 0.005, unit = "K" }}
-pressure = {{ relative = 0.001 }}
-
-[[fixed_point]]
-fluid = "argon"
-kind = "critical"
-T = {{ value = 150.7, unit = "K", u = 0.01 }}
-p = {{ value = 4.86, unit = "MPa", u = 0.005 }}
-"""
 
 
 def write_big_raw(root: Path, *, batches: int = BATCHES, rows: int = ROWS) -> Path:
@@ -71,7 +57,7 @@ def write_big_raw(root: Path, *, batches: int = BATCHES, rows: int = ROWS) -> Pa
     for b in range(batches):
         folder = root / f"campaign-{b}"
         folder.mkdir()
-        (folder / "batch.toml").write_text(BATCH_TOML.format(b=b), encoding="utf-8")
+        (folder / "batch.toml").write_text(batch_toml_of(b), encoding="utf-8")
         rng = np.random.default_rng(1000 + b)
         T = 84.0 + 66.0 * rng.random(rows)
         p = 101.3 * np.exp(9.7 * (1.0 - 87.3 / T))          # smooth invented curve [kPa]
