@@ -220,11 +220,13 @@ def report_before(full: list[dict], old: list[dict], bare: list[dict], per: floa
                   unit: str = "s") -> None:
     if not old:
         return
-    to = [o["seconds"] * per for o in old]
-    print(f"  ingest before (--before):              {spread(to, '.2f')} {unit}, peak RSS "
-          f"{spread([o['peak_mib'] for o in old], '.0f')} MiB; ratio to bare "
-          f"{statistics.median(to) / statistics.median([b['seconds'] * per for b in bare]):.2f}, "
-          f"speed-up now / before {statistics.median(to) / statistics.median([f['seconds'] * per for f in full]):.2f}x")
+    to = statistics.median([o["seconds"] * per for o in old])
+    tb = statistics.median([b["seconds"] * per for b in bare])
+    tf = statistics.median([f["seconds"] * per for f in full])
+    print(f"  ingest before (--before):              "
+          f"{spread([o['seconds'] * per for o in old], '.2f')} {unit}, peak RSS "
+          f"{spread([o['peak_mib'] for o in old], '.0f')} MiB; ratio to bare {to / tb:.2f}, "
+          f"speed-up now / before {to / tf:.2f}x")
 
 
 def report_big(bare: list[dict], full: list[dict], rows: int) -> None:

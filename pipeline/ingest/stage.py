@@ -425,7 +425,8 @@ class Ingestor:
         loaded, bad, *last_rows = self.con.execute(
             "SELECT count(*) FILTER (WHERE fault IS NULL), count(*) FILTER (WHERE fault IS NOT "
             "NULL), " + ", ".join(f"max(row_number) FILTER (WHERE fault IS NULL AND NOT "
-                                  f"empty_{q})" for q in quantities) + " FROM fl_norm").fetchall()[0]
+                                  f"empty_{q})" for q in quantities) + " FROM fl_norm"
+        ).fetchall()[0]
         for row, column, raw, code, message, cell in rejects:
             self._quarantine(file_id, sha, rel, row, column, raw, code, f"{rel}, {message}", cell)
         self._insert_observations(file_id, spec, rules, staged, last_rows)

@@ -44,8 +44,11 @@ def test_a_group_gives_the_store_what_one_batch_at_a_time_gives(raw_root, tmp_pa
     _raw(raw_root, [f"b{i}" for i in range(6)])
     calls = []
     original = grouped.load_group
-    monkeypatch.setattr(grouped, "load_group",
-                        lambda ing, pendings: calls.append(len(pendings)) or original(ing, pendings))
+
+    def counted(ing, pendings):
+        calls.append(len(pendings))
+        return original(ing, pendings)
+    monkeypatch.setattr(grouped, "load_group", counted)
     together, snap_together = _ingest(tmp_path / "together.duckdb", raw_root)
     assert calls == [6]
     monkeypatch.setattr(grouped, "GROUP_BATCHES", 1)
