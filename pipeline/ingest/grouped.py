@@ -28,6 +28,8 @@ from __future__ import annotations
 import logging
 from pathlib import Path
 
+import duckdb
+
 from pipeline.crashpoints import crash_point
 from pipeline.errors import BatchError, environment_problem, is_interrupt
 from pipeline.ingest.normalise import QUANTITY_KIND, ident, layout, uncertainty_sql
@@ -168,6 +170,14 @@ def _restore_sequences(con, before: dict[str, int | None]) -> None:
 
 
 def _drop_temporary(con) -> None:
+    """Drop the group's temporary tables (a connection already broken keeps its error)."""
+    try:
+        _drop(con)
+    except duckdb.Error:
+        pass
+
+
+def _drop(con) -> None:
     names = [r[0] for r in con.execute(
         "SELECT table_name FROM duckdb_tables() WHERE temporary AND (table_name = 'fl_gstage' "
         "OR regexp_matches(table_name, '^fl_g(layout|norm)_[0-9]+$'))"
