@@ -1,168 +1,161 @@
-"""Benchmark of the check stage: every check over 1,000 and 4,000 synthetic fluids in memory.
+"""Benchmark of the check stage: every check over 1,000 and 4,000 synthetic fluids.
 
-Each synthetic fluid is a corresponding-states copy of a published fluid (argon, nitrogen, carbon
-dioxide: the reference curves of ``pipeline.correlations.reference``) with its temperatures
-scaled by s_T and pressures by s_p (every reference form is a function of T/T_ref times the
-reference value, so the scaled curves stay mutually consistent). Per fluid: triple and critical
-points from two sources, a stated acentric factor and Δh_vap at Tt, ~300 observations in seven files (three
-vapour-pressure campaigns, a sublimation and a melting series, near-critical saturated
-densities, solid and liquid densities at Tt) with noise and fit residuals (|z| <= 2.5); 1 % of the fluids
-carry a kPa-recorded-as-Pa file so the diagnosis path is timed too.
+The fluids are those of ``benchmarks/synthetic_fluids.py`` (corresponding-states copies of
+argon, nitrogen and carbon dioxide, ~300 observations in seven files each, curves with a fit's
+covariance; 1 % carry a unit mix-up). The parent process builds the stacked tables of each
+size once and hands them to child processes, one per measurement, so every figure is that of
+a fresh process: its own peak memory, no warm caches. In each child:
 
-Run: ``python benchmarks/check.py`` (``--fluids 1000 4000`` to choose sizes). Targets: < 10 s
-for 1,000 fluids, and 4x the fluids in <= 4.5x the time.
+- ``load``: the stacked tables split into fluids (``fluids_from_tables``: what the store
+  loader does after its five queries);
+- ``checks``: ``run_checks`` over all fluids, every check (the figure with a target);
+- ``store``: ``store_run`` into a fresh store (the run row and all results in one insert);
+- the process's peak resident memory.
+
+Printed per size: min / median / max over the repeats (wall, and CPU of the checks), the ratio
+of the median to the target of issue 14 (all checks over 1,000 fluids <= 3 s), and the
+linearity (time per fluid at the larger size over that at the smaller: 1 is linear), each for
+the wall time (the target's measure) and for the CPU time of the checks (which other work on
+a shared machine moves less). The sizes alternate within each repeat, so a change in load
+weighs on all of them. The machine's load average is printed before and after: on a shared
+machine compare ratios within one run. No timed tests: this script only prints.
+
+Run: ``python benchmarks/check.py`` (``--fluids 1000 4000``, ``--repeat 3``).
 """
 
 from __future__ import annotations
 
 import argparse
-import dataclasses
-import math
+import json
+import os
+import pickle
+import resource
+import statistics
+import subprocess
 import sys
+import tempfile
 import time
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from pipeline.checks import FluidData, run_checks  # noqa: E402
-from pipeline.checks.data import fluids_from_tables  # noqa: E402
-from pipeline.correlations import REFERENCE_CONSTANTS, reference_curve  # noqa: E402
-
-BASES = ("argon", "nitrogen", "carbon-dioxide")
-SCALE_OF = {"pressure": "p", "rho_liquid": "rho", "rho_vapour": "rho"}
-CURVE_KEYS = [("liquid-vapour", "", "pressure"), ("liquid-vapour", "", "rho_liquid"),
-              ("liquid-vapour", "", "rho_vapour"), ("solid-vapour", "", "pressure"),
-              ("solid-liquid", "", "pressure")]
+TARGET_S = 3.0           # issue 14: all checks over 1,000 fluids
+TARGET_FLUIDS = 1000
+LINEAR_LIMIT = 1.10      # time per fluid at the larger size / at the smaller
 
 
-def scaled(curve, sT: float, factor: float):
-    """The curve with T scaled by sT and its values by ``factor`` (corresponding states)."""
-    log = curve.correlation_form.link == "log"
-    first = curve.params[0] + math.log(factor) if log else curve.params[0] * factor
-    return dataclasses.replace(curve, params=(first,) + tuple(curve.params[1:]),
-                               ref={**curve.ref, "T_ref_K": curve.ref["T_ref_K"] * sT},
-                               T_min_K=curve.T_min_K * sT, T_max_K=curve.T_max_K * sT)
+def tables(n: int, seed: int = 7) -> dict:
+    """The stacked input tables of ``n`` synthetic fluids (as the store loader reads them)."""
+    from synthetic_fluids import synthetic_fluid
 
-
-def _series(curve, T, rng, *, boundary, quantity="pressure", source, kind, noise=1e-4, scale=1.0):
-    value = np.asarray(curve.value(T), dtype=float) * (1 + rng.normal(0, noise, len(T))) * scale
-    return {"boundary": np.full(len(T), boundary), "quantity": np.full(len(T), quantity),
-            "T_K": T, "value_si": value, "u_value_si": np.abs(value) * noise,
-            "source_id": np.full(len(T), source), "source_kind": np.full(len(T), kind),
-            "file_path": np.full(len(T), f"synthetic/{source}-{boundary}-{quantity}.csv")}
-
-
-def _observations(i, curves, pts, rng, plant: bool) -> pd.DataFrame:
-    """Seven files: three vapour-pressure campaigns, sublimation, melting, densities."""
-    Tt, Tc = pts["Tt"], pts["Tc"]
-    lv, sv, sl = (curves[k] for k in (CURVE_KEYS[0], CURVE_KEYS[3], CURVE_KEYS[4]))
-    LV = "liquid-vapour"
-    parts = [
-        _series(lv, np.linspace(Tt + 1, Tc - 1, 50), rng, boundary=LV, source=f"std-{i}", kind="standard"),
-        _series(lv, np.linspace(Tt + 2, Tc - 2, 45), rng, boundary=LV, source=f"lit-{i}", kind="literature"),
-        _series(lv, np.linspace(Tt + 3, 0.9 * Tc, 40), rng, boundary=LV, source=f"lab-{i}", kind="measurement",
-                scale=1e-3 if plant else 1.0),
-        _series(sv, np.linspace(sv.T_min_K, Tt - 0.5, 30), rng, boundary="solid-vapour", source=f"sub-{i}",
-                kind="literature"),
-        _series(sl, np.linspace(Tt + 0.5, sl.T_max_K, 30), rng, boundary="solid-liquid", source=f"melt-{i}",
-                kind="literature"),
-    ]
-    T_near_critical = np.linspace(0.95 * Tc, 0.998 * Tc, 20)
-    for q in ("rho_liquid", "rho_vapour"):
-        parts.append(_series(curves[(LV, "", q)], T_near_critical, rng, boundary=LV, quantity=q,
-                             source=f"dens-{i}", kind="literature"))
-    for q, v in (("rho_solid", 1.15 * pts["rho_l"]), ("rho_liquid", pts["rho_l"])):
-        parts.append({"boundary": ["solid-liquid"], "quantity": [q], "T_K": [Tt], "value_si": [v],
-                      "u_value_si": [0.5], "source_id": [f"dens-{i}"], "source_kind": ["literature"],
-                      "file_path": [f"synthetic/dens-{i}-solid.csv"]})
-    obs = pd.concat([pd.DataFrame(p) for p in parts], ignore_index=True)
-    obs["obs_id"] = np.arange(1, len(obs) + 1) + 1000 * i
-    pressure = obs["quantity"].to_numpy() == "pressure"
-    obs["fit_id"] = np.where(pressure, obs["boundary"].to_numpy() + f"-{i}", None)
-    obs["z"] = np.where(pressure, np.clip(rng.normal(0, 0.7, len(obs)), -2.5, 2.5), np.nan)
-    return obs
-
-
-def _fixed_points(i, pts, sT) -> list[dict]:
-    """Triple and critical points from a standard and a slightly different literature source."""
-    u_T = 0.01 * sT
-    rows = []
-    for source, kind, dT, fp in ((f"std-{i}", "standard", 0.0, 1.0), (f"lit-{i}", "literature", 0.003, 1.00005)):
-        rows.append(dict(kind="triple", phases="vapour,liquid,solid", T_K=pts["Tt"] + dT, u_T_K=u_T,
-                         p_Pa=pts["pt"] * fp, u_p_Pa=pts["pt"] * 1e-4, source_id=source, source_kind=kind))
-        rows.append(dict(kind="critical", phases="liquid,vapour", T_K=pts["Tc"] - dT, u_T_K=u_T,
-                         p_Pa=pts["pc"] / fp, u_p_Pa=pts["pc"] * 1e-4, rho_kg_m3=pts["rhoc"],
-                         u_rho_kg_m3=pts["rhoc"] * 1e-3, source_id=source, source_kind=kind))
-    return rows
-
-
-def _constants(i, curves, pts, M, rng) -> list[dict]:
-    """A stated acentric factor, and Δh_vap at Tt consistent with Clapeyron."""
-    lv = curves[CURVE_KEYS[0]]
-    omega = -math.log10(float(lv.value(0.7 * pts["Tc"], extrapolate=True)) / pts["pc"]) - 1
-    dv = M * (1 / float(curves[CURVE_KEYS[2]].value(pts["Tt"])) - 1 / pts["rho_l"])
-    return [dict(name="acentric_factor", value_si=omega + rng.normal(0, 1e-3), u_si=2e-3, si_unit="1",
-                 source_id=f"lit-{i}", source_kind="literature"),
-            dict(name="h_vaporization_triple", value_si=pts["Tt"] * dv * float(lv.slope(pts["Tt"])),
-                 u_si=np.nan, si_unit="J/mol", source_id=f"std-{i}", source_kind="standard")]
-
-
-def synthetic_fluid(i: int, rng: np.random.Generator, *, plant: bool) -> dict:
-    """Tables of one synthetic fluid: observations, fixed points, constants, curves."""
-    base = BASES[i % len(BASES)]
-    ref = REFERENCE_CONSTANTS[base]
-    sT, sp, srho = rng.uniform(0.6, 1.8), rng.uniform(0.5, 2.0), rng.uniform(0.8, 1.2)
-    factor = {"p": sp, "rho": srho}
-    curves = {k: scaled(reference_curve(base, k[0], k[2], k[1]), sT, factor[SCALE_OF[k[2]]])
-              for k in CURVE_KEYS}
-    tp = ref["triple_points"][0]
-    pts = {"Tt": tp["T_K"] * sT, "pt": tp["p_Pa"] * sp, "Tc": ref["Tc_K"] * sT, "pc": ref["pc_Pa"] * sp,
-           "rhoc": ref["rhoc_kg_m3"] * srho}
-    pts["rho_l"] = float(curves[CURVE_KEYS[1]].value(pts["Tt"]))
-    fid = f"synthetic-{i:05d}"
-    obs = _observations(i, curves, pts, rng, plant).assign(fluid_id=fid)
-    fixed = [dict(r, fluid_id=fid) for r in _fixed_points(i, pts, sT)]
-    constants = [dict(r, fluid_id=fid) for r in _constants(i, curves, pts, ref["molar_mass_kg_mol"], rng)]
-    return {"fluid": (fid, ref["molar_mass_kg_mol"]), "obs": obs, "fixed": fixed, "constants": constants,
-            "curves": curves}
-
-
-def build(n: int, seed: int = 7) -> dict[str, FluidData]:
-    """n synthetic fluids, stacked and split once (as the store loader does)."""
     rng = np.random.default_rng(seed)
     parts = [synthetic_fluid(i, rng, plant=(i % 100 == 0)) for i in range(n)]
-    fluids = pd.DataFrame([p["fluid"] for p in parts], columns=["fluid_id", "molar_mass_kg_mol"])
-    return fluids_from_tables(fluids, pd.concat([p["obs"] for p in parts], ignore_index=True),
-                              pd.DataFrame([r for p in parts for r in p["fixed"]]),
-                              pd.DataFrame([r for p in parts for r in p["constants"]]),
-                              {p["fluid"][0]: p["curves"] for p in parts})
+    return {"fluids": pd.DataFrame([p["fluid"] for p in parts],
+                                   columns=["fluid_id", "molar_mass_kg_mol"]),
+            "observations": pd.concat([p["obs"] for p in parts], ignore_index=True),
+            "fixed_points": pd.DataFrame([r for p in parts for r in p["fixed"]]),
+            "constants": pd.DataFrame([r for p in parts for r in p["constants"]]),
+            "curves": {p["fluid"][0]: p["curves"] for p in parts}}
 
 
-def timed(n: int) -> tuple[float, object]:
+def child(path: Path) -> dict:
+    """One measurement in this process: load, checks, store; peak memory."""
+    from pipeline.checks import run_checks, store_run
+    from pipeline.checks.loader import fluids_from_tables
+    from pipeline.store import open_store
+
+    with open(path, "rb") as fh:
+        t = pickle.load(fh)
     t0 = time.perf_counter()
-    fluids = build(n)
-    t_build = time.perf_counter() - t0
+    fluids = fluids_from_tables(t["fluids"], t["observations"], t["fixed_points"], t["constants"],
+                                t["curves"])
+    load = time.perf_counter() - t0
     t0, c0 = time.perf_counter(), time.process_time()
     run = run_checks(fluids)
-    seconds, cpu = time.perf_counter() - t0, time.process_time() - c0
-    print(f"{n:6d} fluids: built in {t_build:6.2f} s; checks in {seconds:6.2f} s wall, {cpu:6.2f} s CPU "
-          f"({len(run.results)} results: {run.asstr().split(': ', 1)[1]})", flush=True)
-    return seconds, run
+    checks, cpu = time.perf_counter() - t0, time.process_time() - c0
+    with tempfile.TemporaryDirectory() as tmp, open_store(Path(tmp) / "store.duckdb") as store:
+        t0 = time.perf_counter()
+        store_run(store.con, run)
+        stored = time.perf_counter() - t0
+    peak_kib = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    return {"fluids": len(fluids), "results": len(run.table), "counts": run.counts(),
+            "load_s": load, "checks_s": checks, "checks_cpu_s": cpu, "store_s": stored,
+            "peak_rss_mib": peak_kib / 1024}
+
+
+def measure(path: Path) -> dict:
+    out = subprocess.run([sys.executable, __file__, "--child", str(path)], check=True,
+                         capture_output=True, text=True)
+    return json.loads(out.stdout.strip().splitlines()[-1])
+
+
+def _spread(values: list[float]) -> str:
+    return f"{min(values):.2f} / {statistics.median(values):.2f} / {max(values):.2f}"
+
+
+def _spread_mib(values: list[float]) -> str:
+    return f"{min(values):.0f} / {statistics.median(values):.0f} / {max(values):.0f}"
+
+
+def _load() -> str:
+    return " ".join(f"{x:.1f}" for x in os.getloadavg())
 
 
 def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--fluids", type=int, nargs="+", default=[1000, 4000])
+    p.add_argument("--repeat", type=int, default=3)
+    p.add_argument("--child", type=Path, help=argparse.SUPPRESS)
     args = p.parse_args(argv)
-    times = [timed(n)[0] for n in args.fluids]
-    if len(times) >= 2:
-        n0, n1 = args.fluids[0], args.fluids[-1]
-        ratio = times[-1] / times[0]
-        print(f"ratio {n1}/{n0} fluids: time x{ratio:.2f} for x{n1 / n0:.1f} fluids "
-              f"(target <= x{4.5 * n1 / n0 / 4:.2f}); {n0} fluids in {times[0]:.2f} s (target < 10 s)")
+    if args.child:
+        print(json.dumps(child(args.child)))
+        return 0
+    print(f"machine: {os.cpu_count()} CPUs, load average {_load()} (1, 5, 15 min) before")
+    medians, cpu_medians = {}, {}
+    with tempfile.TemporaryDirectory() as tmp:
+        paths, built = {}, {}
+        for n in args.fluids:
+            t0 = time.perf_counter()
+            paths[n] = Path(tmp) / f"fluids-{n}.pickle"
+            with open(paths[n], "wb") as fh:
+                pickle.dump(tables(n), fh, protocol=pickle.HIGHEST_PROTOCOL)
+            built[n] = time.perf_counter() - t0
+        # the sizes alternate, so that a change in the machine's load weighs on all of them
+        measured: dict[int, list[dict]] = {n: [] for n in args.fluids}
+        for _ in range(args.repeat):
+            for n in args.fluids:
+                measured[n].append(measure(paths[n]))
+        for n, runs in measured.items():
+            wall = [r["checks_s"] for r in runs]
+            medians[n] = statistics.median(wall)
+            cpu_medians[n] = statistics.median(r["checks_cpu_s"] for r in runs)
+            r0 = runs[0]
+            counts = ", ".join(f"{v} {k}" for k, v in r0["counts"].items() if v)
+            print(f"{n:6d} fluids ({r0['results']} results: {counts}; built in {built[n]:.1f} s), "
+                  f"{args.repeat} runs, min / median / max:\n"
+                  f"         checks {_spread(wall)} s wall, "
+                  f"{_spread([r['checks_cpu_s'] for r in runs])} s CPU; "
+                  f"load {_spread([r['load_s'] for r in runs])} s; "
+                  f"store {_spread([r['store_s'] for r in runs])} s; "
+                  f"peak RSS {_spread_mib([r['peak_rss_mib'] for r in runs])} MiB", flush=True)
+    print(f"load average {_load()} after")
+    for label, med in (("wall", medians), ("CPU", cpu_medians)):
+        if TARGET_FLUIDS in med:
+            m = med[TARGET_FLUIDS]
+            print(f"target (issue 14): all checks over {TARGET_FLUIDS} fluids <= {TARGET_S:g} s: "
+                  f"median {m:.2f} s {label}, ratio {m / TARGET_S:.2f} -> "
+                  f"{'MET' if m <= TARGET_S else 'NOT MET'}")
+        if len(med) >= 2:
+            (n0, t0_), (n1, t1) = sorted(med.items())[0], sorted(med.items())[-1]
+            per = (t1 / n1) / (t0_ / n0)
+            print(f"linearity ({label}): {n1}/{n0} fluids: time x{t1 / t0_:.2f} for x{n1 / n0:.1f} "
+                  f"fluids, time per fluid x{per:.2f} (target <= x{LINEAR_LIMIT:.2f}) -> "
+                  f"{'MET' if per <= LINEAR_LIMIT else 'NOT MET'}")
     return 0
 
 

@@ -480,7 +480,7 @@ def _check(con, opts: NightlyOptions, prev: PreviousState, contexts: dict, selec
            check_fp: dict[str, str], run_id: str, curation: Curation):
     from pipeline.checks import Thresholds, load_fluid_data, run_checks, select_checks, store_run
     from pipeline.checks.engine import _utc, new_run_id
-    from pipeline.checks.results import CheckRun
+    from pipeline.checks.results import CheckRun, ResultTable
 
     t0, started = time.perf_counter(), _utc()
     specs = select_checks(None, None)
@@ -495,17 +495,17 @@ def _check(con, opts: NightlyOptions, prev: PreviousState, contexts: dict, selec
             recheck.append(f)
         else:
             reuse.setdefault(p["check_run"], []).append(f)
-    results = []
-    for old_run, fluids in reuse.items():
-        results.extend(_reused_results(con, old_run, fluids))
+    tables = [ResultTable.from_results(_reused_results(con, old_run, fluids))
+              for old_run, fluids in reuse.items()]
     chunks = [recheck[i:i + CHECK_CHUNK] for i in range(0, len(recheck), CHECK_CHUNK)]
     exclusions = curation.check_exclusions(con) if recheck else None
     with stage_progress("check", len(chunks), quiet=opts.quiet) as tick:
         for chunk in chunks:
             data, steps = curation.check_inputs(load_fluid_data(con, chunk), exclusions,
                                                 thresholds)
-            results.extend(run_checks(data, thresholds=thresholds, postprocessors=steps).results)
+            tables.append(run_checks(data, thresholds=thresholds, postprocessors=steps).table)
             tick(f"{chunk[0]}..{chunk[-1]}")
+    results = ResultTable.concat(tables)
     check_run = CheckRun(
         new_run_id(), started, _utc(), __version__,
         {"nightly_run_id": run_id, "fluids": opts.fluids, "rechecked_fluids": len(recheck),

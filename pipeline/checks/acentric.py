@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import math
 
-from pipeline.checks.data import FluidData
-from pipeline.checks.findings import judge, skipped
+from pipeline.checks.data import CheckBatch, FluidData
+from pipeline.checks.findings import Findings
 from pipeline.checks.points import u0
 from pipeline.checks.registry import register_check
 from pipeline.checks.stats import deviation_statistic
@@ -33,9 +33,9 @@ def omega_from_curve(fluid: FluidData, th=None):
                        **fluid.curve("liquid-vapour").evidence()}), None
 
 
-@register_check("acentric.factor", tags=("acentric", "critical", "curves"),
+@register_check("acentric.factor", tags=("acentric", "critical", "curves"), vectorised=True,
                 purpose="A stated acentric factor agrees with −log10(p_vap(0.7 Tc)/pc) − 1.")
-def acentric_factor(fluid: FluidData, th):
+def acentric_factor(batch: CheckBatch, th) -> Findings:
     """Pitzer's acentric factor is defined from the vapour pressure at the reduced temperature
     T/Tc = 0.7: ω = −log10(p_vap(0.7 Tc)/pc) − 1 (K. S. Pitzer et al., J. Am. Chem. Soc. 77,
     3433 (1955), from memory). The value implied by the fitted vapour-pressure curve and the
@@ -49,25 +49,34 @@ def acentric_factor(fluid: FluidData, th):
     Usual causes of a failure: ω computed with another Tc or pc; a value for another substance
     or isomer; ω taken from a cubic equation of state's fitted parameter.
     """
+    batch.prefetch((fluid, ("liquid-vapour", "", "pressure"), T_REDUCED * fluid.critical_point.T_K)
+                   for fluid in batch if fluid.critical_point is not None
+                   and math.isfinite(fluid.critical_point.p_Pa)
+                   and any(r["name"] == "acentric_factor" for r in fluid.constant_records))
+    out = Findings()
+    for fluid in batch:
+        _acentric(out, fluid, th(fluid.fluid_id))
+    return out
+
+
+def _acentric(out: Findings, fluid: FluidData, th) -> None:
     stated = [r for r in fluid.constant_records if r["name"] == "acentric_factor"]
     if not stated:
-        return []
+        return
     found, reason = omega_from_curve(fluid)
-    out = []
     for r in stated:
         subject = f"source:{r['source_id']}"
         if found is None:
-            out.append(skipped(fluid.fluid_id, subject, reason))
+            out.skip(fluid.fluid_id, subject, reason)
             continue
         omega, u, ev = found
         diff = r["value_si"] - omega
         u_comb = math.hypot(u0(r["u_si"]), u)
         dev = deviation_statistic(diff, 1.0, u_comb, z_max=th["z_max"], rel_tol=th["abs_tol"])
         stat = dev.statistic if u_comb > 0 else "|Δω|"
-        out.append(judge(fluid.fluid_id, subject, measured=dev.measured, limit=dev.limit,
-                         statistic=stat, evidence={**ev, "omega_curve": omega, "u_omega_curve": u,
-                                                   "omega_stated": r["value_si"],
-                                                   "u_omega_stated": r["u_si"]},
-                         context=f"stated ω = {r['value_si']:.4f} ({r['source_id']}) vs "
-                                 f"{omega:.4f} ± {u:.2g} from the vapour-pressure curve"))
-    return out
+        out.judge(fluid.fluid_id, subject, measured=dev.measured, limit=dev.limit,
+                  statistic=stat, evidence={**ev, "omega_curve": omega, "u_omega_curve": u,
+                                            "omega_stated": r["value_si"],
+                                            "u_omega_stated": r["u_si"]},
+                  context=f"stated ω = {r['value_si']:.4f} ({r['source_id']}) vs "
+                          f"{omega:.4f} ± {u:.2g} from the vapour-pressure curve")

@@ -30,6 +30,8 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from pipeline.checks.stats import group_medians, group_sums
+
 UNCERTAINTY_TABLE = "uncertainty"
 EXTRAPOLATION_TABLE = "extrapolation"
 #: order of the per-kind arrays in the ["uncertainty"] table
@@ -185,6 +187,22 @@ class CurveBudget:
             best = min(self.files, key=lambda f: min(abs(T - f.T_min_K), abs(T - f.T_max_K))).correlated_rel
         return best * self.expansion
 
+    def floor_rel_array(self, T: np.ndarray) -> np.ndarray:
+        """:meth:`floor_rel` at every temperature of ``T`` (finite), the same numbers."""
+        T = np.asarray(T, dtype=float)
+        if not self.files:
+            return np.zeros(len(T))
+        policy = self.policy
+        margin = (np.maximum(policy.min_K, policy.max_fraction * np.abs(T)) if policy
+                  else np.zeros(len(T)))
+        lo = np.array([f.T_min_K for f in self.files])[:, None]
+        hi = np.array([f.T_max_K for f in self.files])[:, None]
+        corr = np.array([f.correlated_rel for f in self.files])
+        covering = (lo - margin <= T) & (T <= hi + margin)
+        covered = np.where(covering, corr[:, None], np.inf).min(axis=0)
+        nearest = corr[np.argmin(np.minimum(np.abs(T - lo), np.abs(T - hi)), axis=0)]
+        return np.where(covering.any(axis=0), covered, nearest) * self.expansion
+
     def evidence(self) -> dict:
         return {"files": [{"file": f.path, "T_range_K": [f.T_min_K, f.T_max_K],
                            "correlated_rel_u": f.correlated_rel, "n": f.n,
@@ -194,36 +212,96 @@ class CurveBudget:
                 "expansion": self.expansion}
 
 
-def curve_budget(series, fitted_value, model: UncertaintyModel,
-                 policy: ExtrapolationPolicy) -> CurveBudget:
+def curve_budget(series, fitted: np.ndarray, model: UncertaintyModel,
+                 policy: ExtrapolationPolicy, kept: np.ndarray | None = None) -> CurveBudget:
     """The :class:`CurveBudget` of a fitted curve from the observations it was fitted to.
 
-    ``series`` is the group's :class:`~pipeline.checks.data.ObsSeries` (fit outliers are left
-    out), ``fitted_value`` evaluates the fit (T -> value, extrapolating).
+    ``series`` is the group's :class:`~pipeline.checks.data.ObsSeries`; ``kept`` the positions
+    of the observations that enter (fit outliers and non-finite values are left out; computed
+    when None) and ``fitted`` the fitted curve's values at them (extrapolating).
     """
-    keep = ~series.is_outlier.astype(bool) & np.isfinite(series.value.astype(float))
-    if not keep.any():
-        return CurveBudget(policy=policy)
-    s = series.take(np.flatnonzero(keep))
-    T, y = s.T.astype(float), s.value.astype(float)
-    u = s.u_value_si.astype(float)
-    kinds = s.source_kind
+    if kept is None:
+        kept = np.flatnonzero(~series.is_outlier.astype(bool) & np.isfinite(series.value.astype(float)))
+    return curve_budgets([(series.take(kept), fitted, model, policy)])[0]
+
+
+def curve_budgets(parts) -> list[CurveBudget]:
+    """The :class:`CurveBudget` of many fitted curves at once.
+
+    ``parts`` holds, per curve, the series of the observations that enter its budget, the
+    fitted values at them, the uncertainty model and the extrapolation policy. Every file's
+    statistics (median relative u, mean relative residual, T range) are computed for all
+    files of all curves together, with the arithmetic of the same statistics file by file
+    (:func:`~pipeline.checks.stats.group_medians`, :func:`~pipeline.checks.stats.group_sums`).
+    """
+    out: list[CurveBudget | None] = [None] * len(parts)
+    full = [i for i, p in enumerate(parts) if len(p[0])]
+    for i, (series, _, _, policy) in enumerate(parts):
+        if not len(series):
+            out[i] = CurveBudget(policy=policy)
+    if not full:
+        return out
+    series = [parts[i][0] for i in full]
+    sizes = np.array([len(s) for s in series])
+    part = np.repeat(np.arange(len(full)), sizes)
+    T = np.concatenate([s.T for s in series]).astype(float)
+    y = np.concatenate([s.value for s in series]).astype(float)
+    u = np.concatenate([s.u_value_si for s in series]).astype(float)
+    fitted = np.concatenate([np.asarray(parts[i][1], dtype=float) for i in full])
+    kinds = np.concatenate([s.source_kind for s in series])
+    paths = np.concatenate([s.file_path for s in series])
+    codes = np.concatenate([s.file_code for s in series])
+    # the default relative u of each row's quantity and source kind, in each curve's model
+    kind_codes = np.concatenate([s.kind_code for s in series])
+    pair = part * (int(kind_codes.max()) + 2) + (kind_codes + 1)
+    pairs, at, back = np.unique(pair, return_index=True, return_inverse=True)
+    lut = np.array([parts[full[part[r]]][2].observed_rel(series[part[r]].quantity, kinds[r])
+                    for r in at])
+    defaults = lut[back]
     stated = np.isfinite(u) & (u > 0)
-    rel = np.where(stated, np.abs(u / np.where(y != 0, y, np.nan)),
-                   [model.observed_rel(s.quantity, k) for k in kinds])
     with np.errstate(invalid="ignore", divide="ignore"):
-        resid = y / np.asarray(fitted_value(T), dtype=float) - 1.0
-    shares = []
-    paths = s.file_path
-    for path in dict.fromkeys(paths):
-        m = paths == path
-        frac = model.correlated_fraction(kinds[m][0])
-        r = float(np.median(rel[m]))
+        rel = np.where(stated, np.abs(u / np.where(y != 0, y, np.nan)), defaults)
+        resid = y / fitted - 1.0
+    # files: one segment per (curve, file), in the order files first appear within a curve
+    key = part * (int(codes.max()) + 2) + (codes + 1)
+    uniq, first, inverse = np.unique(key, return_index=True, return_inverse=True)
+    by_first = np.argsort(first, kind="stable")          # curve by curve, files first-seen
+    seg_of_uniq = np.empty(len(uniq), dtype=np.intp)
+    seg_of_uniq[by_first] = np.arange(len(uniq))
+    seg = seg_of_uniq[inverse]
+    n_seg = len(uniq)
+    first_row = first[by_first]
+    order = np.argsort(seg, kind="stable")               # rows segment by segment, in order
+    counts = np.bincount(seg, minlength=n_seg)
+    starts = np.r_[0, np.cumsum(counts)[:-1]]
+    T_seg = T[order]
+    T_min = np.minimum.reduceat(T_seg, starts)
+    T_max = np.maximum.reduceat(T_seg, starts)
+    r_med = group_medians(rel, seg, n_seg)
+    finite = np.isfinite(resid)
+    ok_order = order[finite[order]]                       # the finite residuals, in order
+    ok_counts = np.bincount(seg[finite], minlength=n_seg)
+    ok_starts = np.r_[0, np.cumsum(ok_counts)[:-1]]
+    offsets = np.full(n_seg, np.nan)
+    has = ok_counts > 0
+    offsets[has] = group_sums(resid[ok_order], ok_starts[has], ok_counts[has]) / ok_counts[has]
+    seg_part = part[first_row]
+    shares: list[list[FileShare]] = [[] for _ in full]
+    for k in range(n_seg):
+        j = int(seg_part[k])
+        frac = parts[full[j]][2].correlated_fraction(kinds[first_row[k]])
+        r = float(r_med[k])
         corr, rand = frac * r, math.sqrt(max(1.0 - frac ** 2, 0.0)) * r
-        ok = m & np.isfinite(resid)
-        offset = float(np.mean(resid[ok])) if ok.any() else math.nan
-        shares.append(FileShare(str(path), float(T[m].min()), float(T[m].max()), corr, rand,
-                                int(m.sum()), offset))
+        shares[j].append(FileShare(str(paths[first_row[k]]), float(T_min[k]), float(T_max[k]),
+                                   corr, rand, int(counts[k]), float(offsets[k])))
+    for j, i in enumerate(full):
+        out[i] = _birge(tuple(shares[j]), parts[i][2], parts[i][3])
+    return out
+
+
+def _birge(shares: tuple[FileShare, ...], model: UncertaintyModel,
+           policy: ExtrapolationPolicy) -> CurveBudget:
+    """The curve budget of ``shares``: the Birge ratio of the files' offsets and the expansion."""
     birge, expansion = math.nan, 1.0
     usable = [f for f in shares if math.isfinite(f.offset_rel) and f.correlated_rel + f.random_rel > 0]
     if len(usable) >= 2:   # the files' scatter about their common offset (between-file chi2)
@@ -233,7 +311,7 @@ def curve_budget(series, fitted_value, model: UncertaintyModel,
         birge = math.sqrt(float(np.sum((d - mean) ** 2 / var)) / (len(usable) - 1))
         if model.birge_expansion:
             expansion = max(1.0, birge)
-    return CurveBudget(tuple(shares), birge, expansion, policy)
+    return CurveBudget(shares, birge, expansion, policy)
 
 
 @dataclass(frozen=True)

@@ -14,14 +14,16 @@ import math
 
 import numpy as np
 
-from pipeline.checks.data import FluidData, FittedCurve, ObsSeries
-from pipeline.checks.findings import Finding, judge, skipped
+from pipeline.checks.curves import grids
+from pipeline.checks.data import CheckBatch, FittedCurve, FluidData, ObsSeries
+from pipeline.checks.findings import Findings
 from pipeline.checks.physics import (
     PHASES_OF,
     curve_label,
     delta_v,
     density,
     enthalpy,
+    lookup_requests,
     vapour_density_estimate,
 )
 from pipeline.checks.points import SINGLE_SOLID
@@ -84,40 +86,38 @@ def sign_from_triple_point(fluid: FluidData, solid_phase: str, series: ObsSeries
                    "Tt_K": start.T_K, "median_T_K": T_mid}), None
 
 
-def _grid(fitted: FittedCurve, n: int) -> np.ndarray:
-    return np.linspace(fitted.T_min_K, fitted.T_max_K, n)
-
-
-def _fitted_sign(fluid: FluidData, key, fitted: FittedCurve, sign: int, basis: str,
-                 evidence: dict, th) -> Finding:
-    T = _grid(fitted, int(th["n_grid"]))
-    slope = np.asarray(fitted.slope(T), dtype=float)
-    worst = float(np.nanmin(sign * slope))
-    context = (f"{curve_label(key)} fit: dp/dT from {np.nanmin(slope):.4g} to "
-               f"{np.nanmax(slope):.4g} Pa/K over {T[0]:.6g}-{T[-1]:.6g} K; {basis} so the "
+def _fitted_sign(out: Findings, fluid: FluidData, key, fitted: FittedCurve, grid, sign: int,
+                 basis: str, evidence: dict) -> None:
+    T, slope = grid
+    worst = float(np.fmin.reduce(sign * slope))      # np.nanmin without its warning check
+    context = (f"{curve_label(key)} fit: dp/dT from {np.fmin.reduce(slope):.4g} to "
+               f"{np.fmax.reduce(slope):.4g} Pa/K over {T[0]:.6g}-{T[-1]:.6g} K; {basis} so the "
                f"slope must be {_SIGN_WORD[sign]}")
-    return judge(fluid.fluid_id, f"curve:{curve_label(key)}", measured=worst, limit=0.0,
-                 upper=False, ok=worst > 0, statistic="min(sign*dp/dT) [Pa/K]", context=context,
-                 evidence={**evidence, **fitted.evidence(), "expected_sign": sign})
+    out.judge(fluid.fluid_id, f"curve:{curve_label(key)}", measured=worst, limit=0.0,
+              upper=False, ok=worst > 0, statistic="min(sign*dp/dT) [Pa/K]", context=context,
+              evidence={**evidence, **fitted.evidence(), "expected_sign": sign})
 
 
-def _file_sign(fluid: FluidData, path: str, s: ObsSeries, sign: int, basis: str, th) -> Finding:
+def _file_sign(out: Findings, fluid: FluidData, path: str, s: ObsSeries, sign: int, basis: str,
+               th) -> None:
     subject = f"file:{path}|{s.boundary}" + (f":{s.solid_phase}" if s.solid_phase else "")
     if len(s) < th["min_points"] or np.ptp(s.T) == 0:
-        return skipped(fluid.fluid_id, subject, f"{len(s)} points in {path}: too few for a slope")
+        out.skip(fluid.fluid_id, subject, f"{len(s)} points in {path}: too few for a slope")
+        return
     (a, b), cov = linear_fit(s.T, s.value)
     se = math.sqrt(max(cov[1, 1], 0.0))
     t = float(np.clip(sign * b / se, -_T_CLAMP, _T_CLAMP)) if se > 0 else math.copysign(_T_CLAMP, sign * b)
     context = (f"{path}: {len(s)} melting points, slope {b:.4g} Pa/K (t = {t:.3g}); {basis} so "
                f"the slope must be {_SIGN_WORD[sign]}")
     wrong = t < -th["t_min"]
-    return judge(fluid.fluid_id, subject, measured=t, limit=-th["t_min"], upper=False,
-                 statistic="t = sign*slope/u(slope)", context=context,
-                 evidence={"slope_Pa_K": b, "u_slope_Pa_K": se, "expected_sign": sign,
-                           "n_points": len(s), "observations": s.refs() if wrong else []})
+    out.judge(fluid.fluid_id, subject, measured=t, limit=-th["t_min"], upper=False,
+              statistic="t = sign*slope/u(slope)", context=context,
+              evidence={"slope_Pa_K": b, "u_slope_Pa_K": se, "expected_sign": sign,
+                        "n_points": len(s), "observations": s.refs() if wrong else []})
 
 
-def _melting_findings(fluid: FluidData, solid_phase: str, th) -> list[Finding]:
+def _melting_findings(out: Findings, fluid: FluidData, solid_phase: str, slopes: dict,
+                      th) -> None:
     key = ("solid-liquid", solid_phase, "pressure")
     fitted = fluid.curve(*key)
     files = fluid.series("solid-liquid", "pressure", solid_phase).by_file()
@@ -134,24 +134,40 @@ def _melting_findings(fluid: FluidData, solid_phase: str, th) -> list[Finding]:
         basis = (f"the melting data lie {where} the {evidence['start']} temperature "
                  f"{evidence['Tt_K']:.6g} K and melting pressures rise away from it")
     elif fitted is not None and len(files) > 1:
-        slope = np.asarray(fitted.slope(_grid(fitted, int(th["n_grid"]))), dtype=float)
+        slope = slopes[key][1]
         sign, evidence = int(np.sign(np.nanmedian(slope))), {"basis": "fitted curve"}
         basis = "the fitted melting curve of all files has that sign"
     else:
-        return [skipped(fluid.fluid_id, f"curve:{curve_label(key)}", reason)]
-    out = []
+        out.skip(fluid.fluid_id, f"curve:{curve_label(key)}", reason)
+        return
     if fitted is not None and evidence.get("basis") != "fitted curve":
-        out.append(_fitted_sign(fluid, key, fitted, sign, basis, evidence, th))
+        _fitted_sign(out, fluid, key, fitted, slopes[key], sign, basis, evidence)
     elif fitted is not None:
-        out.append(skipped(fluid.fluid_id, f"curve:{curve_label(key)}", reason))
-    out.extend(_file_sign(fluid, path, s, sign, basis, th) for path, s in files.items())
+        out.skip(fluid.fluid_id, f"curve:{curve_label(key)}", reason)
+    for path, s in files.items():
+        _file_sign(out, fluid, path, s, sign, basis, th)
+
+
+def _sign_requests(fluid: FluidData, th) -> list:
+    """The density look-ups of :func:`expected_melting_sign`, for prefetching."""
+    out = []
+    for solid_phase in _solids(fluid):
+        T = _reference_T(fluid, solid_phase, fluid.series("solid-liquid", "rho_solid", solid_phase))
+        if T is not None:
+            out += lookup_requests(fluid, T)
     return out
 
 
+def _solids(fluid: FluidData) -> list[str]:
+    return sorted({k[1] for k in fluid.groups() if k[0] == "solid-liquid"}
+                  | {k[1] for k in fluid.pressure_curves() if k[0] == "solid-liquid"})
+
+
 @register_check("clapeyron.slope-sign", tags=("clapeyron", "melting", "curves", "sources"),
+                vectorised=True,
                 purpose="Melting slopes have the sign of ρ_solid − ρ_liquid; vapour and "
                         "sublimation slopes are positive.")
-def slope_sign(fluid: FluidData, th):
+def slope_sign(batch: CheckBatch, th) -> Findings:
     """On melting Δh_fus > 0, so by Clapeyron sign(dp/dT) = sign(Δv) = sign(ρ_solid − ρ_liquid):
     a solid less dense than its liquid (ice Ih: 916.7 vs 999.8 kg/m3) melts at a lower
     temperature under pressure and its melting curve falls; a denser solid (CO2, argon) has a
@@ -170,15 +186,21 @@ def slope_sign(fluid: FluidData, th):
     Usual causes of a failure: a file with T and p columns swapped or sorted wrongly; a
     melting series of another solid phase; solid and liquid density columns interchanged.
     """
-    out: list[Finding] = []
-    solids = sorted({k[1] for k in fluid.groups() if k[0] == "solid-liquid"}
-                    | {k[1] for k in fluid.pressure_curves() if k[0] == "solid-liquid"})
-    for solid_phase in solids:
-        out.extend(_melting_findings(fluid, solid_phase, th))
-    for key, fitted in fluid.pressure_curves().items():
-        if key[0] in ("liquid-vapour", "solid-vapour"):
-            out.append(_fitted_sign(fluid, key, fitted, 1, f"Δh > 0 and Δv > 0 on {key[0]}",
-                                    {}, th))
+    curves = [(fluid, key, fitted) for fluid in batch for key, fitted in fluid.pressure_curves().items()]
+    slopes = grids([c[2] for c in curves], [int(th(c[0].fluid_id)["n_grid"]) for c in curves], "slope")
+    by_fluid: dict[str, dict] = {}
+    for (fluid, key, _), grid in zip(curves, slopes):
+        by_fluid.setdefault(fluid.fluid_id, {})[key] = grid
+    batch.prefetch(r for fluid in batch for r in _sign_requests(fluid, th(fluid.fluid_id)))
+    out = Findings()
+    for fluid in batch:
+        t, own = th(fluid.fluid_id), by_fluid.get(fluid.fluid_id, {})
+        for solid_phase in _solids(fluid):
+            _melting_findings(out, fluid, solid_phase, own, t)
+        for key, fitted in fluid.pressure_curves().items():
+            if key[0] in ("liquid-vapour", "solid-vapour"):
+                _fitted_sign(out, fluid, key, fitted, own[key], 1,
+                             f"Δh > 0 and Δv > 0 on {key[0]}", {})
     return out
 
 
@@ -218,9 +240,21 @@ def _enthalpy_temperatures(fluid: FluidData, key, fitted: FittedCurve, triple_T)
     return sorted(set(T))
 
 
-@register_check("clapeyron.magnitude", tags=("clapeyron", "curves"),
+def _magnitude_plan(fluid: FluidData):
+    """(curve key, fitted curve, triple-point T, enthalpy temperatures) of each curve."""
+    out = []
+    for key, fitted in fluid.pressure_curves().items():
+        if key[0] not in PHASES_OF:
+            continue
+        tp = fluid.vapour_triple_point(None if key[0] == "liquid-vapour" else key[1] or SINGLE_SOLID)
+        triple_T = tp.T_K if tp else None
+        out.append((key, fitted, triple_T, _enthalpy_temperatures(fluid, key, fitted, triple_T)))
+    return out
+
+
+@register_check("clapeyron.magnitude", tags=("clapeyron", "curves"), vectorised=True,
                 purpose="Fitted slopes agree with Clapeyron's Δh/(TΔv) where Δh and densities exist.")
-def magnitude(fluid: FluidData, th):
+def magnitude(batch: CheckBatch, th) -> Findings:
     """Clapeyron: dp/dT = Δh / (T Δv) with molar Δh [J/mol] and Δv = M (1/ρ_b − 1/ρ_a)
     [m3/mol] from the stored densities of the two phases and the molar mass. At every
     temperature where an enthalpy of transition is stored (observations, or the stated
@@ -235,23 +269,23 @@ def magnitude(fluid: FluidData, th):
     densities of the wrong phase; a fit whose slope is poorly constrained (too few points or
     a narrow range); an enthalpy at another temperature than stated.
     """
-    out = []
-    for key, fitted in fluid.pressure_curves().items():
-        if key[0] not in PHASES_OF:
-            continue
-        tp = fluid.vapour_triple_point(None if key[0] == "liquid-vapour" else key[1] or SINGLE_SOLID)
-        triple_T = tp.T_K if tp else None
-        points = [p for T in _enthalpy_temperatures(fluid, key, fitted, triple_T)
-                  if (p := _clapeyron_point(fluid, key, fitted, T, th, triple_T)) is not None]
-        subject = f"curve:{curve_label(key)}"
-        if not points:
-            continue
-        dev, worst = max(points, key=lambda p: p[0].measured / p[0].limit)
-        out.append(judge(fluid.fluid_id, subject, measured=dev.measured, limit=dev.limit,
-                         statistic=dev.statistic, evidence={"worst": worst,
-                                                            "points": [p[1] for p in points]},
-                         context=f"{curve_label(key)} at {worst['T_K']:.6g} K: fitted slope "
-                                 f"{worst['slope_fit_Pa_K']:.5g} Pa/K vs Clapeyron "
-                                 f"{worst['slope_clapeyron_Pa_K']:.5g} Pa/K (ratio "
-                                 f"{worst['ratio']:.5f}; {len(points)} point(s))"))
+    plans = {fluid.fluid_id: _magnitude_plan(fluid) for fluid in batch}
+    batch.prefetch(r for fluid in batch for key, _, _, temperatures in plans[fluid.fluid_id]
+                   for T in temperatures for r in [(fluid, key, T)] + lookup_requests(fluid, T))
+    out = Findings()
+    for fluid in batch:
+        t = th(fluid.fluid_id)
+        for key, fitted, triple_T, temperatures in plans[fluid.fluid_id]:
+            points = [p for T in temperatures
+                      if (p := _clapeyron_point(fluid, key, fitted, T, t, triple_T)) is not None]
+            if not points:
+                continue
+            dev, worst = max(points, key=lambda p: p[0].measured / p[0].limit)
+            out.judge(fluid.fluid_id, f"curve:{curve_label(key)}", measured=dev.measured,
+                      limit=dev.limit, statistic=dev.statistic,
+                      evidence={"worst": worst, "points": [p[1] for p in points]},
+                      context=f"{curve_label(key)} at {worst['T_K']:.6g} K: fitted slope "
+                              f"{worst['slope_fit_Pa_K']:.5g} Pa/K vs Clapeyron "
+                              f"{worst['slope_clapeyron_Pa_K']:.5g} Pa/K (ratio "
+                              f"{worst['ratio']:.5f}; {len(points)} point(s))")
     return out

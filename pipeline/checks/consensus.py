@@ -18,6 +18,8 @@ from typing import Callable
 
 import numpy as np
 
+from pipeline.checks.stats import median
+
 TUKEY_C = 4.685
 ITERATIONS = 6
 WAGNER_EXPONENTS = (1.0, 1.5, 2.5, 5.0, 2.0, 3.0, 4.0)   # the first four: Wagner's 2.5-5 form
@@ -73,7 +75,13 @@ class Model:
 
 def _terms(T: np.ndarray) -> int:
     """Sum terms a fit to these temperatures can carry: about one per three distinct points."""
-    return max(1, min(len(np.unique(T)) // 3, len(np.unique(T)) - 2))
+    distinct = len(np.unique(T))
+    return max(1, min(distinct // 3, distinct - 2))
+
+
+def _two_distinct(T: np.ndarray) -> bool:
+    """True when the (finite) temperatures ``T`` hold at least two distinct values."""
+    return T.size > 0 and T.min() != T.max()
 
 
 def _solve(A: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray | None:
@@ -90,7 +98,7 @@ def weighted_fit(T: np.ndarray, y: np.ndarray, w: np.ndarray, make: DesignMaker,
                  k: int | None = None) -> Model | None:
     """Weighted least squares on the points with w > 0; None when too few points."""
     m = (w > 0) & np.isfinite(y) & np.isfinite(T)
-    if len(np.unique(T[m])) < 2:
+    if not _two_distinct(T[m]):
         return None
     design = make(T[m], _terms(T[m]) if k is None else k)
     A = design(T[m])
@@ -104,22 +112,41 @@ def weighted_fit(T: np.ndarray, y: np.ndarray, w: np.ndarray, make: DesignMaker,
 def tukey_weights(r: np.ndarray, floor: float) -> np.ndarray:
     """Bisquare weights of residuals r, scale 1.4826 MAD (at least ``floor``); 0 for NaN."""
     fin = np.isfinite(r)
-    mad = 1.4826 * float(np.median(np.abs(r[fin]))) if fin.any() else 0.0
+    mad = 1.4826 * median(np.abs(r[fin])) if fin.any() else 0.0
     q = np.where(fin, r / (TUKEY_C * max(mad, floor)), np.inf)
     return np.where(np.abs(q) < 1.0, (1.0 - q ** 2) ** 2, 0.0)
 
 
 def _start(T, y, files, line: DesignMaker, floor) -> np.ndarray | None:
-    """Weights from the single-file straight line with the least median residual over all points."""
+    """Weights from the single-file straight line with the least median residual over all points.
+
+    ``T`` and ``y`` are finite. Each file's line is ``weighted_fit(T, y, files == f, line, 1)``
+    (unit weights: the same least-squares problem, without the weighting's masks and products).
+    """
     best = None
-    for f in dict.fromkeys(files):
-        model = weighted_fit(T, y, (files == f).astype(float), line, 1)
-        if model is None:
+    for f in dict.fromkeys(files.tolist()):
+        m = files == f
+        Tf = T[m]
+        if not _two_distinct(Tf):
             continue
-        med = float(np.nanmedian(np.abs(model.raw(T) - y)))
+        design = line(Tf, 1)
+        A = design(Tf)
+        yf = y[m]
+        ok = np.all(np.isfinite(A), axis=1)
+        if not ok.all():
+            A, yf = A[ok], yf[ok]
+        if len(A) < A.shape[1]:
+            continue
+        coef, _, rank, _ = np.linalg.lstsq(A, yf, rcond=None)
+        if rank != A.shape[1]:
+            continue
+        with np.errstate(invalid="ignore", over="ignore"):
+            r = design(T) @ coef - y
+        d = np.abs(r)
+        med = median(d[~np.isnan(d)])
         if best is None or med < best[0]:
-            best = (med, model)
-    return None if best is None else tukey_weights(best[1].raw(T) - y, floor)
+            best = (med, r)
+    return None if best is None else tukey_weights(best[1], floor)
 
 
 def robust_fit(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMaker,
@@ -135,7 +162,7 @@ def robust_fit(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMake
     if start is None:
         return None, None
     w[ok] = start
-    if len(np.unique(T[w > 0])) < 2:
+    if not _two_distinct(T[w > 0]):
         return None, None
     design = make(T[w > 0], _terms(T[w > 0]))
     with np.errstate(invalid="ignore", divide="ignore"):

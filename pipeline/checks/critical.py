@@ -7,9 +7,8 @@ import math
 
 import numpy as np
 
-from pipeline.checks.data import FluidData
-from pipeline.checks.data import CheckBatch
-from pipeline.checks.findings import WARN, Finding, judge, skipped
+from pipeline.checks.data import CheckBatch, FluidData
+from pipeline.checks.findings import WARN, Findings
 from pipeline.checks.points import u0
 from pipeline.checks.registry import register_check
 from pipeline.checks.stats import combined_u, deviation_statistic, linear_fit
@@ -17,9 +16,9 @@ from pipeline.checks.stats import combined_u, deviation_statistic, linear_fit
 LV = "liquid-vapour"
 
 
-@register_check("critical.curve-end", tags=("critical", "curves"),
+@register_check("critical.curve-end", tags=("critical", "curves"), vectorised=True,
                 purpose="The vapour-pressure fit reaches the critical point and p_vap(Tc) = pc.")
-def curve_end(fluid: FluidData, th):
+def curve_end(batch: CheckBatch, th) -> Findings:
     """The liquid-vapour curve ends at the critical point. Two statements are tested:
 
     - reach: the fitted vapour pressure does not extend above Tc (beyond T_tol_K and z_max
@@ -35,10 +34,20 @@ def curve_end(fluid: FluidData, th):
     Usual causes of a failure: a stated critical pressure from another source than the data;
     data above Tc included in the fit; a critical temperature in another unit or scale.
     """
+    batch.prefetch((fluid, (LV, "", "pressure"), fluid.critical_point.T_K) for fluid in batch
+                   if fluid.critical_point is not None and fluid.curve(LV) is not None)
+    out = Findings()
+    for fluid in batch:
+        _curve_end(out, fluid, th(fluid.fluid_id))
+    return out
+
+
+def _curve_end(out: Findings, fluid: FluidData, th) -> None:
     cp, fitted = fluid.critical_point, fluid.curve(LV)
     if cp is None or fitted is None:
         missing = "stated critical point" if cp is None else "fitted vapour-pressure curve"
-        return [skipped(fluid.fluid_id, "reach", f"no {missing}")]
+        out.skip(fluid.fluid_id, "reach", f"no {missing}")
+        return
     Tc, pc = cp.T_K, cp.p_Pa
     gap = (Tc - fitted.T_max_K) / Tc
     margin = th["T_tol_K"] + th["z_max"] * u0(cp.u_T_K)
@@ -48,33 +57,33 @@ def curve_end(fluid: FluidData, th):
           "allowed_gap_K": fluid.budget.extrapolation.allowed(Tc)}
     context = f"fit ends at {fitted.T_max_K:.6g} K, Tc = {Tc:.6g} K"
     if above:
-        out = [judge(fluid.fluid_id, "reach", measured=fitted.T_max_K - Tc, limit=margin,
-                     statistic="T_max - Tc [K]", evidence=ev,
-                     context=context + " (the fit extends above Tc: no vapour pressure exists "
-                                       "there)")]
+        out.judge(fluid.fluid_id, "reach", measured=fitted.T_max_K - Tc, limit=margin,
+                  statistic="T_max - Tc [K]", evidence=ev,
+                  context=context + " (the fit extends above Tc: no vapour pressure exists there)")
     elif point is None:
-        out = [Finding(fluid.fluid_id, "reach", WARN,
-                       f"coverage gap: the vapour-pressure data end at {fitted.T_max_K:.6g} K = "
-                       f"{fitted.T_max_K / Tc:.3g} Tc, short of Tc = {Tc:.6g} K ({reason}); "
-                       f"p_vap(Tc) = pc is not tested", gap, None, "(Tc - T_max)/Tc", ev)]
+        out.add(fluid.fluid_id, "reach", WARN,
+                f"coverage gap: the vapour-pressure data end at {fitted.T_max_K:.6g} K = "
+                f"{fitted.T_max_K / Tc:.3g} Tc, short of Tc = {Tc:.6g} K ({reason}); "
+                f"p_vap(Tc) = pc is not tested", gap, None, "(Tc - T_max)/Tc", ev)
     else:
-        out = [judge(fluid.fluid_id, "reach", measured=gap, limit=ev["allowed_gap_K"] / Tc,
-                     ok=True, statistic="(Tc - T_max)/Tc", evidence=ev,
-                     context=context + " (within the extrapolation policy)")]
+        out.judge(fluid.fluid_id, "reach", measured=gap, limit=ev["allowed_gap_K"] / Tc,
+                  ok=True, statistic="(Tc - T_max)/Tc", evidence=ev,
+                  context=context + " (within the extrapolation policy)")
     if not math.isfinite(pc):
-        return out + [skipped(fluid.fluid_id, "p(Tc)", "the critical point states no pressure")]
+        out.skip(fluid.fluid_id, "p(Tc)", "the critical point states no pressure")
+        return
     if point is None:
-        return out + [skipped(fluid.fluid_id, "p(Tc)", reason or "the fit does not reach Tc")]
+        out.skip(fluid.fluid_id, "p(Tc)", reason or "the fit does not reach Tc")
+        return
     p, u_fit = point.value, point.u
     u = combined_u(cp.u_p_Pa, point.slope * u0(cp.u_T_K), u_fit)
     dev = deviation_statistic(p - pc, pc, u, z_max=th["z_max"], rel_tol=th["rel_tol"])
-    out.append(judge(fluid.fluid_id, "p(Tc)", measured=dev.measured, limit=dev.limit,
-                     statistic=dev.statistic,
-                     evidence={**ev, "p_curve_Pa": p, "u_fit_Pa": u_fit, "u_combined_Pa": u,
-                               "curve": point.evidence()},
-                     context=f"p_vap(Tc = {Tc:.6g} K) = {p:.6g} Pa vs pc = {pc:.6g} Pa "
-                             f"({(p / pc - 1) * 100:+.3g} %)"))
-    return out
+    out.judge(fluid.fluid_id, "p(Tc)", measured=dev.measured, limit=dev.limit,
+              statistic=dev.statistic,
+              evidence={**ev, "p_curve_Pa": p, "u_fit_Pa": u_fit, "u_combined_Pa": u,
+                        "curve": point.evidence()},
+              context=f"p_vap(Tc = {Tc:.6g} K) = {p:.6g} Pa vs pc = {pc:.6g} Pa "
+                      f"({(p / pc - 1) * 100:+.3g} %)")
 
 
 @register_check("critical.no-vle-above-tc", tags=("critical", "data"), vectorised=True,
@@ -91,20 +100,17 @@ def no_vle_above_tc(batch: CheckBatch, th):
     Usual causes of a failure: supercritical isotherm or dew/bubble data of a mixture filed as
     vapour pressure; a temperature column in another unit or scale; a stated Tc that is too low.
     """
-    obs = batch.observations
-    lv = obs[obs["boundary"] == LV].reset_index(drop=True) if len(obs) else obs
-    by_fluid = lv.groupby("fluid_id", sort=False).indices if len(lv) else {}
-    cols = {c: lv[c].to_numpy() for c in ("T_K", "u_T_K", "obs_id", "file_path", "row_number", "quantity")} \
-        if len(lv) else {}
-    out: list[Finding] = []
+    out = Findings()
     for fluid in batch:
         cp, fid = fluid.critical_point, fluid.fluid_id
         t = th(fid)
-        idx = by_fluid.get(fid)
-        if cp is None or idx is None:
-            out.append(skipped(fid, "", "no stated critical point" if cp is None
-                               else "no liquid-vapour observations"))
+        groups = [idx for key, idx in fluid._groups.items() if key[0] == LV]
+        if cp is None or not groups:
+            out.skip(fid, "", "no stated critical point" if cp is None
+                     else "no liquid-vapour observations")
             continue
+        idx = np.sort(np.concatenate(groups))
+        cols = fluid._columns
         stated = [(r["T_K"], u0(r["u_T_K"]), r["source_id"]) for r in fluid.fixed_point_records
                   if r["kind"] == "critical" and math.isfinite(r["T_K"])]
         T = cols["T_K"][idx].astype(float)
@@ -124,15 +130,27 @@ def no_vle_above_tc(batch: CheckBatch, th):
         where = (f"Tc = {cp.T_K:.6g} K" if len(stated) == 1 else
                  f"every stated Tc (consensus {cp.T_K:.6g} K, highest {highest[0]:.6g} K from "
                  f"{highest[2]})")
-        out.append(judge(fid, "", measured=float(len(bad)), limit=0.0,
-                         statistic="observations above Tc",
-                         evidence={"Tc_K": cp.T_K, "u_Tc_K": cp.u_T_K, "max_T_minus_Tc_K": worst,
-                                   "stated_Tc_K": [{"T_K": s[0], "u_K": s[1], "source": s[2]}
-                                                   for s in stated],
-                                   "n_observations": int(len(idx)), "above": refs},
-                         context=(f"{len(bad)} of {len(idx)} liquid-vapour observations above "
-                                  f"{where}" + (f": {named}" if named else
-                                                f" (highest T - Tc = {worst:.4g} K)"))))
+        out.judge(fid, "", measured=float(len(bad)), limit=0.0,
+                  statistic="observations above Tc",
+                  evidence={"Tc_K": cp.T_K, "u_Tc_K": cp.u_T_K, "max_T_minus_Tc_K": worst,
+                            "stated_Tc_K": [{"T_K": s[0], "u_K": s[1], "source": s[2]}
+                                            for s in stated],
+                            "n_observations": int(len(idx)), "above": refs},
+                  context=(f"{len(bad)} of {len(idx)} liquid-vapour observations above "
+                           f"{where}" + (f": {named}" if named else
+                                         f" (highest T - Tc = {worst:.4g} K)")))
+    return out
+
+
+def _means_at(keys: np.ndarray, values: np.ndarray, at: np.ndarray) -> np.ndarray:
+    """The mean of ``values`` over the rows whose key equals each of ``at`` (sorted, present):
+    a single row's value as it is, several rows' mean as numpy's ``mean`` gives it."""
+    order = np.argsort(keys, kind="stable")
+    lo = np.searchsorted(keys, at, side="left", sorter=order)
+    hi = np.searchsorted(keys, at, side="right", sorter=order)
+    out = values[order[lo]].astype(float)
+    for i in np.flatnonzero(hi - lo > 1):
+        out[i] = values[keys == at[i]].mean()
     return out
 
 
@@ -145,8 +163,7 @@ def _paired_densities(fluid: FluidData, Tc: float, th):
         key_v = np.round(vap.T, 3)
         common = np.intersect1d(key_l[key_l >= lo], key_v[key_v >= lo])
         if len(common) >= th["min_points"]:
-            rl = np.array([liq.value[key_l == k].mean() for k in common])
-            rv = np.array([vap.value[key_v == k].mean() for k in common])
+            rl, rv = _means_at(key_l, liq.value, common), _means_at(key_v, vap.value, common)
             return common.astype(float), rl, rv, "observations"
     fl, fv = fluid.curve(LV, "", "rho_liquid"), fluid.curve(LV, "", "rho_vapour")
     if fl is None or fv is None:
@@ -171,9 +188,9 @@ def _estimate(T, rl, rv, beta):
     return Tc, u_Tc, rhoc, u_rhoc, float(c1)
 
 
-@register_check("critical.density-convergence", tags=("critical", "densities"),
+@register_check("critical.density-convergence", tags=("critical", "densities"), vectorised=True,
                 purpose="Saturated liquid and vapour densities converge on the stated (Tc, ρc).")
-def density_convergence(fluid: FluidData, th):
+def density_convergence(batch: CheckBatch, th) -> Findings:
     """Near the critical point the coexisting densities follow the scaling law
     ρ' − ρ'' = B (1 − T/Tc)^β with β ≈ 0.326 (E. A. Guggenheim, J. Chem. Phys. 13, 253 (1945),
     with the modern exponent), and their mean follows the law of the rectilinear diameter
@@ -189,26 +206,34 @@ def density_convergence(fluid: FluidData, th):
     liquid and vapour density columns swapped or in different units; near-critical data
     measured on another temperature scale.
     """
+    out = Findings()
+    for fluid in batch:
+        _convergence(out, fluid, th(fluid.fluid_id))
+    return out
+
+
+def _convergence(out: Findings, fluid: FluidData, th) -> None:
     cp = fluid.critical_point
     if cp is None:
-        return [skipped(fluid.fluid_id, "Tc", "no stated critical point")]
+        out.skip(fluid.fluid_id, "Tc", "no stated critical point")
+        return
     pairs = _paired_densities(fluid, cp.T_K, th)
     if pairs is None or len(pairs[0]) < th["min_points"]:
-        return [skipped(fluid.fluid_id, "Tc", f"fewer than {th['min_points']} pairs of saturated "
-                                              f"densities with T/Tc >= {th['Tr_min']}")]
+        out.skip(fluid.fluid_id, "Tc", f"fewer than {th['min_points']} pairs of saturated "
+                                       f"densities with T/Tc >= {th['Tr_min']}")
+        return
     T, rl, rv, basis = pairs
     Tc, u_Tc, rhoc, u_rhoc, slope_d = _estimate(T, rl, rv, th["beta"])
     ev = {"basis": basis, "n_points": int(len(T)), "T_range_K": [float(T.min()), float(T.max())],
           "Tc_estimate_K": Tc, "u_Tc_estimate_K": u_Tc, "rhoc_estimate_kg_m3": rhoc,
           "u_rhoc_estimate_kg_m3": u_rhoc, "diameter_slope_kg_m3_K": slope_d,
           "beta": th["beta"], **cp.evidence()}
-    out = [judge(fluid.fluid_id, "Tc", measured=abs(Tc / cp.T_K - 1), limit=th["Tc_rel_tol"],
-                 statistic="|Tc_est/Tc - 1|", evidence=ev,
-                 context=f"scaling law on {len(T)} {basis} gives Tc = {Tc:.6g} ± {u_Tc:.2g} K "
-                         f"vs stated {cp.T_K:.6g} K")]
+    out.judge(fluid.fluid_id, "Tc", measured=abs(Tc / cp.T_K - 1), limit=th["Tc_rel_tol"],
+              statistic="|Tc_est/Tc - 1|", evidence=ev,
+              context=f"scaling law on {len(T)} {basis} gives Tc = {Tc:.6g} ± {u_Tc:.2g} K "
+                      f"vs stated {cp.T_K:.6g} K")
     if math.isfinite(cp.rho_kg_m3):
-        out.append(judge(fluid.fluid_id, "rhoc", measured=abs(rhoc / cp.rho_kg_m3 - 1),
-                         limit=th["rhoc_rel_tol"], statistic="|rhoc_est/rhoc - 1|", evidence=ev,
-                         context=f"rectilinear diameter gives ρc = {rhoc:.5g} ± {u_rhoc:.2g} kg/m3 "
-                                 f"vs stated {cp.rho_kg_m3:.5g} kg/m3"))
-    return out
+        out.judge(fluid.fluid_id, "rhoc", measured=abs(rhoc / cp.rho_kg_m3 - 1),
+                  limit=th["rhoc_rel_tol"], statistic="|rhoc_est/rhoc - 1|", evidence=ev,
+                  context=f"rectilinear diameter gives ρc = {rhoc:.5g} ± {u_rhoc:.2g} kg/m3 "
+                          f"vs stated {cp.rho_kg_m3:.5g} kg/m3")

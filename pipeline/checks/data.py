@@ -1,12 +1,16 @@
 """What the checks read: per fluid, observations, stated points and constants, current fits.
 
-:func:`load_fluid_data` reads the store with five set-based queries (fluids, observations with
-their source kind and fit residuals, fixed points, stated constants, current fits), whatever
-the number of fluids, and splits the results per fluid. :meth:`FluidData.build` makes the same
-object from in-memory published data (tests, benchmarks).
+:func:`~pipeline.checks.loader.load_fluid_data` reads the store with five set-based queries
+(fluids, observations with their source kind and fit residuals, fixed points, stated constants,
+current fits), whatever the number of fluids; each :class:`FluidData` then holds slices of the
+stacked columns (:class:`FluidRows`), so nothing is split per fluid in pandas. The per-fluid
+DataFrames (``observations``, ``fixed_points``, ``constants``) are built only when asked for.
+:meth:`FluidData.build` makes the same object from in-memory data (tests, benchmarks).
 
 Checks read observations through :meth:`FluidData.series`, which returns numpy arrays
-(:class:`ObsSeries`) so that per-fluid work stays out of pandas.
+(:class:`ObsSeries`, columns taken on first use), and fitted curves through
+:meth:`FluidData.at`, or many points at once through :meth:`CheckBatch.prefetch`
+(:mod:`pipeline.checks.curves`).
 """
 
 from __future__ import annotations
@@ -14,143 +18,60 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from functools import cached_property
-from typing import Any, Iterable, Mapping, Sequence
+from typing import Any, Iterable, Iterator, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 
-from pipeline.checks.budget import (
-    Budget,
-    CurveBudget,
-    CurvePoint,
-    curve_budget,
-    default_budget,
-    reach,
+from pipeline.checks.budget import Budget, CurveBudget, CurvePoint, default_budget
+from pipeline.checks.curves import CurveKey, FittedCurve, Request, curve_budgets, evaluate_points
+from pipeline.checks.frames import (  # noqa: F401 (the column definitions, re-exported)
+    _FLOAT_OBS,
+    _SEP,
+    _TEXT_OBS,
+    CODE_COLUMNS,
+    CONSTANT_COLUMNS,
+    FIXED_POINT_COLUMNS,
+    OBS_COLUMNS,
+    SI_UNIT,
+    _frame,
+    _records,
+    normalise_observations,
+    sample_series,
+    with_codes,
 )
 from pipeline.checks.points import (
     StatedPoint,
     boundary_between,
     consensus_constant,
     consensus_points,
-    curve_label,
 )
-from pipeline.errors import CheckError
 
-CurveKey = tuple[str, str, str]  # (boundary, solid_phase, quantity)
+class _Rows(Mapping):
+    """Columns of some rows of parent columns, each taken on first use.
 
-#: Observation columns and the default used by :meth:`FluidData.build` when one is missing.
-OBS_COLUMNS: dict[str, Any] = {
-    "obs_id": None, "boundary": None, "solid_phase": "", "quantity": "pressure",
-    "T_K": None, "u_T_K": math.nan, "value_si": None, "u_value_si": math.nan,
-    "source_id": "memory", "source_kind": "literature", "file_path": None, "file_sha256": "",
-    "row_number": None, "T_unit": "K", "T_scale": "ITS-90", "value_unit": None,
-    "fit_id": None, "z": math.nan, "is_outlier": False, "excluded_by": None,
-}
-FIXED_POINT_COLUMNS: dict[str, Any] = {
-    "fp_id": None, "kind": None, "phases": None, "T_K": None, "u_T_K": math.nan,
-    "p_Pa": math.nan, "u_p_Pa": math.nan, "rho_kg_m3": math.nan, "u_rho_kg_m3": math.nan,
-    "source_id": "memory", "source_kind": "literature", "file_path": "memory/batch.toml",
-}
-CONSTANT_COLUMNS: dict[str, Any] = {
-    "const_id": None, "name": None, "value_si": None, "u_si": math.nan, "si_unit": "",
-    "source_id": "memory", "source_kind": "literature", "file_path": "memory/batch.toml",
-}
-SI_UNIT = {"pressure": "Pa", "rho_liquid": "kg/m^3", "rho_vapour": "kg/m^3",
-           "rho_solid": "kg/m^3", "h_vaporization": "J/mol", "h_fusion": "J/mol",
-           "h_sublimation": "J/mol"}
-_FLOAT_OBS = ("T_K", "u_T_K", "value_si", "u_value_si", "z")
-#: text columns kept as numpy object arrays: checks index them per fluid, and pandas' Arrow
-#: strings make each such access an Arrow 'take' (measured ~10x slower in the benchmark)
-_TEXT_OBS = ("boundary", "solid_phase", "quantity", "source_id", "source_kind", "file_path",
-             "file_sha256", "T_unit", "T_scale", "value_unit", "fit_id", "excluded_by")
+    A check reading three columns of a group pays for three, not for the twenty the
+    observations have.
+    """
 
+    __slots__ = ("parent", "index", "_taken")
 
-@dataclass(frozen=True)
-class FittedCurve:
-    """A current fit: the correlation :class:`~pipeline.correlations.Curve` and its metadata."""
+    def __init__(self, parent: Mapping[str, np.ndarray], index: np.ndarray):
+        self.parent, self.index, self._taken = parent, index, {}
 
-    curve: Any
-    fit_id: str | None = None
-    form: str | None = None
-    n_used: int | None = None
-    reduced_chi2: float | None = None
-    weighted_rms: float | None = None
-    input_hash: str | None = None
+    def __getitem__(self, name: str) -> np.ndarray:
+        col = self._taken.get(name)
+        if col is None:
+            col = self._taken[name] = self.parent[name][self.index]
+        return col
 
-    @property
-    def T_min_K(self) -> float:
-        return float(self.curve.T_min_K)
+    def __iter__(self) -> Iterator[str]:
+        return iter(self.parent)
 
-    @property
-    def T_max_K(self) -> float:
-        return float(self.curve.T_max_K)
-
-    def covers(self, T: float, margin_K: float = 0.0) -> bool:
-        """True when ``T`` lies inside the fitted range widened by ``margin_K`` [K]."""
-        return self.T_min_K - margin_K <= T <= self.T_max_K + margin_K
-
-    def value(self, T, extrapolate: bool = False):
-        return self.curve.value(T, extrapolate=extrapolate)
-
-    def slope(self, T, extrapolate: bool = False):
-        return self.curve.slope(T, extrapolate=extrapolate)
-
-    def u(self, T, extrapolate: bool = False):
-        """Standard uncertainty of the fitted value (0 where the fit has no covariance)."""
-        if getattr(self.curve, "covariance", None) is None:
-            return np.zeros_like(np.asarray(T, dtype=float))
-        return np.nan_to_num(self.curve.u(T, extrapolate=extrapolate), nan=0.0)
-
-    def slope_u(self, T: float) -> float:
-        """Standard uncertainty of the slope at ``T`` from the covariance (0 without one).
-
-        Delta method on d(slope)/d(params), the parameter Jacobian differentiated in T by
-        central differences (one-sided where the form ends, e.g. at a reference temperature).
-        """
-        cov = getattr(self.curve, "covariance", None)
-        if cov is None:
-            return 0.0
-        T = self._end(T)
-        h = 1e-5 * max(abs(T), 1.0)
-        J = {d: np.asarray(self.curve.jacobian(T + d * h), dtype=float) for d in (-1, 0, 1)}
-        for lo, hi in ((-1, 1), (-1, 0), (0, 1)):
-            dJ = (J[hi] - J[lo]) / ((hi - lo) * h)
-            if np.all(np.isfinite(dJ)):
-                var = float(dJ @ np.asarray(cov, dtype=float) @ dJ)
-                return math.sqrt(max(var, 0.0))
-        return 0.0
-
-    def _end(self, T: float) -> float:
-        """``T`` where the form is defined there, else the nearest end of the fitted range."""
-        if math.isfinite(float(self.value(T, extrapolate=True))):
-            return T
-        return min(max(T, self.T_min_K), self.T_max_K)
-
-    def near(self, T: float) -> tuple[float, float, float]:
-        """(value, slope, u) at a single T just outside (or inside) the fitted range.
-
-        The form's own extrapolation is used where it is defined; where it is not (a fractional
-        power of 1 − T/T_ref a rounding error past T_ref), the curve is continued from the
-        nearest end of its range: along Clausius-Clapeyron (ln p linear in 1/T) for forms
-        fitted in ln p, linearly for the others (melting curves). The uncertainty is that at
-        the end. Callers bound how far from the range T may lie.
-        """
-        end = self._end(T)
-        v_end, s_end = float(self.value(end, extrapolate=True)), float(self.slope(end, extrapolate=True))
-        u_end = float(self.u(end, extrapolate=True))
-        if end == T:
-            return v_end, s_end, u_end
-        if getattr(self.curve.correlation_form, "link", "") == "log" and v_end > 0:
-            b = -end ** 2 * s_end / v_end          # d ln p / d(1/T) at the end
-            value = v_end * math.exp(b * (1.0 / T - 1.0 / end))
-            return value, -value * b / T ** 2, u_end * value / v_end
-        return v_end + s_end * (T - end), s_end, u_end
-
-    def evidence(self) -> dict:
-        return {"fit_id": self.fit_id, "form": self.form or getattr(self.curve, "form", None),
-                "T_min_K": self.T_min_K, "T_max_K": self.T_max_K}
+    def __len__(self) -> int:
+        return len(self.parent)
 
 
 @dataclass(frozen=True, eq=False)
@@ -163,7 +84,8 @@ class ObsSeries:
     columns: Mapping[str, np.ndarray]
 
     def __len__(self) -> int:
-        return len(self.columns["obs_id"])
+        cols = self.columns
+        return len(cols.index) if isinstance(cols, _Rows) else len(cols["obs_id"])
 
     def __getattr__(self, name: str) -> np.ndarray:
         try:
@@ -180,13 +102,21 @@ class ObsSeries:
         return self.columns["value_si"]
 
     def take(self, index) -> "ObsSeries":
-        return ObsSeries(self.boundary, self.solid_phase, self.quantity,
-                         {k: v[index] for k, v in self.columns.items()})
+        cols = self.columns
+        if isinstance(cols, _Rows):
+            rows = _Rows(cols.parent, cols.index[index])
+        else:
+            rows = _Rows(cols, np.arange(len(self))[index])
+        return ObsSeries(self.boundary, self.solid_phase, self.quantity, rows)
 
     def by_file(self) -> dict[str, "ObsSeries"]:
         """One series per raw file, in first-seen order."""
-        paths = self.columns["file_path"]
-        return {p: self.take(np.flatnonzero(paths == p)) for p in dict.fromkeys(paths)}
+        paths, codes = self.columns["file_path"], self.columns["file_code"]
+        out = {}
+        for code in dict.fromkeys(codes.tolist()):
+            rows = np.flatnonzero(codes == code)
+            out[paths[rows[0]]] = self.take(rows)
+        return out
 
     def sorted_by_T(self) -> "ObsSeries":
         return self.take(np.argsort(self.T, kind="stable"))
@@ -200,39 +130,120 @@ class ObsSeries:
                  "value_si": float(cols["value_si"][i])} for i in idx[:limit]]
 
 
-@dataclass(eq=False)
-class FluidData:
-    """Everything the checks read about one fluid (SI units throughout)."""
+@dataclass(frozen=True, eq=False)
+class FluidRows:
+    """One fluid's rows in tables stacked over all fluids (made by the store loader).
 
-    fluid_id: str
-    molar_mass: float                       # [kg/mol]
-    observations: pd.DataFrame              # OBS_COLUMNS
-    fixed_points: pd.DataFrame              # FIXED_POINT_COLUMNS
-    constants: pd.DataFrame                 # CONSTANT_COLUMNS
-    curves: dict[CurveKey, FittedCurve] = field(default_factory=dict)
-    cas_rn: str = ""                        # CAS registry number: identity for reference equations
-    budget: Budget = field(default_factory=default_budget)
+    ``obs`` holds this fluid's slice of every :data:`OBS_COLUMNS` column, ``groups`` the
+    positions of each (boundary, solid_phase, quantity) group in it, ``fixed`` and
+    ``constants`` the stated rows as dicts; ``tables`` are the stacked frames (ordered by
+    fluid) and ``spans`` this fluid's (start, stop) in each, for the DataFrames asked for.
+    """
+
+    obs: Mapping[str, np.ndarray]
+    groups: Mapping[CurveKey, np.ndarray]
+    fixed: Sequence[dict]
+    constants: Sequence[dict]
+    tables: Mapping[str, pd.DataFrame]
+    spans: Mapping[str, tuple[int, int]]
+
+    def frame(self, name: str, empty: pd.DataFrame) -> pd.DataFrame:
+        if name not in self.spans:
+            return empty
+        a, b = self.spans[name]
+        return self.tables[name].iloc[a:b].drop(columns="fluid_id").reset_index(drop=True)
+
+
+class FluidData:
+    """Everything the checks read about one fluid (SI units throughout).
+
+    Parameters
+    ----------
+    fluid_id : str
+    molar_mass : float
+        [kg/mol]
+    observations, fixed_points, constants : pandas.DataFrame, optional
+        Rows with the columns of :data:`OBS_COLUMNS`, :data:`FIXED_POINT_COLUMNS`,
+        :data:`CONSTANT_COLUMNS` (see :meth:`build`, which fills missing columns); or
+    rows : FluidRows, optional
+        The same, as slices of tables stacked over all fluids (the store loader).
+    curves : dict of curve key to FittedCurve
+    cas_rn : str
+        CAS registry number: identity for reference equations.
+    budget : Budget
+        The uncertainty budget in force (the run sets it with :meth:`use_budget`).
+    """
+
+    def __init__(self, fluid_id: str, molar_mass: float, observations: pd.DataFrame | None = None,
+                 fixed_points: pd.DataFrame | None = None, constants: pd.DataFrame | None = None,
+                 curves: dict[CurveKey, FittedCurve] | None = None, cas_rn: str = "",
+                 budget: Budget | None = None, *, rows: FluidRows | None = None):
+        self.fluid_id, self.molar_mass = fluid_id, molar_mass
+        self.curves = {} if curves is None else curves
+        self.cas_rn = cas_rn
+        self.budget = default_budget() if budget is None else budget
+        self._rows = rows
+        self._frames = {"observations": observations, "fixed_points": fixed_points,
+                        "constants": constants}
+        self._points: dict[tuple[CurveKey, float], tuple[CurvePoint | None, str]] = {}
+        self._curve_budgets: dict[CurveKey, CurveBudget] = {}
 
     def __repr__(self) -> str:
-        return (f"<FluidData {self.fluid_id}: {len(self.observations)} observations, "
-                f"{len(self.fixed_points)} fixed points, {len(self.curves)} curves>")
+        return (f"<FluidData {self.fluid_id}: {self.n_observations} observations, "
+                f"{len(self._fixed_rows)} fixed points, {len(self.curves)} curves>")
+
+    # -- the tables as DataFrames (built on first use when the loader gave slices) --------------
+    def _frame(self, name: str, empty) -> pd.DataFrame:
+        frame = self._frames[name]
+        if frame is None:
+            frame = self._frames[name] = (self._rows.frame(name, empty()) if self._rows is not None
+                                          else empty())
+        return frame
+
+    @property
+    def observations(self) -> pd.DataFrame:
+        """The observations (:data:`OBS_COLUMNS`)."""
+        return self._frame("observations", lambda: normalise_observations(None))
+
+    @property
+    def fixed_points(self) -> pd.DataFrame:
+        """Stated fixed points (:data:`FIXED_POINT_COLUMNS`)."""
+        return self._frame("fixed_points", lambda: _frame(None, FIXED_POINT_COLUMNS, "fp_id"))
+
+    @property
+    def constants(self) -> pd.DataFrame:
+        """Stated constants (:data:`CONSTANT_COLUMNS`)."""
+        return self._frame("constants", lambda: _frame(None, CONSTANT_COLUMNS, "const_id"))
 
     # -- observations --------------------------------------------------------------------------
     @cached_property
-    def _groups(self) -> dict[CurveKey, np.ndarray]:
-        obs = self.observations
-        if obs.empty:
+    def _columns(self) -> Mapping[str, np.ndarray]:
+        """The observation columns (:data:`OBS_COLUMNS`) and the integer codes of two text
+        columns (:data:`CODE_COLUMNS`), as numpy arrays."""
+        if self._rows is not None:
+            return self._rows.obs
+        return with_codes({c: self.observations[c].to_numpy() for c in OBS_COLUMNS})
+
+    @property
+    def n_observations(self) -> int:
+        return len(self._columns["obs_id"])
+
+    def observation_ids(self) -> np.ndarray:
+        """The ids of the fluid's observations (as integers)."""
+        return np.asarray(self._columns["obs_id"], dtype=np.int64)
+
+    @cached_property
+    def _groups(self) -> Mapping[CurveKey, np.ndarray]:
+        if self._rows is not None:
+            return self._rows.groups
+        cols = self._columns
+        if not len(cols["obs_id"]):
             return {}
-        key = (obs["boundary"].to_numpy(object) + "\x1f" + obs["solid_phase"].to_numpy(object)
-               + "\x1f" + obs["quantity"].to_numpy(object))
+        key = cols["boundary"] + _SEP + cols["solid_phase"] + _SEP + cols["quantity"]
         uniq, inverse = np.unique(key.astype(str), return_inverse=True)
         order = np.argsort(inverse, kind="stable")
         bounds = np.searchsorted(inverse[order], np.arange(len(uniq) + 1))
-        return {tuple(u.split("\x1f")): order[bounds[i]:bounds[i + 1]] for i, u in enumerate(uniq)}
-
-    @cached_property
-    def _columns(self) -> dict[str, np.ndarray]:
-        return {c: self.observations[c].to_numpy() for c in OBS_COLUMNS}
+        return {tuple(u.split(_SEP)): order[bounds[i]:bounds[i + 1]] for i, u in enumerate(uniq)}
 
     def groups(self) -> list[CurveKey]:
         """The (boundary, solid_phase, quantity) groups that have observations."""
@@ -245,15 +256,15 @@ class FluidData:
     def series(self, boundary: str, quantity: str = "pressure", solid_phase: str = "") -> ObsSeries:
         """Observations of one group (an empty series when there are none); cached."""
         key = (boundary, solid_phase, quantity)
-        if key not in self._series_cache:
-            index = self._groups.get(key, np.zeros(0, dtype=int))
-            self._series_cache[key] = ObsSeries(boundary, solid_phase, quantity,
-                                                {k: v[index] for k, v in self._columns.items()})
-        return self._series_cache[key]
+        found = self._series_cache.get(key)
+        if found is None:
+            index = self._groups.get(key, np.zeros(0, dtype=np.intp))
+            found = self._series_cache[key] = ObsSeries(boundary, solid_phase, quantity,
+                                                        _Rows(self._columns, index))
+        return found
 
     # -- the uncertainty budget ----------------------------------------------------------------
-    _BUDGET_CACHES = ("fixed_point_records", "constant_records", "triple_points", "critical_point",
-                      "_curve_budgets")
+    _BUDGET_CACHES = ("fixed_point_records", "constant_records", "triple_points", "critical_point")
 
     def use_budget(self, budget: Budget) -> None:
         """Judge this fluid with ``budget`` (the run's uncertainty defaults and policy)."""
@@ -261,41 +272,38 @@ class FluidData:
             self.budget = budget
             for name in self._BUDGET_CACHES:
                 self.__dict__.pop(name, None)
+            self._points.clear()
+            self._curve_budgets.clear()
 
-    @cached_property
-    def _curve_budgets(self) -> dict[CurveKey, CurveBudget]:
-        return {}
+    def has_curve_budget(self, key: CurveKey) -> bool:
+        return key in self._curve_budgets
+
+    def set_curve_budget(self, key: CurveKey, budget: CurveBudget) -> None:
+        self._curve_budgets[key] = budget
 
     def curve_budget(self, key: CurveKey) -> CurveBudget:
         """Floor of the fitted curve ``key``'s uncertainty from the files it was fitted to."""
         if key not in self._curve_budgets:
-            fitted = self.curves[key]
-            self._curve_budgets[key] = curve_budget(
-                self.series(key[0], key[2], key[1]),
-                lambda T: fitted.value(T, extrapolate=True), self.budget.uncertainty,
-                self.budget.extrapolation)
+            curve_budgets([(self, key)])
         return self._curve_budgets[key]
 
     def at(self, key: CurveKey, T: float) -> tuple[CurvePoint | None, str]:
         """The fitted curve ``key`` at ``T`` with its full budget, or (None, why not).
 
         Honours the one extrapolation policy: a curve is not evaluated further beyond its data
-        than the policy allows; the reason names the policy.
+        than the policy allows; the reason names the policy. Points are kept once computed (a
+        check over many fluids computes them all at once with :meth:`CheckBatch.prefetch`).
         """
-        fitted = self.curves.get(key)
-        label = curve_label(key)
-        if fitted is None:
-            return None, f"no fitted {label} curve"
-        r = reach(fitted.T_min_K, fitted.T_max_K, T, self.budget.extrapolation, label)
-        if not r.ok:
-            return None, r.reason
-        value, slope, u_cov = fitted.near(T)
-        if not (math.isfinite(value) and math.isfinite(slope)):
-            return None, f"the {label} fit's form is undefined at T = {T:.6g} K"
-        floor = self.curve_budget(key).floor_rel(T)
-        u = math.hypot(u_cov, floor * abs(value))
-        u_slope = math.hypot(fitted.slope_u(T), floor * abs(slope))
-        return CurvePoint(T, value, slope, u, u_slope, u_cov, floor, r.beyond_K), ""
+        found = self._points.get((key, T))
+        if found is None:
+            found = self._points[(key, T)] = evaluate_points([(self, key, T)])[0]
+        return found
+
+    def has_point(self, key: CurveKey, T: float) -> bool:
+        return (key, T) in self._points
+
+    def keep_point(self, key: CurveKey, T: float, found: tuple[CurvePoint | None, str]) -> None:
+        self._points[(key, T)] = found
 
     # -- curves --------------------------------------------------------------------------------
     def curve(self, boundary: str, solid_phase: str = "", quantity: str = "pressure") -> FittedCurve | None:
@@ -316,12 +324,21 @@ class FluidData:
 
     # -- stated values -------------------------------------------------------------------------
     @cached_property
+    def _fixed_rows(self) -> Sequence[dict]:
+        return self._rows.fixed if self._rows is not None else _records(self.fixed_points)
+
+    @cached_property
+    def _constant_rows(self) -> Sequence[dict]:
+        return self._rows.constants if self._rows is not None else _records(self.constants)
+
+    @cached_property
     def fixed_point_records(self) -> list[dict]:
         """Stated fixed points as dicts (one per source statement), every stated value with a
         standard uncertainty: its own, else the budget's default (named in ``u_defaulted``)."""
         model = self.budget.uncertainty
         out = []
-        for r in _records(self.fixed_points):
+        for row in self._fixed_rows:
+            r = dict(row)
             r["u_defaulted"] = []
             for col in ("T_K", "p_Pa", "rho_kg_m3"):
                 u, defaulted = model.stated(r["kind"], col, r[col], r["u_" + col], r["source_kind"])
@@ -337,7 +354,8 @@ class FluidData:
         uncertainty where none is stated (``u_defaulted``)."""
         model = self.budget.uncertainty
         out = []
-        for r in _records(self.constants):
+        for row in self._constant_rows:
+            r = dict(row)
             try:
                 r["u_si"], r["u_defaulted"] = model.stated("constant", r["name"], r["value_si"],
                                                            r["u_si"], r["source_kind"])
@@ -402,75 +420,56 @@ def _fitted(fluid_id: str, curves: Mapping[CurveKey, Any] | None) -> dict[CurveK
             for k, c in (curves or {}).items()}
 
 
-def _records(frame: pd.DataFrame) -> list[dict]:
-    """Rows as dicts of plain Python values (``to_dict("records")`` is ~20x slower here)."""
-    cols = list(frame.columns)
-    return [dict(zip(cols, row)) for row in zip(*(frame[c].tolist() for c in cols))]
+class Stacked(Mapping):
+    """Observations of many fluids as numpy columns, with the integer codes of any column.
 
-
-def _frame(rows, columns: Mapping[str, Any], id_col: str, keep: Sequence[str] = ()) -> pd.DataFrame:
-    """``rows`` with every column of ``columns`` (defaults filled) plus the ``keep`` columns."""
-    frame = pd.DataFrame(rows if rows is not None else [], columns=None)
-    for col, default in columns.items():
-        if col not in frame:
-            frame[col] = default
-        elif isinstance(default, (str, bool)) and frame[col].isna().any():
-            frame[col] = frame[col].where(frame[col].notna(), default)
-    if len(frame) and frame[id_col].isna().any():
-        frame[id_col] = np.arange(1, len(frame) + 1)
-    frame = frame[list(keep) + list(columns)].reset_index(drop=True)
-    text = [c for c in frame if pd.api.types.is_string_dtype(frame[c]) and frame[c].dtype != object]
-    return frame.astype({c: object for c in text}) if text else frame
-
-
-def normalise_observations(rows, keep: Sequence[str] = ()) -> pd.DataFrame:
-    """An observation frame with every :data:`OBS_COLUMNS` column, ids and row numbers filled."""
-    frame = _frame(rows, OBS_COLUMNS, "obs_id", keep)
-    if frame.empty:
-        return frame.astype({c: float for c in _FLOAT_OBS})
-    missing = frame["file_path"].isna()
-    frame.loc[missing, "file_path"] = "memory/" + frame.loc[missing, "source_id"].astype(str) + ".csv"
-    if frame["row_number"].isna().any():
-        frame["row_number"] = frame.groupby("file_path").cumcount() + 1
-    unit = frame["quantity"].map(SI_UNIT)
-    frame["value_unit"] = frame["value_unit"].where(frame["value_unit"].notna(), unit)
-    frame = frame.astype({c: float for c in _FLOAT_OBS})
-    frame["is_outlier"] = frame["is_outlier"].fillna(False).astype(bool)
-    frame["obs_id"] = frame["obs_id"].astype("int64")
-    frame["row_number"] = frame["row_number"].astype("int64")
-    return frame.astype({c: object for c in _TEXT_OBS})
-
-
-def sample_series(curve, T: Sequence[float], *, boundary: str, quantity: str = "pressure",
-                  solid_phase: str = "", source_id: str = "memory", source_kind: str = "literature",
-                  file_path: str | None = None, u_rel: float | None = None,
-                  u_T_K: float | None = None, value_unit: str | None = None,
-                  scale: float = 1.0, first_obs_id: int = 1) -> pd.DataFrame:
-    """Observations sampled from ``curve`` (a Curve or any callable T -> value) at ``T``.
-
-    ``scale`` multiplies the values (to plant unit mix-ups); ``u_rel`` is a relative standard
-    uncertainty of the value.
+    ``codes(name)`` factorises a column once (codes in order of first appearance, -1 for a
+    missing value): grouping, filtering and comparing text then cost integer operations.
     """
-    T = np.asarray(T, dtype=float)
-    f = curve.value if hasattr(curve, "value") else curve
-    values = np.asarray(f(T), dtype=float) * scale
-    n = len(T)
-    return pd.DataFrame({
-        "obs_id": np.arange(first_obs_id, first_obs_id + n), "boundary": boundary,
-        "solid_phase": solid_phase, "quantity": quantity, "T_K": T,
-        "u_T_K": math.nan if u_T_K is None else u_T_K, "value_si": values,
-        "u_value_si": np.abs(values) * u_rel if u_rel is not None else math.nan,
-        "source_id": source_id, "source_kind": source_kind,
-        "file_path": file_path or f"memory/{source_id}.csv", "row_number": np.arange(1, n + 1),
-        "value_unit": value_unit or SI_UNIT[quantity],
-    })
+
+    def __init__(self, columns: dict[str, np.ndarray]):
+        self._columns = columns
+        self.n = len(columns["fluid_id"])
+        self._codes: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        return self._columns[name]
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._columns)
+
+    def __len__(self) -> int:
+        return len(self._columns)
+
+    def codes(self, name: str) -> tuple[np.ndarray, np.ndarray]:
+        """(codes, uniques) of column ``name`` (``pandas.factorize``, first-seen order)."""
+        found = self._codes.get(name)
+        if found is None:
+            codes, uniques = pd.factorize(self._columns[name], sort=False)
+            found = self._codes[name] = (codes.astype(np.int64), np.asarray(uniques, dtype=object))
+        return found
+
+    def code_of(self, name: str, value: Any) -> int:
+        """The code of ``value`` in column ``name`` (-2 when it does not occur)."""
+        uniques = self.codes(name)[1]
+        hit = np.flatnonzero(uniques == value)
+        return int(hit[0]) if len(hit) else -2
+
+    def where(self, name: str, values: Iterable[Any]) -> np.ndarray:
+        """Boolean mask of the rows whose ``name`` is one of ``values``."""
+        codes, _ = self.codes(name)
+        wanted = [self.code_of(name, v) for v in values]
+        return np.isin(codes, [w for w in wanted if w >= 0])
 
 
-@dataclass(eq=False)
 class CheckBatch:
     """The fluids of one run, with the stacked tables vectorised checks work on."""
 
-    fluids: dict[str, FluidData]
+    def __init__(self, fluids: dict[str, FluidData]):
+        self.fluids = fluids
+
+    def __repr__(self) -> str:
+        return f"<CheckBatch of {len(self.fluids)} fluids>"
 
     def __iter__(self):
         return iter(self.fluids.values())
@@ -490,9 +489,25 @@ class CheckBatch:
         return stacked.reset_index(level="fluid_id").reset_index(drop=True)
 
     @cached_property
+    def stacked(self) -> "Stacked":
+        """All observations as numpy columns (``fluid_id`` first), fluid after fluid."""
+        full = [f for f in self.fluids.values() if f.n_observations]
+        if not full:
+            return Stacked({"fluid_id": np.zeros(0, dtype=object),
+                            **{c: np.asarray(self._stack("observations")[c]) for c in OBS_COLUMNS}})
+        ids = np.repeat(np.array([f.fluid_id for f in full], dtype=object),
+                        [f.n_observations for f in full])
+        return Stacked({"fluid_id": ids, **{c: np.concatenate([f._columns[c] for f in full])
+                                            for c in OBS_COLUMNS}})
+
+    @cached_property
     def observations(self) -> pd.DataFrame:
-        """All observations with a ``fluid_id`` column."""
-        return self._stack("observations")
+        """All observations with a ``fluid_id`` column (stacked from the fluids' columns)."""
+        if not any(f.n_observations for f in self.fluids.values()):
+            return self._stack("observations")
+        # as numpy gives them: text stays object (pandas would make Arrow strings of it)
+        return pd.DataFrame({c: pd.Series(v, dtype=v.dtype, copy=False)
+                             for c, v in self.stacked.items()})
 
     @cached_property
     def fixed_points(self) -> pd.DataFrame:
@@ -505,114 +520,23 @@ class CheckBatch:
     def subset(self, fluid_ids: Iterable[str]) -> "CheckBatch":
         return CheckBatch({f: self.fluids[f] for f in fluid_ids})
 
-
-# -- the store ---------------------------------------------------------------------------------
-_Q_FLUIDS = "SELECT fluid_id, molar_mass_kg_mol, cas_rn FROM fluid WHERE {f} ORDER BY fluid_id"
-_Q_OBS = """
-SELECT o.fluid_id, o.obs_id, o.boundary, o.solid_phase, o.quantity, o.T_K, o.u_T_K, o.value_si,
-       o.u_value_si, o.source_id, coalesce(s.kind, 'unknown') AS source_kind, o.file_path,
-       o.file_sha256, o.row_number, o.T_unit, o.T_scale, o.value_unit, r.fit_id, r.z,
-       coalesce(r.is_outlier, false) AS is_outlier, r.excluded_by
-FROM observation_current o
-LEFT JOIN source s ON s.source_id = o.source_id
-LEFT JOIN (SELECT fr.fit_id, fr.obs_id, fr.z, fr.is_outlier, fr.excluded_by FROM fit_residual fr
-           JOIN fit f ON f.fit_id = fr.fit_id WHERE f.is_current AND f.status = 'fitted') r
-       ON r.obs_id = o.obs_id
-WHERE {f} ORDER BY o.fluid_id, o.obs_id"""
-_Q_FIXED = """
-SELECT p.fluid_id, p.fp_id, p.kind, p.phases, p.T_K, p.u_T_K, p.p_Pa, p.u_p_Pa, p.rho_kg_m3,
-       p.u_rho_kg_m3, p.source_id, coalesce(s.kind, 'unknown') AS source_kind, p.file_path
-FROM fixed_point_current p LEFT JOIN source s ON s.source_id = p.source_id
-WHERE {f} ORDER BY p.fluid_id, p.fp_id"""
-_Q_CONST = """
-SELECT c.fluid_id, c.const_id, c.name, c.value_si, c.u_si, c.si_unit, c.source_id,
-       coalesce(s.kind, 'unknown') AS source_kind, c.file_path
-FROM stated_constant_current c LEFT JOIN source s ON s.source_id = c.source_id
-WHERE {f} ORDER BY c.fluid_id, c.const_id"""
-_Q_FITS = """
-SELECT fluid_id, fit_id, boundary, solid_phase, quantity, form, curve_json, n_used,
-       reduced_chi2, weighted_rms, input_hash
-FROM fit WHERE is_current AND status = 'fitted' AND curve_json IS NOT NULL AND {f}
-ORDER BY fluid_id, fit_id"""
+    def prefetch(self, requests: Iterable[Request]) -> None:
+        """Compute the points ``fluid.at(key, T)`` of all ``requests`` at once (see
+        :func:`pipeline.checks.curves.evaluate_points`); later ``at`` calls find them."""
+        todo, seen = [], set()
+        for fluid, key, T in requests:
+            if not fluid.has_point(key, T) and (id(fluid), key, T) not in seen:
+                seen.add((id(fluid), key, T))
+                todo.append((fluid, key, T))
+        if todo:
+            for (fluid, key, T), found in zip(todo, evaluate_points(todo)):
+                fluid.keep_point(key, T, found)
 
 
-def _query(con, sql: str, alias: str, fluid_ids: list[str] | None) -> pd.DataFrame:
-    col = f"{alias}.fluid_id" if alias else "fluid_id"
-    if fluid_ids is None:
-        return con.execute(sql.format(f="TRUE")).df()
-    return con.execute(sql.format(f=f"list_contains(?::VARCHAR[], {col})"), [fluid_ids]).df()
+def __getattr__(name: str):
+    """The store loader's names, importable from here as before it moved to ``loader``."""
+    if name in ("load_fluid_data", "fluids_from_tables"):
+        from pipeline.checks import loader
 
-
-def _split(frame: pd.DataFrame) -> dict[str, pd.DataFrame]:
-    if frame.empty:
-        return {}
-    return {fid: g.drop(columns="fluid_id").reset_index(drop=True)
-            for fid, g in frame.groupby("fluid_id", sort=False)}
-
-
-def _fits(frame: pd.DataFrame) -> dict[str, dict[CurveKey, FittedCurve]]:
-    from pipeline.correlations import Curve
-
-    out: dict[str, dict[CurveKey, FittedCurve]] = {}
-    for row in frame.itertuples(index=False):
-        curve = Curve.from_dict(json.loads(row.curve_json))
-        fitted = FittedCurve(curve, row.fit_id, row.form, _opt(row.n_used, int),
-                             _opt(row.reduced_chi2, float), _opt(row.weighted_rms, float),
-                             row.input_hash)
-        out.setdefault(row.fluid_id, {})[(row.boundary, row.solid_phase or "", row.quantity)] = fitted
-    return out
-
-
-def _opt(value, kind):
-    return None if value is None or (isinstance(value, float) and math.isnan(value)) else kind(value)
-
-
-def load_fluid_data(con, fluid_ids: Iterable[str] | None = None) -> dict[str, FluidData]:
-    """Read every selected fluid from the store with five set-based queries.
-
-    Parameters
-    ----------
-    con : duckdb.DuckDBPyConnection
-        An open store connection.
-    fluid_ids : iterable of str, optional
-        Fluids to read; all fluids of the store when None.
-
-    Raises
-    ------
-    CheckError
-        When a requested fluid is not in the store.
-    """
-    ids = None if fluid_ids is None else sorted(set(fluid_ids))
-    fluids = _query(con, _Q_FLUIDS, "", ids)
-    if ids is not None:
-        missing = sorted(set(ids) - set(fluids["fluid_id"]))
-        if missing:
-            known = [r[0] for r in con.execute("SELECT fluid_id FROM fluid ORDER BY 1").fetchall()]
-            raise CheckError(f"unknown fluid(s) {', '.join(missing)}; the store holds: "
-                             f"{', '.join(known) or '(none)'}")
-    return fluids_from_tables(fluids, _query(con, _Q_OBS, "o", ids), _query(con, _Q_FIXED, "p", ids),
-                              _query(con, _Q_CONST, "c", ids), _fits(_query(con, _Q_FITS, "", ids)))
-
-
-def fluids_from_tables(fluids: pd.DataFrame, observations: pd.DataFrame, fixed_points: pd.DataFrame,
-                       constants: pd.DataFrame,
-                       curves: Mapping[str, Mapping[CurveKey, Any]]) -> dict[str, FluidData]:
-    """FluidData for every row of ``fluids`` (fluid_id, molar_mass_kg_mol) from stacked tables.
-
-    The tables carry a ``fluid_id`` column and the columns of :data:`OBS_COLUMNS`,
-    :data:`FIXED_POINT_COLUMNS`, :data:`CONSTANT_COLUMNS` (missing ones get defaults); they are
-    normalised once and then split per fluid, which is much faster than per-fluid pandas work.
-    ``curves`` maps a fluid id to its curves (FittedCurve or bare curves).
-    """
-    obs = _split(normalise_observations(observations, keep=("fluid_id",)))
-    fixed = _split(_frame(fixed_points, FIXED_POINT_COLUMNS, "fp_id", ("fluid_id",)))
-    consts = _split(_frame(constants, CONSTANT_COLUMNS, "const_id", ("fluid_id",)))
-    empty = {"obs": normalise_observations(None), "fixed": _frame(None, FIXED_POINT_COLUMNS, "fp_id"),
-             "consts": _frame(None, CONSTANT_COLUMNS, "const_id")}
-    out = {}
-    cas = fluids["cas_rn"] if "cas_rn" in fluids else [""] * len(fluids)
-    for fid, mm, cas_rn in zip(fluids["fluid_id"], fluids["molar_mass_kg_mol"], cas):
-        out[fid] = FluidData(fid, float(mm), obs.get(fid, empty["obs"]), fixed.get(fid, empty["fixed"]),
-                             consts.get(fid, empty["consts"]), _fitted(fid, curves.get(fid)),
-                             cas_rn="" if cas_rn is None or cas_rn != cas_rn else str(cas_rn))
-    return out
+        return getattr(loader, name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

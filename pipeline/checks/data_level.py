@@ -1,15 +1,23 @@
 """Data-level checks over the stacked observations of all fluids (vectorised): pressures rise
-with T, values in physical ranges, residual outliers, duplicates across files."""
+with T, values in physical ranges, residual outliers, duplicates across files.
+
+The observations of the batch are numpy columns (:attr:`CheckBatch.stacked
+<pipeline.checks.data.CheckBatch.stacked>`); text columns are grouped and compared through
+their integer codes, so a run over thousands of fluids groups hundreds of thousands of rows
+in a few integer sorts.
+"""
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 import pandas as pd
 
-from pipeline.checks.data import CheckBatch
-from pipeline.checks.findings import Finding, judge
+from pipeline.checks.curves import curves_at
+from pipeline.checks.data import CheckBatch, Stacked
+from pipeline.checks.findings import Findings
 from pipeline.checks.physics import curve_label
 from pipeline.checks.registry import register_check
 
@@ -24,22 +32,50 @@ def _ref(cols: dict, i: int) -> dict:
             "value_si": float(cols["value_si"][i])}
 
 
-def _segments(frame: pd.DataFrame, keys: list[str], order: list[str] = (), extra: tuple[str, ...] = ()):
-    """Rows grouped by ``keys`` (sorted by ``order`` within a group): the columns (``_COLUMNS``
-    and ``extra``) as sorted numpy arrays, group codes, and each group's start and end row."""
-    codes = frame.groupby(keys, sort=False).ngroup().to_numpy()
-    sort_keys = [frame[c].to_numpy() for c in reversed(list(order))] + [codes]
-    idx = np.lexsort(sort_keys) if order else np.argsort(codes, kind="stable")
-    cols = {c: frame[c].to_numpy()[idx] for c in _COLUMNS + tuple(extra) if c in frame}
-    g = codes[idx]
+class Codes:
+    """Integer codes of the text columns of selected, ordered rows of a :class:`Stacked`."""
+
+    def __init__(self, stacked: Stacked, rows: np.ndarray):
+        self.stacked, self.rows = stacked, rows
+        self._of: dict[str, np.ndarray] = {}
+
+    def of(self, name: str) -> np.ndarray:
+        found = self._of.get(name)
+        if found is None:
+            found = self._of[name] = self.stacked.codes(name)[0][self.rows]
+        return found
+
+    def matches(self, name: str, test: Callable[[object], bool]) -> np.ndarray:
+        """Rows whose ``name`` passes ``test`` (tested once per distinct value)."""
+        uniques = self.stacked.codes(name)[1]
+        return np.isin(self.of(name), [i for i, u in enumerate(uniques) if test(u)])
+
+
+def _segments(st: Stacked, rows: np.ndarray, keys: list[str], order: list[str] = (),
+              extra: dict[str, np.ndarray] | None = None):
+    """Rows ``rows`` grouped by ``keys`` (groups in order of first appearance, sorted by
+    ``order`` within a group): the columns (``_COLUMNS`` and ``extra``, given for every row of
+    ``st``) as sorted numpy arrays, the :class:`Codes` of the sorted rows, group codes, and each
+    group's start and end row."""
+    combined = np.zeros(len(rows), dtype=np.int64)
+    for k in keys:
+        codes, uniques = st.codes(k)
+        combined = combined * (len(uniques) + 1) + (codes[rows] + 1)
+    g, _ = pd.factorize(combined, sort=False)
+    sort_keys = [st[c][rows] for c in reversed(list(order))] + [g]
+    idx = np.lexsort(sort_keys) if order else np.argsort(g, kind="stable")
+    ordered = rows[idx]
+    cols = {c: st[c][ordered] for c in _COLUMNS}
+    cols.update({c: v[ordered] for c, v in (extra or {}).items()})
+    g = g[idx]
     starts = np.flatnonzero(np.r_[True, g[1:] != g[:-1]]) if len(g) else np.zeros(0, dtype=int)
-    return cols, g, starts, np.r_[starts[1:], len(g)].astype(int)
+    return cols, Codes(st, ordered), g, starts, np.r_[starts[1:], len(g)].astype(int)
 
 
-def _per_row(th, key: str, fluid_ids: np.ndarray) -> np.ndarray:
+def _per_row(th, key: str, codes: Codes) -> np.ndarray:
     """Threshold ``key`` for every row, from the per-fluid values."""
-    codes, uniques = pd.factorize(fluid_ids)
-    return th.array(key, uniques)[codes]
+    _, uniques = codes.stacked.codes("fluid_id")
+    return th.array(key, uniques)[codes.of("fluid_id")]
 
 
 def _series_subject(boundary: str, solid: str, path: str) -> str:
@@ -48,7 +84,7 @@ def _series_subject(boundary: str, solid: str, path: str) -> str:
 
 @register_check("data.monotonic", tags=("data",), vectorised=True,
                 purpose="Vapour and sublimation pressures rise with temperature in every file.")
-def monotonic(batch: CheckBatch, th):
+def monotonic(batch: CheckBatch, th) -> Findings:
     """Along a vapour-pressure or sublimation curve dp/dT = Δh/(TΔv) > 0, so within one file's
     series, sorted by temperature, every step to a higher T must raise the pressure. A step
     is a fall when Δp < −max(z_max sqrt(u_1^2 + u_2^2), rel_tol p) (steps closer than
@@ -57,20 +93,21 @@ def monotonic(batch: CheckBatch, th):
     Usual causes of a failure: rows out of order with a column shifted; a file mixing two
     campaigns at different pressures; temperatures in two units; a typing error in one row.
     """
-    obs = batch.observations
-    sel = obs[obs["boundary"].isin(["liquid-vapour", "solid-vapour"]) & (obs["quantity"] == "pressure")] \
-        if len(obs) else obs
-    if sel.empty:
-        return []
-    cols, g, starts, ends = _segments(sel, ["fluid_id", "boundary", "solid_phase", "file_path"], ["T_K"])
+    out = Findings()
+    st = batch.stacked
+    rows = np.flatnonzero(st.where("boundary", ["liquid-vapour", "solid-vapour"])
+                          & st.where("quantity", ["pressure"])) if st.n else np.zeros(0, dtype=int)
+    if not len(rows):
+        return out
+    cols, codes, g, starts, ends = _segments(st, rows, ["fluid_id", "boundary", "solid_phase",
+                                                        "file_path"], ["T_K"])
     T, p = cols["T_K"].astype(float), cols["value_si"].astype(float)
     u = np.nan_to_num(cols["u_value_si"].astype(float))
-    z, rel = _per_row(th, "z_max", cols["fluid_id"]), _per_row(th, "rel_tol", cols["fluid_id"])
-    min_dT = _per_row(th, "min_dT_K", cols["fluid_id"])
+    z, rel = _per_row(th, "z_max", codes), _per_row(th, "rel_tol", codes)
+    min_dT = _per_row(th, "min_dT_K", codes)
     same = g[1:] == g[:-1]
     allowed = np.maximum(z[1:] * np.hypot(u[1:], u[:-1]), rel[1:] * np.abs(p[:-1]))
     fall_at = np.flatnonzero(same & (np.diff(T) > min_dT[1:]) & (np.diff(p) < -allowed))
-    out = []
     for start, end in zip(starts, ends):
         steps = fall_at[np.searchsorted(fall_at, start):np.searchsorted(fall_at, end - 1)]
         pairs = [{"from": _ref(cols, i), "to": _ref(cols, i + 1)} for i in steps[:10]]
@@ -79,18 +116,18 @@ def monotonic(batch: CheckBatch, th):
                          f"{q['to']['value_si']:.6g} Pa)" for q in pairs[:3])
         fid, boundary, solid, path = (cols[c][start]
                                       for c in ("fluid_id", "boundary", "solid_phase", "file_path"))
-        out.append(judge(fid, _series_subject(boundary, solid, path),
-                         measured=float(len(steps)), limit=0.0, statistic="falling steps",
-                         evidence={"n_points": int(end - start), "falls": pairs},
-                         context=f"{path} ({boundary}): {len(steps)} of {end - start - 1} steps "
-                                 f"fall" + (f": {text}" if text else "")))
+        out.judge(fid, _series_subject(boundary, solid, path),
+                  measured=float(len(steps)), limit=0.0, statistic="falling steps",
+                  evidence={"n_points": int(end - start), "falls": pairs},
+                  context=f"{path} ({boundary}): {len(steps)} of {end - start - 1} steps "
+                          f"fall" + (f": {text}" if text else ""))
     return out
 
 
-def _bounds(batch: CheckBatch) -> pd.DataFrame:
+def _bounds(batch: CheckBatch) -> dict[tuple[str, str], tuple[float, ...]]:
     """Per fluid (and solid): pc, ρc, pt of the vapour triple point, lowest melting pt, and
     (for the liquid-vapour rows, solid_phase "") Tt of any vapour-liquid-solid triple point."""
-    rows = []
+    out = {}
     for f in batch:
         cp = f.critical_point
         any_vtp = f.vapour_triple_point()
@@ -98,11 +135,26 @@ def _bounds(batch: CheckBatch) -> pd.DataFrame:
             label = solid or "solid"
             vtp = f.vapour_triple_point(label)
             melt = [tp.p_Pa for tp in f.triple_points if "liquid" in tp.phases and label in tp.phases]
-            rows.append((f.fluid_id, solid, cp.p_Pa if cp else np.nan, cp.rho_kg_m3 if cp else np.nan,
-                         vtp.p_Pa if vtp else np.nan, np.nanmin(melt) if np.isfinite(melt).any() else np.nan,
-                         any_vtp.T_K if any_vtp is not None and solid == "" else np.nan))
-    return pd.DataFrame(rows, columns=["fluid_id", "solid_phase", "pc", "rhoc", "pt_vap", "pt_melt",
-                                       "Tt_vap"])
+            out[(f.fluid_id, solid)] = (
+                cp.p_Pa if cp else np.nan, cp.rho_kg_m3 if cp else np.nan,
+                vtp.p_Pa if vtp else np.nan, np.nanmin(melt) if np.isfinite(melt).any() else np.nan,
+                any_vtp.T_K if any_vtp is not None and solid == "" else np.nan)
+    return out
+
+
+def _bound_columns(st: Stacked, batch: CheckBatch) -> dict[str, np.ndarray]:
+    """The :data:`_BOUND_COLUMNS` of every stacked row (NaN where its fluid and solid phase
+    have none)."""
+    fcodes, fluids = st.codes("fluid_id")
+    scodes, solids = st.codes("solid_phase")
+    table = np.full((len(fluids) + 1, len(solids) + 1, len(_BOUND_COLUMNS)), np.nan)
+    f_at = {f: i for i, f in enumerate(fluids)}
+    s_at = {s: i for i, s in enumerate(solids)}
+    for (fid, solid), values in _bounds(batch).items():
+        if fid in f_at and solid in s_at:
+            table[f_at[fid], s_at[solid]] = values
+    per_row = table[fcodes, scodes]
+    return {c: per_row[:, i] for i, c in enumerate(_BOUND_COLUMNS)}
 
 
 @dataclass(frozen=True)
@@ -117,7 +169,8 @@ class Bound:
     relative: bool = False           # bound column widened by the threshold ``tolerance``
     tolerance: str = "rel_tol"       # threshold key of the relative widening
 
-    def violated(self, cols: dict[str, np.ndarray], t: dict[str, np.ndarray]) -> np.ndarray:
+    def violated(self, cols: dict[str, np.ndarray], t: dict[str, np.ndarray],
+                 codes: "Codes") -> np.ndarray:
         limit = t[self.bound] if self.bound in t else cols[self.bound].astype(float)
         if self.relative:
             tol = t[self.tolerance]
@@ -125,12 +178,10 @@ class Bound:
         x = cols[self.column].astype(float)
         bad = x > limit if self.upper else x < limit
         if self.boundary:
-            bad &= cols["boundary"] == self.boundary
+            bad &= codes.matches("boundary", lambda b: b == self.boundary)
         if self.quantity:
-            q = cols["quantity"]
-            names = [n for n in pd.unique(q) if n == self.quantity or
-                     (self.quantity.endswith("_") and str(n).startswith(self.quantity))]
-            bad &= np.isin(q, names)
+            bad &= codes.matches("quantity", lambda n: n == self.quantity or (
+                self.quantity.endswith("_") and str(n).startswith(self.quantity)))
         return bad
 
 
@@ -157,7 +208,7 @@ _RANGE_KEYS = ("T_max_K", "p_max_Pa", "rho_max_kg_m3", "h_max_J_mol", "rel_tol",
 
 @register_check("data.ranges", tags=("data",), vectorised=True,
                 purpose="Values are positive and inside physical ranges.")
-def ranges(batch: CheckBatch, th):
+def ranges(batch: CheckBatch, th) -> Findings:
     """Temperatures, pressures, densities and enthalpies of transition are positive and below
     generous physical bounds (T_max_K, p_max_Pa, rho_max_kg_m3, h_max_J_mol). The stated
     points bound them further: a vapour pressure cannot exceed pc, a sublimation pressure pt,
@@ -172,17 +223,17 @@ def ranges(batch: CheckBatch, th):
     Usual causes of a failure: a unit mix-up (see data.unit-mixup), a sign lost in a gauge
     conversion, densities of the other phase, values beyond the critical point.
     """
-    obs = batch.observations
-    if obs.empty:
-        return []
-    merged = obs.merge(_bounds(batch), on=["fluid_id", "solid_phase"], how="left")
-    cols, _, starts, ends = _segments(merged, ["fluid_id", "boundary", "solid_phase", "quantity"],
-                                      extra=_BOUND_COLUMNS)
-    t = {k: _per_row(th, k, cols["fluid_id"]) for k in _RANGE_KEYS}
+    out = Findings()
+    st = batch.stacked
+    if not st.n:
+        return out
+    cols, codes, _, starts, ends = _segments(st, np.arange(st.n),
+                                             ["fluid_id", "boundary", "solid_phase", "quantity"],
+                                             extra=_bound_columns(st, batch))
+    t = {k: _per_row(th, k, codes) for k in _RANGE_KEYS}
     t["zero"] = np.zeros(len(cols["fluid_id"]))
-    broken = {name: rule.violated(cols, t) for name, rule in RANGE_RULES.items()}
+    broken = {name: rule.violated(cols, t, codes) for name, rule in RANGE_RULES.items()}
     any_bad = np.logical_or.reduce(list(broken.values()))
-    out = []
     for start, end in zip(starts, ends):
         bad = start + np.flatnonzero(any_bad[start:end])
         offenders = [{**_ref(cols, i), "rules": [n for n, m in broken.items() if m[i]]} for i in bad[:20]]
@@ -191,12 +242,21 @@ def ranges(batch: CheckBatch, th):
         fid, boundary, solid, quantity = (cols[c][start]
                                           for c in ("fluid_id", "boundary", "solid_phase", "quantity"))
         subject = f"{boundary}" + (f":{solid}" if solid else "") + f"/{quantity}"
-        out.append(judge(fid, subject, measured=float(len(bad)), limit=0.0,
-                         statistic="values out of range",
-                         evidence={"n": int(end - start), "out_of_range": offenders},
-                         context=f"{subject}: {len(bad)} of {end - start} values out of range"
-                                 + (f": {text}" if text else "")))
+        out.judge(fid, subject, measured=float(len(bad)), limit=0.0,
+                  statistic="values out of range",
+                  evidence={"n": int(end - start), "out_of_range": offenders},
+                  context=f"{subject}: {len(bad)} of {end - start} values out of range"
+                          + (f": {text}" if text else ""))
     return out
+
+
+def _pinv(a: np.ndarray) -> np.ndarray:
+    """``np.linalg.pinv(a)`` of a real square matrix, its operations without its checks."""
+    u, s, vt = np.linalg.svd(a, full_matrices=False)
+    large = s > 1e-15 * s.max()
+    s = np.divide(1, s, where=large, out=s)
+    s[~large] = 0
+    return vt.T @ (s[:, None] * u.T)
 
 
 def _deleted_residuals(x: np.ndarray, r: np.ndarray, w: np.ndarray) -> np.ndarray:
@@ -212,10 +272,11 @@ def _deleted_residuals(x: np.ndarray, r: np.ndarray, w: np.ndarray) -> np.ndarra
     n = len(r)
     degree = 2 if n >= 7 else 1 if n >= 4 else 0
     span = float(np.ptp(x)) or 1.0
-    A = np.vander((x - x.mean()) / span, degree + 1)
+    s = (x - x.mean()) / span
+    A = np.column_stack([s * s, s, np.ones(n)][2 - degree:])   # np.vander(s, degree + 1)
     sw = np.sqrt(w)
     Aw = A * sw[:, None]
-    G = np.linalg.pinv(Aw.T @ Aw)
+    G = _pinv(Aw.T @ Aw)
     coef = G @ (Aw.T @ (r * sw))
     e = r - A @ coef
     h = np.einsum("ij,jk,ik->i", A, G, A) * w
@@ -223,8 +284,8 @@ def _deleted_residuals(x: np.ndarray, r: np.ndarray, w: np.ndarray) -> np.ndarra
         return np.where(h < 1.0 - 1e-9, e / np.sqrt(np.clip(1.0 - h, 1e-12, None)), e)
 
 
-def _budget_z(fluid, cols: dict, lo: int, hi: int, min_file_points: int,
-              z_max: float) -> np.ndarray:
+def _budget_z(fluid, cols: dict, codes: Codes, lo: int, hi: int, fitted: np.ndarray,
+              slope: np.ndarray, min_file_points: int, z_max: float) -> np.ndarray:
     """z of rows lo:hi (one fitted group of ``fluid``) about their own file's trend.
 
     r = value / fit − 1 (relative residual about the fitted curve); within each file of
@@ -234,31 +295,32 @@ def _budget_z(fluid, cols: dict, lo: int, hi: int, min_file_points: int,
     point's stated relative u, else the budget's default for its source kind, combined with the
     budget's absolute pressure floor.
     """
-    curve = fluid.curve(cols["boundary"][lo], cols["solid_phase"][lo], cols["quantity"][lo])
     T, y = cols["T_K"][lo:hi].astype(float), cols["value_si"][lo:hi].astype(float)
-    if curve is None:
+    if fitted is None:
         return np.full(hi - lo, np.nan)
     with np.errstate(invalid="ignore", divide="ignore"):
-        r = y / np.asarray(curve.value(T, extrapolate=True), dtype=float) - 1.0
+        r = y / fitted - 1.0
     model = fluid.budget.uncertainty
     u = cols["u_value_si"][lo:hi].astype(float)
-    kinds, files = cols["source_kind"][lo:hi], cols["file_path"][lo:hi]
+    kinds = codes.of("source_kind")[lo:hi]
+    files = codes.of("file_path")[lo:hi]
+    kind_names = codes.stacked.codes("source_kind")[1]
     quantity = str(cols["quantity"][lo])
-    for kind in set(kinds):
-        m = kinds == kind
+    for code in np.unique(kinds):
+        m = kinds == code
+        kind = kind_names[code] if code >= 0 else None
         default = model.observed_rel(quantity, kind) * np.abs(y[m])
         u[m] = np.hypot(np.where(np.isfinite(u[m]) & (u[m] > 0), u[m], default),
                         model.observed_abs(quantity, kind))
     # a temperature uncertainty moves the point along the curve: u_eff^2 = u^2 + (dy/dT u_T)^2
     u_T = np.nan_to_num(cols["u_T_K"][lo:hi].astype(float))
     if u_T.any():
-        with np.errstate(invalid="ignore"):
-            slope = np.nan_to_num(np.asarray(curve.slope(T, extrapolate=True), dtype=float))
-        u = np.hypot(u, slope * u_T)
+        u = np.hypot(u, np.nan_to_num(slope) * u_T)
     with np.errstate(invalid="ignore", divide="ignore"):
         u_rel = u / np.abs(y)
-    for path in set(files):
-        m = np.flatnonzero((files == path) & np.isfinite(r) & np.isfinite(u_rel) & (u_rel > 0))
+    usable = np.isfinite(r) & np.isfinite(u_rel) & (u_rel > 0)
+    for path in np.unique(files):
+        m = np.flatnonzero((files == path) & usable)
         if len(m) >= min_file_points:
             r[m] = _file_residuals(T[m], r[m], u_rel[m], z_max)
     return r / u_rel
@@ -280,9 +342,38 @@ def _file_residuals(T: np.ndarray, r: np.ndarray, u_rel: np.ndarray, z_max: floa
         keep[idx[worst]] = False
 
 
+def _fitted_at(batch: CheckBatch, cols: dict, starts, ends) -> tuple[list, list]:
+    """Each group's fitted values and slopes at its observations (None without a curve): the
+    fitted curves of all groups evaluated together, one kernel call per form."""
+    curves, spans = [], []
+    for a, b in zip(starts, ends):
+        fluid = batch.fluids[cols["fluid_id"][a]]
+        c = fluid.curve(cols["boundary"][a], cols["solid_phase"][a], cols["quantity"][a])
+        spans.append(None if c is None else (int(a), int(b)))
+        if c is not None:
+            curves.append(c.curve)
+    used = [sp for sp in spans if sp is not None]
+    rows = np.concatenate([np.arange(a, b) for a, b in used]) if used else np.zeros(0, dtype=int)
+    T = cols["T_K"][rows].astype(float)
+    counts = [b - a for a, b in used]
+    value = curves_at(curves, T, "value", repeats=counts)
+    slope = curves_at(curves, T, "slope", repeats=counts)
+    values, slopes, k = [], [], 0
+    for sp in spans:
+        if sp is None:
+            values.append(None)
+            slopes.append(None)
+            continue
+        n = sp[1] - sp[0]
+        values.append(value[k:k + n])
+        slopes.append(slope[k:k + n])
+        k += n
+    return values, slopes
+
+
 @register_check("data.outliers", tags=("data", "fits"), severity="warn", vectorised=True,
                 purpose="No observation sits far off its own file's level about the fitted curve.")
-def outliers(batch: CheckBatch, th):
+def outliers(batch: CheckBatch, th) -> Findings:
     """An outlier is a single observation off its own data set: a typing error, a point of
     another phase, a transient. Each observation of a fitted group gets z = (r − r_file)/u_rel,
     with r = y/y_fit − 1 its relative residual about the fitted curve, r_file the trend of the
@@ -301,23 +392,27 @@ def outliers(batch: CheckBatch, th):
     Usual causes: a typing error in one row, a point of another phase, a transient in a
     measurement campaign, a unit slip in a single cell.
     """
-    obs = batch.observations
+    out = Findings()
+    st = batch.stacked
+    if not st.n:
+        return out
     # observations a curation decision excluded from the fit are not judged here either
-    fitted = obs[obs["fit_id"].notna() & obs["excluded_by"].isna()] if len(obs) else obs
-    if fitted.empty:
-        return []
-    cols, _, starts, ends = _segments(fitted, ["fluid_id", "fit_id"],
-                                      extra=("source_kind", "u_value_si", "u_T_K"))
-    zmax = _per_row(th, "z_max", cols["fluid_id"])
-    z = np.concatenate([_budget_z(batch.fluids[cols["fluid_id"][a]], cols, a, b,
+    rows = np.flatnonzero((st.codes("fit_id")[0] >= 0) & (st.codes("excluded_by")[0] < 0))
+    if not len(rows):
+        return out
+    cols, codes, _, starts, ends = _segments(st, rows, ["fluid_id", "fit_id"],
+                                             extra={c: st[c] for c in ("source_kind", "u_T_K")})
+    zmax = _per_row(th, "z_max", codes)
+    values, slopes = _fitted_at(batch, cols, starts, ends)
+    z = np.concatenate([_budget_z(batch.fluids[cols["fluid_id"][a]], cols, codes, a, b, v, sl,
                                   int(th(cols["fluid_id"][a])["min_file_points"]), zmax[a])
-                        for a, b in zip(starts, ends)]) if len(starts) else np.zeros(0)
+                        for a, b, v, sl in zip(starts, ends, values, slopes)]) \
+        if len(starts) else np.zeros(0)
     absz = np.abs(z)
     flagged = absz > zmax
     fit_z = cols["z"].astype(float)
     left_out = cols["is_outlier"].astype(bool)
     worst = np.fmax.reduceat(np.where(np.isfinite(absz), absz, 0.0), starts)
-    out = []
     for k, (start, end) in enumerate(zip(starts, ends)):
         bad = start + np.flatnonzero(flagged[start:end])
         refs = [{**_ref(cols, i), "z": float(z[i]), "fit_z": float(fit_z[i]),
@@ -327,27 +422,29 @@ def outliers(batch: CheckBatch, th):
         fid, fit_id = cols["fluid_id"][start], cols["fit_id"][start]
         label = curve_label((cols["boundary"][start], cols["solid_phase"][start], cols["quantity"][start]))
         n_left = int(left_out[start:end].sum())
-        out.append(judge(fid, f"curve:{label}", measured=float(worst[k]), limit=float(zmax[start]),
-                         ok=len(bad) == 0, statistic="max |z| about its file",
-                         evidence={"fit_id": fit_id, "n": int(end - start), "outliers": refs,
-                                   "left_out_of_fit": n_left},
-                         context=f"{label} fit {fit_id}: {len(bad)} of {end - start} observations "
-                                 f"off their file's level" + (f": {text}" if text else "")
-                                 + (f" ({n_left} left out of the fit by its robust weighting)"
-                                    if n_left else "")))
+        out.judge(fid, f"curve:{label}", measured=float(worst[k]), limit=float(zmax[start]),
+                  ok=len(bad) == 0, statistic="max |z| about its file",
+                  evidence={"fit_id": fit_id, "n": int(end - start), "outliers": refs,
+                            "left_out_of_fit": n_left},
+                  context=f"{label} fit {fit_id}: {len(bad)} of {end - start} observations "
+                          f"off their file's level" + (f": {text}" if text else "")
+                          + (f" ({n_left} left out of the fit by its robust weighting)"
+                             if n_left else ""))
     return out
 
 
-def _duplicate_pairs(obs: pd.DataFrame, th) -> pd.DataFrame:
-    cols, g, _, _ = _segments(obs, ["fluid_id", "boundary", "solid_phase", "quantity"], ["T_K"])
+def _duplicate_pairs(st: Stacked, th) -> pd.DataFrame:
+    cols, codes, g, _, _ = _segments(st, np.arange(st.n),
+                                     ["fluid_id", "boundary", "solid_phase", "quantity"], ["T_K"])
     T, v, files = cols["T_K"].astype(float), cols["value_si"].astype(float), cols["file_path"]
-    T_tol, rel = _per_row(th, "T_tol_K", cols["fluid_id"]), _per_row(th, "rel_tol", cols["fluid_id"])
+    file_code = codes.of("file_path")
+    T_tol, rel = _per_row(th, "T_tol_K", codes), _per_row(th, "rel_tol", codes)
     found = []
     for lag in range(1, int(th["max_lag"]) + 1):
         i = np.arange(len(T) - lag)
         j = i + lag
         hit = (g[i] == g[j]) & (np.abs(T[j] - T[i]) <= T_tol[i]) & \
-              (np.abs(v[j] - v[i]) <= rel[i] * np.abs(v[i])) & (files[i] != files[j])
+              (np.abs(v[j] - v[i]) <= rel[i] * np.abs(v[i])) & (file_code[i] != file_code[j])
         found.append(np.column_stack([i[hit], j[hit]]))
     a, b = np.concatenate(found).T if found else (np.zeros(0, dtype=int),) * 2
     first = np.where(files[a] < files[b], files[a], files[b])
@@ -357,9 +454,18 @@ def _duplicate_pairs(obs: pd.DataFrame, th) -> pd.DataFrame:
                          "value_si": v[a], "quantity": cols["quantity"][a]})
 
 
+def _files_per_fluid(st: Stacked) -> dict[str, int]:
+    """Number of distinct files of each fluid with observations."""
+    fcodes, fluids = st.codes("fluid_id")
+    pcodes, paths = st.codes("file_path")
+    pairs = np.unique(fcodes * (len(paths) + 1) + pcodes)
+    counts = np.bincount(pairs // (len(paths) + 1), minlength=len(fluids))
+    return {f: int(n) for f, n in zip(fluids, counts)}
+
+
 @register_check("data.duplicates", tags=("data", "sources"), severity="warn", vectorised=True,
                 purpose="No data set appears twice under different files.")
-def duplicates(batch: CheckBatch, th):
+def duplicates(batch: CheckBatch, th) -> Findings:
     """The same value at the same temperature (within T_tol_K and rel_tol) for the same fluid,
     boundary and quantity in two different files is almost surely one data set entered twice
     (a table copied from a paper that is also in the store, a file re-sent under a new name).
@@ -369,23 +475,23 @@ def duplicates(batch: CheckBatch, th):
     Usual causes: a compilation that reproduces a primary source also stored; the same
     campaign ingested under two batch names.
     """
-    obs = batch.observations
-    if obs.empty:
-        return []
-    pairs = _duplicate_pairs(obs, th)
-    out: list[Finding] = []
+    out = Findings()
+    st = batch.stacked
+    if not st.n:
+        return out
+    pairs = _duplicate_pairs(st, th)
     with_dups = set(pairs["fluid_id"])
     for (fid, fa, fb), grp in pairs.groupby(["fluid_id", "file_a", "file_b"], sort=False):
         ev = [{"obs_a": int(r.obs_a), "obs_b": int(r.obs_b), "quantity": r.quantity,
                "T_K": float(r.T_K), "value_si": float(r.value_si)} for r in grp.head(20).itertuples()]
-        out.append(judge(fid, f"files:{fa}|{fb}", measured=float(len(grp)), limit=0.0,
-                         statistic="shared points", evidence={"pairs": ev},
-                         context=f"{len(grp)} observations of {fb} duplicate {fa} (same T within "
-                                 f"{th(fid)['T_tol_K']:g} K, value within {th(fid)['rel_tol']:g})"))
-    counts = obs.groupby("fluid_id")["file_path"].nunique()
+        out.judge(fid, f"files:{fa}|{fb}", measured=float(len(grp)), limit=0.0,
+                  statistic="shared points", evidence={"pairs": ev},
+                  context=f"{len(grp)} observations of {fb} duplicate {fa} (same T within "
+                          f"{th(fid)['T_tol_K']:g} K, value within {th(fid)['rel_tol']:g})")
+    counts = _files_per_fluid(st)
     for fid in batch.ids:
-        if fid not in with_dups and fid in counts.index:
-            out.append(judge(fid, "", measured=0.0, limit=0.0, statistic="shared points",
-                             evidence={"files": int(counts[fid])},
-                             context=f"no duplicates across {int(counts[fid])} file(s)"))
+        if fid not in with_dups and fid in counts:
+            out.judge(fid, "", measured=0.0, limit=0.0, statistic="shared points",
+                      evidence={"files": counts[fid]},
+                      context=f"no duplicates across {counts[fid]} file(s)")
     return out

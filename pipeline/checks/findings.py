@@ -1,7 +1,8 @@
-"""What a check says: :class:`Finding` records and the helpers that build them.
+"""What a check says: findings, as columns (:class:`Findings`) or one by one (:class:`Finding`).
 
-A check function returns findings; the engine turns each into a stored result. A finding's
-``status`` is one of :data:`FINDING_STATUSES`:
+A check function returns its findings as columns (:class:`Findings`: one list per field, one
+entry per finding; a list of :class:`Finding` objects is accepted too); the engine turns them
+into stored results. A finding's ``status`` is one of :data:`FINDING_STATUSES`:
 
 - ``pass`` — the rule holds;
 - ``violated`` — the rule is broken; the engine records the check's severity (``warn`` or
@@ -16,7 +17,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 from enum import Enum
-from typing import Any, Mapping
+from typing import Any, Iterable, Iterator, Mapping
 
 
 class Status(str, Enum):
@@ -74,6 +75,19 @@ def comparison(statistic: str, measured: float, limit: float, ok: bool, *,
     return f"{statistic} = {num(measured)} {op} {num(limit)}"
 
 
+def _judged(fluid_id: str, subject: str, measured: float | None, limit: float, statistic: str,
+            context: str, evidence: Mapping[str, Any] | None, upper: bool, ok: bool | None) -> tuple:
+    """The fields of a judged finding (see :func:`judge`)."""
+    if measured is None or not math.isfinite(measured):
+        return (fluid_id, subject, SKIP, f"{context}: {statistic} could not be evaluated", None,
+                None, None, dict(evidence or {}))
+    if ok is None:
+        ok = measured <= limit if upper else measured >= limit
+    message = f"{context}: {comparison(statistic, measured, limit, ok, upper=upper)}"
+    return (fluid_id, subject, PASS if ok else VIOLATED, message, float(measured), float(limit),
+            statistic, dict(evidence or {}))
+
+
 def judge(fluid_id: str, subject: str, *, measured: float, limit: float, statistic: str,
           context: str, evidence: Mapping[str, Any] | None = None, upper: bool = True,
           ok: bool | None = None) -> Finding:
@@ -83,17 +97,81 @@ def judge(fluid_id: str, subject: str, *, measured: float, limit: float, statist
     ``ok`` overrides the comparison when the rule is not a plain bound (the message still shows
     the statistic). A NaN statistic gives a skip naming the context.
     """
-    if measured is None or not math.isfinite(measured):
-        return skipped(fluid_id, subject, f"{context}: {statistic} could not be evaluated",
-                       evidence)
-    if ok is None:
-        ok = measured <= limit if upper else measured >= limit
-    message = f"{context}: {comparison(statistic, measured, limit, ok, upper=upper)}"
-    return Finding(fluid_id, subject, PASS if ok else VIOLATED, message, float(measured),
-                   float(limit), statistic, dict(evidence or {}))
+    return Finding(*_judged(fluid_id, subject, measured, limit, statistic, context, evidence,
+                            upper, ok))
 
 
 def skipped(fluid_id: str, subject: str, reason: str,
             evidence: Mapping[str, Any] | None = None) -> Finding:
     """A finding saying the check could not be applied, and why."""
     return Finding(fluid_id, subject, SKIP, reason, evidence=dict(evidence or {}))
+
+
+class Findings:
+    """A check's findings as columns: one list per :class:`Finding` field, one entry per finding.
+
+    Build it with :meth:`judge`, :meth:`skip` and :meth:`add` (or :meth:`append` a
+    :class:`Finding`); the engine reads the columns. Iterating (or indexing) gives
+    :class:`Finding` objects, for tests and callers that want them.
+    """
+
+    FIELDS = ("fluid_id", "subject", "status", "message", "measured", "limit", "statistic",
+              "evidence")
+    __slots__ = FIELDS
+
+    def __init__(self) -> None:
+        for name in self.FIELDS:
+            setattr(self, name, [])
+
+    def __len__(self) -> int:
+        return len(self.fluid_id)
+
+    def __repr__(self) -> str:
+        return f"<Findings: {len(self)}>"
+
+    def __getitem__(self, i: int) -> Finding:
+        return Finding(*(getattr(self, name)[i] for name in self.FIELDS))
+
+    def __iter__(self) -> Iterator[Finding]:
+        return (self[i] for i in range(len(self)))
+
+    def add(self, fluid_id: str, subject: str, status: str, message: str,
+            measured: float | None = None, limit: float | None = None,
+            statistic: str | None = None, evidence: Mapping[str, Any] | None = None) -> None:
+        """One finding, field by field (``evidence`` kept as given, {} for None)."""
+        if status not in FINDING_STATUSES:
+            raise ValueError(f"finding status {status!r} is not one of {FINDING_STATUSES}")
+        self.fluid_id.append(fluid_id)
+        self.subject.append(subject)
+        self.status.append(status)
+        self.message.append(message)
+        self.measured.append(measured)
+        self.limit.append(limit)
+        self.statistic.append(statistic)
+        self.evidence.append({} if evidence is None else evidence)
+
+    def append(self, finding: Finding) -> None:
+        if not isinstance(finding, Finding):
+            raise TypeError(f"check returned {type(finding).__name__}, not a Finding")
+        self.add(finding.fluid_id, finding.subject, finding.status, finding.message,
+                 finding.measured, finding.limit, finding.statistic, finding.evidence)
+
+    def extend(self, findings: "Findings | Iterable[Finding]") -> None:
+        if isinstance(findings, Findings):
+            for name in self.FIELDS:
+                getattr(self, name).extend(getattr(findings, name))
+        else:
+            for f in findings:
+                self.append(f)
+
+    def judge(self, fluid_id: str, subject: str, *, measured: float, limit: float,
+              statistic: str, context: str, evidence: Mapping[str, Any] | None = None,
+              upper: bool = True, ok: bool | None = None) -> None:
+        """A judged finding (see :func:`judge`)."""
+        self.add(*_judged(fluid_id, subject, measured, limit, statistic, context, evidence,
+                          upper, ok))
+
+    def skip(self, fluid_id: str, subject: str, reason: str,
+             evidence: Mapping[str, Any] | None = None) -> None:
+        """A finding saying the check could not be applied, and why (see :func:`skipped`)."""
+        self.add(fluid_id, subject, SKIP, reason, evidence=dict(evidence or {}))

@@ -12,8 +12,8 @@ import math
 
 import numpy as np
 
-from pipeline.checks.data import FluidData, ObsSeries
-from pipeline.checks.findings import PASS, VIOLATED, Finding, num, skipped
+from pipeline.checks.data import CheckBatch, FluidData, ObsSeries
+from pipeline.checks.findings import PASS, VIOLATED, Findings, num
 from pipeline.checks.physics import curve_label
 from pipeline.checks.registry import register_check
 
@@ -51,9 +51,10 @@ def _cause(too_low: bool, off: list[dict], equation_kinds) -> str:
 
 
 @register_check("data.reduced-chi-square", tags=("data", "fits", "uncertainty"), severity="warn",
+                vectorised=True,
                 purpose="A fit's reduced chi-square is not far from 1 (stated uncertainties "
                         "agree with the scatter).")
-def reduced_chi2(fluid: FluidData, th):
+def reduced_chi2(batch: CheckBatch, th) -> Findings:
     """The fit stage weights each point by its stated standard uncertainty, so its reduced
     chi-square chi2_nu = sum(z_i^2)/(n − p) (n points used, p parameters; z the normalised
     residual) compares the scatter about the fit with the stated uncertainties. For correct
@@ -72,20 +73,25 @@ def reduced_chi2(fluid: FluidData, th):
     no scatter, a low value is expected -- their stated uncertainty is the equation's own, type
     B -- and passes with that said: only a low value some other source shares is reported.
     """
-    out = []
+    out = Findings()
+    for fluid in batch:
+        _fit_quality(out, fluid, th(fluid.fluid_id))
+    return out
+
+
+def _fit_quality(out: Findings, fluid: FluidData, th) -> None:
     for key, curve in sorted(fluid.curves.items()):
         label = curve_label(key)
         subject = f"curve:{label}"
         chi2, n = curve.reduced_chi2, curve.n_used
         n_params = len(getattr(curve.curve, "params", ()) or ())
         if chi2 is None or not math.isfinite(chi2) or n is None:
-            out.append(skipped(fluid.fluid_id, subject, f"{label} fit: no reduced chi-square "
-                                                        "recorded"))
+            out.skip(fluid.fluid_id, subject, f"{label} fit: no reduced chi-square recorded")
             continue
         dof = n - n_params
         if dof < th["min_dof"]:
-            out.append(skipped(fluid.fluid_id, subject, f"{label} fit: {dof} degrees of freedom "
-                                                        f"(fewer than {th['min_dof']})"))
+            out.skip(fluid.fluid_id, subject, f"{label} fit: {dof} degrees of freedom "
+                                              f"(fewer than {th['min_dof']})")
             continue
         sources = source_chi2(fluid.series(key[0], key[2], key[1]), curve.fit_id)
         low, high = th["chi2_min"], th["chi2_max"]
@@ -94,10 +100,10 @@ def reduced_chi2(fluid: FluidData, th):
                     "sources": sources}
         context = f"{label} fit {curve.fit_id} ({n} points, {dof} degrees of freedom)"
         if low <= chi2 <= high:
-            out.append(Finding(fluid.fluid_id, subject, PASS,
-                               f"{context}: reduced chi-square = {num(chi2)} within "
-                               f"[{num(low)}, {num(high)}]", chi2, high, "reduced chi-square",
-                               evidence))
+            out.add(fluid.fluid_id, subject, PASS,
+                    f"{context}: reduced chi-square = {num(chi2)} within "
+                    f"[{num(low)}, {num(high)}]", chi2, high, "reduced chi-square",
+                    evidence)
             continue
         too_low = chi2 < low
         off = [s for s in sources if (s["mean_z2"] < low if too_low else s["mean_z2"] > high)]
@@ -107,15 +113,14 @@ def reduced_chi2(fluid: FluidData, th):
             # expected, not an oddity: samples of an evaluated equation carry no scatter, and
             # their stated u is the equation's own (type B; the budget treats it as shared by
             # all the file's points)
-            out.append(Finding(fluid.fluid_id, subject, PASS,
-                               f"{context}: reduced chi-square = {num(chi2)} < {num(low)}, as "
-                               "expected of samples of an evaluated equation (no scatter; their "
-                               "stated u is the equation's own, type B)", chi2, low,
-                               "reduced chi-square", evidence))
+            out.add(fluid.fluid_id, subject, PASS,
+                    f"{context}: reduced chi-square = {num(chi2)} < {num(low)}, as "
+                    "expected of samples of an evaluated equation (no scatter; their "
+                    "stated u is the equation's own, type B)", chi2, low,
+                    "reduced chi-square", evidence)
             continue
         limit = low if too_low else high
         rule = f"reduced chi-square = {num(chi2)} {'<' if too_low else '>'} {num(limit)}"
-        out.append(Finding(fluid.fluid_id, subject, VIOLATED,
-                           f"{context}: {rule}: {_cause(too_low, off, th['equation_kinds'])}",
-                           chi2, limit, "reduced chi-square", evidence))
-    return out
+        out.add(fluid.fluid_id, subject, VIOLATED,
+                f"{context}: {rule}: {_cause(too_low, off, th['equation_kinds'])}",
+                chi2, limit, "reduced chi-square", evidence)

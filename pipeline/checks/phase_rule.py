@@ -7,8 +7,9 @@ import itertools
 
 import numpy as np
 
-from pipeline.checks.data import FluidData
-from pipeline.checks.findings import judge
+from pipeline.checks.curves import grid_values, linspace_rows
+from pipeline.checks.data import CheckBatch, FluidData
+from pipeline.checks.findings import Findings
 from pipeline.checks.physics import curve_label
 from pipeline.checks.points import curve_phases, u0
 from pipeline.checks.registry import register_check
@@ -16,10 +17,10 @@ from pipeline.checks.registry import register_check
 _MIN_OVERLAP_K = 1e-6
 
 
-def _ordering(fluid: FluidData) -> list:
-    cp, out = fluid.critical_point, []
+def _ordering(out: Findings, fluid: FluidData) -> None:
+    cp = fluid.critical_point
     if cp is None:
-        return out
+        return
     for tp in fluid.triple_points:
         if not tp.has_vapour:
             continue
@@ -28,15 +29,14 @@ def _ordering(fluid: FluidData) -> list:
             if not (np.isfinite(t_val) and np.isfinite(c_val)):
                 continue
             gap = c_val - t_val
-            out.append(judge(fluid.fluid_id, f"{tp.label}|{name}", measured=gap, limit=0.0,
-                             upper=False, ok=gap > 0, statistic=f"critical - triple [{unit}]",
-                             evidence={"triple": tp.evidence(), "critical": cp.evidence()},
-                             context=f"{tp.label} at {t_val:.6g} {unit}, critical point at "
-                                     f"{c_val:.6g} {unit}"))
-    return out
+            out.judge(fluid.fluid_id, f"{tp.label}|{name}", measured=gap, limit=0.0,
+                      upper=False, ok=gap > 0, statistic=f"critical - triple [{unit}]",
+                      evidence={"triple": tp.evidence(), "critical": cp.evidence()},
+                      context=f"{tp.label} at {t_val:.6g} {unit}, critical point at "
+                              f"{c_val:.6g} {unit}")
 
 
-def _coincident(fluid: FluidData, th) -> list:
+def _coincident(out: Findings, fluid: FluidData, th) -> None:
     points, bad = fluid.triple_points, []
     for a, b in itertools.combinations(points, 2):
         close_T = abs(a.T_K - b.T_K) <= th["T_tol_K"]
@@ -46,17 +46,22 @@ def _coincident(fluid: FluidData, th) -> list:
             bad.append(f"{a.label} and {b.label}")
     bad += [f"{tp.label} names {len(tp.phases)} phases" for tp in points if len(tp.phases) != 3]
     if not points:
-        return []
-    return [judge(fluid.fluid_id, "phase-count", measured=float(len(bad)), limit=0.0,
-                  statistic="points where more than three phases meet",
-                  evidence={"violations": bad, "triple_points": [tp.label for tp in points]},
-                  context=f"{len(points)} stated triple point(s)" + (": " + "; ".join(bad) if bad else ""))]
+        return
+    out.judge(fluid.fluid_id, "phase-count", measured=float(len(bad)), limit=0.0,
+              statistic="points where more than three phases meet",
+              evidence={"violations": bad, "triple_points": [tp.label for tp in points]},
+              context=f"{len(points)} stated triple point(s)" + (": " + "; ".join(bad) if bad else ""))
 
 
-def _crossings(a, b, n: int) -> list[float]:
-    lo, hi = max(a.T_min_K, b.T_min_K), min(a.T_max_K, b.T_max_K)
-    T = np.linspace(lo, hi, n)
-    d = np.asarray(a.value(T), float) - np.asarray(b.value(T), float)
+def _pairs(fluid: FluidData) -> list:
+    """Pairs of fitted pressure curves whose ranges overlap: ((key, curve), (key, curve))."""
+    curves = fluid.pressure_curves()
+    return [((ka, a), (kb, b)) for (ka, a), (kb, b) in itertools.combinations(sorted(curves.items()), 2)
+            if min(a.T_max_K, b.T_max_K) - max(a.T_min_K, b.T_min_K) >= _MIN_OVERLAP_K]
+
+
+def _crossings(T: np.ndarray, d: np.ndarray) -> list[float]:
+    """Temperatures where p_a - p_b (``d`` on the grid ``T``) is zero or changes sign."""
     ok = np.isfinite(d)
     T, d = T[ok], d[ok]
     roots = list(T[d == 0])
@@ -72,35 +77,46 @@ def _matching_point(fluid: FluidData, phases: set, T: float, th):
     return None
 
 
-def _intersections(fluid: FluidData, th) -> list:
+def _differences(batch: CheckBatch, pairs: dict, th) -> dict:
+    """p_a - p_b on the grid of every pair of every fluid, one kernel call per form."""
+    flat = [(fid, i, a, b, int(th(fid)["n_grid"])) for fid, ps in pairs.items()
+            for i, ((_, a), (_, b)) in enumerate(ps)]
+    out = {}
+    for n in sorted({f[4] for f in flat}):
+        rows = [f for f in flat if f[4] == n]
+        T = linspace_rows(np.array([max(a.T_min_K, b.T_min_K) for _, _, a, b, _ in rows]),
+                          np.array([min(a.T_max_K, b.T_max_K) for _, _, a, b, _ in rows]), n)
+        d = grid_values([r[2].curve for r in rows], T) - grid_values([r[3].curve for r in rows], T)
+        for (fid, i, *_), T_row, d_row in zip(rows, T, d):
+            out[(fid, i)] = (T_row, d_row)
+    return out
+
+
+def _intersections(out: Findings, fluid: FluidData, pairs: list, grids: dict, th) -> None:
     solids = {p for tp in fluid.triple_points for p in tp.phases} - {"vapour", "liquid"}
-    curves = fluid.pressure_curves()
-    out = []
-    for (ka, a), (kb, b) in itertools.combinations(sorted(curves.items()), 2):
-        if min(a.T_max_K, b.T_max_K) - max(a.T_min_K, b.T_min_K) < _MIN_OVERLAP_K:
-            continue
+    for i, ((ka, a), (kb, b)) in enumerate(pairs):
         pa, pb = curve_phases(ka[0], ka[1], solids), curve_phases(kb[0], kb[1], solids)
         phases = set(pa or ()) | set(pb or ())
         found = []
-        for T in _crossings(a, b, int(th["n_grid"])):
+        for T in _crossings(*grids[(fluid.fluid_id, i)]):
             tp = _matching_point(fluid, phases, T, th)
             found.append({"T_K": T, "p_Pa": float(a.value(T)), "triple_point": tp.label if tp else None})
         stray = [x for x in found if x["triple_point"] is None]
         names = f"{curve_label(ka)} and {curve_label(kb)}"
         text = "; ".join(f"{x['T_K']:.6g} K, {x['p_Pa']:.6g} Pa" for x in stray[:5])
-        out.append(judge(fluid.fluid_id, f"curves:{curve_label(ka)}|{curve_label(kb)}",
-                         measured=float(len(stray)), limit=0.0,
-                         statistic="intersections away from stated triple points",
-                         evidence={"intersections": found, "phases": sorted(phases)},
-                         context=f"{names} cross {len(found)} time(s) in their common range"
-                                 + (f", not at a stated triple point: {text}" if stray else "")))
-    return out
+        out.judge(fluid.fluid_id, f"curves:{curve_label(ka)}|{curve_label(kb)}",
+                  measured=float(len(stray)), limit=0.0,
+                  statistic="intersections away from stated triple points",
+                  evidence={"intersections": found, "phases": sorted(phases)},
+                  context=f"{names} cross {len(found)} time(s) in their common range"
+                          + (f", not at a stated triple point: {text}" if stray else ""))
 
 
 @register_check("phase-rule.ordering", tags=("phase-rule", "critical", "triple-point", "curves"),
+                vectorised=True,
                 purpose="At most three phases meet at a point; curves cross only at stated "
                         "triple points; Tt < Tc and pt < pc.")
-def ordering(fluid: FluidData, th):
+def ordering(batch: CheckBatch, th) -> Findings:
     """Gibbs' phase rule for a pure substance, F = 3 − P, allows at most three coexisting
     phases, and only at isolated points (F = 0): two distinct triple points may not coincide
     (that would be a quadruple point), and two coexistence curves may cross only at a triple
@@ -115,4 +131,12 @@ def ordering(fluid: FluidData, th):
     curve; curves of different solid phases mixed up; a triple or critical point in the wrong
     unit.
     """
-    return _ordering(fluid) + _coincident(fluid, th) + _intersections(fluid, th)
+    pairs = {fluid.fluid_id: _pairs(fluid) for fluid in batch}
+    grids = _differences(batch, pairs, th)
+    out = Findings()
+    for fluid in batch:
+        t = th(fluid.fluid_id)
+        _ordering(out, fluid)
+        _coincident(out, fluid, t)
+        _intersections(out, fluid, pairs[fluid.fluid_id], grids, t)
+    return out

@@ -40,6 +40,12 @@ class Looked:
         return {"value": self.value, "u": self.u, "basis": self.basis, "obs_id": self.obs_id}
 
 
+def lookup_requests(fluid: FluidData, T: float) -> list[tuple[FluidData, tuple, float]]:
+    """The curve points a look-up at ``T`` may read (every fitted curve covering T), for
+    :meth:`~pipeline.checks.data.CheckBatch.prefetch`."""
+    return [(fluid, key, T) for key, fitted in fluid.curves.items() if fitted.covers(T)]
+
+
 def _from_curve(fluid: FluidData, key, T: float) -> Looked | None:
     fitted = fluid.curve(*key)
     if fitted is None or not fitted.covers(T):

@@ -104,9 +104,14 @@ class StatedPoint:
         return [(ph[i], ph[j]) for i in range(len(ph)) for j in range(i + 1, len(ph))]
 
     def evidence(self) -> dict:
-        return {"T_K": self.T_K, "u_T_K": self.u_T_K, "p_Pa": self.p_Pa, "u_p_Pa": self.u_p_Pa,
-                "rho_kg_m3": self.rho_kg_m3, "sources": list(self.sources),
-                "fp_ids": list(self.fp_ids)}
+        """The point as evidence (a value not stated is None, as JSON will hold it)."""
+        return {"T_K": _stated(self.T_K), "u_T_K": _stated(self.u_T_K), "p_Pa": _stated(self.p_Pa),
+                "u_p_Pa": _stated(self.u_p_Pa), "rho_kg_m3": _stated(self.rho_kg_m3),
+                "sources": list(self.sources), "fp_ids": list(self.fp_ids)}
+
+
+def _stated(x: float) -> float | None:
+    return x if math.isfinite(x) else None
 
 
 def curve_label(key) -> str:
@@ -135,7 +140,8 @@ def consensus(values, uncertainties) -> tuple[float, float]:
 
 def _best_ranked(rows: list[dict]) -> list[dict]:
     rank = [SOURCE_RANK.get(r["source_kind"], len(SOURCE_RANK)) for r in rows]
-    return [r for r, k in zip(rows, rank) if k == min(rank)]
+    best = min(rank)
+    return [r for r, k in zip(rows, rank) if k == best]
 
 
 def consensus_points(records: Iterable[dict], kind: str) -> list[StatedPoint]:
@@ -151,12 +157,15 @@ def consensus_points(records: Iterable[dict], kind: str) -> list[StatedPoint]:
             groups.setdefault(parse_phases(r["phases"]), []).append(r)
     out = []
     for phases in sorted(groups):
-        cols, used = {}, []
+        cols, used, seen = {}, [], set()
         for col in ("T_K", "p_Pa", "rho_kg_m3"):
             rows = [r for r in groups[phases] if _finite(r[col])]
             best = _best_ranked(rows) if rows else []
             cols[col], cols["u_" + col] = consensus([r[col] for r in best], [r["u_" + col] for r in best])
-            used += [r for r in best if r not in used]
+            for r in best:       # each record once (records differ: each has its own fp_id)
+                if id(r) not in seen:
+                    seen.add(id(r))
+                    used.append(r)
         out.append(StatedPoint(kind, phases, cols["T_K"], cols["u_T_K"], cols["p_Pa"],
                                cols["u_p_Pa"], cols["rho_kg_m3"], cols["u_rho_kg_m3"],
                                tuple(dict.fromkeys(r["source_id"] for r in used)),

@@ -2,11 +2,18 @@
 
 Two shapes of check function exist:
 
+- vectorised (``vectorised=True``, every built-in check): ``fn(batch: CheckBatch,
+  th: ThresholdView) -> Findings``, called once with all selected fluids; it reads what it
+  needs for all of them at once (stacked observations, curve points through
+  :meth:`CheckBatch.prefetch`) and returns its findings as columns
+  (:class:`~pipeline.checks.findings.Findings`; an iterable of Finding is accepted too). The
+  engine re-runs it fluid by fluid only when it raises, to isolate the fluid at fault;
 - per fluid (``vectorised=False``): ``fn(fluid: FluidData, th: Mapping) -> Iterable[Finding]``,
-  called once per fluid with that fluid's thresholds;
-- vectorised (``vectorised=True``): ``fn(batch: CheckBatch, th: ThresholdView) ->
-  Iterable[Finding]``, called once with all selected fluids (the engine re-runs it fluid by
-  fluid only when it raises, to isolate the fluid at fault).
+  called once per fluid with that fluid's thresholds.
+
+The decorator returns a vectorised function wrapped so that it may also be called with one
+:class:`~pipeline.checks.data.FluidData` (or a mapping or sequence of them) and a plain mapping
+of thresholds, as the tests call it; the registry keeps the function itself.
 
 The function's docstring is the check's explanation (physics, equation, usual causes of a
 failure, references); ``fluidledger explain`` prints it.
@@ -14,10 +21,13 @@ failure, references); ``fluidledger explain`` prints it.
 
 from __future__ import annotations
 
+import functools
 import importlib
 import inspect
 from dataclasses import dataclass
-from typing import Callable, Iterable
+from typing import Any, Callable, Iterable, Mapping
+
+import numpy as np
 
 from pipeline.errors import CheckError
 from pipeline.checks.findings import SEVERITIES
@@ -52,9 +62,54 @@ class CheckSpec:
         return f"<Check {self.id} [{self.severity}; {', '.join(self.tags)}]: {self.purpose}>"
 
 
+class FixedThresholds:
+    """A plain mapping of thresholds used as a :class:`~pipeline.checks.thresholds.ThresholdView`
+    (the same values for every fluid): for calling a vectorised check directly."""
+
+    def __init__(self, values: Mapping[str, Any]):
+        self.values = dict(values)
+
+    def __call__(self, fluid_id: str | None = None) -> dict[str, Any]:
+        return self.values
+
+    def __getitem__(self, key: str) -> Any:
+        return self.values[key]
+
+    def array(self, key: str, fluid_ids: Iterable[str]) -> np.ndarray:
+        return np.full(len(list(fluid_ids)), self.values[key], dtype=float)
+
+
+def as_batch(data: Any):
+    """A :class:`~pipeline.checks.data.CheckBatch` of ``data``: a batch, one FluidData, or a
+    mapping or sequence of them."""
+    from pipeline.checks.data import CheckBatch, FluidData
+
+    if isinstance(data, CheckBatch):
+        return data
+    if isinstance(data, FluidData):
+        return CheckBatch({data.fluid_id: data})
+    if isinstance(data, Mapping):
+        return CheckBatch(dict(data))
+    return CheckBatch({f.fluid_id: f for f in data})
+
+
+def _accepting_one_fluid(fn: Callable) -> Callable:
+    """``fn(batch, view)`` callable with one fluid and a mapping of thresholds as well."""
+    @functools.wraps(fn)
+    def call(data, th):
+        return fn(as_batch(data), th if callable(th) else FixedThresholds(th))
+
+    call.check_function = fn
+    return call
+
+
 def register_check(check_id: str, *, purpose: str, tags: Iterable[str], severity: str = "fail",
                    vectorised: bool = False) -> Callable[[Callable], Callable]:
-    """Decorator registering ``fn`` as check ``check_id``; returns ``fn`` unchanged."""
+    """Decorator registering ``fn`` as check ``check_id``.
+
+    Returns ``fn`` unchanged for a per-fluid check; a vectorised check is returned wrapped so
+    that it also takes one fluid and a plain mapping of thresholds (the registry keeps ``fn``).
+    """
     if severity not in SEVERITIES:
         raise ValueError(f"check {check_id}: severity {severity!r} is not one of {SEVERITIES}")
 
@@ -64,7 +119,7 @@ def register_check(check_id: str, *, purpose: str, tags: Iterable[str], severity
         if not inspect.getdoc(fn):
             raise ValueError(f"check {check_id}: the function needs a docstring (its explanation)")
         _REGISTRY[check_id] = CheckSpec(check_id, purpose, tuple(tags), severity, fn, vectorised)
-        return fn
+        return _accepting_one_fluid(fn) if vectorised else fn
 
     return decorate
 

@@ -1,15 +1,21 @@
-"""The record of a check run: :class:`CheckResult` rows and the :class:`CheckRun` around them.
+"""The record of a check run: its results as columns (:class:`ResultTable`), one
+:class:`CheckResult` per row when asked for, and the :class:`CheckRun` around them.
 
-``CheckRun.asdict()`` is the machine form (validated against
-``schemas/check-results.schema.json`` when written); ``CheckRun.asstr()`` the human summary.
+The engine builds the table from each check's findings; the store takes its columns in one
+insert, every row's evidence encoded to JSON once (:func:`evidence_json`: the C encoder, with
+the slow walk of :func:`jsonable` only for evidence holding NaN); :class:`CheckResult` objects
+are made only for the rows a caller reads. ``CheckRun.asdict()`` is the machine form
+(validated against ``schemas/check-results.schema.json`` when written); ``CheckRun.asstr()``
+the human summary.
 """
 
 from __future__ import annotations
 
+import json
 import math
 from collections import Counter
 from dataclasses import dataclass, field, replace
-from typing import Any, Iterable, Mapping
+from typing import Any, Iterable, Iterator, Mapping, Sequence
 
 import numpy as np
 
@@ -86,31 +92,203 @@ class CheckResult:
                 "decision_id": self.decision_id, "duration_s": self.duration_s}
 
 
-@dataclass
-class CheckRun:
-    """A whole check run: which checks over which fluids, every result, and the verdict."""
+#: the fields of a result, in the order of :class:`CheckResult`
+RESULT_FIELDS = ("check_id", "fluid_id", "subject", "status", "severity", "message", "measured",
+                 "limit", "statistic", "evidence", "thresholds", "input_hash", "decision_id",
+                 "duration_s")
 
-    run_id: str
-    started_at: str
-    finished_at: str
-    pipeline_version: str
-    parameters: dict[str, Any]
-    checks: list[str]
-    fluids: list[str]
-    results: list[CheckResult]
-    duration_s: float = 0.0
+
+def _plain(value: Any) -> Any:
+    """What the JSON encoder cannot take as is: numpy scalars and arrays."""
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    raise TypeError(f"{type(value).__name__} is not JSON serialisable")
+
+
+def _encoder():
+    """The C encoder of ``json.dumps(..., sort_keys=True, allow_nan=False)``, made once (the
+    pure-Python one where the C one is missing)."""
+    try:
+        from json.encoder import c_make_encoder, encode_basestring_ascii
+    except ImportError:  # pragma: no cover (CPython has it)
+        c_make_encoder = None
+    if c_make_encoder is None:  # pragma: no cover
+        return json.JSONEncoder(sort_keys=True, allow_nan=False, default=_plain).encode
+    make = c_make_encoder(None, _plain, encode_basestring_ascii, None, ": ", ", ", True, False,
+                          False)
+    return lambda obj: "".join(make(obj, 0))
+
+
+_ENCODE = _encoder()
+
+
+def evidence_json(evidence: Any) -> str:
+    """``json.dumps(jsonable(evidence), sort_keys=True)``, mostly without the walk.
+
+    The C encoder takes the evidence as it is (numpy scalars through ``default``); evidence
+    holding a non-finite number (which ``jsonable`` turns into null) or keys that are not
+    strings falls back to the walk. Both give the same text.
+    """
+    try:
+        return _ENCODE(evidence)
+    except (ValueError, TypeError):
+        return json.dumps(jsonable(evidence), sort_keys=True)
+
+
+def _scalar(value: Any) -> Any:
+    """A measured value or limit as stored: a float, None for None and non-finite numbers."""
+    if type(value) is float:
+        return value if math.isfinite(value) else None
+    return None if value is None else jsonable(value)
+
+
+class ResultTable:
+    """Check results as columns: one list per field of :class:`CheckResult`, one row each.
+
+    ``evidence`` holds each row's evidence as the check gave it (made JSON-safe only when a
+    row is read or stored); ``thresholds`` the JSON-safe thresholds, one shared mapping per
+    check and set of per-fluid overrides. Iterating (or :meth:`results`) gives
+    :class:`CheckResult` objects, made for the rows read and kept.
+    """
+
+    def __init__(self, columns: Mapping[str, list] | None = None):
+        self.columns = {f: list(columns[f]) if columns else [] for f in RESULT_FIELDS}
+        n = len(self.columns["check_id"])
+        self._objects: list[CheckResult | None] = [None] * n
+        self._json: list[str | None] = [None] * n
+
+    def __len__(self) -> int:
+        return len(self._objects)
+
+    def __repr__(self) -> str:
+        return f"<ResultTable: {len(self)} results>"
+
+    def __iter__(self) -> Iterator["CheckResult"]:
+        return iter(self.results())
+
+    def __getitem__(self, i: int) -> "CheckResult":
+        return self.result(i)
+
+    # -- building --------------------------------------------------------------------------------
+    def add_rows(self, rows: Mapping[str, Sequence]) -> None:
+        """Append rows given as columns (every field of :data:`RESULT_FIELDS`)."""
+        n = len(rows["check_id"])
+        for f in RESULT_FIELDS:
+            col = rows[f]
+            if len(col) != n:
+                raise ValueError(f"column {f} has {len(col)} rows, check_id {n}")
+            self.columns[f].extend(col)
+        self._objects.extend([None] * n)
+        self._json.extend([None] * n)
+
+    def append(self, result: "CheckResult") -> None:
+        for f in RESULT_FIELDS:
+            self.columns[f].append(getattr(result, f))
+        self._objects.append(result)
+        self._json.append(None)
+
+    def replace(self, i: int, result: "CheckResult") -> None:
+        """Row ``i`` becomes ``result``."""
+        for f in RESULT_FIELDS:
+            self.columns[f][i] = getattr(result, f)
+        self._objects[i] = result
+        self._json[i] = None
+
+    @classmethod
+    def from_results(cls, results: Iterable["CheckResult"]) -> "ResultTable":
+        table = cls()
+        for r in results:
+            table.append(r)
+        return table
+
+    @classmethod
+    def concat(cls, tables: Iterable["ResultTable"]) -> "ResultTable":
+        out = cls()
+        for t in tables:
+            for f in RESULT_FIELDS:
+                out.columns[f].extend(t.columns[f])
+            out._objects.extend(t._objects)
+            out._json.extend(t._json)
+        return out
+
+    # -- reading ---------------------------------------------------------------------------------
+    def result(self, i: int) -> "CheckResult":
+        """Row ``i`` as a :class:`CheckResult` (evidence and numbers JSON-safe)."""
+        r = self._objects[i]
+        if r is None:
+            c = self.columns
+            r = self._objects[i] = CheckResult(
+                c["check_id"][i], c["fluid_id"][i], c["subject"][i], c["status"][i],
+                c["severity"][i], c["message"][i], c["measured"][i], c["limit"][i],
+                c["statistic"][i], jsonable(c["evidence"][i]), c["thresholds"][i],
+                c["input_hash"][i], c["decision_id"][i], c["duration_s"][i])
+        return r
+
+    def results(self) -> list["CheckResult"]:
+        """Every row as a :class:`CheckResult`."""
+        return [self.result(i) for i in range(len(self))]
+
+    def keys(self) -> list[tuple[str, str, str]]:
+        """(check_id, fluid_id, subject) of every row."""
+        c = self.columns
+        return list(zip(c["check_id"], c["fluid_id"], c["subject"]))
+
+    def evidence_json(self) -> list[str]:
+        """Every row's evidence as sorted-key JSON (encoded once per row)."""
+        out, evidence = self._json, self.columns["evidence"]
+        for i, text in enumerate(out):
+            if text is None:
+                out[i] = evidence_json(evidence[i])
+        return list(out)
+
+    def thresholds_json(self) -> list[str]:
+        """Every row's thresholds as sorted-key JSON (encoded once per distinct mapping)."""
+        seen: dict[int, str] = {}
+        out = []
+        for th in self.columns["thresholds"]:
+            text = seen.get(id(th))
+            if text is None:
+                text = seen[id(th)] = json.dumps(jsonable(th), sort_keys=True)
+            out.append(text)
+        return out
+
+
+class CheckRun:
+    """A whole check run: which checks over which fluids, every result, and the verdict.
+
+    ``results`` may be given as a :class:`ResultTable` (the engine) or a list of
+    :class:`CheckResult`; ``table`` is the columns, ``results`` the rows as objects.
+    """
+
+    def __init__(self, run_id: str, started_at: str, finished_at: str, pipeline_version: str,
+                 parameters: dict[str, Any], checks: list[str], fluids: list[str],
+                 results: "ResultTable | Iterable[CheckResult]", duration_s: float = 0.0):
+        self.run_id, self.started_at, self.finished_at = run_id, started_at, finished_at
+        self.pipeline_version, self.parameters = pipeline_version, parameters
+        self.checks, self.fluids, self.duration_s = checks, fluids, duration_s
+        self.table = results if isinstance(results, ResultTable) else ResultTable.from_results(results)
+
+    def __repr__(self) -> str:
+        return f"<CheckRun {self.run_id}: {len(self.table)} results>"
+
+    @property
+    def results(self) -> list[CheckResult]:
+        return self.table.results()
 
     def counts(self) -> dict[str, int]:
         """Number of results per status (every status present, zeros included)."""
-        c = Counter(r.status for r in self.results)
+        c = Counter(self.table.columns["status"])
         return {s: c.get(s, 0) for s in STATUS_ORDER}
 
     def by_status(self, statuses: Iterable[str] = STATUS_ORDER) -> list[CheckResult]:
         """Results of the given statuses, in :data:`STATUS_ORDER`, then check, fluid, subject."""
         rank = {s: i for i, s in enumerate(STATUS_ORDER)}
         wanted = set(statuses)
-        return sorted((r for r in self.results if r.status in wanted),
-                      key=lambda r: (rank[r.status], r.check_id, r.fluid_id, r.subject))
+        rows = [i for i, s in enumerate(self.table.columns["status"]) if s in wanted]
+        results = [self.table.result(i) for i in rows]
+        return sorted(results, key=lambda r: (rank[r.status], r.check_id, r.fluid_id, r.subject))
 
     def exit_code(self, fail_on: str = "fail") -> int:
         """0 all pass (warnings allowed unless ``fail_on='warn'``), 1 any fail, 3 any error."""

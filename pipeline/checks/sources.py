@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from pipeline.checks.data import FluidData
-from pipeline.checks.findings import judge
+from pipeline.checks.data import CheckBatch, FluidData
+from pipeline.checks.findings import Findings
 from pipeline.checks.points import SOURCE_RANK, parse_phases
 from pipeline.checks.registry import register_check
 from pipeline.checks.stats import birge_limit, birge_ratio, leave_one_out_z, weighted_mean
@@ -47,7 +47,8 @@ def _discrepant(z: np.ndarray, sources, kinds, z_max: float) -> list[str]:
     return [str(sources[i]) for i in bad[:1]] if bad else []
 
 
-def _judge_entry(fluid: FluidData, subject, name, unit, x, u, sources, kinds, defaulted, th):
+def _judge_entry(out: Findings, fluid: FluidData, subject, name, unit, x, u, sources, kinds,
+                 defaulted, th) -> None:
     listing = [{"source": str(s), "kind": str(k), "value": float(v), "u": float(w),
                 "u_is_default": bool(d)} for s, k, v, w, d in zip(sources, kinds, x, u, defaulted)]
     if np.all(np.isfinite(u) & (u > 0)):
@@ -68,14 +69,15 @@ def _judge_entry(fluid: FluidData, subject, name, unit, x, u, sources, kinds, de
         summary = f"median {med:.7g} {unit} (a source states no uncertainty)"
     values = ", ".join(f"{e['source']} {e['value']:.7g}" for e in listing)
     blame = f"; discrepant: {', '.join(bad)}" if bad else ""
-    return judge(fluid.fluid_id, subject, measured=measured, limit=limit, statistic=stat,
-                 evidence={"values": listing, "discrepant": bad, "unit": unit},
-                 context=f"{name} from {len(x)} sources ({values}), {summary}{blame}")
+    out.judge(fluid.fluid_id, subject, measured=measured, limit=limit, statistic=stat,
+              evidence={"values": listing, "discrepant": bad, "unit": unit},
+              context=f"{name} from {len(x)} sources ({values}), {summary}{blame}")
 
 
 @register_check("sources.agreement", tags=("sources", "critical", "triple-point"),
+                vectorised=True,
                 purpose="Values of one constant from several sources agree; a discrepant one is named.")
-def agreement(fluid: FluidData, th):
+def agreement(batch: CheckBatch, th) -> Findings:
     """Each constant stated by two or more sources (Tc, pc, ρc of the critical point, Tt and pt
     of every triple point, stated constants such as the acentric factor) is tested for mutual
     consistency. With uncertainties: the Birge ratio R_B = sqrt(chi2/(n − 1)) about the
@@ -91,10 +93,12 @@ def agreement(fluid: FluidData, th):
     Usual causes of a failure: a value on another temperature scale; an old value superseded by
     a newer evaluation; a unit slip (kPa for MPa); a copying error.
     """
-    out = []
-    for subject, name, unit, x, u, sources, kinds, defaulted in _entries(fluid):
-        ok = np.isfinite(x)
-        if ok.sum() >= 2:
-            out.append(_judge_entry(fluid, subject, name, unit, x[ok], u[ok], sources[ok],
-                                    kinds[ok], defaulted[ok], th))
+    out = Findings()
+    for fluid in batch:
+        t = th(fluid.fluid_id)
+        for subject, name, unit, x, u, sources, kinds, defaulted in _entries(fluid):
+            ok = np.isfinite(x)
+            if ok.sum() >= 2:
+                _judge_entry(out, fluid, subject, name, unit, x[ok], u[ok], sources[ok],
+                             kinds[ok], defaulted[ok], t)
     return out

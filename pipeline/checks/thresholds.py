@@ -189,6 +189,10 @@ class ThresholdView:
         self._overridden = set(thresholds.overrides(check_id))
 
     def __call__(self, fluid_id: str | None = None) -> dict[str, Any]:
+        """The thresholds in force for ``fluid_id``: one shared mapping for every fluid without
+        overrides (do not change it)."""
+        if fluid_id is not None and fluid_id not in self._overridden:
+            fluid_id = None
         return self.thresholds.for_check(self.check_id, fluid_id)
 
     def __getitem__(self, key: str) -> Any:

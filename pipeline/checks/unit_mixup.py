@@ -25,11 +25,12 @@ from typing import Callable
 import numpy as np
 
 from pipeline.checks.consensus import poly_design, robust_fit, wagner_design
-from pipeline.checks.data import FluidData, ObsSeries
+from pipeline.checks.data import CheckBatch, FluidData, ObsSeries
 from pipeline.checks.estimates import estimate_from_constants
-from pipeline.checks.findings import VIOLATED, WARN, Finding, judge, skipped
+from pipeline.checks.findings import VIOLATED, WARN, Findings
 from pipeline.checks.points import SOURCE_RANK
 from pipeline.checks.registry import register_check
+from pipeline.checks.stats import median
 
 #: pressure units and their size in Pa (the candidates of a factor mix-up)
 PRESSURE_UNITS_PA = {"Pa": 1.0, "hPa": 100.0, "kPa": 1e3, "bar": 1e5, "MPa": 1e6,
@@ -214,14 +215,15 @@ def _anchored(fluid: FluidData, s: ObsSeries, th) -> Consensus | None:
     is scaled to pass through the stated pressure: a unit factor then shows as a constant
     offset of the file from it.
     """
+    anchors = _anchors(fluid, s)
     T, p = s.T.astype(float), s.value.astype(float)
     ok = np.isfinite(T) & np.isfinite(p) & (p > 0) & (T > 0)
-    if ok.sum() < th["min_points"] or np.ptp(T[ok]) == 0:
+    if not anchors or ok.sum() < th["min_points"] or np.ptp(T[ok]) == 0:
         return None
     policy = fluid.budget.extrapolation
     b, a = np.polyfit(1.0 / T[ok], np.log(p[ok]), 1)
     lo, hi = float(T[ok].min()), float(T[ok].max())
-    for name, T_a, p_a in _anchors(fluid, s):
+    for name, T_a, p_a in anchors:
         if max(lo - T_a, T_a - hi, 0.0) > policy.allowed(T_a):
             continue
         shift = math.log(p_a) - (a + b / T_a)
@@ -245,12 +247,12 @@ def _file_rel_u(fluid: FluidData, group: ObsSeries, path: str) -> float:
     kind = str(group.source_kind[m][0])
     model = fluid.budget.uncertainty
     rel = np.where(np.isfinite(u) & (u > 0), np.abs(u / y), model.observed_rel("pressure", kind))
-    return float(np.median(rel)) * model.correlated_fraction(kind)
+    return median(rel) * model.correlated_fraction(kind)
 
 
 def _robust(fluid: FluidData, group: ObsSeries, th, start_w=None):
     space = SPACES[group.boundary]
-    return robust_fit(group.T.astype(float), space.y(group.value.astype(float)), group.file_path,
+    return robust_fit(group.T.astype(float), space.y(group.value.astype(float)), group.file_code,
                       space.design(fluid), poly_design(space.x, 1),
                       space.floor(group.value, th["rel_floor"]), start_w)
 
@@ -317,11 +319,11 @@ def _median_z(cons: Consensus, T, p, rel_u, th) -> tuple[float, float]:
     if not ok.any() or ok.mean() < th["min_coverage"]:
         return math.inf, float(ok.mean())
     z = r[ok] / np.sqrt(rel_u[ok] ** 2 + cons.floor ** 2)
-    stat = abs(float(np.median(z)))
+    stat = abs(median(z))
     n_low = max(int(th["min_points"]), len(z) // 3)
     if cons.floor >= th["estimate_rel_floor"] and len(z) >= 2 * n_low:
         low = z[np.argsort(p[ok], kind="stable")[:n_low]]
-        stat = max(stat, abs(float(np.median(low))))
+        stat = max(stat, abs(median(low)))
     return stat, float(ok.mean())
 
 
@@ -334,15 +336,22 @@ def _scores(cons: Consensus, s: ObsSeries, rel_u, th) -> list[tuple[float, str]]
     return sorted(out)
 
 
-def _diagnose(fluid: FluidData, s: ObsSeries, subject: str, path: str, cons: Consensus, th) -> Finding:
-    rel_u = np.nan_to_num(np.abs(s.u_value_si / s.value))
-    before, coverage = _median_z(cons, s.T, s.value, rel_u, th)
+def _rel_u(s: ObsSeries) -> np.ndarray:
+    return np.nan_to_num(np.abs(s.u_value_si / s.value))
+
+
+def _diagnose(out: Findings, fluid: FluidData, s: ObsSeries, subject: str, path: str,
+              cons: Consensus, th, rel_u: np.ndarray, scored: tuple[float, float] | None = None
+              ) -> None:
+    """The file's finding against ``cons`` (``scored``: its :func:`_median_z`, when known)."""
+    before, coverage = scored or _median_z(cons, s.T, s.value, rel_u, th)
     stat, limit, basis = "|median z| vs consensus", th["z_max"], cons.basis
     ev = {"consensus": basis, "consensus_rel_u": cons.floor, "n_points": int(len(s)),
           "coverage": coverage, "median_abs_z_before": before}
     if before <= limit:
-        return judge(fluid.fluid_id, subject, measured=before, limit=limit, statistic=stat,
-                     evidence=ev, context=f"{path} agrees with {basis}")
+        out.judge(fluid.fluid_id, subject, measured=before, limit=limit, statistic=stat,
+                  evidence=ev, context=f"{path} agrees with {basis}")
+        return
     ev["observations"] = s.refs(limit=5)
     scores = _scores(cons, s, rel_u, th)
     after, best = scores[0] if scores else (math.inf, None)
@@ -353,13 +362,14 @@ def _diagnose(fluid: FluidData, s: ObsSeries, subject: str, path: str, cons: Con
     measured = before if math.isfinite(before) else None
     if explained:
         ev["diagnosis"] = best
-        return Finding(fluid.fluid_id, subject, VIOLATED,
-                       f"{path}: values look like {best}: the file lies {where}; corrected, "
-                       f"|median z| = {after:.3g}", measured, limit, stat, ev)
+        out.add(fluid.fluid_id, subject, VIOLATED,
+                f"{path}: values look like {best}: the file lies {where}; corrected, "
+                f"|median z| = {after:.3g}", measured, limit, stat, ev)
+        return
     ev["diagnosis"] = None
-    return Finding(fluid.fluid_id, subject, WARN,
-                   f"{path} lies {where} but no unit or scale mix-up explains it (best: {best}, "
-                   f"|median z| = {after:.3g})", measured, limit, stat, ev)
+    out.add(fluid.fluid_id, subject, WARN,
+            f"{path} lies {where} but no unit or scale mix-up explains it (best: {best}, "
+            f"|median z| = {after:.3g})", measured, limit, stat, ev)
 
 
 def _screen(fluid: FluidData, group: ObsSeries, pooled, pooled_w, th) -> Consensus | None:
@@ -376,34 +386,33 @@ def _screen(fluid: FluidData, group: ObsSeries, pooled, pooled_w, th) -> Consens
                      th["rel_floor"])
 
 
-def _group_findings(fluid: FluidData, group: ObsSeries, th) -> list[Finding]:
+def _group_findings(out: Findings, fluid: FluidData, group: ObsSeries, th) -> None:
     several = len(set(group.file_path)) > 1
     pooled, pooled_w = _robust(fluid, group, th) if several else (None, None)
     if pooled_w is None:
         pooled_w = np.ones(len(group))
     screen = _screen(fluid, group, pooled, pooled_w, th)
-    out = []
     for path, s in group.by_file().items():
         subject = f"file:{path}|{group.boundary}" + (f":{group.solid_phase}" if group.solid_phase else "")
         if len(s) < th["min_points"]:
-            out.append(skipped(fluid.fluid_id, subject, f"{len(s)} points: too few to diagnose"))
+            out.skip(fluid.fluid_id, subject, f"{len(s)} points: too few to diagnose")
             continue
+        rel_u = _rel_u(s)
         if screen is not None:
-            rel_u = np.nan_to_num(np.abs(s.u_value_si / s.value))
-            if _median_z(screen, s.T, s.value, rel_u, th)[0] <= th["z_max"]:
-                out.append(_diagnose(fluid, s, subject, path, screen, th))
+            scored = _median_z(screen, s.T, s.value, rel_u, th)
+            if scored[0] <= th["z_max"]:
+                _diagnose(out, fluid, s, subject, path, screen, th, rel_u, scored)
                 continue
         cons, reason = _consensus(fluid, group, path, pooled_w, th)
         if cons is None:
-            out.append(skipped(fluid.fluid_id, subject, reason))
+            out.skip(fluid.fluid_id, subject, reason)
             continue
-        out.append(_diagnose(fluid, s, subject, path, cons, th))
-    return out
+        _diagnose(out, fluid, s, subject, path, cons, th, rel_u)
 
 
-@register_check("data.unit-mixup", tags=("data", "units", "sources"),
+@register_check("data.unit-mixup", tags=("data", "units", "sources"), vectorised=True,
                 purpose="A file off the consensus by a unit factor or offset gets the mix-up named.")
-def unit_mixup(fluid: FluidData, th):
+def unit_mixup(batch: CheckBatch, th) -> Findings:
     """Each file's pressures are compared with the consensus of its group: the robust fit of
     the other files, else the published reference equation of the fluid (found by its CAS
     number, whatever its id), else the one other file; a fluid's only file is compared with
@@ -427,8 +436,10 @@ def unit_mixup(fluid: FluidData, th):
     Usual causes: a column header with the wrong unit, a spreadsheet that converted units
     twice, a gauge reading, temperatures on the old scale.
     """
-    out = []
-    for boundary, solid, quantity in fluid.groups():
-        if quantity == "pressure" and boundary in SPACES:
-            out.extend(_group_findings(fluid, fluid.series(boundary, "pressure", solid), th))
+    out = Findings()
+    for fluid in batch:
+        t = th(fluid.fluid_id)
+        for boundary, solid, quantity in fluid.groups():
+            if quantity == "pressure" and boundary in SPACES:
+                _group_findings(out, fluid, fluid.series(boundary, "pressure", solid), t)
     return out

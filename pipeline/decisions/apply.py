@@ -205,14 +205,20 @@ class WaiverStep:
         self._waivers = [d for d in self.decisions if d.kind == "waive_check"]
 
     def __call__(self, results, batch=None):
+        """The results with the waivers applied: a ResultTable of them (only the violations
+        are read as CheckResult objects; the other rows are not touched)."""
+        from pipeline.checks.results import ResultTable
+
         today = self.today or date.today()
         self.applied, self.lapsed = {}, {}
-        out = []
-        for r in results:
-            if r.status in _VIOLATIONS:
-                r = self._apply(r, today)
-            out.append(r)
-        return out
+        table = results if isinstance(results, ResultTable) else ResultTable.from_results(results)
+        for i, status in enumerate(table.columns["status"]):
+            if status in _VIOLATIONS:
+                r = table.result(i)
+                changed = self._apply(r, today)
+                if changed is not r:
+                    table.replace(i, changed)
+        return table
 
     def _apply(self, r, today: date):
         lapse_note = None

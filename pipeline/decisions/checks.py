@@ -106,6 +106,10 @@ def without_excluded(fluid, excl: CheckExclusions):
     same object when nothing of it is excluded."""
     from pipeline.checks.data import FluidData
 
+    ids = fluid.observation_ids()
+    hit = np.isin(ids, np.fromiter(excl.observations, dtype=np.int64, count=len(excl.observations)))
+    if not hit.any() and not excl.source_decisions(fluid.fluid_id):
+        return fluid     # nothing of this fluid is excluded: its tables are not even read
     obs = fluid.observations
     drop = obs["obs_id"].isin(list(excl.observations)).to_numpy() if len(obs) else np.zeros(0, bool)
     fixed, consts = _without_constants(fluid.fixed_points, fluid.constants, fluid.fluid_id, excl)
@@ -185,25 +189,29 @@ class ExclusionStep:
     thresholds: Any = None
     applied: dict[str, list[tuple[str, str, str]]] = field(default_factory=dict)
 
-    def __call__(self, results: Sequence, batch=None) -> list:
+    def __call__(self, results, batch=None):
+        """The results with the violations only the excluded data produce restored as
+        ``excluded`` (a ResultTable; the rows of the other fluids are not touched)."""
         from pipeline.checks.engine import run_checks
+        from pipeline.checks.results import ResultTable
 
         self.applied = {}
-        fluids = [f for f in dict.fromkeys(r.fluid_id for r in results) if f in self.full]
+        table = results if isinstance(results, ResultTable) else ResultTable.from_results(results)
+        fluids = [f for f in dict.fromkeys(table.columns["fluid_id"]) if f in self.full]
         if not fluids:
-            return list(results)
-        checks = sorted({r.check_id for r in results})
+            return table
+        checks = sorted(set(table.columns["check_id"]))
         full_run = run_checks({f: self.full[f] for f in fluids}, checks=checks,
                               thresholds=self.thresholds, postprocessors=())
-        out = list(results)
-        index = {(r.check_id, r.fluid_id, r.subject): i for i, r in enumerate(out)}
-        for r in full_run.results:
-            if r.status not in _VIOLATIONS:
+        index = {key: i for i, key in enumerate(table.keys())}
+        status = table.columns["status"]
+        for j, (key, found) in enumerate(zip(full_run.table.keys(), full_run.table.columns["status"])):
+            if found not in _VIOLATIONS:
                 continue
-            key = (r.check_id, r.fluid_id, r.subject)
             i = index.get(key)
-            if i is not None and out[i].status in (*_VIOLATIONS, "error"):
+            if i is not None and status[i] in (*_VIOLATIONS, "error"):
                 continue   # found without the excluded data as well: it stands
+            r = full_run.table.result(j)
             behind = decisions_behind(r, self.full[r.fluid_id], self.exclusions)
             if not behind:
                 continue
@@ -215,12 +223,12 @@ class ExclusionStep:
                 r.fluid_id in getattr(batch, "fluids", {}) else r.input_hash
             marked = replace(r.exclude(behind[0], note), input_hash=kept_hash)
             if i is None:
-                index[key] = len(out)
-                out.append(marked)
+                index[key] = len(table)
+                table.append(marked)
             else:
-                out[i] = marked
+                table.replace(i, marked)
             self.applied.setdefault(behind[0], []).append(key)
-        return out
+        return table
 
     def notes(self) -> list[str]:
         """One line per decision whose exclusions took findings out of the run (for the CLI)."""

@@ -121,3 +121,35 @@ def test_results_carry_thresholds_input_hash_and_timing():
     assert r.thresholds["z_max"] == 3.0 and r.thresholds["severity"] == "fail"
     assert r.input_hash == water().input_hash and r.duration_s >= 0
     assert dataclasses.asdict(r)["check_id"] == "triple-point.on-curves"
+
+
+def test_results_stay_columns_from_the_checks_to_the_store(tmp_path):
+    """A run and its store write make no result object: rows become CheckResult only when read."""
+    run = run_checks([water(), co2()])
+    with open_store(tmp_path / "s.duckdb") as s:
+        store_run(s.con, run)
+        stored = s.con.execute("SELECT check_id, fluid_id, subject, status, evidence_json FROM check_result "
+                               "ORDER BY check_id, fluid_id, subject").fetchall()
+    assert all(r is None for r in run.table._objects)
+    expected = sorted((r.check_id, r.fluid_id, r.subject, r.status, json.dumps(r.evidence, sort_keys=True))
+                      for r in run.results)
+    assert stored == expected
+
+
+def test_the_waiver_step_reads_only_the_violations():
+    """WaiverStep turns a matching failure into 'waived' and never reads the passing rows."""
+    from datetime import date
+
+    from pipeline.decisions.apply import WaiverStep
+    from pipeline.decisions.model import Decision, WaiveCheck
+
+    run = run_checks([water(rho_ice=1083.0), co2()], checks=["clapeyron.slope-sign"])
+    waiver = Decision(id="D-0001", who="tester", when=date(2026, 1, 1),
+                      why="ice made dense on purpose (test)",
+                      waive_check=WaiveCheck(check="clapeyron.slope-sign", fluid="water"))
+    violations = {i for i, s in enumerate(run.table.columns["status"]) if s in ("fail", "warn")}
+    table = WaiverStep([waiver])(run.table, None)
+    statuses = table.columns["status"]
+    assert "waived" in statuses and "fail" not in statuses
+    read = {i for i, r in enumerate(table._objects) if r is not None}
+    assert read and read <= violations
