@@ -1,5 +1,5 @@
 """The report's former figure (pipeline/report/plots.py before the SVG figures), kept verbatim
-as the yardstick of benchmarks/report.py: one PNG phase diagram per fluid. Not used by the
+as the yardstick of benchmarks/report_figure.py: one PNG phase diagram per fluid. Not used by the
 product."""
 
 from __future__ import annotations

@@ -1,137 +1,171 @@
-"""Report figures per fluid: time to draw a fluid's figures (phase diagram + deviation plots,
-SVG with hover titles), the size they add to report.html, and peak memory (a ratio to a
-yardstick, not a timing test).
+"""The report stage at scale: an unchanged store, and a store where one batch changed, per
+1,000 fluids (ratios against the targets of issue 14, not a timing test).
 
-Builds the demo store in a temporary directory (ingest, fit, check), then draws every demo
-fluid's figures ``--repeat`` times and keeps the best time per fluid. The yardstick, drawn in
-the same run (interleaved, so under the same load), is the figure the report had before
-(benchmarks/former_figure.py, kept verbatim): one PNG phase diagram per fluid, about 0.28 s
-on a quiet 2-core machine. Prints seconds per fluid and per figure stage, the ratio to the
-yardstick, the SVG bytes per fluid and the peak memory of the drawing (tracemalloc) and of the
-process (max RSS).
+Builds N synthetic fluids (``benchmarks/nightly.py``'s generator: argon scaled by
+corresponding states, one batch per fluid) and runs the nightly job on them, each run in a
+fresh child process (``spawn``), reading the report stage's own duration from the run's
+record (what the stage really does: figures, pages, results.json, junit.xml, report.html):
 
-    python benchmarks/report.py [--repeat N] [--store PATH]
+  cold        ``nightly --full`` on an empty store: every fluid's figures drawn (in this
+              process, the default);
+  cold, pool  the same report again with the figure and page caches emptied, drawn by one
+              worker process per CPU (``FLUIDLEDGER_REPORT_WORKERS``; ``--cold`` only: the
+              pool measured against one process);
+  --full      ``nightly --full`` again: every stage recomputed, no figure redrawn;
+  unchanged   ``nightly`` with nothing new (``--repeat`` times);
+  one batch   ``nightly`` after one fluid's vapour-pressure file changed (``--repeat``
+              times, a new variant each time): that fluid's figures drawn again.
+
+The unchanged and one-batch runs alternate so the machine's load weighs on both alike.
+Prints min/median/max seconds, per 1,000 fluids, and the ratio of the median to its target:
+
+  unchanged store   <= 2 s per 1,000 fluids: a 10,000-fluid store then reports in ~20 s,
+                    not minutes, and the no-change nightly keeps far under its 60 s;
+  one batch changed <= 3 s per 1,000 fluids: the incremental nightly's whole budget is 5 %
+                    of a 60 s full nightly, 3 s; the report must fit in it.
+
+Also the peak RSS of each child (the whole nightly process: ``ru_maxrss`` of that process
+alone), the size of report.html and of the run folder (pages are links into the page cache:
+counted once), and the load average.
+
+    python benchmarks/report.py [--fluids N] [--repeat N] [--cold] [--keep DIR]
 """
 
 from __future__ import annotations
 
 import argparse
-import resource
+import json
+import multiprocessing as mp
+import os
+import shutil
+import statistics
 import sys
 import tempfile
 import time
-import tracemalloc
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from pipeline.checks import load_fluid_data, run_checks  # noqa: E402
-from pipeline.fitting.stage import run_fit  # noqa: E402
-from pipeline.ingest.stage import run_ingest  # noqa: E402
-from pipeline.report import content  # noqa: E402
-from pipeline.report.deviation import deviation_figure  # noqa: E402
-from pipeline.report.plots import phase_diagram  # noqa: E402
-from pipeline.report.svg import figure_svg  # noqa: E402
-from pipeline.store import open_store  # noqa: E402
+from nightly import make_raw, write_fluid  # noqa: E402
 
-RAW = Path(__file__).resolve().parents[1] / "raw"
+TARGETS = {"unchanged": 2.0, "one batch": 3.0}     # seconds per 1,000 fluids
 
 
-def build(store: Path) -> None:
-    with open_store(store) as s:
-        run_ingest(s.con, [RAW])
-        run_fit(s.con)
-        run_checks(load_fluid_data(s.con), con=s.con)
+def _child(args: list[str], env: dict, out) -> None:
+    import resource
+
+    os.environ.update(env)
+    from pipeline.cli import main
+
+    code = main(["nightly", "--quiet", "--exit-zero", *args])
+    out.put((code, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024))
 
 
-def yardstick(data) -> float:
-    """Seconds to draw the former figure of ``data`` (benchmarks/former_figure.py)."""
-    import former_figure as old
-
-    obs = data.observations
-    flagged = [old.FlaggedPoint(int(obs.obs_id[i]), float(obs.T_K[i]), float(obs.p_Pa[i]),
-                                str(obs.boundary[i]), "flagged")
-               for i in range(len(obs)) if obs.flag[i]]
-    former = old.PhaseDiagramData(
-        data.fluid_id, data.title,
-        old.Observations(obs.T_stored_K, obs.p_stored_Pa, obs.source_id, obs.boundary,
-                         obs.obs_id),
-        [old.CurveSpec(c.boundary, c.solid_phase, c.curve) for c in data.curves],
-        [old.FixedPointMark(f.kind, f.phases, f.T_K, f.p_Pa, f.u_T_K, f.u_p_Pa, f.source_id)
-         for f in data.fixed_points], flagged)
-    t0 = time.perf_counter()
-    old.figure_png(old.phase_diagram(former))
-    return time.perf_counter() - t0
+def run(common: list[str], *extra: str, env: dict | None = None) -> tuple[int, float]:
+    """One nightly in a fresh process: (exit code, its peak RSS [MiB])."""
+    ctx = mp.get_context("spawn")
+    q = ctx.Queue()
+    p = ctx.Process(target=_child, args=([*common, *extra], env or {}, q))
+    p.start()
+    res = q.get()
+    p.join()
+    return res
 
 
-def draw(data) -> tuple[dict[str, float], int]:
-    """Seconds per stage and SVG bytes of one fluid's figures."""
-    t = {}
-    t0 = time.perf_counter()
-    phase = phase_diagram(data)
-    t["phase: draw"] = time.perf_counter() - t0
-    t0 = time.perf_counter()
-    svg_a = figure_svg(phase, prefix="a-", figure="phase", fluid_id=data.fluid_id, label="")
-    t["phase: svg"] = time.perf_counter() - t0
-    t0 = time.perf_counter()
-    dev = deviation_figure(data)
-    t["deviation: draw"] = time.perf_counter() - t0
-    t0 = time.perf_counter()
-    svg_b = figure_svg(dev, prefix="b-", figure="deviation", fluid_id=data.fluid_id,
-                       label="") if dev is not None else ""
-    t["deviation: svg"] = time.perf_counter() - t0
-    return t, len(svg_a) + len(svg_b)
+def last_report(store: Path) -> tuple[float, dict, str]:
+    """(report stage seconds, its detail, the run's report folder) of the newest nightly."""
+    import duckdb
+
+    con = duckdb.connect(str(store), read_only=True)
+    row = con.execute("SELECT summary_json FROM run WHERE kind = 'nightly' "
+                      "ORDER BY started_at DESC, run_id DESC LIMIT 1").fetchone()
+    con.close()
+    summary = json.loads(row[0])
+    stage = summary["stages"]["report"]
+    return stage["duration_s"], stage.get("detail", {}), summary["report"].get("dir", "")
+
+
+def folder_bytes(folder: Path) -> tuple[int, int]:
+    """(bytes of report.html, bytes of the folder counting each linked file once)."""
+    seen, total = set(), 0
+    for p in folder.rglob("*"):
+        st = p.stat()
+        if p.is_file() and (st.st_dev, st.st_ino) not in seen:
+            seen.add((st.st_dev, st.st_ino))
+            total += st.st_size
+    html = folder / "report.html"
+    return (html.stat().st_size if html.is_file() else 0), total
 
 
 def main() -> None:
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--repeat", type=int, default=3)
-    parser.add_argument("--store", type=Path, default=None,
-                        help="an existing store (default: build the demo store)")
-    args = parser.parse_args()
-    with tempfile.TemporaryDirectory() as tmp:
-        store = args.store or Path(tmp) / "demo.duckdb"
-        if args.store is None:
-            build(store)
-        with open_store(store, read_only=True) as s:
-            results = run_checks(load_fluid_data(s.con)).results
-            sections = content.fluid_sections(s.con)
-            flagged = content.flagged_from_results(results)
-            fluids = list(sections)
-            t0 = time.perf_counter()
-            data = content.diagram_data(s.con, sections, fluids, flagged)
-            query_s = (time.perf_counter() - t0) / len(fluids)
-    best: dict[str, dict[str, float]] = {}
-    sizes: dict[str, int] = {}
-    former: dict[str, float] = {}
-    for _ in range(args.repeat):
-        for f in fluids:     # interleaved, so that both see the same load
-            former[f] = min(former.get(f, float("inf")), yardstick(data[f]))
-            stages, sizes[f] = draw(data[f])
-            if f not in best or sum(stages.values()) < sum(best[f].values()):
-                best[f] = stages
-    tracemalloc.start()          # a separate pass: tracing slows Python down several times
-    for f in fluids:
-        draw(data[f])
-    peak = tracemalloc.get_traced_memory()[1]
-    tracemalloc.stop()
-    print(f"{len(fluids)} demo fluids, best of {args.repeat}; observations query "
-          f"{query_s:.3f} s per fluid")
-    print(f"{'fluid':<16}{'seconds':>9}{'former':>9}{'ratio':>7}{'SVG kB':>9}   "
-          + ", ".join(next(iter(best.values()))))
-    for f in fluids:
-        st = best[f]
-        print(f"{f:<16}{sum(st.values()):9.3f}{former[f]:9.3f}"
-              f"{sum(st.values()) / former[f]:7.2f}{sizes[f] / 1e3:9.1f}   "
-              + ", ".join(f"{v:.3f}" for v in st.values()))
-    per_fluid = sum(sum(st.values()) for st in best.values()) / len(fluids)
-    per_former = sum(former.values()) / len(fluids)
-    print(f"mean per fluid: {per_fluid:.3f} s; the former PNG figure (same run): "
-          f"{per_former:.3f} s; ratio {per_fluid / per_former:.2f}")
-    print(f"mean SVG per fluid: {sum(sizes.values()) / len(sizes) / 1e3:.1f} kB")
-    print(f"peak memory while drawing (tracemalloc): {peak / 1e6:.1f} MB; process max RSS: "
-          f"{resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1e3:.0f} MB")
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--fluids", type=int, default=1000)
+    ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--cold", action="store_true",
+                    help="also draw every figure again in one process (slow: minutes)")
+    ap.add_argument("--keep", type=Path, default=None)
+    args = ap.parse_args()
+    tmp = args.keep or Path(tempfile.mkdtemp(prefix="fl-report-bench-"))
+    per_k = 1000.0 / args.fluids
+    rows: dict[str, list[float]] = {}
+    rss: dict[str, list[float]] = {}
+    notes: dict[str, str] = {}
+    files: dict[str, list[float]] = {}
+    try:
+        raw, store, reports = tmp / "raw", tmp / "store.duckdb", tmp / "reports"
+        t0 = time.perf_counter()
+        make_raw(raw, args.fluids)
+        print(f"generated {args.fluids} synthetic fluids in {time.perf_counter() - t0:.1f} s")
+        common = ["--store", str(store), "--raw", str(raw), "--reports", str(reports)]
+
+        def measure(name: str, *extra: str, env: dict | None = None) -> dict:
+            code, peak = run(common, *extra, env=env)
+            seconds, detail, folder = last_report(store)
+            rows.setdefault(name, []).append(seconds)
+            rss.setdefault(name, []).append(peak)
+            html, total = folder_bytes(Path(folder))
+            files.setdefault(name, []).append(detail.get("files_s", float("nan")))
+            notes[name] = (f"drawn {detail.get('plots_drawn')} ({detail.get('workers')} "
+                           f"process(es)), pages rendered {detail.get('pages_rendered')} of "
+                           f"{detail.get('pages')}; report.html {html / 1e6:.2f} MB, run "
+                           f"folder {total / 1e6:.1f} MB; exit {code}")
+            return detail
+
+        measure("cold", "--full")
+        if args.cold:
+            shutil.rmtree(reports / ".cache" / "plots", ignore_errors=True)
+            shutil.rmtree(reports / ".cache" / "pages", ignore_errors=True)
+            measure("cold, pool", "--full",
+                    env={"FLUIDLEDGER_REPORT_WORKERS": str(os.cpu_count() or 1)})
+        measure("--full", "--full")
+        for r in range(args.repeat):
+            measure("unchanged")
+            write_fluid(raw, args.fluids // 2, variant=r + 1)     # one batch changes
+            measure("one batch")
+        load = os.getloadavg()
+        print(f"{args.fluids} fluids, report stage seconds (run record), each nightly in a "
+              f"fresh process; load average {load[0]:.2f} {load[1]:.2f} {load[2]:.2f} on "
+              f"{os.cpu_count()} CPUs")
+        print(f"{'run':<17}{'n':>3}{'min':>9}{'median':>9}{'max':>9}{'per 1,000':>11}"
+              f"{'target':>8}{'ratio':>7}{'peak RSS':>10}")
+        for name, ts in rows.items():
+            med = statistics.median(ts)
+            target = TARGETS.get(name)
+            ratio = f"{med * per_k / target:7.2f}" if target else ""
+            print(f"{name:<17}{len(ts):3d}{min(ts):9.2f}{med:9.2f}{max(ts):9.2f}"
+                  f"{med * per_k:11.2f}{(f'{target:.1f}' if target else ''):>8}{ratio}"
+                  f"{max(rss[name]):8.0f} MiB")
+        for name, note in notes.items():
+            print(f"  {name}: {note}; of the median, results.json, junit.xml, summary and "
+                  f"report.html {statistics.median(files[name]):.2f} s")
+        if "cold, pool" in rows:
+            one, pool = rows["cold"][0], rows["cold, pool"][0]
+            print(f"cold report, worker pool against one process: {pool / one:.2f} "
+                  f"({pool:.1f} s vs {one:.1f} s)")
+    finally:
+        if args.keep is None:
+            shutil.rmtree(tmp, ignore_errors=True)
 
 
 if __name__ == "__main__":

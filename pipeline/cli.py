@@ -26,44 +26,96 @@ from pipeline.errors import (
 )
 from pipeline.safetext import SafeFormatter, SafeStream, clean
 
-COMMANDS = [
-    "ingest", "status", "fit", "check", "explain", "publish", "query", "diff",
-    "nightly", "history", "verify", "decide", "decisions",
-]
+#: The sub-commands and their one-line help, in the order ``--help`` lists them. A command's
+#: module (``pipeline.commands.<name>``) is imported only when that command runs (or its own
+#: ``--help`` is asked for): ``--version``, ``--help`` and ``status`` stay fast (issue 14,
+#: ``python benchmarks/startup.py``). Each text equals the module's ``HELP``
+#: (``tests/cli/test_commands.py`` holds them equal).
+COMMANDS: dict[str, str] = {
+    "ingest": "Load raw batches (batch.toml + CSV) into the store; bad rows go to quarantine.",
+    "status": "Per fluid and source: observations, fixed points, quarantined rows, latest ingest.",
+    "fit": ("Fit vapour-pressure, sublimation, melting and saturated-density correlations; "
+            "refit only groups whose inputs changed."),
+    "check": ("Run the thermodynamic consistency checks (triple and critical points, "
+              "Clapeyron, phase rule, data and source checks) and record the findings."),
+    "explain": "Explain a check: purpose, physics and equation, thresholds in force, usual causes.",
+    "publish": ("Publish a curated release: recommended constants, curves and per-value "
+                "provenance as store tables, Parquet/CSV/JSON exports with a manifest, and a "
+                "read-only published.duckdb with SQL macros; refused (exit 1) when the latest "
+                "check run has failures."),
+    "query": ("Run read-only SQL against the store (or, with --published, the published file) "
+              "and print a table or CSV; e.g. fluidledger query \"SELECT fluid_id, "
+              "fl_vapour_pressure(fluid_id, 100.0) FROM curated_constants\"."),
+    "diff": ("Compare two releases of the store: values added, removed and changed (old, new, "
+             "the change in units of the combined uncertainty; a curve by its value at its "
+             "reference temperature) and the sources that caused each change."),
+    "nightly": ("Run the nightly job: ingest new or changed batches, refit the fluids whose data "
+                "changed, run every check (reusing results of unchanged fluids), publish a "
+                "release when nothing failed, verify the store and its releases, and write "
+                "reports/<run-id>/ (report.html, results.json, junit.xml, summary.md, "
+                "nightly.log)."),
+    "history": ("List recent check runs (nightly or manual) with their counts and every status "
+                "change of a check for a fluid, e.g. 'sources.agreement nitrogen: fail -> "
+                "pass'."),
+    "verify": ("Check the store read-only (foreign keys, rows_read = rows_loaded + "
+               "rows_quarantined, file versions, schema version) and the SHA-256 of every file "
+               "in release manifests; exit 1 on any finding."),
+    "decide": ("Record a curation decision (exclude observations or a source, prefer a source, "
+               "waive a check, override a threshold) in the decisions file."),
+    "decisions": ("List the curation decisions with what each touches now (observations, fits, "
+                  "values, checks); dangling and lapsed ones first."),
+}
 
 
 class _Parser(argparse.ArgumentParser):
     """argparse exits 2 on usage errors already; keep its one-line message, no traceback."""
 
 
-def _load(name: str):
-    try:
-        return importlib.import_module(f"pipeline.commands.{name}")
-    except ModuleNotFoundError as err:
-        if err.name == f"pipeline.commands.{name}":
+def load_command(name: str):
+    """The module of sub-command ``name`` (imported now: the lazy import that keeps start-up
+    fast, see :data:`COMMANDS`)."""
+    return importlib.import_module(f"pipeline.commands.{name}")
+
+
+def _common_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--store", metavar="PATH", default=None,
+                   help="working store (default: $FLUIDLEDGER_STORE or curated/fluidledger.duckdb)")
+    p.add_argument("-q", "--quiet", action="store_true",
+                   help="print only errors and the one-line result")
+    p.add_argument("-v", "--verbose", action="store_true",
+                   help="print the full result and the timestamped log lines, also when "
+                        "the output is not a terminal")
+
+
+def _chosen(argv: list[str] | None) -> str | None:
+    """The sub-command named on the command line: the first argument that is not an option
+    (the top level takes no option with a value)."""
+    for arg in sys.argv[1:] if argv is None else argv:
+        if arg == "--":
             return None
-        raise
+        if not arg.startswith("-"):
+            return arg if arg in COMMANDS else None
+    return None
 
 
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(argv: list[str] | None = None, *, load: str | None = "auto"
+                 ) -> argparse.ArgumentParser:
+    """The parser. Every command is listed with its help; only the command named in ``argv``
+    (``load="auto"``) or ``load`` gets its full arguments, importing its module."""
     parser = _Parser(prog="fluidledger", description=(
         "Curate pure-fluid phase-boundary data: ingest raw batches into a DuckDB store, fit "
         "correlations, run consistency checks, publish curated values with provenance."))
     parser.add_argument("--version", action="version", version=f"fluidledger {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
-    for name in COMMANDS:
-        module = _load(name)
-        if module is None:
+    chosen = _chosen(argv) if load == "auto" else load
+    for name, help_text in COMMANDS.items():
+        if name != chosen:   # listed, not imported
+            sub.add_parser(name, help=help_text, description=help_text)
             continue
+        module = load_command(name)
         p = sub.add_parser(module.NAME, help=module.HELP, description=module.HELP)
-        p.add_argument("--store", metavar="PATH", default=None,
-                       help="working store (default: $FLUIDLEDGER_STORE or curated/fluidledger.duckdb)")
-        p.add_argument("-q", "--quiet", action="store_true",
-                       help="print only errors and the one-line result")
-        p.add_argument("-v", "--verbose", action="store_true",
-                       help="print the full result and the timestamped log lines, also when "
-                            "the output is not a terminal")
+        _common_options(p)
         module.add_arguments(p)
         p.set_defaults(_run=module.run)
     return parser
@@ -114,8 +166,11 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def _main(argv: list[str] | None) -> int:
-    parser = build_parser()
+    parser = build_parser(argv)
     args = parser.parse_args(argv)
+    if not hasattr(args, "_run"):   # a command argparse found where _chosen did not look
+        parser = build_parser(load=args.command)
+        args = parser.parse_args(argv)
     _configure_logging(args)
     try:
         return int(args._run(args) or 0)

@@ -613,49 +613,21 @@ def _decide_context(con, opts, curation: Curation, results) -> Any:
 
 
 def _report(con, opts, result: NightlyResult, check_run, selected, check_fp,
-            curation: Curation) -> tuple[Stage, Any]:
-    from pipeline.report import content, deviation, figures, labels, plots, svg
-    from pipeline.report.figures import FluidFigures
-    from pipeline.report.files import PlotCache, source_hash
+            curation: Curation, folder: Path) -> tuple[Stage, Any]:
     from pipeline.report.html import ReportPage
+    from pipeline.report.views import fluid_views
 
     t0 = time.perf_counter()
-    sections = content.fluid_sections(con, selected)
-    flagged = content.flagged_from_results(check_run.results)
-    code = source_hash(plots, content, deviation, figures, labels, svg)
-    cache = PlotCache(opts.reports / ".cache" / "plots", enabled=not opts.full)
-
-    def marks(f: str) -> list:
-        entry = flagged.get(f, {})
-        return [sorted((str(k), sorted(v)) for k, v in entry.get(part, {}).items())
-                for part in ("obs", "files")] + [sorted(entry.get("corrections", {}).items())]
-
-    keys = {f: _h(code, check_fp.get(f), sections[f].name, sections[f].formula, marks(f))
-            for f in sections}
-    cached = {f: cache.get(k) for f, k in keys.items()}
-    figs = {f: FluidFigures.from_json(b) if b is not None else None for f, b in cached.items()}
-    todo = [f for f in sections if figs[f] is None]
-    drawn = 0
-    with stage_progress("plots", len(todo), quiet=opts.quiet) as tick:
-        for start in range(0, len(todo), 50):
-            batch = todo[start:start + 50]
-            for f, data in content.diagram_data(con, sections, batch, flagged).items():
-                if len(data.observations) or data.curves:
-                    figs[f] = figures.render_figures(data)
-                    cache.put(keys[f], figs[f].to_json())
-                    drawn += 1
-                tick(f)
-    if not opts.fluids:
-        cache.prune(set(keys.values()))
-    page = ReportPage({}, check_run, sections, figs,
+    # figures are redrawn only when their inputs' digest changes, also under --full
+    views = fluid_views(con, check_run=check_run, selected=selected, check_fp=check_fp,
+                        reports=opts.reports, folder=folder, prune=not opts.fluids,
+                        quiet=opts.quiet)
+    page = ReportPage({}, check_run, views.sections, views.figures,
                       decisions=curation.report_rows(con, check_run.run_id),
                       fluid_order=selected,
-                      decide=_decide_context(con, opts, curation, check_run.results))
-    n_cached = len(sections) - len(todo)
-    text = (f"{drawn} fluid(s) drawn, {n_cached} from the cache, {len(todo) - drawn} "
-            "fluid(s) without pressure data")
-    return Stage("written", time.perf_counter() - t0, text,
-                 {"plots_drawn": drawn, "plots_cached": n_cached}), page
+                      decide=_decide_context(con, opts, curation, check_run.results),
+                      pages=views.pages)
+    return Stage("written", time.perf_counter() - t0, views.text(), views.detail), page
 
 
 # -- the run ---------------------------------------------------------------------------------
@@ -825,15 +797,19 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
     code = VERDICT_EXIT[result.verdict]
     result.exit_code = EXIT_OK if opts.exit_zero and code == EXIT_CHECK_FAILED else code
     t_report = time.perf_counter()
-    report, page = _report(con, opts, result, check_run, selected, check_fp, curation)
+    report, page = _report(con, opts, result, check_run, selected, check_fp, curation,
+                           folder)
     result.stages["report"] = report
     result.finished_at = _utc()
     result.duration_s = time.perf_counter() - t0
     result.report = {"dir": str(folder), **{k: str(folder / v) for k, v in FILES.items()}}
     page.nightly = result.asdict()
-    memo = ValidatedItems(None if opts.full else opts.reports / ".cache" /
+    # kept under --full too: an item valid against these schemas (the key) stays valid
+    memo = ValidatedItems(opts.reports / ".cache" /
                           f"valid-results-{ValidatedItems.schema_key()}.txt")
+    t_files = time.perf_counter()
     write_report(folder, page.nightly, page, memo=memo)
+    report.detail["files_s"] = round(time.perf_counter() - t_files, 3)   # run row only
     report.duration_s = time.perf_counter() - t_report   # the run row gets the full time
     state = {f: {"data": data_fp.get(f), "check": check_fp[f], "check_run": check_run.run_id,
                  "fits": fits_now.get(f, {})} for f in selected}

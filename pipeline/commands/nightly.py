@@ -33,9 +33,9 @@ def add_arguments(p) -> None:
                    help="restrict fitting, checks and the report to this fluid (repeatable); "
                         "a restricted run never publishes")
     p.add_argument("--full", action="store_true",
-                   help="ignore every cache: give every batch to the ingest stage (it still "
-                        "skips files stored unchanged), refit every group, re-run every check, "
-                        "redraw every plot")
+                   help="ignore the stage caches: give every batch to the ingest stage (it "
+                        "still skips files stored unchanged), refit every group, re-run every "
+                        "check (a figure is still redrawn only when what it shows changed)")
     p.add_argument("--exit-zero", action="store_true",
                    help="report-only mode: exit 0 even when checks fail (input errors still "
                         "exit 2, check errors 3)")

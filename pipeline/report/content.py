@@ -57,6 +57,8 @@ class FitRow:
     ref_value: float | None = None
     ref_u: float | None = None
     ref_slope: float | None = None     # d value/dT at T_ref [unit/K]
+    curve_digest: str = ""             # SHA-256 of the stored curve (what the refs come from)
+    curve_json: str | None = field(default=None, repr=False, compare=False)
 
     @property
     def group(self) -> str:
@@ -149,8 +151,25 @@ WHERE o.quantity = 'pressure' AND list_contains($ids, o.fluid_id)
 ORDER BY o.fluid_id, o.obs_id"""
 
 
-def fluid_sections(con, fluid_ids: Sequence[str] | None = None) -> dict[str, FluidSection]:
-    """Fits, fixed points and sources of each fluid (all fluids when ``fluid_ids`` is None)."""
+def with_references(sec: FluidSection) -> FluidSection:
+    """``sec`` with the reference value, uncertainty and slope of each fitted curve filled in
+    (:func:`fluid_sections` with ``references=False`` leaves them for the sections shown)."""
+    from dataclasses import replace
+
+    fits = [replace(f, **dict(zip(("T_ref_K", "ref_value", "ref_u", "ref_slope"),
+                                  _reference(f.curve_json))))
+            if f.status == "fitted" and f.ref_value is None and f.curve_json else f
+            for f in sec.fits]
+    return replace(sec, fits=fits)
+
+
+def fluid_sections(con, fluid_ids: Sequence[str] | None = None, *,
+                   references: bool = True) -> dict[str, FluidSection]:
+    """Fits, fixed points and sources of each fluid (all fluids when ``fluid_ids`` is None);
+    ``references=False`` leaves each fit's value at T_ref to :func:`with_references` (about a
+    millisecond a fit: a report of an unchanged store computes it only for what it shows)."""
+    import hashlib
+
     p = _param(fluid_ids)
     out = {fid: FluidSection(fid, name, formula)
            for fid, name, formula in con.execute(_FLUIDS_SQL, p).fetchall()}
@@ -159,10 +178,12 @@ def fluid_sections(con, fluid_ids: Sequence[str] | None = None) -> dict[str, Flu
          t_min, t_max, chi2, reason, curve_json) = row
         if fid not in out:
             continue
-        ref = _reference(curve_json) if status == "fitted" else (None,) * 4
+        ref = _reference(curve_json) if status == "fitted" and references else (None,) * 4
+        digest = hashlib.sha256(curve_json.encode()).hexdigest()[:16] if curve_json else ""
         out[fid].fits.append(FitRow(fit_id, boundary, phase or "", quantity, status, form,
                                     int(n_points), int(n_used), int(n_flagged), _opt(t_min),
-                                    _opt(t_max), _opt(chi2), reason, *ref))
+                                    _opt(t_max), _opt(chi2), reason, *ref, digest,
+                                    curve_json if status == "fitted" else None))
     for fid, kind, phases, T, uT, pp, up, source in con.execute(_FIXED_SQL, p).fetchall():
         if fid in out:
             out[fid].fixed_points.append(FixedPointMark(kind, phases, float(T), float(pp),

@@ -16,8 +16,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from matplotlib.figure import Figure
-from matplotlib.lines import Line2D
 
 from pipeline.report.plots import (
     K_COVERAGE,
@@ -84,6 +82,8 @@ def y_range(dev: np.ndarray, flagged: np.ndarray, half: np.ndarray) -> float:
 
 def _panel(ax, data: PhaseDiagramData, spec: CurveSpec, styles, phases, titles: Titles,
            legend: dict) -> dict:
+    from matplotlib.lines import Line2D
+
     obs = data.observations
     sel = (obs.boundary == spec.boundary) & (obs.solid_phase == spec.solid_phase) & \
         _finite(obs.T_K, obs.p_Pa) & (obs.p_Pa > 0) if len(obs) else np.zeros(0, bool)
@@ -130,6 +130,8 @@ def deviation_figure(data: PhaseDiagramData, *, width_in: float = 10.4,
                      panel_in: float = 2.25) -> Figure | None:
     """One panel per fitted pressure curve (None when the fluid has none); ``fig.fl_titles``
     holds the hover texts."""
+    from matplotlib.figure import Figure   # lazy: a report that draws nothing never imports it
+
     specs = pressure_curves(data)
     if not specs:
         return None

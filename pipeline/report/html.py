@@ -3,8 +3,10 @@
 Reading order: the verdict and what changed since the previous run; failures and warnings,
 each a card with its evidence as tables and the exact ``fluidledger decide ...`` commands that
 would waive it or exclude the data it names; waived and excluded findings with their decision;
-curation decisions; then one section per fluid with its phase diagram (flagged points numbered,
-the numbers explained beside it), deviation plots, fits, fixed points and sources. Every
+curation decisions; then one section per fluid needing attention (a failure, error or
+warning) with its phase diagram (flagged points numbered, the numbers explained beside it),
+deviation plots, fits, fixed points and sources; then a compact index of the fluids that
+passed everything, one row each, linking to their own pages (:mod:`pipeline.report.pages`). Every
 string that comes from data (citations, messages, ids, evidence) goes through :func:`e`
 (``html.escape`` with quotes), so a citation holding markup shows as text; the figures are SVG
 written by matplotlib with hover titles escaped by ElementTree.
@@ -35,7 +37,7 @@ VERDICT_TEXT = {
     "error": "ERROR: a check raised an error",
 }
 
-_CSS = """
+CSS = """
 body{font-family:system-ui,-apple-system,"Segoe UI",sans-serif;margin:0 auto;max-width:1240px;
 padding:0 18px 40px;color:#1b1b1b;line-height:1.4}
 h1{font-size:1.5em;margin:18px 0 6px}
@@ -107,6 +109,8 @@ class ReportPage:
     decisions: Sequence[Mapping[str, Any]] | None = None
     fluid_order: Sequence[str] = field(default_factory=list)
     decide: DecideContext = field(default_factory=DecideContext)
+    #: fluids shown as an index row linking to their own page (fluid -> pages.IndexRow)
+    pages: Mapping[str, Any] = field(default_factory=dict)
 
     def results_of(self, fluid_id: str) -> list[CheckResult]:
         """The check results of one fluid (grouped once for all fluids)."""
@@ -350,15 +354,22 @@ def _fluid(page: ReportPage, fid: str) -> str:
 
 def render_html(page: ReportPage) -> str:
     """The whole report page."""
+    from pipeline.report.pages import index_html
+
     order = list(page.fluid_order) or sorted(page.sections)
-    nav = "".join(f'<li><a href="#{e(anchor(f))}">{e(f)}</a></li>' for f in order)
+    full = [f for f in order if f in page.sections and f not in page.pages]
+    nav = "".join(f'<li><a href="#{e(anchor(f))}">{e(f)}</a></li>' for f in full)
+    passed = (f' &middot; <a href="#passed">passed every check ({len(page.pages)})</a>'
+              if page.pages else "")
     body = [_header(page),
             '<nav><strong>Contents:</strong> <a href="#changes">changes</a> &middot; '
             '<a href="#failures">failures</a> &middot; <a href="#warnings">warnings</a> '
             '&middot; <a href="#waived">waived and excluded</a> &middot; '
-            f'<a href="#decisions">decisions</a><ul>{nav}</ul></nav>',
+            f'<a href="#decisions">decisions</a>{passed}<ul>{nav}</ul></nav>',
             _changes(page), _findings(page), DECISIONS_SECTION(page.decisions)]
-    body += [_fluid(page, f) for f in order if f in page.sections]
+    body += [_fluid(page, f) for f in full]
+    if page.pages:
+        body.append(index_html([page.pages[f] for f in order if f in page.pages]))
     body.append(f'<footer><div class="caution"><strong>Caution.</strong> {e(CAUTION)}</div>'
                 "</footer>")
     title = f"FluidLedger nightly {page.nightly['run_id']}: {page.nightly['verdict']}"
@@ -367,5 +378,5 @@ def render_html(page: ReportPage) -> str:
                  "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
                  "<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; "
                  "img-src data:; style-src 'unsafe-inline'\">"
-                 f"<title>{e(title)}</title><style>{_CSS}</style></head><body>"
+                 f"<title>{e(title)}</title><style>{CSS}</style></head><body>"
                  + "".join(body) + "</body></html>\n")

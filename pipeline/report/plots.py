@@ -27,7 +27,6 @@ from dataclasses import dataclass, field
 from typing import Any, Sequence
 
 import numpy as np
-from matplotlib.figure import Figure
 
 from pipeline.report.labels import place_numbers
 
@@ -438,6 +437,8 @@ def phase_diagram(data: PhaseDiagramData, *, width_in: float = 8.4,
                   axes_in: float = 3.0) -> Figure:
     """The phase diagram of one fluid (see the module docstring); ``fig.fl_titles`` holds the
     hover texts (gid -> texts)."""
+    from matplotlib.figure import Figure   # lazy: a report that draws nothing never imports it
+
     fig = Figure(figsize=(width_in, axes_in + 1.5), dpi=72)
     ax, ax_m = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1.55, 1.0]})
     obs = data.observations

@@ -46,3 +46,43 @@ def test_unknown_option_is_a_usage_error(capsys):
     with pytest.raises(SystemExit) as exc:
         main(["ingest", "--no-such-option"])
     assert exc.value.code == 2
+
+
+def test_command_list_help_is_each_modules_help():
+    """The help the command list shows (without importing a module) is each module's HELP."""
+    from pipeline.cli import load_command
+
+    for name, help_text in COMMANDS.items():
+        module = load_command(name)
+        assert module.NAME == name
+        assert module.HELP == help_text, name
+
+
+_IMPORTS = """
+import json, sys
+from pipeline.cli import main
+try:
+    main({argv!r})
+except SystemExit:
+    pass
+heavy = ("numpy", "pandas", "pyarrow", "duckdb", "matplotlib", "scipy", "jsonschema", "rich")
+print(json.dumps(sorted(m for m in sys.modules if m.split(".")[0] in heavy
+                        or m.startswith("pipeline.commands."))), file=sys.stderr)
+"""
+
+
+@pytest.mark.parametrize("argv, allowed", [
+    (["--version"], set()),
+    (["--help"], set()),
+    (["status", "--store", "{tmp}/none.duckdb"], {"duckdb", "pipeline.commands.status"}),
+])
+def test_start_up_imports_only_what_the_command_needs(tmp_path, argv, allowed):
+    """--version and --help import no command module and no heavy library; status imports
+    its own module and DuckDB only (start-up under 0.25 s: benchmarks/startup.py)."""
+    import json
+
+    argv = [a.format(tmp=tmp_path) for a in argv]
+    proc = subprocess.run([sys.executable, "-c", _IMPORTS.format(argv=argv)],
+                          capture_output=True, text=True)
+    loaded = json.loads(proc.stderr.strip().splitlines()[-1])
+    assert {m.split(".")[0] if not m.startswith("pipeline") else m for m in loaded} <= allowed

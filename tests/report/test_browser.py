@@ -170,16 +170,43 @@ PROBE = """(() => {
     hover = {tag: hit ? hit.tagName : null,
              text: el ? el.querySelector(':scope > title').textContent : null};
   }
-  return JSON.stringify({verdict: document.querySelector('.verdict').innerText,
-                         title: document.title, figures: figs, hover: hover});
+  const index = Array.from(document.querySelectorAll('#passed ~ table.index tr[id] a'))
+    .map(a => ({href: a.getAttribute('href'), url: a.href, row: a.closest('tr').id}));
+  const verdict = document.querySelector('.verdict');
+  return JSON.stringify({verdict: verdict ? verdict.innerText : null,
+                         title: document.title, figures: figs, hover: hover, index: index,
+                         back: Array.from(document.querySelectorAll('a[href="../report.html"]'))
+                           .map(a => a.href)});
 })()"""
+
+
+def _open(tools: DevTools, session: str, url: str) -> tuple[dict, list[str], list[str]]:
+    """Load ``url`` and probe it; returns the probe, the problems and the requested URLs."""
+    tools.events.clear()
+    tools.send("Page.navigate", {"url": url}, session=session)
+    tools.wait_for("Page.loadEventFired")
+    page = json.loads(tools.send("Runtime.evaluate", {"expression": PROBE,
+                                                      "returnByValue": True},
+                                 session=session)["result"]["value"])
+    requests = [e["params"]["request"]["url"] for e in tools.events
+                if e.get("method") == "Network.requestWillBeSent"]
+    return page, tools.problems(), requests
+
+
+def _check_figures(figures: dict) -> None:
+    for key, fig in figures.items():
+        assert fig["w"] > 500 and fig["h"] > 250, key
+        assert fig["points"] > 20 and fig["titles"] > 10, key
+        assert fig["rasters"] and all(w > 50 for w in fig["rasters"]), key
 
 
 def test_report_renders_in_chromium_with_every_figure(report, tmp_path):
     """Chromium loads report.html from disk with no console error and no request beyond the
-    file itself; every fluid's phase diagram and deviation plots render (drawn size, points,
-    the rasterised layer of equation samples); resting the pointer on a flagged point shows
-    its source, file and row; a screenshot is saved."""
+    file itself; the phase diagram and deviation plots of every fluid needing attention
+    render (drawn size, points, the rasterised layer of equation samples); resting the pointer
+    on a flagged point shows its source, file and row; the fluid that passed everything is
+    an index row whose link opens its own page, as self-contained, with both figures and a
+    link back; a screenshot is saved."""
     binary = _chromium()
     html_path, result = report
     tools = DevTools(binary, tmp_path / "profile")
@@ -189,19 +216,17 @@ def test_report_renders_in_chromium_with_every_figure(report, tmp_path):
                              {"targetId": target, "flatten": True})["sessionId"]
         for domain in ("Runtime.enable", "Log.enable", "Page.enable", "Network.enable"):
             tools.send(domain, session=session)
-        tools.send("Page.navigate", {"url": html_path.as_uri()}, session=session)
-        tools.wait_for("Page.loadEventFired")
-        page = json.loads(tools.send("Runtime.evaluate", {"expression": PROBE,
-                                                          "returnByValue": True},
-                                     session=session)["result"]["value"])
+        page, problems, requests = _open(tools, session, html_path.as_uri())
         size = tools.send("Page.getLayoutMetrics", session=session)["cssContentSize"]
         shot = tools.send("Page.captureScreenshot", {
             "format": "png", "captureBeyondViewport": True,
             "clip": {"x": 0, "y": 0, "width": size["width"],
                      "height": min(size["height"], 16000), "scale": 1}}, session=session)
-        problems = tools.problems()
-        requests = [e["params"]["request"]["url"] for e in tools.events
-                    if e.get("method") == "Network.requestWillBeSent"]
+        # a fluid that passed everything: its row in the index leads to its own page
+        passed = {row["row"]: row for row in page["index"]}
+        fluid_page = None
+        if "fluid-argon" in passed:
+            fluid_page = _open(tools, session, passed["fluid-argon"]["url"])
     finally:
         tools.close()
     ARTIFACTS.mkdir(parents=True, exist_ok=True)
@@ -212,13 +237,22 @@ def test_report_renders_in_chromium_with_every_figure(report, tmp_path):
     assert requests and all(u == html_path.as_uri() or u.startswith("data:") for u in requests), \
         requests
     assert page["verdict"].startswith("FAIL") and result.run_id in page["title"]
-    fluids = {"argon", "carbon-dioxide", "nitrogen", "water"}
+    fluids = {"carbon-dioxide", "nitrogen", "water"}     # each with a failure or warning
     figures = {(f["fluid"], f["figure"]): f for f in page["figures"]}
     assert set(figures) == {(f, k) for f in fluids for k in ("phase", "deviation")}
-    for key, fig in figures.items():
-        assert fig["w"] > 500 and fig["h"] > 250, key
-        assert fig["points"] > 20 and fig["titles"] > 10, key
-        assert fig["rasters"] and all(w > 50 for w in fig["rasters"]), key
+    _check_figures(figures)
+    # argon passed every check: one index row, its figures on its own self-contained page
+    assert [r["href"] for r in page["index"]] == ["fluids/fluid-argon.html"]
+    assert fluid_page is not None
+    argon, argon_problems, argon_requests = fluid_page
+    assert argon_problems == []
+    url = passed["fluid-argon"]["url"]
+    assert argon_requests and all(u == url or u.startswith("data:") for u in argon_requests), \
+        argon_requests
+    argon_figures = {(f["fluid"], f["figure"]): f for f in argon["figures"]}
+    assert set(argon_figures) == {("argon", "phase"), ("argon", "deviation")}
+    _check_figures(argon_figures)
+    assert argon["back"] == [html_path.as_uri()]
     assert page["hover"]["tag"] == "use", page["hover"]
     text = page["hover"]["text"]
     assert "brackenridge-rig-a-co2-2024-05/co2-vle-rig-a.csv row 16" in text
