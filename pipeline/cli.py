@@ -133,7 +133,7 @@ def _configure_logging(args) -> None:
     """stderr shows warnings and errors only (errors only with --quiet): a cron job mails
     nothing on a quiet night, and a terminal shows the progress bar instead of log lines.
     ``--verbose`` adds the timestamped INFO and DEBUG lines; the nightly job keeps the full
-    log in its nightly.log whatever the console shows (:func:`pipeline.nightly.run_log`)."""
+    log in its nightly.log whatever the console shows (:func:`pipeline.nightly.logs.run_log`)."""
     console = logging.StreamHandler(sys.stderr)
     if args.verbose:
         console.setLevel(logging.DEBUG)

@@ -201,10 +201,17 @@ def _solve_nonlinear(form: CorrelationForm, T, z, u_z, T_ref, exps, x0=None,
             y = form.evaluate(T2, p[None, :], T_ref2, exps)[0]
             return (form.to_fit_space(y) - z) / u_z
 
+    # an identity-link form's fit-space slope is 1 whatever y: the weights need no evaluation
+    unit_slope = form.link != "log" and \
+        type(form).fit_space_slope is CorrelationForm.fit_space_slope
+    w = (1.0 / u_z)[:, None]
+
     def jac(p):
         with np.errstate(all="ignore"):
-            y = form.evaluate(T2, p[None, :], T_ref2, exps)[0]
             J = form.jacobian(T2, p[None, :], T_ref2, exps)[0]
+            if unit_slope:
+                return J * w
+            y = form.evaluate(T2, p[None, :], T_ref2, exps)[0]
         return J * (form.fit_space_slope(y) / u_z)[:, None]
 
     res = least_squares(resid, x0, jac=jac, loss=loss, f_scale=SOFT_L1_F_SCALE,
@@ -360,10 +367,13 @@ def soft_l1_linear(A: np.ndarray, z: np.ndarray, b0: np.ndarray) -> np.ndarray:
     The loss is convex in ``b``, so the minimum is unique; each step solves the weighted
     problem with ``w_i = rho'(r_i^2) = (1 + r_i^2)^(-1/2)`` and does not increase the loss
     (Holland & Welsch, "Robust regression using iteratively reweighted least-squares",
-    Commun. Stat. Theory Methods 6, 813-827 (1977); citation from memory). On the synthetic
-    vapour-pressure series of benchmarks/fit.py about 20 steps reach a relative change of
-    1e-10, about four times faster than scipy's trust-region solve of the same problem
-    (measured once by hand; the benchmark does not print it).
+    Commun. Stat. Theory Methods 6, 813-827 (1977); citation from memory). Measured on the
+    demo, the real-data corpus and 100 synthetic fluids (2,632 problems): 56 steps on average
+    to a relative change of 1e-10 (vapour pressures 27, sublimation 14, melting forms 76, a
+    tenth of those at the cap of 200), and on 3 % of the problems the iteration stops on a
+    small step above the minimum. The batched path of the fit stage solves the same problem
+    by Newton steps (:mod:`pipeline.correlations.robust`); this per-series reference keeps
+    the reweighting, and the inlier sets of the two agree on every data set tested.
     """
     norms = column_norms(A)
     As = A / norms                              # equilibrated columns; solve for c = b * norms
@@ -698,10 +708,3 @@ def fit_curve(candidate_forms: str | Sequence[str], T, y, u_y, u_T, ref: dict, *
             return _no_model(n, errors2, base, flags, criterion)
         best, mask, table, zl, ul = best2, mask2, table2, zl2, ul2
     return _outcome(best, mask, flags, T, zl, ul, table, criterion)
-
-
-def fit_call(call: tuple) -> FitOutcome:
-    """:func:`fit_curve` on ``(args, kwargs)``: a module-level function of this light module,
-    so that worker processes fitting many groups import only the correlations package."""
-    args, kwargs = call
-    return fit_curve(*args, **kwargs)

@@ -86,7 +86,7 @@ def test_an_interrupted_fit_is_marked_interrupted(raw_root, store_path, capsys, 
         raise KeyboardInterrupt
 
     monkeypatch.setattr(fit_stage, "_fit_all", interrupted)
-    monkeypatch.setattr(fit_stage, "_prepare", lambda *a, **k: type("J", (), {"call": 1})())
+    monkeypatch.setattr(fit_stage, "_prepare", lambda *a, **k: type("J", (), {"series": 1})())
     assert main(["fit", "--store", str(store_path)]) == EXIT_INTERRUPTED
     assert "fluidledger fit: interrupted" in capsys.readouterr().err
     assert runs(store_path)[-1] == ("fit", "interrupted", True)

@@ -14,7 +14,7 @@ from pipeline.checks import load_fluid_data, run_checks
 from pipeline.cli import main
 from pipeline.fitting.stage import run_fit
 from pipeline.ingest.stage import run_ingest
-from pipeline.nightly import Curation, NightlyOptions, _decide_context
+from pipeline.nightly import Curation, NightlyOptions, decide_context
 from pipeline.report import content
 from pipeline.report.actions import decide_commands
 from pipeline.store import open_store
@@ -41,7 +41,7 @@ def demo(tmp_path_factory):
         flagged = content.flagged_from_results(run.results)
         data = content.diagram_data(s.con, sections, list(sections), flagged)
         opts = NightlyOptions(store=store, raw=raw)
-        ctx = _decide_context(s.con, opts, Curation(), run.results)
+        ctx = decide_context(s.con, opts, Curation(), run.results)
     return {"root": root, "raw": raw, "store": store, "run": run, "data": data, "ctx": ctx}
 
 
