@@ -21,7 +21,8 @@ KILL_ENV = "FLUIDLEDGER_KILL_AT"
 SIGNAL_ENV = "FLUIDLEDGER_KILL_SIGNAL"
 
 CRASH_POINTS = {
-    "ingest:batch-done": "one batch committed (or refused), the next one not yet started",
+    "ingest:batch-done": "one batch committed (alone or with its group of small "
+                         "batches) or refused; the batches after its group not yet started",
     "publish:exports-written": "release folder written and validated under its temporary name",
     "publish:file-built": "next published file built beside the current one",
     "publish:folder-renamed": "release folder renamed into place, store not yet committed",

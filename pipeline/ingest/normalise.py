@@ -85,14 +85,16 @@ def _plan(spec: TableSpec, molar_mass: float) -> tuple[list[Column], dict[str, d
     return cols, rules
 
 
-def _parse_sql(staged: str, cols: list[Column], spec: TableSpec, duplicates: str) -> str:
+def _parse_sql(staged: str, cols: list[Column], spec: TableSpec, duplicates: str,
+               by_file: bool = False) -> str:
     """Parse every mapped cell once. ``plain_<key>``: the cell is an ordinary finite number in
     the declared decimal style (no unit, no thousands separator, no underscore); ``si_<key>``:
     its value in SI (NaN/inf kept so that the fault CASE can name them); ``dup``: the row
     repeats an earlier one (its number is in the table ``duplicates``)."""
     nulls = ", ".join("'" + v.replace("'", "''") + "'" for v in spec.null_values)
     other = "." if spec.decimal == "," else ","
-    cells, parts, derived = ["row_number"], ["row_number"], []
+    keys = ["fl_file", "row_number"] if by_file else ["row_number"]
+    cells, parts, derived = list(keys), list(keys), []
     for c in cols:
         # the innermost query trims each cell once; the next one parses it
         cells += [f"{ident(c.column)} AS txt_{c.key}", f"trim({ident(c.column)}) AS cell_{c.key}"]
@@ -111,19 +113,28 @@ def _parse_sql(staged: str, cols: list[Column], spec: TableSpec, duplicates: str
                     f"THEN true ELSE coalesce(regexp_matches(cell_{c.key}, "
                     f"'^[+-]?[0-9.,]+([eE][+-]?[0-9]+)?$'), false) END AS plain_{c.key}",
                     f"num_{c.key} * {c.factor!r} + {c.offset!r} AS si_{c.key}"]
-    parts.append(f"row_number IN (SELECT row_number FROM {duplicates}) AS dup")
+    parts.append(f"{_row_key(by_file)} IN (SELECT row_key FROM {duplicates}) AS dup")
     cell_cols = ", ".join(f"cell_{c.key}" for c in cols)
     return (f"SELECT * EXCLUDE ({cell_cols}), {', '.join(derived)} FROM "
             f"(SELECT {', '.join(parts)} FROM (SELECT {', '.join(cells)} FROM {staged}))")
 
 
-def _duplicates_sql(staged: str, cols: list[Column]) -> str:
-    """Row numbers of rows whose mapped cells repeat an earlier row's (all but the first)."""
+def _row_key(by_file: bool) -> str:
+    """One number per row: its row number, and with several files its file's ordinal too."""
+    return "(fl_file * 1099511627776 + row_number)" if by_file else "row_number"
+
+
+def _duplicates_sql(staged: str, cols: list[Column], by_file: bool = False) -> str:
+    """Keys (:func:`_row_key`) of rows whose mapped cells repeat an earlier row's of the same
+    file (all but the first)."""
     key = "hash(" + ", ".join(ident(c.column) for c in cols) + ")"
-    return (f"WITH h AS (SELECT row_number, {key} AS row_hash FROM {staged}), "
-            "d AS (SELECT row_hash, min(row_number) AS first_row FROM h GROUP BY row_hash "
+    group = "fl_file, row_hash" if by_file else "row_hash"
+    files = "fl_file, " if by_file else ""
+    return (f"WITH h AS (SELECT {files}row_number, {key} AS row_hash FROM {staged}), "
+            f"d AS (SELECT {group}, min(row_number) AS first_row FROM h GROUP BY {group} "
             "HAVING count(*) > 1) "
-            "SELECT h.row_number FROM h JOIN d USING (row_hash) WHERE h.row_number > d.first_row")
+            f"SELECT {_row_key(by_file)} AS row_key FROM h JOIN d USING ({group}) "
+            "WHERE h.row_number > d.first_row")
 
 
 def _scaled_sql(query: str, scale: str) -> str:
@@ -163,23 +174,27 @@ def _fault_sql(cols: list[Column]) -> str:
 
 
 def normalise(con: duckdb.DuckDBPyConnection, staged: str, spec: TableSpec,
-              molar_mass: float, out: str) -> dict[str, dict]:
+              molar_mass: float, out: str, by_file: bool = False) -> dict[str, dict]:
     """Create temp table ``out``: ``row_number``, and per mapped column ``txt_<key>`` (the cell
     as written), ``empty_<key>`` and ``si_<key>`` (its SI value), and ``fault``.
 
-    Returns the uncertainty rules per quantity key for the loader. Two statements: the row
-    numbers of duplicate rows (a hash of their mapped cells, grouped once - not a window
+    Returns the uncertainty rules per quantity key for the loader. One statement (a fixed
+    cost per file counts when thousands of small files arrive): a materialised CTE of the
+    row numbers of duplicate rows (a hash of their mapped cells, grouped once - not a window
     sort), then one pass that parses, converts units and the temperature scale (SQL
     arithmetic generated from the published coefficients, :mod:`pipeline.ingest.scales`)
     and names each row's first fault.
+
+    With ``by_file``, ``staged`` holds the rows of several files of the same layout, told
+    apart by the column ``fl_file`` (kept in ``out``): one statement normalises them all,
+    duplicates counted within each file.
     """
     cols, rules = _plan(spec, molar_mass)
-    duplicates = f"{out}_dups"
-    con.execute(f"CREATE OR REPLACE TEMP TABLE {duplicates} AS {_duplicates_sql(staged, cols)}")
+    duplicates = "fl_duplicate_rows"   # a CTE of the one statement below
     scale = get_scale(spec.temperature.scale).name
     if scale != "ITS-90" and scale not in SQL_CONVERSIONS:
         raise AssertionError(f"no SQL conversion for the supported scale {scale}")
-    parsed = _scaled_sql(_parse_sql(staged, cols, spec, duplicates), scale)
+    parsed = _scaled_sql(_parse_sql(staged, cols, spec, duplicates, by_file), scale)
     col = spec.temperature.column.replace("'", "''")
     # a finite temperature that the scale conversion turned into NaN is out of its range; this
     # wins over the generic "finite number became non-finite" arm of _fault_sql
@@ -188,10 +203,21 @@ def normalise(con: duckdb.DuckDBPyConnection, staged: str, spec: TableSpec,
     kept = ", ".join(f"{kind}_{c.key}" for c in cols for kind in ("txt", "empty", "si"))
     con.execute(
         f"CREATE OR REPLACE TEMP TABLE {out} AS "
-        f"SELECT row_number, {kept}, CASE {scale_arm}WHEN true THEN fault END AS fault FROM "
+        f"WITH {duplicates} AS MATERIALIZED ({_duplicates_sql(staged, cols, by_file)}) "
+        f"SELECT {'fl_file, ' if by_file else ''}row_number, {kept}, CASE {scale_arm}WHEN true THEN fault END AS fault FROM "
         f"(SELECT *, {_fault_sql(cols)} AS fault FROM ({parsed}))")
-    con.execute(f"DROP TABLE {duplicates}")
     return rules
+
+
+def layout(spec: TableSpec, molar_mass: float) -> str:
+    """What the SQL of :func:`normalise` depends on, as text: tables of one layout can be
+    normalised in one statement (``by_file``)."""
+    cols, rules = _plan(spec, molar_mass)
+    return repr((cols, sorted((k, sorted(r.items())) for k, r in rules.items()),
+                 spec.null_values, spec.decimal, get_scale(spec.temperature.scale).name,
+                 spec.temperature.column, spec.delimiter,
+                 [(q, c.column) for q, c in spec.value_columns().items()],
+                 [(q, u.column) for q, u in spec.uncertainty.items()]))
 
 
 #: scale -> SQL conversion to ITS-90 (layers, result), for every non-identity scale

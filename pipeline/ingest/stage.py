@@ -10,6 +10,11 @@ Recipe for each batch folder (``<raw>/<batch>/batch.toml``):
    insert observations and quarantine rows, record the file with rows_read = rows_loaded +
    rows_quarantined; any error rolls the whole batch back, leaving the store exactly as before.
 
+Consecutive batches whose changed tables are small CSV files load together, in one
+transaction with shared passes (:mod:`pipeline.ingest.grouped`), leaving the store exactly as
+loading them one at a time would; a group that fails is rolled back and its batches loaded
+one at a time.
+
 Batches are isolated: whatever goes wrong inside one batch (a refused manifest, a file that is
 a FIFO, even an unexpected exception) refuses that batch with a message naming it, and the
 next batch is ingested. Only a problem of the machine (disk full, a store that cannot be
@@ -29,18 +34,15 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 import duckdb
-import numpy as np
 
 from pipeline import __version__
-from pipeline.crashpoints import crash_point
 from pipeline.errors import (
     BatchError,
     FluidLedgerError,
-    ScaleError,
-    UnitError,
     environment_problem,
     is_interrupt,
 )
+from pipeline.ingest import grouped
 from pipeline.ingest.contract import (
     BatchManifest,
     Fluid,
@@ -49,6 +51,7 @@ from pipeline.ingest.contract import (
     load_batch,
     load_fluids,
 )
+from pipeline.ingest.declarations import check_declarations
 from pipeline.ingest.discover import (
     absolute,
     batch_problem,
@@ -58,16 +61,16 @@ from pipeline.ingest.discover import (
     table_file,
 )
 from pipeline.ingest.normalise import QUANTITY_KIND, normalise, uncertainty_sql
-from pipeline.ingest.points import CONSTANT_KIND, constant_row, fixed_point_row
+from pipeline.ingest.points import constant_row, fixed_point_row
 from pipeline.ingest.rawread import MAX_TOML_BYTES, read_regular
 from pipeline.ingest.reader import stage_csv
-from pipeline.ingest.scales import get_scale
-from pipeline.ingest.units import conversion
 from pipeline.ingest.workbook import is_workbook, stage_workbook, table_path
 from pipeline.store.runs import end_run
 
 log = logging.getLogger(__name__)
 REMOVED = 0  # raw_file.superseded_by for a file that disappeared from raw/
+#: Rows above which the observation insert is told it need not keep row order
+LARGE_FILE_ROWS = 100_000
 
 
 def utcnow() -> datetime:
@@ -180,82 +183,6 @@ def plan_batch(root: Path, batch_dir: Path, fluids: dict[str, Fluid]) -> _Plan:
     return _Plan(rel_batch, manifest, label, hashlib.sha256(data).hexdigest(), len(data), tables)
 
 
-def _declared(label: str, key: str, check):
-    """Run ``check()``; a unit or scale error is re-raised naming the batch.toml key."""
-    try:
-        return check()
-    except (UnitError, ScaleError) as err:
-        raise type(err)(err.detail, file=label, key=key) from None
-
-
-def _column_rule(label: str, key: str, v, kind: str, molar_mass: float) -> None:
-    """Check the unit (with its reference and ambient) of one column or point value."""
-    ambient = None
-    if v.ambient is not None:
-        ambient = _declared(label, f"{key}.ambient.unit", lambda: conversion(
-            v.ambient.unit, "pressure").apply(np.array([v.ambient.value]))[0])
-        if v.reference == "gauge" and not (np.isfinite(ambient) and ambient > 0):
-            raise UnitError(f"the ambient pressure of a gauge value must be positive, got "
-                            f"{v.ambient.value} {v.ambient.unit}", file=label, key=f"{key}.ambient")
-    _declared(label, f"{key}.unit", lambda: conversion(
-        v.unit, kind, molar_mass_kg_mol=molar_mass, reference=v.reference, ambient_Pa=ambient))
-
-
-def check_declarations(manifest: BatchManifest, fluids: dict[str, Fluid], label: str) -> None:
-    """Every unit and scale in batch.toml converts, before any row is read; an unknown,
-    misspelt or dimensionally wrong unit, or a refused scale, names its key."""
-    for i, t in enumerate(manifest.table):
-        M = fluids[t.fluid].molar_mass_kg_mol
-        key = f"table[{i}]"
-        if t.solid_phase:
-            _declared_phase(t.solid_phase, fluids[t.fluid], label, f"{key}.solid_phase")
-        if t.comment and t.comment in (t.delimiter, t.quote, t.decimal):
-            raise BatchError(f"comment character {t.comment!r} is also the table's delimiter, "
-                             "quote or decimal separator", file=label, key=f"{key}.comment")
-        _declared(label, f"{key}.temperature.unit", lambda: conversion(t.temperature.unit,
-                                                                      "temperature"))
-        _declared(label, f"{key}.temperature.scale", lambda: get_scale(t.temperature.scale))
-        for q, cs in t.value_columns().items():
-            where = f"{key}.pressure" if q == "pressure" else f"{key}.columns.{q}"
-            _column_rule(label, where, cs, QUANTITY_KIND[q][0], M)
-        for q, u in t.uncertainty.items():
-            if u.relative is None:
-                kind = "temperature" if q == "temperature" else QUANTITY_KIND[q][0]
-                _declared(label, f"{key}.uncertainty.{q}.unit", lambda: conversion(
-                    u.unit, kind, molar_mass_kg_mol=M, difference=True))
-    kinds = {"T": "temperature", "p": "pressure", "rho": "density"}
-    for i, fp in enumerate(manifest.fixed_point):
-        M = fluids[fp.fluid].molar_mass_kg_mol
-        for j, phase in enumerate(fp.phases):
-            if phase not in GENERIC_PHASES:
-                _declared_phase(phase, fluids[fp.fluid], label, f"fixed_point[{i}].phases[{j}]")
-        for name, kind in kinds.items():
-            v = getattr(fp, name)
-            if v is not None:
-                _column_rule(label, f"fixed_point[{i}].{name}", v, kind, M)
-        _declared(label, f"fixed_point[{i}].T.scale", lambda: get_scale(fp.T.scale))
-    for i, c in enumerate(manifest.constant):
-        kind = CONSTANT_KIND[c.name][0]
-        _declared(label, f"constant[{i}].unit", lambda: conversion(
-            c.unit, kind, molar_mass_kg_mol=fluids[c.fluid].molar_mass_kg_mol))
-        if kind == "temperature":
-            _declared(label, f"constant[{i}].scale", lambda: get_scale(c.scale))
-
-
-#: Phase names every fluid has; polymorph labels (Ih, III...) must be declared in fluids.toml
-GENERIC_PHASES = ("vapour", "liquid", "solid")
-
-
-def _declared_phase(phase: str, fluid: Fluid, label: str, key: str) -> None:
-    """A solid-phase label must be one the fluid declares in fluids.toml."""
-    if phase not in fluid.solid_phases:
-        declared = (f"it declares {list(fluid.solid_phases)}" if fluid.solid_phases
-                    else "it declares none")
-        raise BatchError(f"solid phase {phase!r} is not declared for fluid '{fluid.id}' in "
-                         f"fluids.toml ({declared}); add it to its solid_phases",
-                         file=label, key=key)
-
-
 def _label(root: Path, path: Path) -> str:
     try:
         return path.relative_to(root).as_posix()
@@ -269,32 +196,61 @@ def _known_fluid(fluid: str, fluids: dict[str, Fluid], label: str, key: str) -> 
                          file=label, key=key)
 
 
+@dataclass
+class Pending:
+    """A planned batch with changes to load: what is current in the store, what is not."""
+
+    plan: _Plan
+    current: dict[str, tuple[int, str, str]]
+    unchanged: set[str]
+    removed: list[str]
+
+
 class Ingestor:
     """Loads batches into an open store connection (one transaction per batch)."""
 
     def __init__(self, con: duckdb.DuckDBPyConnection, root: Path, fluids: dict[str, Fluid],
                  run_id: str):
         self.con, self.root, self.fluids, self.run_id = con, root, fluids, run_id
+        self._current_files: dict | None = None     # see _current
 
     # -- what is in the store -------------------------------------------------------------
     def _current(self, batch: str) -> dict[str, tuple[int, str, str]]:
-        rows = self.con.execute(
-            "SELECT path, file_id, sha256, mapping_sha256 FROM raw_file "
-            "WHERE batch = ? AND superseded_by IS NULL", [batch]).fetchall()
-        return {path: (fid, sha, mapping) for path, fid, sha, mapping in rows}
+        """The current files of a batch: path -> (file_id, sha256, mapping_sha256). Read for
+        every batch at once and kept until the next load writes to the store."""
+        if self._current_files is None:
+            self._current_files = {}
+            for b, path, fid, sha, mapping in self.con.execute(
+                    "SELECT batch, path, file_id, sha256, mapping_sha256 FROM raw_file "
+                    "WHERE superseded_by IS NULL").fetchall():
+                self._current_files.setdefault(b, {})[path] = (fid, sha, mapping)
+        return dict(self._current_files.get(batch, {}))
 
-    def _duplicate_of(self, sha: str, path: str, file: str) -> str | None:
+    def _tables_like(self, plan: _Plan) -> dict[str, str]:
+        """Current tables (path -> SHA-256) whose content is that of one of the batch's files:
+        read once per batch, then kept up to date as the batch's files are loaded."""
+        shas = sorted({sha for *_, sha, _ in plan.tables})
+        return dict(self.con.execute(
+            "SELECT path, sha256 FROM raw_file WHERE list_contains(?, sha256) AND role = 'table' "
+            "AND superseded_by IS NULL", [shas]).fetchall())
+
+    @staticmethod
+    def _duplicate_of(tables: dict[str, str], sha: str, path: str, file: str) -> str | None:
         """A current table of the same content from another file (the worksheets of one
         workbook share its hash and are not duplicates of each other)."""
-        rows = self.con.execute(
-            "SELECT path FROM raw_file WHERE sha256 = ? AND path <> ? AND role = 'table' "
-            "AND superseded_by IS NULL ORDER BY path", [sha, path]).fetchall()
-        twins = [p for (p,) in rows if p != file and not p.startswith(file + "#")]
+        twins = sorted(p for p, s in tables.items() if s == sha and p != path and p != file
+                       and not p.startswith(file + "#"))
         return twins[0] if twins else None
 
     # -- one batch ------------------------------------------------------------------------
     def ingest(self, batch_dir: Path) -> BatchResult:
         """Ingest one batch; any problem inside it refuses it (see the module docstring)."""
+        prepared = self.prepare(batch_dir)
+        return prepared if isinstance(prepared, BatchResult) else self.load_alone(prepared)
+
+    def prepare(self, batch_dir: Path) -> BatchResult | Pending:
+        """Plan a batch (reads, never writes): its result when it is refused or unchanged,
+        else what loading it needs."""
         batch_dir = real_folder(batch_dir)
         rel = _label(self.root, batch_dir)
         try:
@@ -312,9 +268,15 @@ class Ingestor:
         if len(unchanged) == len(wanted) and not removed:
             return BatchResult(plan.batch, "unchanged",
                                [FileResult(p, "unchanged") for p in sorted(wanted)])
+        return Pending(plan, current, unchanged, removed)
+
+    def load_alone(self, pending: Pending) -> BatchResult:
+        """Load one prepared batch in its own transaction."""
+        plan = pending.plan
+        self._current_files = None
         self.con.execute("BEGIN TRANSACTION")
         try:
-            result = self._load(plan, current, unchanged, removed)
+            result = self._load(plan, pending.current, pending.unchanged, pending.removed)
             self.con.execute("COMMIT")
             return result
         except FluidLedgerError as err:
@@ -328,19 +290,32 @@ class Ingestor:
             raise
 
     def _load(self, plan: _Plan, current, unchanged: set[str], removed: list[str]) -> BatchResult:
+        self._next_obs = None        # the next free obs_id, read once per batch
+        result = BatchResult(plan.batch, "loaded")
+        for i, spec, rel, path, content, sha, file_id in self.begin(plan, current, unchanged,
+                                                                    removed, result):
+            result.files.append(self._load_table(file_id, rel, path, content, sha, spec, plan))
+        return result
+
+    def begin(self, plan: _Plan, current, unchanged: set[str], removed: list[str],
+              result: BatchResult):
+        """Write a batch's source, retirements and manifest entries into ``result``; then
+        yield each changed table with its new ``raw_file`` row's id, in order, for the
+        caller to load (an unchanged table is noted in ``result`` in its place)."""
         self._upsert_source(plan)
         for path in removed:
             self._supersede(current[path][0], REMOVED)
-        result = BatchResult(plan.batch, "loaded")
         if plan.manifest_path not in unchanged:
             result.files.append(self._load_manifest(plan, current.get(plan.manifest_path)))
         else:
             result.files.append(FileResult(plan.manifest_path, "unchanged"))
+        changed = any(t[2] not in unchanged for t in plan.tables)
+        tables = self._tables_like(plan) if changed else {}
         for i, spec, rel, path, content, sha, mapping in plan.tables:
             if rel in unchanged:
                 result.files.append(FileResult(rel, "unchanged"))
                 continue
-            twin = self._duplicate_of(sha, rel, rel.removesuffix(table_path("", spec)))
+            twin = self._duplicate_of(tables, sha, rel, rel.removesuffix(table_path("", spec)))
             if twin is not None:
                 raise BatchError(f"has the same content (SHA-256 {sha[:12]}…) as the already "
                                  f"ingested file '{twin}'; a duplicated file is refused", file=rel)
@@ -348,8 +323,8 @@ class Ingestor:
             file_id = self._new_file(rel, plan, "table", sha, mapping, len(content), spec, i)
             if old is not None:
                 self._supersede(old[0], file_id)
-            result.files.append(self._load_table(file_id, rel, path, content, sha, spec, plan))
-        return result
+            tables[rel] = sha          # the new version is current; the old one no more
+            yield i, spec, rel, path, content, sha, file_id
 
     def _upsert_source(self, plan: _Plan) -> None:
         s = plan.manifest.source
@@ -365,13 +340,12 @@ class Ingestor:
             [s.id, s.kind, s.citation, s.doi or None, s.license or None, plan.batch, self.run_id])
 
     def _new_file(self, rel, plan, role, sha, mapping, size, spec=None, index=None) -> int:
-        file_id = self.con.execute("SELECT nextval('file_id_seq')").fetchone()[0]
-        self.con.execute(
-            "INSERT INTO raw_file VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 0, 0, 0, ?, ?, NULL, NULL)",
-            [file_id, sha, mapping, rel, plan.batch, role, plan.manifest.source.id, index,
+        return self.con.execute(
+            "INSERT INTO raw_file VALUES (nextval('file_id_seq'), ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, "
+            "?, 0, 0, 0, ?, ?, NULL, NULL) RETURNING file_id",
+            [sha, mapping, rel, plan.batch, role, plan.manifest.source.id, index,
              spec.fluid if spec else None, spec.boundary if spec else None,
-             spec.solid_phase if spec else None, size, self.run_id, utcnow()])
-        return file_id
+             spec.solid_phase if spec else None, size, self.run_id, utcnow()]).fetchall()[0][0]
 
     def _supersede(self, old_id: int, new_id: int) -> None:
         self.con.execute("UPDATE raw_file SET superseded_by = ?, superseded_run_id = ? "
@@ -447,9 +421,24 @@ class Ingestor:
                 for row, column, raw, message in staged.rejects]
         molar_mass = self.fluids[spec.fluid].molar_mass_kg_mol
         rules = normalise(self.con, "fl_stage", spec, molar_mass, "fl_norm")
+        quantities = list(spec.value_columns())
+        loaded, bad, *last_rows = self.con.execute(
+            "SELECT count(*) FILTER (WHERE fault IS NULL), count(*) FILTER (WHERE fault IS NOT "
+            "NULL), " + ", ".join(f"max(row_number) FILTER (WHERE fault IS NULL AND NOT "
+                                  f"empty_{q})" for q in quantities) + " FROM fl_norm"
+        ).fetchall()[0]
         for row, column, raw, code, message, cell in rejects:
             self._quarantine(file_id, sha, rel, row, column, raw, code, f"{rel}, {message}", cell)
-        self._insert_observations(file_id, spec, rules, staged)
+        self._insert_observations(file_id, spec, rules, staged, last_rows)
+        if bad:
+            self._quarantine_faults(file_id, sha, rel, spec, staged)
+        quarantined = bad + len(rejects)
+        self._count(file_id, staged.rows_read, loaded, quarantined)
+        self.con.execute("DROP TABLE fl_stage; DROP TABLE fl_norm")
+        return FileResult(rel, "loaded", staged.rows_read, loaded, quarantined)
+
+    def _quarantine_faults(self, file_id, sha, rel, spec: TableSpec, staged) -> None:
+        """The rows of fl_norm with a fault, to quarantine with their reason and cell."""
         cell_ref, cell_params = self._cell_ref(spec, staged)
         where = ("printf('row %d%s', row_number, CASE WHEN split_part(fault, '|', 2) <> '' THEN "
                  "printf(', column ''%s''', split_part(fault, '|', 2)) ELSE '' END)")
@@ -464,13 +453,6 @@ class Ingestor:
             f"SELECT *, {self._raw_text(spec)} AS raw, {self._cell(spec)} AS cell, "
             f"{cell_ref} AS cell_ref FROM fl_norm WHERE fault IS NOT NULL)",
             [file_id, sha, rel, rel, self.run_id, *cell_params])
-        loaded, bad = self.con.execute(
-            "SELECT count(*) FILTER (WHERE fault IS NULL), count(*) FILTER (WHERE fault IS NOT NULL) "
-            "FROM fl_norm").fetchone()
-        quarantined = bad + len(rejects)
-        self._count(file_id, staged.rows_read, loaded, quarantined)
-        self.con.execute("DROP TABLE fl_stage; DROP TABLE fl_norm")
-        return FileResult(rel, "loaded", staged.rows_read, loaded, quarantined)
 
     @staticmethod
     def _raw_text(spec: TableSpec) -> str:
@@ -504,36 +486,55 @@ class Ingestor:
             params += [column, staged.cell_prefix(column), staged.header_row]
         return "CASE " + " ".join(arms) + " END", params
 
-    def _insert_observations(self, file_id, spec: TableSpec, rules, staged) -> None:
-        """Narrow bulk inserts (per-file facts go to raw_column once); ids are allocated as a
-        block after the current maximum, so no sequence is touched per row. A workbook's
-        values keep their cells (``VLE!C14``): the column's prefix and the sheet row."""
+    def _insert_observations(self, file_id, spec: TableSpec, rules, staged,
+                             last_rows: list[int | None]) -> None:
+        """Narrow bulk inserts (per-file facts go to raw_column once, in one statement); ids
+        are allocated as a block after the current maximum, so no sequence is touched per
+        row, and every quantity goes in the same statement. A workbook's values keep their
+        cells (``VLE!C14``): the column's prefix and the sheet row. ``last_rows`` is the
+        last row number loaded per quantity (None: none), which gives the next free id
+        without asking the store again."""
         quantities = list(spec.value_columns().items())
-        base = self.con.execute("SELECT coalesce(max(obs_id), 0) + 1 FROM observation"
-                                ).fetchall()[0][0]
+        if self._next_obs is None:
+            self._next_obs = self.con.execute(
+                "SELECT coalesce(max(obs_id), 0) + 1 FROM observation").fetchall()[0][0]
+        base = self._next_obs
         t = spec.temperature
-        self._column(file_id, "temperature", t.column, t.unit, t.scale, "K", rules.get("T"))
+        columns = [("temperature", t.column, t.unit, t.scale, "K", rules.get("T"))]
+        columns += [(q, cs.column, cs.unit, None, QUANTITY_KIND[q][1], rules.get(q))
+                    for q, cs in quantities]
+        self.con.execute(
+            "INSERT INTO raw_column VALUES " + ", ".join(["(?, ?, ?, ?, ?, ?, ?)"] * len(columns)),
+            [v for quantity, column, unit, scale, si_unit, rule in columns
+             for v in (file_id, quantity, column, unit, scale, si_unit,
+                       json.dumps(rule, sort_keys=True) if rule else None)])
+        if all(last is None for last in last_rows):
+            return
         uT = uncertainty_sql("T", rules)
         workbook = is_workbook(spec.file)
         cells = "concat(?, row_number + ?), concat(?, row_number + ?)" if workbook else "NULL, NULL"
-        # ids and row numbers are explicit, so the bulk insert need not keep row order
-        self.con.execute("SET preserve_insertion_order = false")
+        selects, params = [], []
         for qi, (q, cs) in enumerate(quantities):
-            self._column(file_id, q, cs.column, cs.unit, None, QUANTITY_KIND[q][1], rules.get(q))
-            params = [base, file_id, q]
+            if last_rows[qi] is None:
+                continue
+            params += [base, file_id, q]
             if workbook:
                 params += [staged.cell_prefix(t.column), staged.header_row,
                            staged.cell_prefix(cs.column), staged.header_row]
-            self.con.execute(
-                f"INSERT INTO observation SELECT ? + (row_number - 1) * {len(quantities)} + {qi}, "
-                f"?, row_number, ?, si_T, {uT}, si_{q}, {uncertainty_sql(q, rules)}, txt_T, txt_{q}, "
-                f"{cells} FROM fl_norm WHERE fault IS NULL AND NOT empty_{q}", params)
-        self.con.execute("RESET preserve_insertion_order")
-
-    def _column(self, file_id, quantity, column, unit, scale, si_unit, rule) -> None:
-        self.con.execute("INSERT INTO raw_column VALUES (?, ?, ?, ?, ?, ?, ?)",
-                         [file_id, quantity, column, unit, scale, si_unit,
-                          json.dumps(rule, sort_keys=True) if rule else None])
+            selects.append(
+                f"SELECT ? + (row_number - 1) * {len(quantities)} + {qi}, ?, row_number, ?, "
+                f"si_T, {uT}, si_{q}, {uncertainty_sql(q, rules)}, txt_T, txt_{q}, {cells} "
+                f"FROM fl_norm WHERE fault IS NULL AND NOT empty_{q}")
+        # ids and row numbers are explicit, so a large bulk insert need not keep row order
+        # (a small one skips the two statements that say so)
+        large = staged.rows_read > LARGE_FILE_ROWS
+        if large:
+            self.con.execute("SET preserve_insertion_order = false")
+        self.con.execute("INSERT INTO observation " + " UNION ALL ".join(selects), params)
+        if large:
+            self.con.execute("RESET preserve_insertion_order")
+        self._next_obs = max(base + (last - 1) * len(quantities) + qi
+                             for qi, last in enumerate(last_rows) if last is not None) + 1
 
 
 def _rollback(con) -> None:
@@ -593,12 +594,8 @@ def run_ingest(con: duckdb.DuckDBPyConnection, paths: list[Path], *, fluids_file
     try:
         _upsert_fluids(con, fluids, run_id)
         batches = [b for p in paths for b in discover_batches(p)]
-        results = []
-        for batch_dir in batches:
-            results.append(Ingestor(con, root, fluids, run_id).ingest(batch_dir))
-            if progress:
-                progress(batch_dir)
-            crash_point("ingest:batch-done")
+        results = grouped.ingest_batches(Ingestor(con, root, fluids, run_id), batches,
+                                         progress)
         removed = _retire_missing(con, root, paths, {r.batch for r in results}, run_id)
     except BaseException as err:
         end_run(con, run_id, err)
