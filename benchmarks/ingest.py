@@ -157,7 +157,7 @@ def child_bare(raw: Path, db: Path) -> dict:
     files = sorted(str(p) for p in raw.rglob("*.csv"))
     t0 = time.perf_counter()
     con = duckdb.connect(str(db))
-    con.execute(f"CREATE TABLE t (T DOUBLE, p DOUBLE, u_p DOUBLE)")
+    con.execute("CREATE TABLE t (T DOUBLE, p DOUBLE, u_p DOUBLE)")
     for f in files:
         con.execute(f"INSERT INTO t SELECT * FROM read_csv(?, header=true, auto_detect=false, "
                     f"columns={COLUMNS}, ignore_errors=true)", [f])

@@ -34,6 +34,7 @@ from pipeline.crashpoints import crash_point
 from pipeline.errors import BatchError, environment_problem, is_interrupt
 from pipeline.ingest.normalise import QUANTITY_KIND, ident, layout, uncertainty_sql
 from pipeline.ingest.reader import stage_csv
+from pipeline.ingest.results import BatchResult, FileResult
 from pipeline.ingest.workbook import is_workbook
 
 log = logging.getLogger(__name__)
@@ -64,7 +65,6 @@ def ingest_batches(ingestor, batches: list[Path], progress) -> list:
     (:func:`load_group`); any other batch loads alone. ``progress(batch_dir)`` and the crash
     point ``ingest:batch-done`` follow each batch once it is committed (with its group) or
     refused."""
-    from pipeline.ingest.stage import BatchResult
     results: list = []
     pending: list = []
     size = [0, 0]
@@ -203,7 +203,6 @@ class _File:
 
 def _load_together(ing, pendings: list) -> list:
     from pipeline.ingest import stage
-    from pipeline.ingest.stage import BatchResult, FileResult
 
     con = ing.con
     results, files = [], []

@@ -29,7 +29,7 @@ import json
 import logging
 import os
 import secrets
-from dataclasses import asdict, dataclass, field
+from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -63,6 +63,7 @@ from pipeline.ingest.discover import (
 from pipeline.ingest.normalise import QUANTITY_KIND, normalise, uncertainty_sql
 from pipeline.ingest.points import constant_row, fixed_point_row
 from pipeline.ingest.rawread import MAX_TOML_BYTES, read_regular
+from pipeline.ingest.results import BatchResult, FileResult, IngestResult
 from pipeline.ingest.reader import stage_csv
 from pipeline.ingest.workbook import is_workbook, stage_workbook, table_path
 from pipeline.store.runs import end_run
@@ -79,59 +80,6 @@ def utcnow() -> datetime:
 
 def new_run_id(kind: str) -> str:
     return f"{kind}-{utcnow():%Y%m%dT%H%M%S}-{secrets.token_hex(3)}"
-
-
-@dataclass
-class FileResult:
-    path: str
-    status: str            # loaded | unchanged
-    rows_read: int = 0
-    rows_loaded: int = 0
-    rows_quarantined: int = 0
-
-
-@dataclass
-class BatchResult:
-    batch: str
-    status: str            # loaded | unchanged | error
-    files: list[FileResult] = field(default_factory=list)
-    error: str | None = None
-    internal: bool = False  # the batch was refused because of a fault of the code (exit 3)
-
-    @property
-    def rows(self) -> tuple[int, int, int]:
-        return tuple(sum(getattr(f, k) for f in self.files)
-                     for k in ("rows_read", "rows_loaded", "rows_quarantined"))
-
-
-@dataclass
-class IngestResult:
-    run_id: str
-    batches: list[BatchResult]
-    removed: list[str]
-
-    @property
-    def errors(self) -> list[BatchResult]:
-        return [b for b in self.batches if b.status == "error"]
-
-    @property
-    def changed(self) -> bool:
-        return bool(self.removed) or any(b.status == "loaded" for b in self.batches)
-
-    def asdict(self) -> dict:
-        return {"run_id": self.run_id, "removed": self.removed,
-                "batches": [asdict(b) for b in self.batches]}
-
-    def asstr(self) -> str:
-        lines = []
-        for b in self.batches:
-            read, loaded, quarantined = b.rows
-            detail = b.error if b.status == "error" else (
-                f"{read} rows read, {loaded} loaded, {quarantined} quarantined")
-            lines.append(f"{b.status:>9}  {b.batch}: {detail}")
-        for path in self.removed:
-            lines.append(f"{'removed':>9}  {path}")
-        return "\n".join(lines)
 
 
 @dataclass
