@@ -41,6 +41,9 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 # --before DIR: the child measures the ingest of another checkout (e.g. a worktree of main)
 sys.path.insert(0, os.environ.get("FL_INGEST_CODE") or str(HERE.parent))
+sys.path.append(str(HERE.parent))     # the store kit of this checkout's tests
+
+from tests.storekit import batch_toml, source, vp_table  # noqa: E402
 
 TARGET_BIG_TIME = 2.5
 TARGET_BIG_RSS = 2.0
@@ -53,37 +56,22 @@ id = "argon"
 name = "argon"
 molar_mass = { value = 39.948, unit = "g/mol" }
 """
-BIG_BATCH = """[source]
-id = "bench"
-kind = "measurement"
-citation = "synthetic benchmark data"
+#: u(p) read from a column of expanded (k = 2) uncertainties, u(T) stated
+COLUMN_U = {"temperature": {"value": 0.01, "unit": "K"},
+            "pressure": {"column": "u_p", "unit": "kPa", "coverage": 2}}
+BIG_BATCH = batch_toml(
+    source("bench", "synthetic benchmark data"),
+    [vp_table(file="big.csv", temperature={"column": "T", "unit": "degC", "scale": "IPTS-68"},
+              uncertainty=COLUMN_U)], format_version=None)
 
-[[table]]
-file = "big.csv"
-fluid = "argon"
-boundary = "liquid-vapour"
-temperature = { column = "T", unit = "degC", scale = "IPTS-68" }
-pressure = { column = "p", unit = "kPa" }
-[table.uncertainty]
-temperature = { value = 0.01, unit = "K" }
-pressure = { column = "u_p", unit = "kPa", coverage = 2 }
-"""
-SMALL_SOURCE = """[source]
-id = "rig-{i:04d}"
-kind = "measurement"
-citation = "synthetic benchmark campaign {i}"
-"""
-SMALL_TABLE = """
-[[table]]
-file = "run-{j}.csv"
-fluid = "argon"
-boundary = "liquid-vapour"
-temperature = {{ column = "T", unit = "K" }}
-pressure = {{ column = "p", unit = "kPa" }}
-[table.uncertainty]
-temperature = {{ value = 0.01, unit = "K" }}
-pressure = {{ column = "u_p", unit = "kPa", coverage = 2 }}
-"""
+
+def small_batch(i: int) -> str:
+    """batch.toml of small campaign ``i``: FILES_PER_BATCH tables of argon vapour pressures."""
+    return batch_toml(source(f"rig-{i:04d}", f"synthetic benchmark campaign {i}"),
+                      [vp_table(file=f"run-{j}.csv", uncertainty=COLUMN_U)
+                       for j in range(FILES_PER_BATCH)], format_version=None)
+
+
 COLUMNS = "{'T': 'DOUBLE', 'p': 'DOUBLE', 'u_p': 'DOUBLE'}"
 
 
@@ -126,15 +114,13 @@ def make_small(root: Path, batches: int) -> Path:
     for i in range(batches):
         batch = raw / f"campaign-{i:04d}"
         batch.mkdir()
-        manifest = SMALL_SOURCE.format(i=i)
         for j in range(FILES_PER_BATCH):
-            manifest += SMALL_TABLE.format(j=j)
             T = np.sort(rng.uniform(84.0, 150.0, ROWS_PER_FILE))
             p = vapour_pressure_kpa(T) * (1 + 1e-4 * rng.standard_normal(ROWS_PER_FILE))
             text = "T,p,u_p\n" + "".join(f"{a:.4f},{b:.6g},{b * 2e-3:.3g}\n"
                                          for a, b in zip(T, p))
             (batch / f"run-{j}.csv").write_text(text)
-        (batch / "batch.toml").write_text(manifest)
+        (batch / "batch.toml").write_text(small_batch(i))
     return raw
 
 

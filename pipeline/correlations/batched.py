@@ -35,11 +35,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from pipeline.correlations.base import CorrelationForm, Curve, LinearForm, get_form
+from pipeline.correlations.base import CorrelationForm, LinearForm, get_form
 from pipeline.correlations.outcomes import FitOutcome, PointFlag, SkipCode
 from pipeline.correlations.regression import (CRITERIA, MAX_OUTLIER_FRACTION, MAX_OUTLIER_ROUNDS,
-                                              _Best, _Candidate, _inflate, _no_model,
-                                              _solve_nonlinear)
+                                              _Best, _Candidate, _no_model,
+                                              _solve_nonlinear, fitted_outcome)
 from pipeline.correlations.screening import (as_arrays, crossing_reason, monotonic_reason,
                                              screen_values, skipped_outcome)
 from pipeline.correlations.robust import robust_start_masks
@@ -441,31 +441,15 @@ def _flag_list(codes: np.ndarray) -> list[str]:
 
 
 def _outcome(m: _Live, zl: dict, ul: dict, criterion: str) -> FitOutcome:
-    """The outcome record of a fitted series: ``fitting._outcome`` with the point flags
-    handled as codes (the same numbers, computed by the same expressions)."""
-    best, mask, T = m.best, m.mask, m.T
-    form = best.cand.form
-    z, u_z = zl[form.link], ul[form.link]
-    zr = best.z_all(T, z, u_z)
-    w = 1.0 / u_z[mask] ** 2
-    r = (zr * u_z)[mask]
-    k, n = best.params.size, best.n
-    cov = _inflate(best.cov, best.chi2, n)
-    T_ref = best.cand.T_ref if math.isfinite(best.cand.T_ref) else None
-    curve = Curve(form=form.name, params=tuple(best.params),
-                  ref={"T_ref_K": T_ref, "exponents": best.exps},
-                  covariance=tuple(map(tuple, cov)), T_min_K=float(T[mask].min()),
-                  T_max_K=float(T[mask].max()),
-                  citation=f"weighted least-squares fit of {n} points; form: {form.citation}")
-    outlier = (m.codes == 0) & ~mask
+    """The outcome record of a fitted series: the reference's record
+    (:func:`~pipeline.correlations.regression.fitted_outcome`) with the point flags handled
+    as codes."""
+    link = m.best.cand.form.link
+    outlier = (m.codes == 0) & ~m.mask
     codes = np.where(outlier, _OUTLIER, m.codes)
-    return FitOutcome(
-        curve=curve, form=form.name, n_used=n, n_flagged=int(np.count_nonzero(codes)),
-        outlier_mask=outlier, z=zr, weighted_rms=float(np.sqrt(np.sum(w * r**2) / np.sum(w))),
-        reduced_chi2=best.chi2 / (n - k) if n > k else math.nan,
-        bic=CRITERIA["bic"](best.chi2, k, n), point_flags=tuple(_flag_list(codes)),
-        candidates=_table(*m.table), criterion=criterion,
-        fit_space="ln(value)" if form.link == "log" else "value")
+    return fitted_outcome(m.best, m.mask, m.T, zl[link], ul[link], outlier,
+                          int(np.count_nonzero(codes)), tuple(_flag_list(codes)),
+                          _table(*m.table), criterion)
 
 
 def fit_batch(call: tuple) -> list[FitOutcome]:

@@ -377,9 +377,11 @@ def _make_candidates(forms, T, ref):
     return cands
 
 
-def _outcome(best: _Best, mask, flags, T, z_by_link, u_by_link, table, criterion):
+def fitted_outcome(best: _Best, mask, T, z, u_z, outlier, n_flagged: int, point_flags,
+                   candidates, criterion) -> FitOutcome:
+    """The outcome record of a fitted series, from its selected model ``best`` and the points
+    ``mask`` it used (shared by the per-series reference and the batched path)."""
     form = best.cand.form
-    z, u_z = z_by_link[form.link], u_by_link[form.link]
     zr = best.z_all(T, z, u_z)
     w = 1.0 / u_z[mask] ** 2
     r = (zr * u_z)[mask]
@@ -391,14 +393,20 @@ def _outcome(best: _Best, mask, flags, T, z_by_link, u_by_link, table, criterion
                   covariance=tuple(map(tuple, cov)), T_min_K=float(T[mask].min()),
                   T_max_K=float(T[mask].max()),
                   citation=f"weighted least-squares fit of {n} points; form: {form.citation}")
-    outlier = np.array([f == "" for f in flags]) & ~mask
-    flags = tuple(PointFlag.OUTLIER.value if outlier[i] else f for i, f in enumerate(flags))
     return FitOutcome(
-        curve=curve, form=form.name, n_used=n, n_flagged=sum(1 for f in flags if f),
+        curve=curve, form=form.name, n_used=n, n_flagged=n_flagged,
         outlier_mask=outlier, z=zr, weighted_rms=float(np.sqrt(np.sum(w * r**2) / np.sum(w))),
         reduced_chi2=best.chi2 / (n - k) if n > k else math.nan,
-        bic=CRITERIA["bic"](best.chi2, k, n), point_flags=flags, candidates=tuple(table),
+        bic=CRITERIA["bic"](best.chi2, k, n), point_flags=point_flags, candidates=candidates,
         criterion=criterion, fit_space="ln(value)" if form.link == "log" else "value")
+
+
+def _outcome(best: _Best, mask, flags, T, z_by_link, u_by_link, table, criterion):
+    link = best.cand.form.link
+    outlier = np.array([f == "" for f in flags]) & ~mask
+    flags = tuple(PointFlag.OUTLIER.value if outlier[i] else f for i, f in enumerate(flags))
+    return fitted_outcome(best, mask, T, z_by_link[link], u_by_link[link], outlier,
+                          sum(1 for f in flags if f), flags, tuple(table), criterion)
 
 
 def _stage(cands, T, y, u_eff, base, n_terms, criterion, outlier_z, min_points, trusted=None,

@@ -63,7 +63,7 @@ def _finite_number(checker, instance) -> bool:
 
 
 @lru_cache(maxsize=None)
-def _ecma(pattern: str) -> re.Pattern:
+def ecma_pattern(pattern: str) -> re.Pattern:
     """``pattern`` compiled with ECMA-262's ``$``: the end of the text, never before a final
     newline (every unescaped ``$`` outside a character class becomes ``\\Z``)."""
     out, escaped, in_class = [], False, False
@@ -83,7 +83,7 @@ def _ecma(pattern: str) -> re.Pattern:
 
 
 def _pattern(validator, pattern, instance, schema):
-    if validator.is_type(instance, "string") and not _ecma(pattern).search(instance):
+    if validator.is_type(instance, "string") and not ecma_pattern(pattern).search(instance):
         yield jsonschema.ValidationError(f"{instance!r} does not match {pattern!r}")
 
 

@@ -20,7 +20,6 @@ infinity), and ``$`` in a pattern means the end of the text, as in ECMA-262, whe
 from __future__ import annotations
 
 import functools
-import re
 from dataclasses import dataclass
 from typing import Callable
 
@@ -30,7 +29,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from pipeline.errors import PublishError
-from pipeline.ingest.contract import load_schema
+from pipeline.ingest.contract import ecma_pattern, load_schema
 
 #: keywords that say nothing about validity
 ANNOTATIONS = frozenset({"description", "title", "$comment", "default", "examples", "$schema",
@@ -70,25 +69,6 @@ def _json_type(typ: pa.DataType) -> str:
     if pa.types.is_struct(typ):
         return "object"
     raise Unsupported(f"Arrow type {typ} has no JSON counterpart here")
-
-
-def ecma_pattern(pattern: str) -> re.Pattern:
-    """``pattern`` with ECMA-262's ``$`` (the end of the text): every unescaped ``$`` outside a
-    character class becomes ``\\Z``."""
-    out, escaped, in_class = [], False, False
-    for ch in pattern:
-        if escaped:
-            escaped = False
-        elif ch == "\\":
-            escaped = True
-        elif ch == "[":
-            in_class = True
-        elif ch == "]":
-            in_class = False
-        elif ch == "$" and not in_class:
-            ch = r"\Z"
-        out.append(ch)
-    return re.compile("".join(out))
 
 
 def _first(mask: pa.Array) -> int | None:

@@ -9,28 +9,12 @@ Outcomes are compared field by field: categorical fields exactly, numbers to 1e-
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 import pytest
 
 from pipeline.correlations import fit_curve, reference_curve
 from pipeline.correlations.batched import Series, fit_batch, fit_curves
-
-RTOL = 1e-10
-
-
-def close(a, b) -> bool:
-    """Equal; floats within RTOL relative (NaN equal to NaN); containers item by item."""
-    if isinstance(a, float) and isinstance(b, float):
-        if math.isnan(a) or math.isnan(b):
-            return math.isnan(a) and math.isnan(b)
-        return abs(a - b) <= RTOL * max(abs(a), abs(b))
-    if isinstance(a, (list, tuple)) and isinstance(b, (list, tuple)):
-        return len(a) == len(b) and all(close(x, y) for x, y in zip(a, b))
-    if isinstance(a, dict) and isinstance(b, dict):
-        return a.keys() == b.keys() and all(close(a[k], b[k]) for k in a)
-    return a == b
+from tests.compare import close
 
 
 def assert_same(forms, series, **kw):

@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import importlib.util
 import json
-import math
 import shutil
 from pathlib import Path
 
@@ -23,9 +22,9 @@ from pipeline.decisions import exclusions_for_fit, load_decisions
 from pipeline.fitting.stage import run_fit
 from pipeline.ingest.stage import run_ingest
 from pipeline.store import open_store
+from tests.compare import close
 
 ROOT = Path(__file__).resolve().parents[2]
-RTOL = 1e-10
 
 FIT_SQL = ("SELECT fit_id, fluid_id, boundary, solid_phase, quantity, status, skipped_reason, "
            "form, curve_json, params_json, covariance_json, T_min_K, T_max_K, n_points, n_used, "
@@ -33,19 +32,6 @@ FIT_SQL = ("SELECT fit_id, fluid_id, boundary, solid_phase, quantity, status, sk
            "FROM fit ORDER BY fit_id")
 RESIDUAL_SQL = ("SELECT fit_id, obs_id, residual_si, z, is_outlier, excluded_by FROM fit_residual "
                 "ORDER BY fit_id, obs_id")
-
-
-def close(a, b) -> bool:
-    """Equal, or both floats within RTOL relative (NaN equal to NaN); containers item by item."""
-    if isinstance(a, float) and isinstance(b, float):
-        if math.isnan(a) or math.isnan(b):
-            return math.isnan(a) and math.isnan(b)
-        return abs(a - b) <= RTOL * max(abs(a), abs(b))
-    if isinstance(a, (list, tuple)) and isinstance(b, (list, tuple)):
-        return len(a) == len(b) and all(close(x, y) for x, y in zip(a, b))
-    if isinstance(a, dict) and isinstance(b, dict):
-        return a.keys() == b.keys() and all(close(a[k], b[k]) for k in a)
-    return a == b
 
 
 JSON_COLUMNS = (8, 9, 10)     # curve_json, params_json, covariance_json in FIT_SQL

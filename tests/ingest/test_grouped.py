@@ -7,26 +7,28 @@ import pytest
 import pipeline.ingest.grouped as grouped
 from pipeline.ingest.stage import run_ingest
 from pipeline.store import open_store
-from tests.conftest import SIMPLE_BATCH, write_batch
+from tests.conftest import write_batch
 from tests.ingest.store_snapshot import snapshot
+from tests.storekit import batch_toml, source, vp_table
 
 # argon vapour pressures near the normal boiling point (approximate values, test data only);
 # one row not a number and one repeated row, so that quarantine ids are exercised too
 ROWS = "T,p\n85.0,78.9\n87.3,101.3\n90.0,133.6\n91.0,n.m.\n87.3,101.3\n"
-TWO_TABLES = SIMPLE_BATCH + """
-[[table]]
-file = "vp2.csv"
-fluid = "argon"
-boundary = "liquid-vapour"
-temperature = {{ column = "T", unit = "degC" }}
-pressure = {{ column = "p", unit = "bar" }}
-"""
+
+
+def two_tables(source_id: str) -> str:
+    """An argon batch of two tables: kPa in kelvin with u stated, bar in degC without."""
+    return batch_toml(
+        source(source_id, "Test rig, invented campaign for the test suite"),
+        [vp_table(p_unit="kPa", u_T_K=0.01, u_p_rel=0.001),
+         vp_table(file="vp2.csv", p_unit="bar", u_p_rel=None,
+                  temperature={"column": "T", "unit": "degC"})], format_version=None)
 
 
 def _raw(root, names, *, clash: str | None = None):
     for i, name in enumerate(names):
-        source = "rig-shared" if name == clash or (clash and i == 0) else f"rig-{name}"
-        write_batch(root, name, TWO_TABLES.format(source=source), {
+        src = "rig-shared" if name == clash or (clash and i == 0) else f"rig-{name}"
+        write_batch(root, name, two_tables(src), {
             "vp.csv": ROWS.replace("78.9", f"78.{i}"),
             "vp2.csv": ROWS.replace("85.0", f"-18{i}.0").replace("78.9", f"0.7{i}")})
     return root
