@@ -9,6 +9,7 @@ import datetime
 import hashlib
 import io
 import re
+import tomllib
 
 import pytest
 import xlsxwriter
@@ -17,25 +18,17 @@ from pipeline.ingest.stage import run_ingest
 from pipeline.ingest.workbook import column_index, column_letter, sheet_prefix
 from pipeline.store import open_store
 from tests.conftest import SIMPLE_BATCH, SIMPLE_CSV, write_batch
+from tests.storekit import batch_toml, source, vp_table
 
-BATCH = """
-[source]
-id = "rig-w"
-kind = "measurement"
-citation = "Test rig, invented workbook campaign for the test suite"
 
-[[table]]
-file = "rig.xlsx"
-sheet = "{sheet}"
-{extra}
-fluid = "argon"
-boundary = "liquid-vapour"
-temperature = {{ column = "T", unit = "K" }}
-pressure = {{ column = "p", unit = "kPa" }}
-[table.uncertainty]
-temperature = {{ value = 0.01, unit = "K" }}
-pressure = {{ relative = 0.001 }}
-"""
+
+def workbook_batch(sheet: str = "VLE", extra: str = "") -> str:
+    """An argon batch of one worksheet table; ``extra`` adds TOML keys to the table."""
+    return batch_toml(
+        source("rig-w", "Test rig, invented workbook campaign for the test suite"),
+        [vp_table(file="rig.xlsx", sheet=sheet, u_T_K=0.01, u_p_rel=0.001,
+                  **tomllib.loads(extra))], format_version=None)
+
 
 # argon vapour pressures near the normal boiling point (approximate values, test data only),
 # the same rows as tests/conftest.py SIMPLE_CSV
@@ -76,7 +69,7 @@ def workbook(sheets: dict[str, list[list]], start: str = "A1") -> bytes:
 
 def ingest(raw_root, store_path, sheets, sheet="VLE", extra="", start="A1"):
     """Write batch b1 with rig.xlsx and ingest raw/; the result of the run."""
-    write_batch(raw_root, "b1", BATCH.format(sheet=sheet, extra=extra),
+    write_batch(raw_root, "b1", workbook_batch(sheet, extra),
                 {"rig.xlsx": workbook(sheets, start)})
     with open_store(store_path) as s:
         return run_ingest(s.con, [raw_root])
@@ -185,9 +178,9 @@ def test_two_sheets_of_one_workbook_are_two_tables_with_one_hash(raw_root, store
     """Two [[table]] entries on two sheets of one workbook load as two tables sharing the
     SHA-256 of the workbook bytes; a second ingest is a no-op; a changed workbook supersedes
     both."""
-    second = BATCH.format(sheet="Rig B", extra="").split("[[table]]", 1)[1]
+    second = workbook_batch("Rig B", "").split("[[table]]", 1)[1]
     data = workbook({"VLE": GOOD, "Rig B": [GOOD[0], [95.0, 213.0]]})
-    write_batch(raw_root, "b1", BATCH.format(sheet="VLE", extra="") + "[[table]]" + second,
+    write_batch(raw_root, "b1", workbook_batch("VLE", "") + "[[table]]" + second,
                 {"rig.xlsx": data})
     with open_store(store_path) as s:
         result = run_ingest(s.con, [raw_root])
@@ -276,7 +269,7 @@ def test_formulas_without_a_cached_value_are_not_read_as_empty(raw_root, store_p
         sheet.append(row)
     buf = io.BytesIO()
     book.save(buf)
-    write_batch(raw_root, "b1", BATCH.format(sheet="VLE", extra=""), {"rig.xlsx": buf.getvalue()})
+    write_batch(raw_root, "b1", workbook_batch("VLE", ""), {"rig.xlsx": buf.getvalue()})
     with open_store(store_path) as s:
         result = run_ingest(s.con, [raw_root])
     assert result.batches[0].rows == (3, 2, 1)
@@ -324,19 +317,19 @@ def test_sheet_problems_refuse_the_batch_naming_sheet_and_cells(raw_root, store_
 
 def test_bytes_that_are_not_a_workbook_refuse_the_batch(raw_root, store_path):
     """A file named .xlsx that is not a workbook is refused with one clear message."""
-    write_batch(raw_root, "b1", BATCH.format(sheet="VLE", extra=""), {"rig.xlsx": SIMPLE_CSV})
+    write_batch(raw_root, "b1", workbook_batch("VLE", ""), {"rig.xlsx": SIMPLE_CSV})
     with open_store(store_path) as s:
         message = error_of(run_ingest(s.con, [raw_root]))
     assert message.startswith("b1/rig.xlsx#VLE: cannot be read as a workbook (.xlsx)")
 
 
 @pytest.mark.parametrize("manifest,key", [
-    (BATCH.format(sheet="VLE", extra="").replace('sheet = "VLE"\n', ""), "table[0]"),
-    (BATCH.format(sheet="VLE", extra='delimiter = ";"'), "table[0].delimiter"),
+    (workbook_batch("VLE", "").replace('sheet = "VLE"\n', ""), "table[0]"),
+    (workbook_batch("VLE", 'delimiter = ";"'), "table[0].delimiter"),
     (SIMPLE_BATCH.format(source="rig-a").replace('file = "vp.csv"', 'file = "vp.csv"\nsheet = "A"'),
      "table[0].sheet"),
-    (BATCH.format(sheet="VLE", extra='range = "B2"'), "table[0].range"),
-    (BATCH.format(sheet="VLE", extra="").replace("rig.xlsx", "rig.ods"), "table[0].file"),
+    (workbook_batch("VLE", 'range = "B2"'), "table[0].range"),
+    (workbook_batch("VLE", "").replace("rig.xlsx", "rig.ods"), "table[0].file"),
 ])
 def test_contract_refuses_misplaced_workbook_keys(raw_root, store_path, manifest, key):
     """batch.toml is refused, naming the key, for a workbook without sheet, CSV dialect keys on
