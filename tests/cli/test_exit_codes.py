@@ -29,9 +29,16 @@ REPO = Path(__file__).resolve().parents[2]
 CLI = [sys.executable, "-m", "pipeline.cli"]
 
 
+def _sigint_as_on_a_terminal() -> None:
+    """A job started in the background of a shell without job control ignores SIGINT, and
+    so would the command it starts; a user's Ctrl-C reaches a command whose SIGINT is not."""
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 def cli(*argv, env=None, timeout=300) -> subprocess.CompletedProcess:
     return subprocess.run([*CLI, *map(str, argv)], capture_output=True, text=True, cwd=REPO,
-                          env={**os.environ, **(env or {})}, timeout=timeout)
+                          env={**os.environ, **(env or {})}, timeout=timeout,
+                          preexec_fn=_sigint_as_on_a_terminal if os.name == "posix" else None)
 
 
 def big_csv(rows: int) -> str:
