@@ -107,11 +107,15 @@ def table_file(batch_dir: Path, name: str, label: str) -> Path:
     return resolved
 
 
-def batch_file_hashes(raw: Path, folder: Path, rel: str) -> dict[str, str] | None:
+def batch_file_hashes(raw: Path, folder: Path, rel: str,
+                      known: dict[str, str] | None = None) -> dict[str, str] | None:
     """The SHA-256 of a batch's batch.toml and table files (path relative to ``raw`` ->
     hash), read the way the ingest stage reads them; None when anything about them is odd
     (unreadable, not a regular file, malformed, a linked folder): the ingest stage then looks
-    at the batch and says why. The nightly job's pre-scan compares these with the store."""
+    at the batch and says why. The nightly job's pre-scan compares these with the store.
+
+    ``known``: the store's current hashes of the batch. When its batch.toml is unchanged,
+    it names the same tables, so those files are hashed without parsing the TOML again."""
     from pipeline.ingest.rawread import MAX_TOML_BYTES, parse_toml, read_regular
     from pipeline.ingest.workbook import table_path
 
@@ -121,6 +125,14 @@ def batch_file_hashes(raw: Path, folder: Path, rel: str) -> dict[str, str] | Non
         data = read_regular(folder / MANIFEST, f"{rel}/{MANIFEST}", limit=MAX_TOML_BYTES)
         want = {f"{rel}/{MANIFEST}": hashlib.sha256(data).hexdigest()}
         digests: dict[Path, str] = {}      # the tables of one workbook share its file
+        if known and known.get(f"{rel}/{MANIFEST}") == want[f"{rel}/{MANIFEST}"]:
+            for key in known:
+                if key != f"{rel}/{MANIFEST}":
+                    path = raw / key.split("#", 1)[0]     # a workbook table: file#sheet
+                    if path not in digests:
+                        digests[path] = hashlib.sha256(read_regular(path, str(path))).hexdigest()
+                    want[key] = digests[path]
+            return want
         for table in parse_toml(data, f"{rel}/{MANIFEST}").get("table", []):
             if not _PLAIN_NAME.fullmatch(table["file"]):
                 return None

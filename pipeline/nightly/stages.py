@@ -55,7 +55,7 @@ def prescan(con, raw: Path) -> tuple[list[Path], list[str], int]:
             continue
         rel = folder.relative_to(raw).as_posix()
         known = stored.pop(rel, None)
-        want = batch_file_hashes(raw, folder, rel)
+        want = batch_file_hashes(raw, folder, rel, known)
         if known is None or want != known:
             changed.append(folder)
         else:
