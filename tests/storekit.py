@@ -14,6 +14,10 @@ from typing import Iterable, Mapping, Sequence
 
 import tomlkit
 
+from pipeline.fitting.stage import run_fit
+from pipeline.ingest.stage import run_ingest
+from pipeline.store import open_store
+
 FLUIDS_TOML = """
 [[fluid]]
 id = "water"
@@ -104,16 +108,12 @@ def build_store(store_path: Path, raw_roots: Iterable[Path], *,
                 stages: Sequence[str] = ("ingest",), fluids_file: Path | None = None) -> Path:
     """Run the named stages (``ingest``, ``fit``) in order on the store at ``store_path``;
     return the path."""
-    from pipeline.store import open_store
-
     with open_store(store_path) as s:
         for stage in stages:
             if stage == "ingest":
-                from pipeline.ingest.stage import run_ingest
                 kw = {"fluids_file": fluids_file} if fluids_file else {}
                 run_ingest(s.con, list(raw_roots), **kw)
             elif stage == "fit":
-                from pipeline.fitting.stage import run_fit
                 run_fit(s.con)
             else:
                 raise ValueError(f"unknown stage {stage!r}")

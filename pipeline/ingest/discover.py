@@ -125,21 +125,22 @@ def batch_file_hashes(raw: Path, folder: Path, rel: str,
         data = read_regular(folder / MANIFEST, f"{rel}/{MANIFEST}", limit=MAX_TOML_BYTES)
         want = {f"{rel}/{MANIFEST}": hashlib.sha256(data).hexdigest()}
         digests: dict[Path, str] = {}      # the tables of one workbook share its file
+
+        def digest(path: Path) -> str:
+            if path not in digests:
+                digests[path] = hashlib.sha256(read_regular(path, str(path))).hexdigest()
+            return digests[path]
+
         if known and known.get(f"{rel}/{MANIFEST}") == want[f"{rel}/{MANIFEST}"]:
-            for key in known:
+            for key in known:       # a workbook table's key is file#sheet
                 if key != f"{rel}/{MANIFEST}":
-                    path = raw / key.split("#", 1)[0]     # a workbook table: file#sheet
-                    if path not in digests:
-                        digests[path] = hashlib.sha256(read_regular(path, str(path))).hexdigest()
-                    want[key] = digests[path]
+                    want[key] = digest(raw / key.split("#", 1)[0])
             return want
         for table in parse_toml(data, f"{rel}/{MANIFEST}").get("table", []):
             if not _PLAIN_NAME.fullmatch(table["file"]):
                 return None
             path = folder / table["file"]
-            if path not in digests:
-                digests[path] = hashlib.sha256(read_regular(path, str(path))).hexdigest()
-            want[table_path(path.relative_to(raw).as_posix(), table)] = digests[path]
+            want[table_path(path.relative_to(raw).as_posix(), table)] = digest(path)
     except (FluidLedgerError, OSError, ValueError, KeyError, TypeError, AttributeError):
         return None
     return want
