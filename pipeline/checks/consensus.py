@@ -14,11 +14,16 @@ weight. Designs:
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Callable
+from typing import Any, Callable, Generator, Sequence
 
 import numpy as np
 
 from pipeline.checks.stats import median
+
+try:  # the kernel np.linalg.lstsq calls (a generalised ufunc: stacks of problems in one call)
+    from numpy.linalg._umath_linalg import lstsq as _KERNEL
+except ImportError:  # pragma: no cover - another numpy: one problem at a time
+    _KERNEL = None
 
 TUKEY_C = 4.685
 ITERATIONS = 6
@@ -84,13 +89,79 @@ def _two_distinct(T: np.ndarray) -> bool:
     return T.size > 0 and T.min() != T.max()
 
 
-def _solve(A: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray | None:
+# -- least squares, one problem or many at once ---------------------------------------------------
+Request = tuple[np.ndarray, np.ndarray]     # (A (m, n), b (m,)): least squares A c = b
+Steps = Generator[list[Request], list[tuple[np.ndarray, int]], Any]
+
+
+def _lstsq(A: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, int]:
+    coef, _, rank, _ = np.linalg.lstsq(A, b, rcond=None)
+    return coef, int(rank)
+
+
+def solve_many(requests: Sequence[Request]) -> list[tuple[np.ndarray, int]]:
+    """(coefficients, rank) of ``np.linalg.lstsq(A, b, rcond=None)`` for every request.
+
+    Requests whose A have one shape go to numpy's least-squares kernel in one call (the
+    generalised ufunc ``np.linalg.lstsq`` itself calls: one LAPACK ``gelsd`` per matrix, so
+    the same numbers); any other, or all of a shape whose call fails, one by one.
+    """
+    out: list[tuple[np.ndarray, int] | None] = [None] * len(requests)
+    shapes: dict[tuple[int, int], list[int]] = {}
+    for i, (A, _) in enumerate(requests):
+        shapes.setdefault(A.shape, []).append(i)
+    for (m, n), idx in shapes.items():
+        if _KERNEL is not None and len(idx) > 1 and m > 0 and n > 0:
+            A = np.stack([requests[i][0] for i in idx]).astype(float, copy=False)
+            b = np.stack([requests[i][1] for i in idx]).astype(float, copy=False)[:, :, None]
+            try:
+                with np.errstate(invalid="raise", over="ignore", divide="ignore", under="ignore"):
+                    coef, _, rank, _ = _KERNEL(A, b, np.finfo(float).eps * max(m, n),
+                                               signature="ddd->ddid")
+            except (FloatingPointError, ValueError, TypeError):
+                pass          # one by one below: a failing problem raises as it would alone
+            else:
+                for j, i in enumerate(idx):
+                    out[i] = (coef[j, :, 0].copy(), int(rank[j]))
+                continue
+        for i in idx:
+            out[i] = _lstsq(*requests[i])
+    return out
+
+
+def run_steps(steps: Sequence[Steps]) -> list[Any]:
+    """The results of step generators run in lock-step: each yields a list of least-squares
+    requests and is sent their solutions; all requests of a round are solved together
+    (:func:`solve_many`)."""
+    results: list[Any] = [None] * len(steps)
+    pending: dict[int, list[Request]] = {}
+
+    def advance(i: int, sent) -> None:
+        try:
+            pending[i] = steps[i].send(sent)
+        except StopIteration as done:
+            results[i] = done.value
+
+    for i in range(len(steps)):
+        advance(i, None)
+    while pending:
+        asked = list(pending.items())
+        pending = {}
+        solved = solve_many([r for _, reqs in asked for r in reqs])
+        k = 0
+        for i, reqs in asked:
+            advance(i, solved[k:k + len(reqs)])
+            k += len(reqs)
+    return results
+
+
+def _solve(A: np.ndarray, y: np.ndarray, w: np.ndarray) -> Steps:
     """Weighted least squares on the rows with w > 0; None when they cannot fix the model."""
     m = w > 0
     if m.sum() < A.shape[1]:
         return None
     sw = np.sqrt(w[m])
-    coef, _, rank, _ = np.linalg.lstsq(A[m] * sw[:, None], y[m] * sw, rcond=None)
+    (coef, rank), = yield [(A[m] * sw[:, None], y[m] * sw)]
     return coef if rank == A.shape[1] else None
 
 
@@ -103,7 +174,7 @@ def weighted_fit(T: np.ndarray, y: np.ndarray, w: np.ndarray, make: DesignMaker,
     design = make(T[m], _terms(T[m]) if k is None else k)
     A = design(T[m])
     ok = np.all(np.isfinite(A), axis=1)
-    coef = _solve(A[ok], y[m][ok], w[m][ok])
+    coef = run_steps([_solve(A[ok], y[m][ok], w[m][ok])])[0]
     if coef is None:
         return None
     return Model(design, coef, float(T[m][ok].min()), float(T[m][ok].max()))
@@ -117,13 +188,13 @@ def tukey_weights(r: np.ndarray, floor: float) -> np.ndarray:
     return np.where(np.abs(q) < 1.0, (1.0 - q ** 2) ** 2, 0.0)
 
 
-def _start(T, y, files, line: DesignMaker, floor) -> np.ndarray | None:
+def _start(T, y, files, line: DesignMaker, floor) -> Steps:
     """Weights from the single-file straight line with the least median residual over all points.
 
     ``T`` and ``y`` are finite. Each file's line is ``weighted_fit(T, y, files == f, line, 1)``
     (unit weights: the same least-squares problem, without the weighting's masks and products).
     """
-    best = None
+    lines, asked = [], []
     for f in dict.fromkeys(files.tolist()):
         m = files == f
         Tf = T[m]
@@ -137,8 +208,12 @@ def _start(T, y, files, line: DesignMaker, floor) -> np.ndarray | None:
             A, yf = A[ok], yf[ok]
         if len(A) < A.shape[1]:
             continue
-        coef, _, rank, _ = np.linalg.lstsq(A, yf, rcond=None)
-        if rank != A.shape[1]:
+        lines.append((design, A.shape[1]))
+        asked.append((A, yf))
+    solved = (yield asked) if asked else []
+    best = None
+    for (design, n_coef), (coef, rank) in zip(lines, solved):
+        if rank != n_coef:
             continue
         with np.errstate(invalid="ignore", over="ignore"):
             r = design(T) @ coef - y
@@ -149,16 +224,13 @@ def _start(T, y, files, line: DesignMaker, floor) -> np.ndarray | None:
     return None if best is None else tukey_weights(best[1], floor)
 
 
-def robust_fit(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMaker,
-               line: DesignMaker, floor: float, start_w: np.ndarray | None = None):
-    """(Model of the inliers, final weights), or (None, None) when no fit is possible.
-
-    The design is built once from the starting inliers; the reweighting stops when no weight
-    changes by more than 1e-3.
-    """
+def robust_fit_steps(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMaker,
+                     line: DesignMaker, floor: float, start_w: np.ndarray | None = None) -> Steps:
+    """:func:`robust_fit` as steps (see :func:`run_steps`): many fits run together."""
     ok = np.isfinite(T) & np.isfinite(y)
     w = np.zeros(len(T))
-    start = _start(T[ok], y[ok], files[ok], line, floor) if start_w is None else start_w[ok]
+    start = (yield from _start(T[ok], y[ok], files[ok], line, floor)) if start_w is None \
+        else start_w[ok]
     if start is None:
         return None, None
     w[ok] = start
@@ -171,7 +243,7 @@ def robust_fit(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMake
     A, yy = np.where(usable[:, None], A, 0.0), np.where(usable, y, 0.0)
     w = np.where(usable, w, 0.0)
     for _ in range(ITERATIONS):
-        coef = _solve(A, yy, w)
+        coef = yield from _solve(A, yy, w)
         if coef is None:
             return None, None
         new = np.where(usable, tukey_weights(np.where(usable, A @ coef - yy, np.nan), floor), 0.0)
@@ -180,7 +252,18 @@ def robust_fit(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMake
         if done:
             break
     inliers = w > 0.5
-    coef = _solve(A, yy, np.where(inliers, w, 0.0))
+    coef = yield from _solve(A, yy, np.where(inliers, w, 0.0))
     if coef is None:
         return None, None
     return Model(design, coef, float(T[inliers].min()), float(T[inliers].max())), w
+
+
+def robust_fit(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMaker,
+               line: DesignMaker, floor: float, start_w: np.ndarray | None = None):
+    """(Model of the inliers, final weights), or (None, None) when no fit is possible.
+
+    The design is built once from the starting inliers; the reweighting stops when no weight
+    changes by more than 1e-3. Many fits at once: :func:`robust_fit_steps` and
+    :func:`run_steps` (the same numbers).
+    """
+    return run_steps([robust_fit_steps(T, y, files, make, line, floor, start_w)])[0]

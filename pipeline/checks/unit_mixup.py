@@ -24,7 +24,7 @@ from typing import Callable
 
 import numpy as np
 
-from pipeline.checks.consensus import poly_design, robust_fit, wagner_design
+from pipeline.checks.consensus import poly_design, robust_fit, robust_fit_steps, run_steps, wagner_design
 from pipeline.checks.inputs import CheckBatch, FluidData, ObsSeries
 from pipeline.checks.estimates import estimate_from_constants
 from pipeline.checks.findings import VIOLATED, WARN, Findings
@@ -250,11 +250,15 @@ def _file_rel_u(fluid: FluidData, group: ObsSeries, path: str) -> float:
     return median(rel) * model.correlated_fraction(kind)
 
 
-def _robust(fluid: FluidData, group: ObsSeries, th, start_w=None):
+def _robust_args(fluid: FluidData, group: ObsSeries, th, start_w=None) -> tuple:
     space = SPACES[group.boundary]
-    return robust_fit(group.T.astype(float), space.y(group.value.astype(float)), group.file_code,
-                      space.design(fluid), poly_design(space.x, 1),
-                      space.floor(group.value, th["rel_floor"]), start_w)
+    return (group.T.astype(float), space.y(group.value.astype(float)), group.file_code,
+            space.design(fluid), poly_design(space.x, 1), space.floor(group.value, th["rel_floor"]),
+            start_w)
+
+
+def _robust(fluid: FluidData, group: ObsSeries, th, start_w=None):
+    return robust_fit(*_robust_args(fluid, group, th, start_w))
 
 
 def _curve_of(fluid: FluidData, group: ObsSeries, weights: np.ndarray, th):
@@ -386,9 +390,10 @@ def _screen(fluid: FluidData, group: ObsSeries, pooled, pooled_w, th) -> Consens
                      th["rel_floor"])
 
 
-def _group_findings(out: Findings, fluid: FluidData, group: ObsSeries, th) -> None:
-    several = len(set(group.file_path)) > 1
-    pooled, pooled_w = _robust(fluid, group, th) if several else (None, None)
+def _group_findings(out: Findings, fluid: FluidData, group: ObsSeries, th, pooled_fit) -> None:
+    """The findings of the files of one group; ``pooled_fit`` is the robust fit of all its
+    files, (None, None) for a group of one file."""
+    pooled, pooled_w = pooled_fit
     if pooled_w is None:
         pooled_w = np.ones(len(group))
     screen = _screen(fluid, group, pooled, pooled_w, th)
@@ -437,9 +442,14 @@ def unit_mixup(batch: CheckBatch, th) -> Findings:
     twice, a gauge reading, temperatures on the old scale.
     """
     out = Findings()
-    for fluid in batch:
-        t = th(fluid.fluid_id)
-        for boundary, solid, quantity in fluid.groups():
-            if quantity == "pressure" and boundary in SPACES:
-                _group_findings(out, fluid, fluid.series(boundary, "pressure", solid), t)
+    todo = [(fluid, fluid.series(boundary, "pressure", solid), t)
+            for fluid, t in ((f, th(f.fluid_id)) for f in batch)
+            for boundary, solid, quantity in fluid.groups()
+            if quantity == "pressure" and boundary in SPACES]
+    # the pooled fits of all groups of several files, run together (the same numbers as one by one)
+    several = [i for i, (_, group, _) in enumerate(todo) if len(set(group.file_path)) > 1]
+    fits = run_steps([robust_fit_steps(*_robust_args(*todo[i])) for i in several])
+    pooled = dict(zip(several, fits))
+    for i, (fluid, group, t) in enumerate(todo):
+        _group_findings(out, fluid, group, t, pooled.get(i, (None, None)))
     return out

@@ -1,0 +1,55 @@
+"""Robust consensus fits run together give the numbers of each fit run alone."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from pipeline.checks.consensus import (poly_design, robust_fit, robust_fit_steps, run_steps,
+                                       solve_many, wagner_design)
+
+
+def _bits(a) -> np.ndarray:
+    return np.ascontiguousarray(a, dtype=float).view(np.int64)
+
+
+def test_least_squares_of_one_shape_solved_together_equal_numpy_one_by_one():
+    """Problems sharing a shape, solved in one call, give np.linalg.lstsq's coefficients and
+    rank bit for bit; a rank-deficient problem among them keeps its own rank."""
+    rng = np.random.default_rng(11)
+    requests = [(rng.normal(size=(m, n)), rng.normal(size=m))
+                for m, n in [(50, 2)] * 5 + [(135, 5)] * 4 + [(7, 3)]]
+    requests[1][0][:, 1] = requests[1][0][:, 0]          # two equal columns: rank 1
+    for (A, b), (coef, rank) in zip(requests, solve_many(requests)):
+        ref, _, ref_rank, _ = np.linalg.lstsq(A, b, rcond=None)
+        assert rank == ref_rank and np.array_equal(_bits(coef), _bits(ref))
+    assert solve_many(requests)[1][1] == 1
+
+
+def _group(rng, Tc: float, offset_file: bool):
+    """Three files of ln p on a Clapeyron-like line; one off by ln 1000 when asked."""
+    T = np.concatenate([np.linspace(0.55 * Tc, 0.98 * Tc, n) for n in (50, 45, 40)])
+    files = np.repeat([0, 1, 2], [50, 45, 40])
+    y = 20.0 - 5.0 * Tc / T + rng.normal(0, 1e-4, len(T))
+    if offset_file:
+        y[files == 2] -= np.log(1000.0)
+    return T, y, files
+
+
+def test_fits_run_together_equal_fits_run_alone():
+    """The pooled robust fits of many groups run in lock-step (Wagner and polynomial designs,
+    groups with a file off by a unit factor) equal each fit run alone, weights and
+    coefficients bit for bit; the off file ends with zero weight."""
+    rng = np.random.default_rng(5)
+    args = []
+    for i in range(12):
+        Tc = 150.0 + 10 * i
+        T, y, files = _group(rng, Tc, offset_file=i % 3 == 0)
+        make = wagner_design(Tc) if i % 2 else poly_design(lambda t: 1.0 / t)
+        args.append((T, y, files, make, poly_design(lambda t: 1.0 / t, 1), 1e-3))
+    together = run_steps([robust_fit_steps(*a) for a in args])
+    for i, (a, (model, w)) in enumerate(zip(args, together)):
+        ref_model, ref_w = robust_fit(*a)
+        assert np.array_equal(_bits(w), _bits(ref_w))
+        assert np.array_equal(_bits(model.coef), _bits(ref_model.coef))
+        if i % 3 == 0:
+            assert np.all(w[a[2] == 2] == 0.0) and np.all(w[a[2] != 2] > 0.5)
