@@ -173,7 +173,7 @@ def weighted_fit(T: np.ndarray, y: np.ndarray, w: np.ndarray, make: DesignMaker,
         return None
     design = make(T[m], _terms(T[m]) if k is None else k)
     A = design(T[m])
-    ok = np.all(np.isfinite(A), axis=1)
+    ok = np.isfinite(A).all(axis=1)
     coef = run_steps([_solve(A[ok], y[m][ok], w[m][ok])])[0]
     if coef is None:
         return None
@@ -203,7 +203,7 @@ def _start(T, y, files, line: DesignMaker, floor) -> Steps:
         design = line(Tf, 1)
         A = design(Tf)
         yf = y[m]
-        ok = np.all(np.isfinite(A), axis=1)
+        ok = np.isfinite(A).all(axis=1)
         if not ok.all():
             A, yf = A[ok], yf[ok]
         if len(A) < A.shape[1]:
@@ -224,24 +224,38 @@ def _start(T, y, files, line: DesignMaker, floor) -> Steps:
     return None if best is None else tukey_weights(best[1], floor)
 
 
-def robust_fit_steps(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMaker,
-                     line: DesignMaker, floor: float, start_w: np.ndarray | None = None) -> Steps:
-    """:func:`robust_fit` as steps (see :func:`run_steps`): many fits run together."""
+def _prepared(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMaker,
+              line: DesignMaker, floor: float, start_w: np.ndarray | None) -> Steps:
+    """Steps to the starting weights and the design: (design, A, y, w, usable) or None."""
     ok = np.isfinite(T) & np.isfinite(y)
     w = np.zeros(len(T))
     start = (yield from _start(T[ok], y[ok], files[ok], line, floor)) if start_w is None \
         else start_w[ok]
     if start is None:
-        return None, None
+        return None
     w[ok] = start
     if not _two_distinct(T[w > 0]):
-        return None, None
+        return None
     design = make(T[w > 0], _terms(T[w > 0]))
     with np.errstate(invalid="ignore", divide="ignore"):
         A = design(np.where(ok, T, np.nan))
-    usable = ok & np.all(np.isfinite(A), axis=1)
+    usable = ok & np.isfinite(A).all(axis=1)
     A, yy = np.where(usable[:, None], A, 0.0), np.where(usable, y, 0.0)
-    w = np.where(usable, w, 0.0)
+    return design, A, yy, np.where(usable, w, 0.0), usable
+
+
+def _model(design: Design, coef: np.ndarray, T: np.ndarray, w: np.ndarray) -> Model:
+    inliers = w > 0.5
+    return Model(design, coef, float(T[inliers].min()), float(T[inliers].max()))
+
+
+def robust_fit_steps(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMaker,
+                     line: DesignMaker, floor: float, start_w: np.ndarray | None = None) -> Steps:
+    """:func:`robust_fit` as steps (see :func:`run_steps`): many fits run together."""
+    prepared = yield from _prepared(T, y, files, make, line, floor, start_w)
+    if prepared is None:
+        return None, None
+    design, A, yy, w, usable = prepared
     for _ in range(ITERATIONS):
         coef = yield from _solve(A, yy, w)
         if coef is None:
@@ -251,11 +265,10 @@ def robust_fit_steps(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: Desi
         w = new
         if done:
             break
-    inliers = w > 0.5
-    coef = yield from _solve(A, yy, np.where(inliers, w, 0.0))
+    coef = yield from _solve(A, yy, np.where(w > 0.5, w, 0.0))
     if coef is None:
         return None, None
-    return Model(design, coef, float(T[inliers].min()), float(T[inliers].max())), w
+    return _model(design, coef, T, w), w
 
 
 def robust_fit(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMaker,
@@ -263,7 +276,126 @@ def robust_fit(T: np.ndarray, y: np.ndarray, files: np.ndarray, make: DesignMake
     """(Model of the inliers, final weights), or (None, None) when no fit is possible.
 
     The design is built once from the starting inliers; the reweighting stops when no weight
-    changes by more than 1e-3. Many fits at once: :func:`robust_fit_steps` and
-    :func:`run_steps` (the same numbers).
+    changes by more than 1e-3. Many fits at once: :func:`robust_fits` (the same numbers).
     """
     return run_steps([robust_fit_steps(T, y, files, make, line, floor, start_w)])[0]
+
+
+# -- many fits at once ----------------------------------------------------------------------------
+def _row_medians(V: np.ndarray, valid: np.ndarray) -> np.ndarray:
+    """The :func:`~pipeline.checks.stats.median` of each row's valid values (NaN-free; NaN for a
+    row without any): the middle of the sorted values, the middle pair summed as it sums it."""
+    S = np.sort(np.where(valid, V, np.nan), axis=1)             # NaN (the invalid) last
+    count = valid.sum(axis=1)
+    h = count // 2
+    at = np.arange(len(V))
+    upper = S[at, np.minimum(h, V.shape[1] - 1)]
+    lower = S[at, np.maximum(h - 1, 0)]
+    out = np.where(count % 2 == 1, upper, (lower + (0.0 + upper)) / 2)
+    return np.where(count > 0, out, np.nan)
+
+
+def _tukey_rows(R: np.ndarray, floor: np.ndarray) -> np.ndarray:
+    """:func:`tukey_weights` of each row of R (row i with ``floor[i]``)."""
+    fin = np.isfinite(R)
+    mad = np.where(fin.any(axis=1), 1.4826 * _row_medians(np.abs(R), fin), 0.0)
+    scale = TUKEY_C * np.maximum(mad, floor)
+    q = np.where(fin, R / scale[:, None], np.inf)
+    return np.where(np.abs(q) < 1.0, (1.0 - q ** 2) ** 2, 0.0)
+
+
+def _solve_rows(A: np.ndarray, Y: np.ndarray, W: np.ndarray) -> list[np.ndarray | None]:
+    """:func:`_solve` of each row (A (P, n, k), Y and W (P, n)): rows with every weight > 0 in
+    one call of the least-squares kernel, the others through :func:`solve_many`."""
+    k = A.shape[2]
+    out: list[np.ndarray | None] = [None] * len(A)
+    full = (W > 0).all(axis=1)
+    asked, rows = [], []
+    for i in np.flatnonzero(~full):
+        m = W[i] > 0
+        if m.sum() >= k:
+            sw = np.sqrt(W[i][m])
+            asked.append((A[i][m] * sw[:, None], Y[i][m] * sw))
+            rows.append(i)
+    whole = np.flatnonzero(full) if A.shape[1] >= k else np.zeros(0, dtype=np.intp)
+    if len(whole):
+        SW = np.sqrt(W[whole])
+        for i, (c, r) in zip(whole, _solve_stack(A[whole] * SW[:, :, None], Y[whole] * SW)):
+            out[i] = c if r == k else None
+    for i, (c, r) in zip(rows, solve_many(asked)):
+        out[i] = c if r == k else None
+    return out
+
+
+def _solve_stack(A: np.ndarray, b: np.ndarray) -> list[tuple[np.ndarray, int]]:
+    """:func:`solve_many` of the problems A[i] c = b[i], given stacked."""
+    return solve_many([(A[i], b[i]) for i in range(len(A))]) if len(A) < 2 or _KERNEL is None \
+        else _kernel_stack(A, b)
+
+
+def _kernel_stack(A: np.ndarray, b: np.ndarray) -> list[tuple[np.ndarray, int]]:
+    m, n = A.shape[1:]
+    try:
+        with np.errstate(invalid="raise", over="ignore", divide="ignore", under="ignore"):
+            coef, _, rank, _ = _KERNEL(A, b[:, :, None], np.finfo(float).eps * max(m, n),
+                                       signature="ddd->ddid")
+    except (FloatingPointError, ValueError, TypeError):
+        return [_lstsq(A[i], b[i]) for i in range(len(A))]
+    return [(coef[j, :, 0].copy(), int(rank[j])) for j in range(len(A))]
+
+
+def _reweight_rows(items: list[tuple]) -> list[tuple]:
+    """The reweighting of :func:`robust_fit_steps` for fits whose designs share one shape,
+    as rows of stacked arrays: [(Model, w) or (None, None)] in the order of ``items``
+    (each ``(design, A, y, w, usable, T, floor)``)."""
+    A = np.stack([it[1] for it in items])
+    Y = np.stack([it[2] for it in items])
+    W = np.stack([it[3] for it in items])
+    U = np.stack([it[4] for it in items])
+    floor = np.array([it[6] for it in items], dtype=float)
+    out: list[tuple] = [(None, None)] * len(items)
+    going = np.arange(len(items))
+    final: list[int] = []
+    for _ in range(ITERATIONS):
+        if not len(going):
+            break
+        coefs = _solve_rows(A[going], Y[going], W[going])
+        solved = np.array([c is not None for c in coefs], dtype=bool)
+        going = going[solved]
+        if not len(going):
+            break
+        C = np.stack([c for c in coefs if c is not None])
+        a, u = A[going], U[going]
+        with np.errstate(invalid="ignore", over="ignore"):
+            R = np.where(u, (a @ C[:, :, None])[:, :, 0] - Y[going], np.nan)
+        new = np.where(u, _tukey_rows(R, floor[going]), 0.0)
+        done = np.max(np.abs(new - W[going]), axis=1) < 1e-3
+        W[going] = new
+        final.extend(going[done].tolist())
+        going = going[~done]
+    final.extend(going.tolist())
+    final = sorted(final)
+    if final:
+        idx = np.array(final)
+        Wf = W[idx]
+        for i, coef in zip(final, _solve_rows(A[idx], Y[idx], np.where(Wf > 0.5, Wf, 0.0))):
+            if coef is not None:
+                out[i] = (_model(items[i][0], coef, items[i][5], W[i]), W[i].copy())
+    return out
+
+
+def robust_fits(problems: Sequence[tuple]) -> list[tuple]:
+    """``robust_fit(*p)`` of every problem ``p`` (the arguments of :func:`robust_fit`), the same
+    numbers, all at once: the starting fits in lock-step (:func:`run_steps`), the reweighting
+    of fits whose designs share one shape as rows of stacked arrays."""
+    prepared = run_steps([_prepared(*p) if len(p) == 7 else _prepared(*p, None) for p in problems])
+    out: list[tuple] = [(None, None)] * len(problems)
+    shapes: dict[tuple[int, int], list[int]] = {}
+    for i, prep in enumerate(prepared):
+        if prep is not None:
+            shapes.setdefault(prep[1].shape, []).append(i)
+    for idx in shapes.values():
+        items = [prepared[i] + (problems[i][0], problems[i][5]) for i in idx]
+        for i, found in zip(idx, _reweight_rows(items)):
+            out[i] = found
+    return out

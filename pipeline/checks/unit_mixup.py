@@ -24,7 +24,7 @@ from typing import Callable
 
 import numpy as np
 
-from pipeline.checks.consensus import poly_design, robust_fit, robust_fit_steps, run_steps, wagner_design
+from pipeline.checks.consensus import poly_design, robust_fit, robust_fits, wagner_design
 from pipeline.checks.inputs import CheckBatch, FluidData, ObsSeries
 from pipeline.checks.estimates import estimate_from_constants
 from pipeline.checks.findings import VIOLATED, WARN, Findings
@@ -320,15 +320,16 @@ def _median_z(cons: Consensus, T, p, rel_u, th) -> tuple[float, float]:
     with np.errstate(invalid="ignore", divide="ignore"):
         r = np.log(p) - np.log(cons.curve(T))
     ok = np.isfinite(r)
-    if not ok.any() or ok.mean() < th["min_coverage"]:
-        return math.inf, float(ok.mean())
+    share = _share(ok)
+    if not ok.any() or share < th["min_coverage"]:
+        return math.inf, share
     z = r[ok] / np.sqrt(rel_u[ok] ** 2 + cons.floor ** 2)
     stat = abs(median(z))
     n_low = max(int(th["min_points"]), len(z) // 3)
     if cons.floor >= th["estimate_rel_floor"] and len(z) >= 2 * n_low:
         low = z[np.argsort(p[ok], kind="stable")[:n_low]]
         stat = max(stat, abs(median(low)))
-    return stat, float(ok.mean())
+    return stat, share
 
 
 def _scores(cons: Consensus, s: ObsSeries, rel_u, th) -> list[tuple[float, str]]:
@@ -340,8 +341,19 @@ def _scores(cons: Consensus, s: ObsSeries, rel_u, th) -> list[tuple[float, str]]
     return sorted(out)
 
 
+def _share(ok: np.ndarray) -> float:
+    """``float(ok.mean())`` (the same number: an exact count over the size, NaN when empty)."""
+    return np.count_nonzero(ok) / ok.size if ok.size else math.nan
+
+
 def _rel_u(s: ObsSeries) -> np.ndarray:
-    return np.nan_to_num(np.abs(s.u_value_si / s.value))
+    """|u / value|, 0 where NaN (``np.nan_to_num`` of it, without its generic overhead)."""
+    rel = np.abs(s.u_value_si / s.value)
+    if rel.dtype != np.float64:
+        return np.nan_to_num(rel)
+    rel[np.isnan(rel)] = 0.0
+    rel[rel == np.inf] = np.finfo(np.float64).max
+    return rel
 
 
 def _diagnose(out: Findings, fluid: FluidData, s: ObsSeries, subject: str, path: str,
@@ -448,7 +460,7 @@ def unit_mixup(batch: CheckBatch, th) -> Findings:
             if quantity == "pressure" and boundary in SPACES]
     # the pooled fits of all groups of several files, run together (the same numbers as one by one)
     several = [i for i, (_, group, _) in enumerate(todo) if len(set(group.file_path)) > 1]
-    fits = run_steps([robust_fit_steps(*_robust_args(*todo[i])) for i in several])
+    fits = robust_fits([_robust_args(*todo[i]) for i in several])
     pooled = dict(zip(several, fits))
     for i, (fluid, group, t) in enumerate(todo):
         _group_findings(out, fluid, group, t, pooled.get(i, (None, None)))

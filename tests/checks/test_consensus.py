@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from pipeline.checks.consensus import (poly_design, robust_fit, robust_fit_steps, run_steps,
+from pipeline.checks.consensus import (poly_design, robust_fit, robust_fit_steps, robust_fits, run_steps,
                                        solve_many, wagner_design)
 
 
@@ -53,3 +53,30 @@ def test_fits_run_together_equal_fits_run_alone():
         assert np.array_equal(_bits(model.coef), _bits(ref_model.coef))
         if i % 3 == 0:
             assert np.all(w[a[2] == 2] == 0.0) and np.all(w[a[2] != 2] > 0.5)
+
+
+def test_fits_as_stacked_rows_equal_fits_run_alone():
+    """robust_fits (the reweighting of fits of one design shape as rows of stacked arrays) gives
+    each fit's own model and weights bit for bit, a fit that cannot be made included."""
+    rng = np.random.default_rng(9)
+    problems = []
+    for i in range(10):
+        Tc = 140.0 + 13 * i
+        T, y, files = _group(rng, Tc, offset_file=i % 4 == 1)
+        if i == 3:
+            y[::7] = np.nan                           # missing values: fewer usable rows
+        problems.append((T, y, files, wagner_design(Tc) if i % 2 else poly_design(lambda t: 1.0 / t),
+                         poly_design(lambda t: 1.0 / t, 1), 2e-3, None))
+    T1 = np.full(6, 120.0)                            # one temperature: no fit at all
+    problems.append((T1, np.linspace(1, 2, 6), np.zeros(6, dtype=int), wagner_design(150.0),
+                     poly_design(lambda t: 1.0 / t, 1), 1e-3, None))
+    for args, (model, w) in zip(problems, robust_fits(problems)):
+        ref_model, ref_w = robust_fit(*args)
+        if ref_model is None:
+            assert model is None and w is None
+            continue
+        assert np.array_equal(_bits(w), _bits(ref_w))
+        assert np.array_equal(_bits(model.coef), _bits(ref_model.coef))
+        assert (model.T_min_K, model.T_max_K) == (ref_model.T_min_K, ref_model.T_max_K)
+        T = np.linspace(model.T_min_K, model.T_max_K, 9)
+        assert np.array_equal(_bits(model(T)), _bits(ref_model(T)))
