@@ -384,10 +384,14 @@ def _reweight_rows(items: list[tuple]) -> list[tuple]:
     return out
 
 
-def robust_fits(problems: Sequence[tuple]) -> list[tuple]:
+def robust_fits(problems: Sequence[tuple], designs: bool = False) -> list[tuple]:
     """``robust_fit(*p)`` of every problem ``p`` (the arguments of :func:`robust_fit`), the same
     numbers, all at once: the starting fits in lock-step (:func:`run_steps`), the reweighting
-    of fits whose designs share one shape as rows of stacked arrays."""
+    of fits whose designs share one shape as rows of stacked arrays.
+
+    ``designs=True`` adds to each result the design matrix at the problem's temperatures and
+    the rows where it is usable (None, None when no fit was made): the model's design there,
+    for evaluating the model at those temperatures without building it again."""
     prepared = run_steps([_prepared(*p) if len(p) == 7 else _prepared(*p, None) for p in problems])
     out: list[tuple] = [(None, None)] * len(problems)
     shapes: dict[tuple[int, int], list[int]] = {}
@@ -398,4 +402,7 @@ def robust_fits(problems: Sequence[tuple]) -> list[tuple]:
         items = [prepared[i] + (problems[i][0], problems[i][5]) for i in idx]
         for i, found in zip(idx, _reweight_rows(items)):
             out[i] = found
+    if designs:
+        return [fit + ((prep[1], prep[4]) if prep is not None and fit[0] is not None else (None, None))
+                for fit, prep in zip(out, prepared)]
     return out

@@ -24,7 +24,7 @@ from typing import Callable
 
 import numpy as np
 
-from pipeline.checks.consensus import poly_design, robust_fit, robust_fits, wagner_design
+from pipeline.checks.consensus import _row_medians, poly_design, robust_fit, robust_fits, wagner_design
 from pipeline.checks.inputs import CheckBatch, FluidData, ObsSeries
 from pipeline.checks.estimates import estimate_from_constants
 from pipeline.checks.findings import VIOLATED, WARN, Findings
@@ -402,29 +402,111 @@ def _screen(fluid: FluidData, group: ObsSeries, pooled, pooled_w, th) -> Consens
                      th["rel_floor"])
 
 
-def _group_findings(out: Findings, fluid: FluidData, group: ObsSeries, th, pooled_fit) -> None:
-    """The findings of the files of one group; ``pooled_fit`` is the robust fit of all its
-    files, (None, None) for a group of one file."""
-    pooled, pooled_w = pooled_fit
+def _files(group: ObsSeries) -> dict[str, tuple[ObsSeries, np.ndarray]]:
+    """:meth:`ObsSeries.by_file`, with each file's rows in the group."""
+    paths, codes = group.columns["file_path"], group.columns["file_code"]
+    out = {}
+    for code in dict.fromkeys(codes.tolist()):
+        rows = np.flatnonzero(codes == code)
+        out[paths[rows[0]]] = (group.take(rows), rows)
+    return out
+
+
+@dataclass
+class _File:
+    """One file of a group on its way to a finding."""
+
+    fluid: FluidData
+    group: ObsSeries
+    th: dict
+    path: str
+    series: ObsSeries
+    subject: str
+    rel_u: np.ndarray | None = None          # None: too few points (a skip)
+    scored: tuple[float, float] | None = None   # against the pooled fit, when screened
+    screen: Consensus | None = None
+    pooled_w: np.ndarray | None = None
+    pooled_model: object = None              # the pooled fit (a consensus Model), when screened
+    design: np.ndarray | None = None         # the pooled model's design at the file's rows
+
+
+def _plan(fluid: FluidData, group: ObsSeries, th, fit) -> list[_File]:
+    """The files of one group; ``fit`` is the robust fit of all its files with its design
+    (:func:`~pipeline.checks.consensus.robust_fits`), Nones for a group of one file."""
+    pooled, pooled_w, A, usable = fit
     if pooled_w is None:
         pooled_w = np.ones(len(group))
     screen = _screen(fluid, group, pooled, pooled_w, th)
-    for path, s in group.by_file().items():
+    out = []
+    for path, (s, rows) in _files(group).items():
         subject = f"file:{path}|{group.boundary}" + (f":{group.solid_phase}" if group.solid_phase else "")
-        if len(s) < th["min_points"]:
-            out.skip(fluid.fluid_id, subject, f"{len(s)} points: too few to diagnose")
+        f = _File(fluid, group, th, path, s, subject, pooled_w=pooled_w)
+        if len(s) >= th["min_points"]:
+            f.rel_u, f.screen = _rel_u(s), screen
+            if screen is not None and A is not None and usable[rows].all():
+                f.design, f.pooled_model = A[rows], pooled
+        out.append(f)
+    return out
+
+
+def _screen_scores(files: list[_File]) -> None:
+    """:func:`_median_z` of every screened file against its pooled fit, files whose design
+    matrices share a shape (and consensus space) stacked as rows: the same numbers (the model's
+    design rows as the fit built them, one product per file of the same shape, elementwise
+    arithmetic, each row's median). Files the shortcut does not cover are scored one by one."""
+    classes: dict[tuple, list[_File]] = {}
+    for f in files:
+        if f.screen is None:
             continue
-        rel_u = _rel_u(s)
-        if screen is not None:
-            scored = _median_z(screen, s.T, s.value, rel_u, th)
-            if scored[0] <= th["z_max"]:
-                _diagnose(out, fluid, s, subject, path, screen, th, rel_u, scored)
-                continue
-        cons, reason = _consensus(fluid, group, path, pooled_w, th)
-        if cons is None:
-            out.skip(fluid.fluid_id, subject, reason)
-            continue
-        _diagnose(out, fluid, s, subject, path, cons, th, rel_u)
+        low = f.screen.floor >= f.th["estimate_rel_floor"]      # the low-pressure rule: one by one
+        if f.design is None or low:
+            f.scored = _median_z(f.screen, f.series.T, f.series.value, f.rel_u, f.th)
+        else:
+            key = (f.design.shape, SPACES[f.group.boundary].log, f.th["min_coverage"])
+            classes.setdefault(key, []).append(f)
+    for (_, log, min_coverage), group in classes.items():
+        A = np.stack([f.design for f in group])
+        C = np.stack([f.pooled_model.coef for f in group])[:, :, None]
+        T = np.stack([np.asarray(f.series.T, dtype=float) for f in group])
+        p = np.stack([f.series.value for f in group])
+        lo = np.array([f.pooled_model.T_min_K for f in group])[:, None]
+        hi = np.array([f.pooled_model.T_max_K for f in group])[:, None]
+        with np.errstate(invalid="ignore", over="ignore"):
+            y = np.where((T >= lo) & (T <= hi), (A @ C)[:, :, 0], np.nan)
+        with np.errstate(over="ignore"):
+            curve = np.exp(y) if log else y
+        with np.errstate(invalid="ignore", divide="ignore"):
+            r = np.log(p) - np.log(curve)
+        ok = np.isfinite(r)
+        U = np.stack([f.rel_u for f in group])
+        f2 = np.array([f.screen.floor ** 2 for f in group])[:, None]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            z = np.where(ok, r / np.sqrt(U ** 2 + f2), np.nan)
+        stat = np.abs(_row_medians(z, ok))
+        share = ok.sum(axis=1) / ok.shape[1]
+        for i, f in enumerate(group):
+            if np.isnan(z[i][ok[i]]).any():                    # a NaN z: as the one-file code
+                f.scored = _median_z(f.screen, f.series.T, f.series.value, f.rel_u, f.th)
+            elif not ok[i].any() or share[i] < min_coverage:
+                f.scored = (math.inf, float(share[i]))
+            else:
+                f.scored = (float(stat[i]), float(share[i]))
+
+
+def _emit(out: Findings, f: _File) -> None:
+    """The finding of one planned file (its screen score known)."""
+    fluid, th, s = f.fluid, f.th, f.series
+    if f.rel_u is None:
+        out.skip(fluid.fluid_id, f.subject, f"{len(s)} points: too few to diagnose")
+        return
+    if f.scored is not None and f.scored[0] <= th["z_max"]:
+        _diagnose(out, fluid, s, f.subject, f.path, f.screen, th, f.rel_u, f.scored)
+        return
+    cons, reason = _consensus(fluid, f.group, f.path, f.pooled_w, th)
+    if cons is None:
+        out.skip(fluid.fluid_id, f.subject, reason)
+        return
+    _diagnose(out, fluid, s, f.subject, f.path, cons, th, f.rel_u)
 
 
 @register_check("data.unit-mixup", tags=("data", "units", "sources"), vectorised=True,
@@ -460,8 +542,11 @@ def unit_mixup(batch: CheckBatch, th) -> Findings:
             if quantity == "pressure" and boundary in SPACES]
     # the pooled fits of all groups of several files, run together (the same numbers as one by one)
     several = [i for i, (_, group, _) in enumerate(todo) if len(set(group.file_path)) > 1]
-    fits = robust_fits([_robust_args(*todo[i]) for i in several])
+    fits = robust_fits([_robust_args(*todo[i]) for i in several], designs=True)
     pooled = dict(zip(several, fits))
-    for i, (fluid, group, t) in enumerate(todo):
-        _group_findings(out, fluid, group, t, pooled.get(i, (None, None)))
+    files = [f for i, (fluid, group, t) in enumerate(todo)
+             for f in _plan(fluid, group, t, pooled.get(i, (None, None, None, None)))]
+    _screen_scores(files)       # every screened file against its group's pooled fit, together
+    for f in files:
+        _emit(out, f)
     return out
