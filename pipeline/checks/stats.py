@@ -170,3 +170,30 @@ def linear_fit(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     s2 = float(np.sum((y - A @ params) ** 2) / dof)
     cov = s2 * np.linalg.inv(A.T @ A)
     return params, cov
+
+
+def linear_fits(xs: list[np.ndarray], ys: list[np.ndarray]) -> list[tuple[np.ndarray, np.ndarray]]:
+    """:func:`linear_fit` of every pair (x, y), the same numbers: pairs of one length are
+    stacked and solved together (numpy's least-squares kernel, one LAPACK call per matrix;
+    each row's residuals summed over that row alone; one inverse per matrix)."""
+    from pipeline.checks.consensus import solve_many
+
+    out: list[tuple[np.ndarray, np.ndarray] | None] = [None] * len(xs)
+    lengths: dict[int, list[int]] = {}
+    for i, x in enumerate(xs):
+        lengths.setdefault(len(x), []).append(i)
+    for n, idx in lengths.items():
+        if len(idx) < 2 or n < 2:
+            for i in idx:
+                out[i] = linear_fit(xs[i], ys[i])
+            continue
+        X = np.stack([np.asarray(xs[i], dtype=float) for i in idx])
+        Y = np.stack([np.asarray(ys[i], dtype=float) for i in idx])
+        A = np.stack([np.ones_like(X), X], axis=2)
+        params = np.stack([c for c, _ in solve_many([(A[j], Y[j]) for j in range(len(idx))])])
+        dof = max(n - 2, 1)
+        s2 = np.sum((Y - (A @ params[:, :, None])[:, :, 0]) ** 2, axis=1) / dof
+        cov = s2[:, None, None] * np.linalg.inv(A.transpose(0, 2, 1) @ A)
+        for j, i in enumerate(idx):
+            out[i] = (params[j], cov[j])
+    return out
