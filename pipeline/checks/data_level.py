@@ -17,7 +17,7 @@ import pandas as pd
 
 from pipeline.checks.curves import curves_at
 from pipeline.checks.file_trends import file_residuals
-from pipeline.checks.inputs import CheckBatch, Stacked
+from pipeline.checks.inputs import CheckBatch, Stacked, _Rows
 from pipeline.checks.findings import Findings
 from pipeline.checks.physics import curve_label
 from pipeline.checks.registry import register_check
@@ -66,8 +66,8 @@ def _segments(st: Stacked, rows: np.ndarray, keys: list[str], order: list[str] =
     sort_keys = [st[c][rows] for c in reversed(list(order))] + [g]
     idx = np.lexsort(sort_keys) if order else np.argsort(g, kind="stable")
     ordered = rows[idx]
-    cols = {c: st[c][ordered] for c in _COLUMNS}
-    cols.update({c: v[ordered] for c, v in (extra or {}).items()})
+    # each column taken in the sorted order on first use (a check reads a few of them)
+    cols = _Rows({**{c: st[c] for c in _COLUMNS}, **(extra or {})}, ordered)
     g = g[idx]
     starts = np.flatnonzero(np.r_[True, g[1:] != g[:-1]]) if len(g) else np.zeros(0, dtype=int)
     return cols, Codes(st, ordered), g, starts, np.r_[starts[1:], len(g)].astype(int)
