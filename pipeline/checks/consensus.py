@@ -40,9 +40,13 @@ def wagner_design(Tc: float) -> DesignMaker:
         exps = WAGNER_EXPONENTS[:max(1, min(k, len(WAGNER_EXPONENTS)))]
 
         def design(T: np.ndarray) -> np.ndarray:
+            out = np.empty((len(T), len(exps) + 1))   # the columns np.column_stack would join
+            out[:, 0] = 1.0
             with np.errstate(invalid="ignore", divide="ignore"):
                 tau = 1.0 - T / Tc
-                return np.column_stack([np.ones_like(T)] + [Tc / T * tau ** e for e in exps])
+                for j, e in enumerate(exps, start=1):
+                    out[:, j] = Tc / T * tau ** e
+            return out
         return design
     return make
 
@@ -51,10 +55,22 @@ def poly_design(x: Callable[[np.ndarray], np.ndarray], max_degree: int = MAX_POL
     """Designs [1, s, ..., s^k] with s = x(T) scaled to the fitted points' range."""
     def make(T: np.ndarray, k: int) -> Design:
         xs = x(T)
-        centre, scale = float(np.mean(xs)), float(np.ptp(xs)) or 1.0
+        # np.mean and np.ptp, without their generic wrappers: the same sum, count and extremes
+        centre, scale = float(xs.sum() / xs.size), float(xs.max() - xs.min()) or 1.0
         degree = max(1, min(k, max_degree))
-        return lambda T: np.vander((x(T) - centre) / scale, degree + 1, increasing=True)
+        return lambda T: _powers((x(T) - centre) / scale, degree)
     return make
+
+
+def _powers(s: np.ndarray, degree: int) -> np.ndarray:
+    """``np.vander(s, degree + 1, increasing=True)``: columns 1, s, s*s, ... (each the last
+    times s, as vander's running product makes them)."""
+    out = np.empty((len(s), degree + 1))
+    out[:, 0] = 1.0
+    out[:, 1] = s
+    for j in range(2, degree + 1):
+        np.multiply(out[:, j - 1], s, out=out[:, j])
+    return out
 
 
 @dataclass(frozen=True)

@@ -80,3 +80,20 @@ def test_fits_as_stacked_rows_equal_fits_run_alone():
         assert (model.T_min_K, model.T_max_K) == (ref_model.T_min_K, ref_model.T_max_K)
         T = np.linspace(model.T_min_K, model.T_max_K, 9)
         assert np.array_equal(_bits(model(T)), _bits(ref_model(T)))
+
+
+def test_design_columns_are_those_numpy_builds():
+    """The polynomial design's columns equal np.vander's (increasing powers, the running
+    product) and the Wagner design's equal the column_stack of its terms, bit for bit."""
+    from pipeline.checks.consensus import WAGNER_EXPONENTS, _powers
+
+    s = np.random.default_rng(2).normal(size=37)
+    for degree in (1, 2, 3):
+        assert np.array_equal(_bits(_powers(s, degree)), _bits(np.vander(s, degree + 1, increasing=True)))
+    T, Tc = np.linspace(90.0, 200.0, 23), 190.0
+    with np.errstate(invalid="ignore"):
+        tau = 1.0 - T / Tc
+        expected = np.column_stack([np.ones_like(T)] + [Tc / T * tau ** e for e in WAGNER_EXPONENTS[:5]])
+    got = wagner_design(Tc)(T, 5)(T)
+    assert np.array_equal(np.isnan(got), np.isnan(expected))
+    assert np.array_equal(_bits(np.nan_to_num(got)), _bits(np.nan_to_num(expected)))
