@@ -251,34 +251,52 @@ def ranges(batch: CheckBatch, th) -> Findings:
     return out
 
 
-def _budget_u(fluid, cols: dict, codes: Codes, lo: int, hi: int, fitted: np.ndarray,
-              slope: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(r, u_rel) of rows lo:hi (one fitted group of ``fluid``).
+def _budget_u(batch: CheckBatch, cols: dict, codes: Codes, groups: list[tuple[int, int]],
+              values: list, slopes: list) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(rows, r, u_rel) of the fitted groups ``groups`` (start, end), all at once.
 
     r = value / fit − 1 (relative residual about the fitted curve); u = the point's stated
     relative u, else the budget's default for its source kind, combined with the budget's
-    absolute pressure floor; a temperature uncertainty moves the point along the curve:
-    u_eff^2 = u^2 + (dy/dT u_T)^2.
+    absolute pressure floor (of its fluid's budget, for the group's quantity); a temperature
+    uncertainty moves the point along the curve: u_eff^2 = u^2 + (dy/dT u_T)^2 (in the groups
+    where any point states u_T).
     """
-    y = cols["value_si"][lo:hi].astype(float)
+    sizes = np.array([b - a for a, b in groups], dtype=np.intp)
+    rows = np.concatenate([np.arange(a, b) for a, b in groups]) if groups else np.zeros(0, dtype=np.intp)
+    group = np.repeat(np.arange(len(groups)), sizes)
+    y = cols["value_si"][rows].astype(float)
     with np.errstate(invalid="ignore", divide="ignore"):
-        r = y / fitted - 1.0
-    model = fluid.budget.uncertainty
-    u = cols["u_value_si"][lo:hi].astype(float)
-    kinds = codes.of("source_kind")[lo:hi]
+        r = y / np.concatenate(values) - 1.0 if groups else np.zeros(0)
+    # the budget's defaults, one pair per (fluid's model, quantity, source kind)
+    of_group: dict[tuple[int, str], int] = {}
+    pairs, mq = [], []
+    for a, _ in groups:
+        model = batch.fluids[cols["fluid_id"][a]].budget.uncertainty
+        quantity = str(cols["quantity"][a])
+        k = of_group.setdefault((id(model), quantity), len(pairs))
+        if k == len(pairs):
+            pairs.append((model, quantity))
+        mq.append(k)
+    kinds = codes.of("source_kind")[rows]
     kind_names = codes.stacked.codes("source_kind")[1]
-    quantity = str(cols["quantity"][lo])
-    for code in np.unique(kinds):
-        m = kinds == code
+    key = np.asarray(mq, dtype=np.int64)[group] * (len(kind_names) + 1) + (kinds + 1)
+    combos, inverse = np.unique(key, return_inverse=True)
+    rel, floor = np.empty(len(combos)), np.empty(len(combos))
+    for j, c in enumerate(combos.tolist()):
+        model, quantity = pairs[c // (len(kind_names) + 1)]
+        code = c % (len(kind_names) + 1) - 1
         kind = kind_names[code] if code >= 0 else None
-        default = model.observed_rel(quantity, kind) * np.abs(y[m])
-        u[m] = np.hypot(np.where(np.isfinite(u[m]) & (u[m] > 0), u[m], default),
-                        model.observed_abs(quantity, kind))
-    u_T = np.nan_to_num(cols["u_T_K"][lo:hi].astype(float))
-    if u_T.any():
-        u = np.hypot(u, np.nan_to_num(slope) * u_T)
+        rel[j], floor[j] = model.observed_rel(quantity, kind), model.observed_abs(quantity, kind)
+    u = cols["u_value_si"][rows].astype(float)
+    u = np.hypot(np.where(np.isfinite(u) & (u > 0), u, rel[inverse] * np.abs(y)), floor[inverse])
+    u_T = np.nan_to_num(cols["u_T_K"][rows].astype(float))
+    stated = (np.logical_or.reduceat(u_T != 0, np.r_[0, np.cumsum(sizes)[:-1]])[group]
+              if len(rows) else np.zeros(0, dtype=bool))
+    if stated.any():
+        slope = np.nan_to_num(np.concatenate(slopes))
+        u = np.where(stated, np.hypot(u, slope * u_T), u)
     with np.errstate(invalid="ignore", divide="ignore"):
-        return r, u / np.abs(y)
+        return rows, r, u / np.abs(y)
 
 
 def _budget_z(batch: CheckBatch, th, cols: dict, codes: Codes, starts, ends, values, slopes,
@@ -295,13 +313,12 @@ def _budget_z(batch: CheckBatch, th, cols: dict, codes: Codes, starts, ends, val
     r, u_rel = np.full(n, np.nan), np.full(n, np.nan)
     fitted = np.zeros(n, dtype=bool)
     min_points = np.zeros(n, dtype=np.int64)
-    for a, b, v, sl in zip(starts, ends, values, slopes):
-        if v is None:
-            continue
-        fid = cols["fluid_id"][a]
-        r[a:b], u_rel[a:b] = _budget_u(batch.fluids[fid], cols, codes, a, b, v, sl)
-        fitted[a:b] = True
-        min_points[a:b] = int(th(fid)["min_file_points"])
+    have = [k for k, v in enumerate(values) if v is not None]
+    at, r_fit, u_fit = _budget_u(batch, cols, codes, [(int(starts[k]), int(ends[k])) for k in have],
+                                 [values[k] for k in have], [slopes[k] for k in have])
+    r[at], u_rel[at], fitted[at] = r_fit, u_fit, True
+    for k in have:
+        min_points[starts[k]:ends[k]] = int(th(cols["fluid_id"][starts[k]])["min_file_points"])
     usable = fitted & np.isfinite(r) & np.isfinite(u_rel) & (u_rel > 0)
     # the usable rows of each (group, file), in row order
     group = np.repeat(np.arange(len(starts)), np.asarray(ends) - np.asarray(starts))
