@@ -30,7 +30,7 @@ from pipeline.checks.estimates import estimate_from_constants
 from pipeline.checks.findings import VIOLATED, WARN, Findings
 from pipeline.checks.points import SOURCE_RANK
 from pipeline.checks.registry import register_check
-from pipeline.checks.stats import median
+from pipeline.checks.stats import median, polyfit_lines
 
 #: pressure units and their size in Pa (the candidates of a factor mix-up)
 PRESSURE_UNITS_PA = {"Pa": 1.0, "hPa": 100.0, "kPa": 1e3, "bar": 1e5, "MPa": 1e6,
@@ -207,7 +207,36 @@ def _anchors(fluid: FluidData, s: ObsSeries) -> list[tuple[str, float, float]]:
     return [a for a in out if math.isfinite(a[1]) and math.isfinite(a[2]) and a[2] > 0]
 
 
-def _anchored(fluid: FluidData, s: ObsSeries, th) -> Consensus | None:
+def _anchor_line(s: ObsSeries, th) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """(1/T, ln p, T) of the file's usable points, or None when too few for a line."""
+    T, p = s.T.astype(float), s.value.astype(float)
+    ok = np.isfinite(T) & np.isfinite(p) & (p > 0) & (T > 0)
+    if ok.sum() < th["min_points"] or np.ptp(T[ok]) == 0:
+        return None
+    return 1.0 / T[ok], np.log(p[ok]), T[ok]
+
+
+def _anchor_lines(files: list) -> dict:
+    """The Clausius-Clapeyron line of every file alone in a vapour or sublimation group (the
+    files the anchored consensus reads), all at once (:func:`~pipeline.checks.stats.polyfit_lines`):
+    (fluid, boundary, solid phase, path) -> (slope, intercept, points)."""
+    keys, xs, ys = [], [], []
+    for f in files:
+        if f.rel_u is None or f.group.boundary not in ("liquid-vapour", "solid-vapour") \
+                or len(f.series) != len(f.group):
+            continue
+        line = _anchor_line(f.series, f.th)
+        if line is not None:
+            keys.append((id(f.fluid), f.group.boundary, f.group.solid_phase, str(f.path), len(line[0])))
+            xs.append(line[0])
+            ys.append(line[1])
+    try:
+        return dict(zip(keys, polyfit_lines(xs, ys)))
+    except Exception:   # noqa: BLE001 - a file whose line fails fails alone, in _anchored
+        return {}
+
+
+def _anchored(fluid: FluidData, s: ObsSeries, th, lines: dict | None = None) -> Consensus | None:
     """The file's own shape shifted through a stated point that ends its curve.
 
     A straight line in (1/T, ln p) through the file's points (Clausius-Clapeyron), evaluated at
@@ -216,13 +245,14 @@ def _anchored(fluid: FluidData, s: ObsSeries, th) -> Consensus | None:
     offset of the file from it.
     """
     anchors = _anchors(fluid, s)
-    T, p = s.T.astype(float), s.value.astype(float)
-    ok = np.isfinite(T) & np.isfinite(p) & (p > 0) & (T > 0)
-    if not anchors or ok.sum() < th["min_points"] or np.ptp(T[ok]) == 0:
+    line = _anchor_line(s, th) if anchors else None
+    if line is None:
         return None
     policy = fluid.budget.extrapolation
-    b, a = np.polyfit(1.0 / T[ok], np.log(p[ok]), 1)
-    lo, hi = float(T[ok].min()), float(T[ok].max())
+    key = (id(fluid), s.boundary, s.solid_phase, str(s.file_path[0]), len(line[0]))
+    found = (lines or {}).get(key)
+    b, a = found if found is not None else np.polyfit(line[0], line[1], 1)
+    lo, hi = float(line[2].min()), float(line[2].max())
     for name, T_a, p_a in anchors:
         if max(lo - T_a, T_a - hi, 0.0) > policy.allowed(T_a):
             continue
@@ -270,7 +300,7 @@ def _curve_of(fluid: FluidData, group: ObsSeries, weights: np.ndarray, th):
     return lambda T: back(model(T))
 
 
-def _consensus(fluid: FluidData, group: ObsSeries, path: str, pooled_w, th):
+def _consensus(fluid: FluidData, group: ObsSeries, path: str, pooled_w, th, lines=None):
     """(Consensus, None) for the file at ``path``, or (None, reason).
 
     In order: the robust fit of two or more other files; the reference equation (matched by
@@ -301,10 +331,9 @@ def _consensus(fluid: FluidData, group: ObsSeries, path: str, pooled_w, th):
             return Consensus(cons, f"the other file {other}",
                              math.hypot(th["rel_floor"], _file_rel_u(fluid, group, other))), None
     own = group.take(np.flatnonzero(~others))
-    for make in (_estimate, _anchored):
-        cons = make(fluid, own, th)
-        if cons is not None:
-            return cons, None
+    cons = _estimate(fluid, own, th) or _anchored(fluid, own, th, lines)
+    if cons is not None:
+        return cons, None
     return None, ("no other file, reference equation or stated constants (Tc and pc with ω, "
                   "a normal boiling point or a triple point) to compare with")
 
@@ -493,7 +522,7 @@ def _screen_scores(files: list[_File]) -> None:
                 f.scored = (float(stat[i]), float(share[i]))
 
 
-def _emit(out: Findings, f: _File) -> None:
+def _emit(out: Findings, f: _File, lines: dict | None = None) -> None:
     """The finding of one planned file (its screen score known)."""
     fluid, th, s = f.fluid, f.th, f.series
     if f.rel_u is None:
@@ -502,7 +531,7 @@ def _emit(out: Findings, f: _File) -> None:
     if f.scored is not None and f.scored[0] <= th["z_max"]:
         _diagnose(out, fluid, s, f.subject, f.path, f.screen, th, f.rel_u, f.scored)
         return
-    cons, reason = _consensus(fluid, f.group, f.path, f.pooled_w, th)
+    cons, reason = _consensus(fluid, f.group, f.path, f.pooled_w, th, lines)
     if cons is None:
         out.skip(fluid.fluid_id, f.subject, reason)
         return
@@ -547,6 +576,7 @@ def unit_mixup(batch: CheckBatch, th) -> Findings:
     files = [f for i, (fluid, group, t) in enumerate(todo)
              for f in _plan(fluid, group, t, pooled.get(i, (None, None, None, None)))]
     _screen_scores(files)       # every screened file against its group's pooled fit, together
+    lines = _anchor_lines(files)  # the lines of files alone in their group, together
     for f in files:
-        _emit(out, f)
+        _emit(out, f, lines)
     return out

@@ -28,3 +28,18 @@ def test_a_line_through_exact_points_has_its_slope_and_no_scatter():
     (a, b), cov = linear_fits([x, x], [1 + 2 * x, 1 + 2 * x])[0]
     assert (a, b) == (pytest.approx(1.0), pytest.approx(2.0))
     assert np.allclose(cov, 0.0, atol=1e-20)
+
+
+def test_polyfit_lines_together_equal_numpy_polyfit_alone():
+    """polyfit_lines (lines of one length stacked) gives np.polyfit(x, y, 1) bit for bit,
+    Clausius-Clapeyron-like lines in (1/T, ln p) of several lengths included."""
+    from pipeline.checks.stats import polyfit_lines
+
+    rng = np.random.default_rng(12)
+    xs, ys = [], []
+    for n in [30] * 20 + [8] * 5 + [9, 200]:
+        T = np.sort(rng.uniform(60.0, 140.0, n))
+        xs.append(1.0 / T)
+        ys.append(20.0 - 1500.0 / T + rng.normal(0.0, 1e-3, n))
+    for got, x, y in zip(polyfit_lines(xs, ys), xs, ys):
+        assert got.tolist() == np.polyfit(x, y, 1).tolist()
