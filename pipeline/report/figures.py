@@ -3,10 +3,10 @@ inline SVG, and the flag groups their numbers refer to (cached together, as JSON
 
 :func:`draw_all` draws many fluids: in this process, or in worker processes when
 ``FLUIDLEDGER_REPORT_WORKERS`` asks for them and there are enough fluids to pay for starting
-the workers (``spawn``: each worker imports matplotlib once, about a second; a fluid's figures
-take 0.2-0.5 s). The SVG text does not depend on the process that drew it (fixed
-``svg.hashsalt``, no dates), so the figures are the same bytes either way
-(``tests/report/test_report_views.py``).
+the workers (``spawn``: each worker imports numpy and parts of matplotlib, about a second; a
+fluid's figures take about 5-10 ms, :mod:`pipeline.report.svgkit`). The SVG text does not
+depend on the process that drew it (numbers written to fixed decimals, no dates, no random
+ids), so the figures are the same bytes either way (``tests/report/test_report_views.py``).
 """
 
 from __future__ import annotations
