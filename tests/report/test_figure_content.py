@@ -156,3 +156,22 @@ def test_the_same_input_gives_the_same_bytes(demo):
         ids = [el.get("id") for el in root.iter() if el.get("id")]
         assert ids and all(i.startswith("fcarbon_dioxide-") for i in ids)
         assert "\x00" not in svg
+
+
+def test_the_figure_cache_key_covers_all_the_drawing_code():
+    """Every report module the drawing code imports is hashed into the figure cache's key,
+    so a figure cached by older drawing code (matplotlib's SVG, say) is drawn again."""
+    import ast
+
+    from pipeline.report import views
+
+    folder = Path(views.__file__).parent
+    listed = set(views.FIGURE_CODE)
+    for name in sorted(listed):
+        tree = ast.parse((folder / f"{name}.py").read_text())
+        for node in ast.walk(tree):
+            if isinstance(node, ast.ImportFrom) and (node.module or "").startswith(
+                    "pipeline.report."):
+                imported = node.module.split(".")[2]
+                assert imported in listed, f"{name}.py imports {imported}, not in FIGURE_CODE"
+    assert "svgkit" in listed
