@@ -36,7 +36,8 @@ TICK_LENGTH, TICK_PAD, TICK_FONT = 3.0, 2.0, 7.0
 GRID = 'stroke="#b0b0b0" stroke-opacity="0.3" stroke-width="0.8"'
 TITLE_FONT, TITLE_PAD, LABEL_FONT = 8.5, 4.0, 8.0
 LEGEND_FONT = 7.0
-LEGEND_ROW = 11.52         # pitch of legend rows [pt]
+LEGEND_ROW = 11.52         # height a legend row takes in the figure's layout [pt]
+LEGEND_PITCH = 10.6        # distance between legend rows as drawn [pt] (matplotlib's, at 7 pt)
 LEGEND_HANDLE = 14.0       # width of a legend handle [pt] (2 em)
 LEGEND_PAD = 4.9           # legend's distance from the figure's bottom edge [pt]
 
@@ -486,7 +487,7 @@ class Canvas:
         out = ['<g class="legend">']
         for c, col in enumerate(cols):
             for r, label in enumerate(col):
-                yc = self.height - LEGEND_PAD - (rows - r - 0.5) * LEGEND_ROW
+                yc = self.height - LEGEND_PAD - (rows - r - 0.5) * LEGEND_PITCH
                 out.append(self._handle(x, yc, self.legend[label]))
                 out.append(text(x + LEGEND_HANDLE + pad, yc + 0.36 * LEGEND_FONT, label,
                                 LEGEND_FONT))
