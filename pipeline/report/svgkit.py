@@ -105,14 +105,13 @@ def text_width(text: str, size: float, bold: bool = False) -> float:
 
 
 def text(x: float, y: float, content: str, size: float, *, anchor: str = "start",
-         colour: str = "#000000", bold: bool = False, rotate: bool = False,
-         extra: str = "") -> str:
+         colour: str = "#000000", bold: bool = False, rotate: bool = False) -> str:
     """A ``<text>`` with its baseline at ``y`` (rotated a quarter turn to read upwards)."""
     rot = f' transform="rotate(-90 {num(x)} {num(y)})"' if rotate else ""
     weight = ' font-weight="bold"' if bold else ""
     fill = f' fill="{colour}"' if colour != "#000000" else ""
     return (f'<text x="{num(x)}" y="{num(y)}" font-size="{num(size)}" '
-            f'text-anchor="{anchor}"{weight}{fill}{rot}{extra}>{esc(content)}</text>')
+            f'text-anchor="{anchor}"{weight}{fill}{rot}>{esc(content)}</text>')
 
 
 # -- markers -----------------------------------------------------------------------------------
@@ -266,10 +265,6 @@ class Panel:
         """Draw what ``draw()`` returns inside the frame at layer ``z`` (higher is on top; ties
         keep their order); it is called when the figure is written, once the frame is final."""
         self.items.append((z, len(self.items), draw))
-
-    def inside(self, X: np.ndarray, Y: np.ndarray) -> np.ndarray:
-        return (X >= self.x0 - 0.01) & (X <= self.x0 + self.w + 0.01) & \
-            (Y >= self.y0 - 0.01) & (Y <= self.y0 + self.h + 0.01)
 
     # -- data layers ---------------------------------------------------------------------------
     def points(self, canvas: "Canvas", x, y, style: PointStyle, z: float, *, layer: str,
