@@ -303,3 +303,16 @@ def test_hover_texts_with_markup_are_escaped_in_the_svg():
     text = figure_svg(phase_diagram(PhaseDiagramData("argon", "argon", obs, d.curves)),
                       prefix="e-", figure="phase", fluid_id="argon", label="x")
     assert "<script" not in text and "&lt;script&gt;alert(1)&lt;/script&gt;" in text
+
+
+def test_a_fluid_without_melting_data_says_so_in_the_right_panel():
+    """Without melting points or curves the right panel holds its title and 'no melting data',
+    no ticks; the left panel's limits come from the curves when no point is drawable."""
+    obs = Observations.empty()
+    fig = phase_diagram(PhaseDiagramData("argon", "argon", obs,
+                                         [CurveSpec("liquid-vapour", "", VAP)]))
+    phase, melt = _panels(_svg(fig))
+    assert [t.text for t in melt.findall(TEXT)] == ["melting curve(s)", "no melting data"]
+    lo, hi = fig.panels[0].ylim
+    assert lo < float(VAP.value(VAP.T_min_K)) and hi > float(VAP.value(VAP.T_max_K))
+    assert len(_layers(phase, "curve")) == 1
