@@ -43,7 +43,8 @@ def _prefix(fluid_id: str, figure: str) -> str:
 
 def render_figures(data: PhaseDiagramData) -> FluidFigures:
     """Draw and serialise the phase diagram and the deviation plots of one fluid."""
-    # imported here: matplotlib is loaded only by a report that draws (start-up of the rest)
+    # imported here: matplotlib (markers, ticks, font widths) is loaded only by a report that
+    # draws (start-up of the rest)
     from pipeline.report.deviation import deviation_figure
     from pipeline.report.plots import phase_diagram
     from pipeline.report.svg import figure_svg

@@ -1,11 +1,11 @@
-"""Per-fluid figures of the nightly report: data in, matplotlib figures out (no I/O, no store).
+"""Per-fluid figures of the nightly report: data in, SVG figures out (no I/O, no store).
 
 :func:`phase_diagram` draws one fluid on two panels:
 
 * left, log p against T: every pressure observation, one marker and colour per source, in
   layers: samples of evaluated equations (sources of kind standard or evaluated, dense, drawn
-  small and rasterised) at the bottom, then the fitted curves, then literature data, then
-  measured data on top; stated triple and critical points; flagged observations (fit outliers,
+  small, one merged path per source) at the bottom, then the fitted curves, then literature
+  data, then measured data on top; stated triple and critical points; flagged observations (fit outliers,
   points named by failing checks) circled in red and numbered, the numbers explained in the
   report's table beside the figure (no other text in the plot);
 * right, the melting curve(s) on a linear pressure axis [MPa], one colour per solid phase.
