@@ -5,9 +5,9 @@
 * left, log p against T: every pressure observation, one marker and colour per source, in
   layers: samples of evaluated equations (sources of kind standard or evaluated, dense, drawn
   small, one merged path per source) at the bottom, then the fitted curves, then literature
-  data, then measured data on top; stated triple and critical points; flagged observations (fit outliers,
-  points named by failing checks) circled in red and numbered, the numbers explained in the
-  report's table beside the figure (no other text in the plot);
+  data, then measured data on top; stated triple and critical points; flagged observations
+  (fit outliers, points named by failing checks) circled in red and numbered, the numbers
+  explained in the report's table beside the figure (no other text in the plot);
 * right, the melting curve(s) on a linear pressure axis [MPa], one colour per solid phase.
 
 A file diagnosed with a unit mix-up (``data.unit-mixup``) is drawn at its corrected position
