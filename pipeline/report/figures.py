@@ -69,9 +69,10 @@ def worker_count(n_fluids: int, workers: int | None = None) -> int:
     from :data:`PARALLEL_MIN_FLUIDS` fluids on, else 1 (this process).
 
     One process is the default because it was measured faster on a shared 2-CPU machine: a
-    cold report of 200 fluids took 150.7 s in one process and 203.7 s with two workers (load
-    average 13; ``python benchmarks/report.py --cold``). A machine with idle CPUs may set the
-    variable; the figures are the same bytes either way."""
+    cold report of 200 fluids took 25.1 s in one process and 31.0 s with two workers (load
+    average 12-13; ``python benchmarks/report.py --cold``; with the former matplotlib figures
+    150.7 s and 203.7 s at load 13): a fluid's figures cost less than a worker's start-up. A
+    machine with idle CPUs may set the variable; the figures are the same bytes either way."""
     if workers is None:
         text = os.environ.get(WORKERS_ENV, "").strip()
         if text:
