@@ -86,10 +86,18 @@ class PublishResult:
     fluids_computed: int = 0       # fluids whose rows were computed
     #: digests of the published file's parts, kept in the run row for ``verify``
     published_content: dict = field(default_factory=dict, repr=False)
+    #: the fluids whose rows may differ from the previous release's (recomputed, or no longer
+    #: released); None when nothing was copied from it (all may differ)
+    changed_fluids: list[str] | None = field(default=None, repr=False)
+    #: resolved path -> :func:`pipeline.verify.file_stamp` of each export file this publish
+    #: wrote and read back against its manifest (empty when the folder was already there)
+    file_stamps: dict[str, list] = field(default_factory=dict, repr=False)
 
     def asdict(self) -> dict:
         out = asdict(self)
         out.pop("published_content")
+        out.pop("changed_fluids")
+        out.pop("file_stamps")
         return out
 
     def asstr(self) -> str:
@@ -363,8 +371,9 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
     target = root / published.PUBLISHED_NAME
     exports.remove_leftovers(root)
     published.remove_leftovers(target)
+    stamps: dict[str, list] = {}
     tmp_dir, manifest, spans = exports.prepare_release_folder(root, release_id, fingerprint,
-                                                              tables)
+                                                              tables, stamps)
     crash_point("publish:exports-written")
     publication = {"release_id": release_id, "published_at": now, "publish_run_id": run_id,
                    "export_dir": str(final_dir)}
@@ -408,7 +417,10 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
                          bool(inputs.bad_checks()), counts.get("fail", 0),
                          counts.get("error", 0), tables["constants"].rows.num_rows,
                          tables["curves"].rows.num_rows, str(final_dir), str(target), written,
-                         unresolved, len(plan.reuse), len(plan.recompute), content_parts)
+                         unresolved, len(plan.reuse), len(plan.recompute), content_parts,
+                         plan.changed(),
+                         {str((final_dir / name).resolve()): stamp
+                          for name, stamp in stamps.items()} if written else {})
 
 
 def _not_copied(arrow: dict[str, pa.Table], plan: incremental.Plan) -> dict[str, pa.Table]:

@@ -22,10 +22,13 @@ def runs(tmp_path_factory):
 
 
 def test_a_clean_run_verifies_its_new_release(runs):
-    """The verify stage ran every store rule and hashed the files of the release just made."""
+    """The verify stage ran every store rule and checked the files of the release just made:
+    the publish read each one back against its hash, so their stamps prove them unchanged."""
     stage = runs["clean"].stages["verify"]
     assert stage.status == "ok" and stage.detail["findings"] == []
-    assert stage.detail["releases"] == 1 and stage.detail["files_hashed"] >= 12
+    assert stage.detail["releases"] == 1
+    assert stage.detail["files_hashed"] + stage.detail["files_unchanged"] >= 12
+    assert stage.detail["files_unchanged"] >= 12
     assert stage.detail["rules"] > 20
     assert runs["clean"].exit_code == 0
 
@@ -35,7 +38,7 @@ def test_a_changed_release_file_is_an_integrity_error(runs):
     finding is in results, summary and report."""
     damaged = runs["damaged"]
     stage = damaged.stages["verify"]
-    assert stage.status == "failed"
+    assert stage.status == "failed" and stage.detail["files_hashed"] == 1   # the others: stamps
     assert [f["rule"] for f in stage.detail["findings"]] == ["release.hash"]
     assert (damaged.verdict, damaged.exit_code) == ("error", 3)
     summary = (runs["tmp"] / "reports" / damaged.run_id / "summary.md").read_text()
