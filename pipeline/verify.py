@@ -451,21 +451,25 @@ def verify(store_path: str | os.PathLike | None, *, releases_root: str | os.Path
 def verify_connection(con: duckdb.DuckDBPyConnection, store_label: str,
                       releases_root: str | os.PathLike | None = None, *,
                       running: tuple[str, ...] = (),
-                      stamps: dict[str, list] | None = None) -> VerifyResult:
+                      stamps: dict[str, list] | None = None,
+                      published_checked: bool = False) -> VerifyResult:
     """Every store rule over an open connection, then (with ``releases_root``) the release
     manifests there and the releases the store lists as published there.
 
     Only reads; the nightly job runs it on its own (writable) connection, naming its own run
     in ``running``, and passes the ``stamps`` of the release files found intact before (see
     :func:`verify_release_manifests`: those proved unchanged are not hashed again); the
-    stamps of the files found intact now are in ``result.stamps``.
+    stamps of the files found intact now are in ``result.stamps``. ``published_checked``:
+    the caller has just found the published file intact (:func:`~pipeline.publish.integrity.
+    repair_published`), so it is not compared again.
     """
     result = verify_store(con, VerifyResult(store=store_label), running=running)
     if releases_root is not None:
         found, releases, hashed = verify_release_manifests(releases_root, stamps=stamps,
                                                            intact=result.stamps)
         result.findings += found + verify_listed_releases(published_releases(con), releases_root)
-        result.findings += verify_published_file(con, releases_root, result.notes)
+        if not published_checked:
+            result.findings += verify_published_file(con, releases_root, result.notes)
         result.releases, result.files_hashed = releases, hashed
         result.files_unchanged = sum(stamps.get(k) == v for k, v in result.stamps.items()) \
             if stamps else 0

@@ -209,19 +209,23 @@ def verify_stage(con, store_path, run_id: str, prev: PreviousState | None = None
     the release manifests in the store's folder (where the run publishes) and every release
     the store lists as published there.
 
-    A release file is hashed unless it is proved unchanged since it was last hashed: by the
-    previous run's verify (its stamps, kept in ``contexts["verified_files"]``) or by this
-    run's publish, which read back and hashed the files it wrote (``pub["file_stamps"]``);
-    see :func:`pipeline.verify.file_stamp`. The stamps found intact now go to ``contexts``.
+    A release file is hashed, and the published file's content compared with the store's,
+    unless it is proved unchanged since that was last done: by the previous run's verify (its
+    stamps, kept in ``contexts["verified_files"]``) or by this run's publish, which read back
+    the files it wrote (``pub["file_stamps"]``); see :func:`pipeline.verify.file_stamp`. The
+    published file is compared once (by the repair step; again only after a rebuild). The
+    stamps found intact now go to ``contexts``.
     """
     t0 = time.perf_counter()
     stamps = dict((prev.contexts.get("verified_files") or {}) if prev is not None else {})
     stamps.update((pub or {}).get("file_stamps") or {})
-    repaired = repair_published(con, Path(store_path).parent)
+    published_ok: dict[str, list] = {}
+    repaired = repair_published(con, Path(store_path).parent, stamps=stamps,
+                                intact=published_ok)
     res = verify_connection(con, str(store_path), Path(store_path).parent, running=(run_id,),
-                            stamps=stamps)
+                            stamps=stamps, published_checked=repaired is None)
     if contexts is not None:
-        contexts["verified_files"] = res.stamps
+        contexts["verified_files"] = {**res.stamps, **published_ok}
     head = (f"{len(res.rules_run)} store rules, {len(res.releases)} release(s) with "
             f"{res.files_hashed} files hashed"
             + (f" ({res.files_unchanged} proved unchanged since hashed)"

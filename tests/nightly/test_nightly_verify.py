@@ -2,6 +2,10 @@
 
 from __future__ import annotations
 
+import json
+from pathlib import Path
+
+import duckdb
 import pytest
 
 from nightly_fixtures import ARGON_BATCHES, copy_demo, nightly
@@ -29,6 +33,13 @@ def test_a_clean_run_verifies_its_new_release(runs):
     assert stage.detail["releases"] == 1
     assert stage.detail["files_hashed"] + stage.detail["files_unchanged"] >= 12
     assert stage.detail["files_unchanged"] >= 12
+    con = duckdb.connect(str(runs["tmp"] / "store.duckdb"), read_only=True)
+    summary = json.loads(con.execute("SELECT summary_json FROM run WHERE run_id = ?",
+                                     [runs["clean"].run_id]).fetchone()[0])
+    con.close()
+    stamped = {Path(p).name for p in summary["contexts"]["verified_files"]}
+    assert "published.duckdb" in stamped and "manifest.json" not in stamped
+    assert {"constants.csv", "provenance.json", "curves.parquet"} <= stamped
     assert stage.detail["rules"] > 20
     assert runs["clean"].exit_code == 0
 
