@@ -173,8 +173,8 @@ def check_stage(con, opts: NightlyOptions, prev: PreviousState, contexts: dict, 
             recheck.append(f)
         else:
             reuse.setdefault(p["check_run"], []).append(f)
-    tables = [reused_results(con, old_run, fluids)
-              for old_run, fluids in reuse.items()]
+    tables = [reused_results(con, old_run, fluids) for old_run, fluids in reuse.items()]
+    copied = [(old_run, fluids, len(t)) for (old_run, fluids), t in zip(reuse.items(), tables)]
     chunks = [recheck[i:i + CHECK_CHUNK] for i in range(0, len(recheck), CHECK_CHUNK)]
     exclusions = curation.check_exclusions(con) if recheck else None
     with stage_progress("check", len(chunks), quiet=opts.quiet) as tick:
@@ -191,7 +191,7 @@ def check_stage(con, opts: NightlyOptions, prev: PreviousState, contexts: dict, 
          "threshold_files": list(thresholds.files), "full": opts.full,
          "decisions": curation.path},
         [s.id for s in specs], list(selected), results, time.perf_counter() - t0)
-    store_run(con, check_run)
+    store_run(con, check_run, copied=copied)   # the reused rows copied within the store
     n_reused = sum(len(f) for f in reuse.values())
     why = " (check code, thresholds or decisions changed)" if context_changed else ""
     text = (f"{len(recheck)} fluid(s) checked{why}, {n_reused} reused from the previous run; "
