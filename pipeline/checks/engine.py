@@ -250,9 +250,12 @@ _RESULT_COLUMNS = ("run_id", "check_id", "fluid_id", "subject", "status", "sever
                    "input_hash", "decision_id", "duration_s")
 
 
-def _result_frame(run: CheckRun) -> pd.DataFrame:
-    """The ``check_result`` rows of a run, straight from its columns."""
+def _result_frame(run: CheckRun, skip: int = 0) -> pd.DataFrame:
+    """The ``check_result`` rows of a run (from row ``skip`` on), straight from its columns."""
     table = run.table
+    if skip:
+        table = ResultTable({f: col[skip:] for f, col in table.columns.items()})
+        table._json = run.table._json[skip:]
     c = table.columns
     frame = pd.DataFrame({
         "run_id": [run.run_id] * len(table), "check_id": c["check_id"], "fluid_id": c["fluid_id"],
@@ -267,9 +270,17 @@ def _result_frame(run: CheckRun) -> pd.DataFrame:
     return frame
 
 
-def store_run(con, run: CheckRun) -> None:
-    """Write the ``run`` row (kind 'check') and all ``check_result`` rows in one transaction."""
-    frame = _result_frame(run)
+def store_run(con, run: CheckRun, *,
+              copied: Sequence[tuple[str, Sequence[str], int]] = ()) -> None:
+    """Write the ``run`` row (kind 'check') and all ``check_result`` rows in one transaction.
+
+    ``copied``: (earlier run, fluids, number of rows) whose stored results are the first rows
+    of ``run``, in that order (the nightly job's reused results, read from the store): they
+    are copied within the store by SQL, the other rows inserted from the table."""
+    n_copied = sum(n for _, _, n in copied)
+    if n_copied > len(run.table):
+        raise ValueError(f"{n_copied} copied check results, the run holds {len(run.table)}")
+    frame = _result_frame(run, n_copied)
     con.execute("BEGIN TRANSACTION")
     try:
         con.execute(
@@ -278,8 +289,15 @@ def store_run(con, run: CheckRun) -> None:
             [run.run_id, run.started_at.rstrip("Z"), run.finished_at.rstrip("Z"),
              run.pipeline_version, json.dumps(jsonable(run.parameters), sort_keys=True),
              run.status, json.dumps(run.summary(), sort_keys=True)])
-        con.register("fl_check_results", frame)
         cols = ", ".join(_RESULT_COLUMNS)
+        for old_run, fluids, n in copied:
+            done = con.execute(
+                f"INSERT INTO check_result ({cols}) SELECT ?, {', '.join(_RESULT_COLUMNS[1:])} "
+                "FROM check_result WHERE run_id = ? AND list_contains(?, fluid_id)",
+                [run.run_id, old_run, list(fluids)]).fetchone()[0]
+            if done != n:
+                raise ValueError(f"copied {done} results of check run {old_run}, read {n}")
+        con.register("fl_check_results", frame)
         con.execute(f"INSERT INTO check_result ({cols}) SELECT {cols} FROM fl_check_results")
         con.unregister("fl_check_results")
         con.execute("COMMIT")
