@@ -41,7 +41,8 @@ def report_stage(con, opts, result: NightlyResult, check_run, selected, check_fp
     page = ReportPage({}, check_run, views.sections, views.figures,
                       decisions=curation.report_rows(con, check_run.run_id),
                       fluid_order=selected,
-                      decide=decide_context(con, opts, curation, check_run.results),
+                      decide=decide_context(con, opts, curation,
+                                           check_run.by_status(("warn", "fail"))),
                       pages=views.pages)
     return Stage("written", time.perf_counter() - t0, views.text(), views.detail), page
 
