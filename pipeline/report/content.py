@@ -211,17 +211,6 @@ def _walk_obs_ids(value: Any, found: set[int]) -> None:
             _walk_obs_ids(v, found)
 
 
-def flag_rows(table) -> list[int]:
-    """Rows of a :class:`~pipeline.checks.results.ResultTable` that
-    :func:`flagged_from_results` reads: failures and errors, and the unit mix-up check's
-    findings about a file (read from the columns, without making result objects)."""
-    c = table.columns
-    return [i for i, (check, status, subject) in enumerate(zip(c["check_id"], c["status"],
-                                                              c["subject"]))
-            if status in ("fail", "error")
-            or (check == "data.unit-mixup" and subject.startswith("file:"))]
-
-
 def flagged_from_results(results: Iterable) -> dict[str, dict[str, Any]]:
     """Per fluid, what the figures mark: ``obs`` {obs id: check ids} and ``files`` {file path:
     check ids} named by failing (fail or error) results — observation ids anywhere in the

@@ -71,6 +71,17 @@ def figure_keys(sections: Mapping[str, Any], flagged: Mapping[str, Any],
             for f in sections}
 
 
+def flag_rows(table) -> list[int]:
+    """Rows of a :class:`~pipeline.checks.results.ResultTable` that
+    :func:`~pipeline.report.content.flagged_from_results` reads: failures and errors, and the unit mix-up check's
+    findings about a file (read from the columns, without making result objects)."""
+    c = table.columns
+    return [i for i, (check, status, subject) in enumerate(zip(c["check_id"], c["status"],
+                                                              c["subject"]))
+            if status in ("fail", "error")
+            or (check == "data.unit-mixup" and subject.startswith("file:"))]
+
+
 def fluid_views(con, *, check_run, selected: Sequence[str], check_fp: Mapping[str, Any],
                 reports: Path, folder: Path, prune: bool = True, quiet: bool = False,
                 workers: int | None = None) -> FluidViews:
@@ -80,7 +91,7 @@ def fluid_views(con, *, check_run, selected: Sequence[str], check_fp: Mapping[st
 
     sections = content.fluid_sections(con, selected, references=False)
     table = check_run.table      # results read as objects only where they are shown
-    flagged = content.flagged_from_results(table.result(i) for i in content.flag_rows(table))
+    flagged = content.flagged_from_results(table.result(i) for i in flag_rows(table))
     keys = figure_keys(sections, flagged, check_fp)
     cache = PlotCache(reports / ".cache" / "plots")
     page_cache = pages.PageCache(reports / ".cache" / "pages")
