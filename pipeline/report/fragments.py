@@ -123,7 +123,8 @@ class Fragment:
             cases[check] = (data[pos:pos + n], tests, failures, errors, skipped, seconds)
             pos += n
         if pos != len(data):
-            raise ValueError(f"fragment of {head['fluid']} has {len(data) - pos} bytes too many")
+            raise ValueError(f"fragment of {head['fluid']}: {len(data)} bytes, its header "
+                             f"says {pos}")
         return cls(head["fluid"], items, cases)
 
 
@@ -182,7 +183,7 @@ class FragmentCache:
     def get(self, key: str) -> Fragment | None:
         try:
             return Fragment.from_bytes(self.path(key).read_bytes())
-        except (OSError, ValueError, KeyError):       # missing, or damaged: built again
+        except (OSError, ValueError, KeyError, TypeError):   # missing or damaged: built again
             return None
 
     def put(self, key: str, fragment: Fragment) -> None:
