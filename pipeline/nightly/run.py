@@ -110,7 +110,10 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
     result.no_changes = (prev.run_id is not None and ingest.status == "no-changes"
                          and fit.status == "no-changes" and check.status == "reused")
     baseline = [prev.of(f)["check_run"] for f in selected if prev.of(f).get("check_run")]
-    result.changes.update(status_changes(con, baseline, check_run.run_id, selected))
+    # a reused fluid's results are copies of its baseline's rows: only the fluids checked
+    # again can have moved
+    rechecked = [f for f in selected if origins[f] == check_run.run_id]
+    result.changes.update(status_changes(con, baseline, check_run.run_id, rechecked))
     with measure() as usage:
         pub_stage, pub = publish_stage(con, opts, prev, result, ingest, publisher, store_path,
                                        curation)
