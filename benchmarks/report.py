@@ -32,6 +32,12 @@ alone), the size of report.html and of the run folder (pages are links into the 
 counted once), and the load average.
 
     python benchmarks/report.py [--fluids N] [--repeat N] [--cold [--before REPO]] [--keep DIR]
+    python benchmarks/report.py --warm DIR [--repeat N]
+
+``--warm DIR`` measures only the unchanged and one-batch runs on a folder a run kept (``raw/``,
+``store.duckdb``, ``reports/``: this script's ``--keep DIR``, or ``scale.py --keep``'s
+``DIR/n<N>``), starting with one unmeasured nightly that brings the store and the caches up to
+the code being measured (the cold runs, which draw every figure, are left out).
 """
 
 from __future__ import annotations
@@ -130,8 +136,12 @@ def main() -> None:
     ap.add_argument("--before", type=Path, default=None,
                     help="with --cold: also run the cold nightly with this checkout's code")
     ap.add_argument("--keep", type=Path, default=None)
+    ap.add_argument("--warm", type=Path, default=None,
+                    help="a kept folder: measure its unchanged and one-batch runs only")
     args = ap.parse_args()
-    tmp = args.keep or Path(tempfile.mkdtemp(prefix="fl-report-bench-"))
+    tmp = args.warm or args.keep or Path(tempfile.mkdtemp(prefix="fl-report-bench-"))
+    if args.warm:
+        args.fluids = sum(1 for _ in (tmp / "raw").glob("*/batch.toml"))
     per_k = 1000.0 / args.fluids
     rows: dict[str, list[float]] = {}
     rss: dict[str, list[float]] = {}
@@ -139,10 +149,15 @@ def main() -> None:
     files: dict[str, list[float]] = {}
     try:
         raw, store, reports = tmp / "raw", tmp / "store.duckdb", tmp / "reports"
-        t0 = time.perf_counter()
-        make_raw(raw, args.fluids)
-        print(f"generated {args.fluids} synthetic fluids in {time.perf_counter() - t0:.1f} s")
         common = ["--store", str(store), "--raw", str(raw), "--reports", str(reports)]
+        t0 = time.perf_counter()
+        if args.warm:
+            run(common)
+            print(f"{args.fluids} fluids in {tmp}: one nightly to warm up in "
+                  f"{time.perf_counter() - t0:.1f} s (not measured)")
+        else:
+            make_raw(raw, args.fluids)
+            print(f"generated {args.fluids} synthetic fluids in {time.perf_counter() - t0:.1f} s")
 
         def measure(name: str, *extra: str, env: dict | None = None) -> dict:
             code, peak = run(common, *extra, env=env)
@@ -157,7 +172,7 @@ def main() -> None:
                            f"folder {total / 1e6:.1f} MB; exit {code}")
             return detail
 
-        if args.cold and args.before:      # the other code first, on its own store
+        if args.cold and args.before and not args.warm:   # the other code first, own store
             other = ["--store", str(tmp / "before.duckdb"), "--raw", str(raw), "--reports",
                      str(tmp / "reports-before")]
             code, peak = run_other(args.before.resolve(), [*other, "--full"])
@@ -166,13 +181,15 @@ def main() -> None:
             files["cold, before"] = [detail.get("files_s", float("nan"))]
             notes["cold, before"] = (f"{args.before}: drawn {detail.get('plots_drawn')}; "
                                      f"exit {code}")
-        measure("cold", "--full")
-        if args.cold:
+        if not args.warm:
+            measure("cold", "--full")
+        if args.cold and not args.warm:
             shutil.rmtree(reports / ".cache" / "plots", ignore_errors=True)
             shutil.rmtree(reports / ".cache" / "pages", ignore_errors=True)
             measure("cold, pool", "--full",
                     env={"FLUIDLEDGER_REPORT_WORKERS": str(os.cpu_count() or 1)})
-        measure("--full", "--full")
+        if not args.warm:
+            measure("--full", "--full")
         for r in range(args.repeat):
             measure("unchanged")
             write_fluid(raw, args.fluids // 2, variant=r + 1)     # one batch changes
@@ -202,7 +219,7 @@ def main() -> None:
             print(f"cold report, worker pool against one process: {pool / one:.2f} "
                   f"({pool:.1f} s vs {one:.1f} s)")
     finally:
-        if args.keep is None:
+        if args.keep is None and args.warm is None:
             shutil.rmtree(tmp, ignore_errors=True)
 
 

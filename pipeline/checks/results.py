@@ -331,14 +331,17 @@ class CheckRun:
                 "checks": len(self.checks), "fluids": len(self.fluids),
                 "duration_s": self.duration_s}
 
-    def asdict(self) -> dict[str, Any]:
-        return {"run": {"run_id": self.run_id, "kind": "check", "started_at": self.started_at,
-                        "finished_at": self.finished_at, "duration_s": self.duration_s,
-                        "pipeline_version": self.pipeline_version,
-                        "parameters": jsonable(self.parameters), "status": self.status,
-                        "checks": list(self.checks), "fluids": list(self.fluids),
-                        "counts": self.counts()},
-                "results": [r.asdict() for r in self.by_status()]}
+    def asdict(self, results: bool = True) -> dict[str, Any]:
+        """The machine form; ``results=False`` gives the ``run`` block alone."""
+        out = {"run": {"run_id": self.run_id, "kind": "check", "started_at": self.started_at,
+                       "finished_at": self.finished_at, "duration_s": self.duration_s,
+                       "pipeline_version": self.pipeline_version,
+                       "parameters": jsonable(self.parameters), "status": self.status,
+                       "checks": list(self.checks), "fluids": list(self.fluids),
+                       "counts": self.counts()}}
+        if results:
+            out["results"] = [r.asdict() for r in self.by_status()]
+        return out
 
     def asstr(self) -> str:
         counts = self.counts()

@@ -11,6 +11,7 @@ from typing import Any
 from pipeline.nightly.curation import Curation
 from pipeline.nightly.model import NightlyResult, Stage
 from pipeline.report.actions import DecideContext
+from pipeline.report.files import write_report
 from pipeline.report.html import ReportPage
 from pipeline.report.views import fluid_views
 
@@ -40,6 +41,15 @@ def report_stage(con, opts, result: NightlyResult, check_run, selected, check_fp
     page = ReportPage({}, check_run, views.sections, views.figures,
                       decisions=curation.report_rows(con, check_run.run_id),
                       fluid_order=selected,
-                      decide=decide_context(con, opts, curation, check_run.results),
+                      decide=decide_context(con, opts, curation,
+                                           check_run.by_status(("warn", "fail"))),
                       pages=views.pages)
     return Stage("written", time.perf_counter() - t0, views.text(), views.detail), page
+
+
+def write_files(opts, folder: Path, page: ReportPage, origins: dict[str, str]) -> dict:
+    """results.json and junit.xml (each fluid's share read from the fragment cache when the
+    check run that made its results has one there), summary.md and report.html; what it did.
+    Under ``--full`` every fluid is checked again, so each fluid's share is built again."""
+    return write_report(folder, page.nightly, page, origins=origins,
+                        cache=opts.reports / ".cache" / "results", prune=not opts.fluids)

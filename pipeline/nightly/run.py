@@ -17,11 +17,11 @@ from pipeline.nightly.logs import run_log
 from pipeline.nightly.model import (VERDICT_EXIT, NightlyOptions, NightlyResult, Stage, usage_text,
                                    verdict)
 from pipeline.nightly.publishing import publish_adapter, publish_stage, value_changes
-from pipeline.nightly.reporting import report_stage
+from pipeline.nightly.reporting import report_stage, write_files
 from pipeline.nightly.stages import check_stage, fit_stage, ingest_stage, verify_stage
 from pipeline.nightly.state import current_fits, data_fingerprints, digest, previous_state
 from pipeline.report.changes import status_changes
-from pipeline.report.files import FILES, ValidatedItems, update_latest, write_report
+from pipeline.report.files import FILES, update_latest
 from pipeline.stagemeter import Meter, measure
 from pipeline.store import open_store
 from pipeline.store.runs import end_run
@@ -102,15 +102,18 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
     fits_now = current_fits(con)
     check_fp = {f: digest(data_fp.get(f), sorted(fits_now.get(f, {}).items())) for f in selected}
     with measure() as usage:
-        check_run, check = check_stage(con, opts, prev, contexts, selected, check_fp,
-                                       result.run_id, curation)
+        check_run, check, origins = check_stage(con, opts, prev, contexts, selected,
+                                                check_fp, result.run_id, curation)
     result.stages["check"] = _measured("check", check, usage)
     result.check_run_id = check_run.run_id
     result.counts = check_run.counts()
     result.no_changes = (prev.run_id is not None and ingest.status == "no-changes"
                          and fit.status == "no-changes" and check.status == "reused")
     baseline = [prev.of(f)["check_run"] for f in selected if prev.of(f).get("check_run")]
-    result.changes.update(status_changes(con, baseline, check_run.run_id, selected))
+    # a reused fluid's results are copies of its baseline's rows: only the fluids checked
+    # again can have moved
+    rechecked = [f for f in selected if origins[f] == check_run.run_id]
+    result.changes.update(status_changes(con, baseline, check_run.run_id, rechecked))
     with measure() as usage:
         pub_stage, pub = publish_stage(con, opts, prev, result, ingest, publisher, store_path,
                                        curation)
@@ -134,14 +137,11 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
     result.duration_s = time.perf_counter() - t0
     result.report = {"dir": str(folder), **{k: str(folder / v) for k, v in FILES.items()}}
     page.nightly = result.asdict()
-    # kept under --full too: an item valid against these schemas (the key) stays valid
-    memo = ValidatedItems(opts.reports / ".cache" /
-                          f"valid-results-{ValidatedItems.schema_key()}.txt")
     t_files = time.perf_counter()
-    write_report(folder, page.nightly, page, memo=memo)
-    report.detail["files_s"] = round(time.perf_counter() - t_files, 3)   # run row only
+    report.detail.update(write_files(opts, folder, page, origins))        # run row only
+    report.detail["files_s"] = round(time.perf_counter() - t_files, 3)
     report.duration_s = time.perf_counter() - t_report   # the run row gets the full time
     _measured("report", report, meter.stop())
     state = {f: {"data": data_fp.get(f), "check": check_fp[f], "check_run": check_run.run_id,
-                 "fits": fits_now.get(f, {})} for f in selected}
+                 "results_from": origins[f], "fits": fits_now.get(f, {})} for f in selected}
     return {"fluids": state, "contexts": contexts}

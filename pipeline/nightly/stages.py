@@ -200,7 +200,12 @@ def check_stage(con, opts: NightlyOptions, prev: PreviousState, contexts: dict, 
                   {"check_run_id": check_run.run_id, "rechecked": recheck[:200],
                    "n_rechecked": len(recheck), "n_reused": n_reused,
                    "reused_from": sorted(reuse)})
-    return check_run, stage
+    # the check run whose evaluation made each fluid's results (a reused row is a copy of
+    # that run's row): the report keeps each fluid's share of its files by it
+    origins = dict.fromkeys(recheck, check_run.run_id)
+    for old_run, fluids in reuse.items():
+        origins.update((f, prev.of(f).get("results_from", old_run)) for f in fluids)
+    return check_run, stage, origins
 
 
 def verify_stage(con, store_path, run_id: str, prev: PreviousState | None = None,

@@ -3,14 +3,16 @@ report.html, the ``latest`` pointer, and the figure cache.
 
 ``results.json`` follows ``schemas/nightly-results.schema.json``: a ``nightly`` block (the
 nightly run record) beside the check run's ``run`` block and ``results``, which are
-exactly those of ``check-results.schema.json`` (referenced, not copied). ``junit.xml`` is the
-check stage's JUnit writer applied to the same check run, so its counts match the results.
+exactly those of ``check-results.schema.json`` (referenced, not copied). ``junit.xml`` holds
+what the check stage's JUnit writer writes for the same check run, so its counts match the
+results.
 
-The document is validated before it is written. A result item's validity depends on nothing
-but its own content (the item schema has no reference to its siblings), so a
-:class:`ValidatedItems` memo keyed by the SHA-256 of the item's JSON and of the schemas skips
-items already validated byte for byte in an earlier run (a nightly run reuses most results of
-the previous one); the envelope and every other item are validated each time.
+Both are assembled from per-fluid fragments (:mod:`pipeline.report.fragments`), cached by
+the check run whose evaluation made each fluid's results: a nightly run after one changed
+batch builds the fragments of the fluids it checked again and reads the others. A result
+item's validity depends on nothing but its own content (the item schema has no reference to
+its siblings), so the items of a fragment are validated when it is built (the cache key
+holds the schemas); the envelope is validated each time.
 """
 
 from __future__ import annotations
@@ -25,9 +27,9 @@ from functools import lru_cache
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
-from pipeline.checks.render import junit_xml
 from pipeline.checks.results import CheckRun
 from pipeline.errors import EXIT_INTERNAL, FluidLedgerError
+from pipeline.report import fragments as frag
 from pipeline.report.html import ReportPage, render_html
 from pipeline.report.summary import render_summary
 
@@ -82,55 +84,27 @@ def results_document(nightly: Mapping[str, Any], check_run: CheckRun) -> dict:
     return {"nightly": dict(nightly), "run": checks["run"], "results": checks["results"]}
 
 
-@dataclass
-class ValidatedItems:
-    """Hashes of result items found valid against the current schemas, kept in a file."""
-
-    path: Path | None
-    seen: set[str] | None = None
-
-    @staticmethod
-    def schema_key() -> str:
-        from importlib.metadata import version
-
-        from pipeline.ingest.contract import load_schema
-
-        return hashlib.sha256(json.dumps([load_schema(SCHEMA), load_schema(CHECK_SCHEMA),
-                                          version("jsonschema")], sort_keys=True).encode()
-                              ).hexdigest()[:16]
-
-    def load(self) -> set[str]:
-        if self.seen is None:
-            self.seen = set()
-            if self.path is not None and self.path.is_file():
-                self.seen = set(self.path.read_text().split())
-        return self.seen
-
-    def save(self, keep: set[str]) -> None:
-        if self.path is not None:
-            self.path.parent.mkdir(parents=True, exist_ok=True)
-            _atomic_write(self.path, "\n".join(sorted(keep)) + "\n")
-
-
-def _item_hash(text: str) -> str:
-    return hashlib.sha256(text.encode()).hexdigest()[:32]
-
-
-def validated_json(document: Mapping[str, Any], memo: ValidatedItems | None = None) -> str:
-    """``document`` as JSON text after validating it (result items already in ``memo`` are
-    not validated again; the memo is updated with this document's items)."""
-    texts = [json.dumps(r, sort_keys=True, allow_nan=False) for r in document["results"]]
-    hashes = [_item_hash(t) for t in texts]
-    seen = memo.load() if memo is not None else set()
-    fresh = [i for i, h in enumerate(hashes) if h not in seen]
-    validate_results({**document, "results": [document["results"][i] for i in fresh]},
-                     positions=fresh)
-    if memo is not None:
-        memo.save(set(hashes))
+def validated_json(document: Mapping[str, Any]) -> str:
+    """``document`` as the JSON text of results.json, after validating it whole."""
+    validate_results(document)
     head = json.dumps({k: v for k, v in document.items() if k != "results"}, indent=1,
                       allow_nan=False)
-    body = ",\n".join(texts)
+    body = ",\n".join(json.dumps(r, sort_keys=True, allow_nan=False)
+                      for r in document["results"])
     return head[:-2] + ',\n "results": [\n' + body + "\n ]\n}\n"
+
+
+def results_bytes(nightly: Mapping[str, Any], run: CheckRun,
+                  fragments: Sequence[frag.Fragment]) -> bytes:
+    """results.json from the fragments, after validating the envelope and the items of the
+    fragments built now (those read from the cache were validated when they were built)."""
+    head = {"nightly": dict(nightly), "run": run.asdict(results=False)["run"]}
+    order = frag.sorted_items(fragments)
+    fresh = [(pos, fragments[f].fresh[j]) for pos, (f, j) in enumerate(order)
+             if fragments[f].fresh is not None]
+    validate_results({**head, "results": [item for _, item in fresh]},
+                     positions=[pos for pos, _ in fresh])
+    return frag.results_json(head, fragments, order)
 
 
 def _atomic_write(path: Path, data: str | bytes) -> None:
@@ -143,16 +117,32 @@ def _atomic_write(path: Path, data: str | bytes) -> None:
 
 
 def write_report(folder: Path, nightly: Mapping[str, Any], page: ReportPage, *,
-                 memo: ValidatedItems | None = None) -> dict[str, str]:
-    """Write results.json (validated first), junit.xml, summary.md and report.html."""
+                 origins: Mapping[str, str] | None = None, cache: Path | None = None,
+                 prune: bool = True) -> dict[str, Any]:
+    """Write results.json (validated first), junit.xml, summary.md and report.html.
+
+    ``origins`` maps each fluid to the check run that made its results and ``cache`` is the
+    fragment cache's folder: fragments found there are reused, the others built and kept
+    (``prune`` deletes the fragments this run did not use). Returns what it did."""
     folder.mkdir(parents=True, exist_ok=True)
     paths = {k: folder / v for k, v in FILES.items()}
-    document = results_document(nightly, page.check_run)
-    _atomic_write(paths["results"], validated_json(document, memo))
-    _atomic_write(paths["junit"], junit_xml(page.check_run))
+    store = frag.FragmentCache(cache) if cache is not None else None
+    run = page.check_run
+    with frag.quiet_collector():
+        fragments, detail = frag.fragments(run, origins, store)
+        _atomic_write(paths["results"], results_bytes(nightly, run, fragments))
+        keys = detail.pop("keys")
+        if store is not None:                # validated: the built fragments may be kept
+            for f in fragments:
+                if f.fresh is not None and f.fluid_id in keys:
+                    store.put(keys[f.fluid_id], f)
+            if prune:
+                store.prune(set(keys.values()))
+        _atomic_write(paths["junit"], frag.junit_xml(run, fragments))
+        del fragments
     _atomic_write(paths["summary"], render_summary(nightly, str(paths["html"])))
     _atomic_write(paths["html"], render_html(page))
-    return {k: str(p) for k, p in paths.items()}
+    return detail
 
 
 def update_latest(reports: Path, run_id: str) -> str:
@@ -210,11 +200,4 @@ class PlotCache:
 
     def prune(self, keep: set[str]) -> int:
         """Delete cached plots whose key is not in ``keep``; returns how many."""
-        if not self.folder.is_dir():
-            return 0
-        gone = 0
-        for p in self.folder.iterdir():   # figures of older versions (.png) go too
-            if p.is_file() and p.suffix in (".json", ".png") and p.stem not in keep:
-                p.unlink(missing_ok=True)
-                gone += 1
-        return gone
+        return frag.prune_folder(self.folder, keep, (".json", ".png"))   # older .png too

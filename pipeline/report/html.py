@@ -15,6 +15,7 @@ text (:mod:`pipeline.report.svgkit`) whose hover titles and labels are escaped t
 from __future__ import annotations
 
 import math
+from collections import Counter
 from dataclasses import dataclass, field
 from html import escape
 from typing import Any, Callable, Mapping, Sequence
@@ -113,12 +114,13 @@ class ReportPage:
     pages: Mapping[str, Any] = field(default_factory=dict)
 
     def results_of(self, fluid_id: str) -> list[CheckResult]:
-        """The check results of one fluid (grouped once for all fluids)."""
+        """The check results of one fluid (rows grouped once for all fluids, from the run's
+        columns: only the results of the fluids shown are read as objects)."""
         if getattr(self, "_by_fluid", None) is None:
-            self._by_fluid: dict[str, list[CheckResult]] = {}
-            for r in self.check_run.results:
-                self._by_fluid.setdefault(r.fluid_id, []).append(r)
-        return self._by_fluid.get(fluid_id, [])
+            self._by_fluid: dict[str, list[int]] = {}
+            for i, f in enumerate(self.check_run.table.columns["fluid_id"]):
+                self._by_fluid.setdefault(f, []).append(i)
+        return [self.check_run.table.result(i) for i in self._by_fluid.get(fluid_id, [])]
 
 
 def _status(s: str) -> str:
@@ -274,8 +276,9 @@ def _findings(page: ReportPage) -> str:
     out.append(_grouped(warns, page.decide) if warns else '<p class="muted">no warnings</p>')
     out.append(_set_aside(page))
     per: dict[str, dict[str, int]] = {c: dict.fromkeys(STATUS_ORDER, 0) for c in run.checks}
-    for r in run.results:
-        per.setdefault(r.check_id, dict.fromkeys(STATUS_ORDER, 0))[r.status] += 1
+    columns = run.table.columns
+    for (check, status), n in Counter(zip(columns["check_id"], columns["status"])).items():
+        per.setdefault(check, dict.fromkeys(STATUS_ORDER, 0))[status] += n
     rows = [[f"<code>{e(c)}</code>"] + [str(v[s]) for s in STATUS_ORDER] for c, v in per.items()]
     out.append("<h3>Results per check</h3>" + _table(["check", *STATUS_ORDER], rows,
                                                        num=range(1, len(STATUS_ORDER) + 1)))

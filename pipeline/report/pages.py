@@ -142,14 +142,9 @@ class PageCache:
     def prune(self, keep: set[str]) -> int:
         """Delete cached pages whose key is not in ``keep``; returns how many (run folders
         keep their own links)."""
-        if not self.folder.is_dir():
-            return 0
-        gone = 0
-        for p in self.folder.iterdir():
-            if p.is_file() and p.suffix == ".html" and p.stem not in keep:
-                p.unlink(missing_ok=True)
-                gone += 1
-        return gone
+        from pipeline.report.fragments import prune_folder
+
+        return prune_folder(self.folder, keep, (".html",))
 
 
 def worst_chi2(fits) -> float | None:

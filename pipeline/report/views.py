@@ -71,6 +71,17 @@ def figure_keys(sections: Mapping[str, Any], flagged: Mapping[str, Any],
             for f in sections}
 
 
+def flag_rows(table) -> list[int]:
+    """Rows of a :class:`~pipeline.checks.results.ResultTable` that
+    :func:`~pipeline.report.content.flagged_from_results` reads: failures and errors, and the unit mix-up check's
+    findings about a file (read from the columns, without making result objects)."""
+    c = table.columns
+    return [i for i, (check, status, subject) in enumerate(zip(c["check_id"], c["status"],
+                                                              c["subject"]))
+            if status in ("fail", "error")
+            or (check == "data.unit-mixup" and subject.startswith("file:"))]
+
+
 def fluid_views(con, *, check_run, selected: Sequence[str], check_fp: Mapping[str, Any],
                 reports: Path, folder: Path, prune: bool = True, quiet: bool = False,
                 workers: int | None = None) -> FluidViews:
@@ -79,15 +90,17 @@ def fluid_views(con, *, check_run, selected: Sequence[str], check_fp: Mapping[st
     from pipeline.report import actions, evidence, fluid_html, html, pages
 
     sections = content.fluid_sections(con, selected, references=False)
-    flagged = content.flagged_from_results(check_run.results)
+    table = check_run.table      # results read as objects only where they are shown
+    flagged = content.flagged_from_results(table.result(i) for i in flag_rows(table))
     keys = figure_keys(sections, flagged, check_fp)
     cache = PlotCache(reports / ".cache" / "plots")
     page_cache = pages.PageCache(reports / ".cache" / "pages")
-    results_of: dict[str, list] = {f: [] for f in sections}
-    for r in check_run.results:
-        if r.fluid_id in results_of:
-            results_of[r.fluid_id].append(r)
-    statuses = {f: [r.status for r in rs] for f, rs in results_of.items()}
+    rows_of: dict[str, list[int]] = {f: [] for f in sections}
+    for i, f in enumerate(table.columns["fluid_id"]):
+        if f in rows_of:
+            rows_of[f].append(i)
+    status = table.columns["status"]
+    statuses = {f: [status[i] for i in rows] for f, rows in rows_of.items()}
     passing = [f for f in sections if not pages.needs_attention(statuses[f])]
     page_code = source_hash(pages, fluid_html, evidence, actions, html)
     page_keys = {f: pages.page_key(page_code, keys[f], pages.section_digest(sections[f]),
@@ -119,8 +132,9 @@ def fluid_views(con, *, check_run, selected: Sequence[str], check_fp: Mapping[st
     for f in passing:
         sec = sections[f]
         rows[f] = pages.index_row(sec, statuses[f], anchor(f))
-        def render(f=f, sec=sec, results=results_of[f]) -> str:
+        def render(f=f, sec=sec) -> str:
             title = sec.name + (f" ({sec.formula})" if sec.formula else "")
+            results = [table.result(i) for i in rows_of[f]]
             body = fluid_html.fluid_section(sec, results, figs.get(f), anchor(f), html.card_id)
             return pages.render_page(body, title, html.CSS)
 

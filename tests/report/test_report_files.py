@@ -69,21 +69,16 @@ def _result(i, status="pass"):
             "input_hash": None, "decision_id": None, "duration_s": 0.0}
 
 
-def test_validated_json_round_trips_and_memoises_valid_items(tmp_path):
-    """The text parses back to the document; valid items are remembered, and a new invalid
-    item is still refused while the memo holds the others."""
+def test_validated_json_round_trips_and_refuses_an_invalid_item():
+    """The text parses back to the document, and an invalid item is refused by its place."""
     import json
 
     import pytest
 
-    from pipeline.report.files import ReportSchemaError, ValidatedItems, validated_json
+    from pipeline.report.files import ReportSchemaError, validated_json
 
     doc = _document([_result(i) for i in range(3)])
-    memo = ValidatedItems(tmp_path / "memo.txt")
-    assert json.loads(validated_json(doc, memo)) == doc
-    assert len((tmp_path / "memo.txt").read_text().split()) == 3
+    assert json.loads(validated_json(doc)) == doc
     bad = _document([_result(i) for i in range(3)] + [_result(9, status="maybe")])
     with pytest.raises(ReportSchemaError, match="results/3/status"):
-        validated_json(bad, ValidatedItems(tmp_path / "memo.txt"))
-    with pytest.raises(ReportSchemaError, match="results/3/status"):
-        validated_json(bad)   # without a memo every item is validated
+        validated_json(bad)
