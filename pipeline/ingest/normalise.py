@@ -21,7 +21,7 @@ import duckdb
 import numpy as np
 
 from pipeline.ingest.contract import TableSpec
-from pipeline.ingest.scales import get_scale, ipts68_to_its90_sql
+from pipeline.ingest.scales import get_scale, ipts68_range_sql, ipts68_to_its90_sql
 from pipeline.ingest.units import conversion
 
 # quantity -> (pint quantity kind, SI unit, physical upper bound in SI)
@@ -137,10 +137,13 @@ def _duplicates_sql(staged: str, cols: list[Column], by_file: bool = False) -> s
             "WHERE h.row_number > d.first_row")
 
 
-def _scaled_sql(query: str, scale: str) -> str:
-    """``query`` with ``si_T`` converted from ``scale`` to ITS-90 (layers of SQL arithmetic)."""
+def _scaled_sql(query: str, scale: str, faults_only: bool = False) -> str:
+    """``query`` with ``si_T`` converted from ``scale`` to ITS-90 (layers of SQL arithmetic);
+    with ``faults_only``, only as far as the fault checks can tell (:data:`SQL_RANGES`)."""
     if scale == "ITS-90":
         return query
+    if faults_only:
+        return f"SELECT * REPLACE ({SQL_RANGES[scale]('si_T')} AS si_T) FROM ({query})"
     layers, result = SQL_CONVERSIONS[scale]("si_T")
     for expression, name in layers:
         query = f"SELECT *, {expression} AS {name} FROM ({query})"
@@ -181,32 +184,58 @@ def normalise(con: duckdb.DuckDBPyConnection, staged: str, spec: TableSpec,
     Returns the uncertainty rules per quantity key for the loader. One statement (a fixed
     cost per file counts when thousands of small files arrive): a materialised CTE of the
     row numbers of duplicate rows (a hash of their mapped cells, grouped once - not a window
-    sort), then one pass that parses, converts units and the temperature scale (SQL
-    arithmetic generated from the published coefficients, :mod:`pipeline.ingest.scales`)
-    and names each row's first fault.
+    sort), then :func:`normalised_query`.
 
     With ``by_file``, ``staged`` holds the rows of several files of the same layout, told
     apart by the column ``fl_file`` (kept in ``out``): one statement normalises them all,
     duplicates counted within each file.
     """
-    cols, rules = _plan(spec, molar_mass)
     duplicates = "fl_duplicate_rows"   # a CTE of the one statement below
+    query, rules = normalised_query(staged, spec, molar_mass, duplicates, by_file)
+    con.execute(
+        f"CREATE OR REPLACE TEMP TABLE {out} AS "
+        f"WITH {duplicates} AS MATERIALIZED ({duplicates_sql(staged, spec, molar_mass, by_file)}"
+        f") {query}")
+    return rules
+
+
+def duplicates_sql(staged: str, spec: TableSpec, molar_mass: float, by_file: bool = False
+                   ) -> str:
+    """The query of the row keys of ``staged`` that repeat an earlier row (see
+    :func:`_duplicates_sql`), for a table or CTE named by :func:`normalised_query`."""
+    return _duplicates_sql(staged, _plan(spec, molar_mass)[0], by_file)
+
+
+def normalised_query(staged: str, spec: TableSpec, molar_mass: float, duplicates: str,
+                     by_file: bool = False, parsed: bool = False, faults_only: bool = False
+                     ) -> tuple[str, dict[str, dict]]:
+    """The one pass over ``staged`` that parses, converts units and the temperature scale (SQL
+    arithmetic generated from the published coefficients, :mod:`pipeline.ingest.scales`)
+    and names each row's first fault: a query of ``row_number``, per mapped column
+    ``txt_<key>``, ``empty_<key>`` and ``si_<key>``, and ``fault`` (with ``parsed``, also
+    ``num_<key>``: the number read from the cell, before any conversion). ``duplicates``
+    names a table (or CTE) of the keys of duplicate rows (:func:`duplicates_sql`).
+
+    With ``faults_only`` the temperature is not converted to ITS-90, only checked against the
+    range of its scale (the ``si_T`` of such a query is no ITS-90 value; ``fault`` is the
+    same): for a pass that only looks for the faulty rows.
+
+    Returns the query and the uncertainty rules per quantity key for the loader."""
+    cols, rules = _plan(spec, molar_mass)
     scale = get_scale(spec.temperature.scale).name
     if scale != "ITS-90" and scale not in SQL_CONVERSIONS:
         raise AssertionError(f"no SQL conversion for the supported scale {scale}")
-    parsed = _scaled_sql(_parse_sql(staged, cols, spec, duplicates, by_file), scale)
+    query = _scaled_sql(_parse_sql(staged, cols, spec, duplicates, by_file), scale, faults_only)
     col = spec.temperature.column.replace("'", "''")
     # a finite temperature that the scale conversion turned into NaN is out of its range; this
     # wins over the generic "finite number became non-finite" arm of _fault_sql
     scale_arm = (f"WHEN isfinite(num_T) AND isnan(si_T) THEN 'out-of-scale-range|{col}' "
                  if scale != "ITS-90" else "")
-    kept = ", ".join(f"{kind}_{c.key}" for c in cols for kind in ("txt", "empty", "si"))
-    con.execute(
-        f"CREATE OR REPLACE TEMP TABLE {out} AS "
-        f"WITH {duplicates} AS MATERIALIZED ({_duplicates_sql(staged, cols, by_file)}) "
-        f"SELECT {'fl_file, ' if by_file else ''}row_number, {kept}, CASE {scale_arm}WHEN true THEN fault END AS fault FROM "
-        f"(SELECT *, {_fault_sql(cols)} AS fault FROM ({parsed}))")
-    return rules
+    kinds = ("txt", "empty", "si", "num") if parsed else ("txt", "empty", "si")
+    kept = ", ".join(f"{kind}_{c.key}" for c in cols for kind in kinds)
+    return (f"SELECT {'fl_file, ' if by_file else ''}row_number, {kept}, CASE {scale_arm}"
+            f"WHEN true THEN fault END AS fault FROM "
+            f"(SELECT *, {_fault_sql(cols)} AS fault FROM ({query}))"), rules
 
 
 def layout(spec: TableSpec, molar_mass: float) -> str:
@@ -222,6 +251,8 @@ def layout(spec: TableSpec, molar_mass: float) -> str:
 
 #: scale -> SQL conversion to ITS-90 (layers, result), for every non-identity scale
 SQL_CONVERSIONS = {"IPTS-68": ipts68_to_its90_sql}
+#: scale -> SQL giving, per temperature, the faults the conversion would give (no arithmetic)
+SQL_RANGES = {"IPTS-68": ipts68_range_sql}
 
 
 def uncertainty_sql(key: str, rules: dict[str, dict]) -> str:

@@ -18,15 +18,15 @@ def test_an_unexpected_exception_in_one_batch_refuses_only_that_batch(raw_root, 
     for name in ("a", "b", "c"):
         write_batch(raw_root, name, SIMPLE_BATCH.format(source=f"rig-{name}"),
                     {"vp.csv": SIMPLE_CSV.replace("78.9", f"7{ord(name)}.9")})
-    original = stage.normalise
+    original = stage.load_staged
 
-    def faulty(con, staged, spec, molar_mass, out):
-        if spec.file == "vp.csv" and con.execute(
+    def faulty(ing, file_id, rel, sha, spec, staged, rejects):
+        if spec.file == "vp.csv" and ing.con.execute(
                 "SELECT count(*) FROM source WHERE source_id = 'rig-b'").fetchone()[0]:
             raise ZeroDivisionError("a bug in batch b")
-        return original(con, staged, spec, molar_mass, out)
+        return original(ing, file_id, rel, sha, spec, staged, rejects)
 
-    monkeypatch.setattr(stage, "normalise", faulty)
+    monkeypatch.setattr(stage, "load_staged", faulty)
     code = main(["ingest", str(raw_root), "--store", str(store_path)])
     out, err = capsys.readouterr()
     assert code == EXIT_INTERNAL
