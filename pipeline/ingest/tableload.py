@@ -25,6 +25,8 @@ from __future__ import annotations
 
 import json
 
+import duckdb
+
 from pipeline.ingest.normalise import (
     QUANTITY_KIND,
     duplicates_sql,
@@ -197,9 +199,15 @@ def _insert_observations(ing, file_id, spec, rules, staged, query: str) -> None:
             f"{per_quantity(kept_text('num_{q}', 'txt_{q}'))}, {cells}, num_T, "
             f"{per_quantity('num_{q}')} FROM {source} "
             f"WHERE fault IS NULL AND NOT {per_quantity('empty_{q}')}", params)
-    finally:
-        if large:
-            con.execute("RESET preserve_insertion_order")
+    except BaseException:
+        if large:   # the setting back if the connection still takes statements; the error wins
+            try:
+                con.execute("RESET preserve_insertion_order")
+            except duckdb.Error:
+                pass
+        raise
+    if large:
+        con.execute("RESET preserve_insertion_order")
     last = con.execute("SELECT max(obs_id) FROM observation WHERE file_id = ?",
                        [file_id]).fetchall()[0][0]
     if last is not None:
