@@ -21,7 +21,7 @@ import duckdb
 import numpy as np
 
 from pipeline.ingest.contract import TableSpec
-from pipeline.ingest.scales import get_scale, ipts68_range_sql, ipts68_to_its90_sql
+from pipeline.ingest.scales import get_scale, ipts68_to_its90_sql
 from pipeline.ingest.units import conversion
 
 # quantity -> (pint quantity kind, SI unit, physical upper bound in SI)
@@ -137,13 +137,10 @@ def _duplicates_sql(staged: str, cols: list[Column], by_file: bool = False) -> s
             "WHERE h.row_number > d.first_row")
 
 
-def _scaled_sql(query: str, scale: str, faults_only: bool = False) -> str:
-    """``query`` with ``si_T`` converted from ``scale`` to ITS-90 (layers of SQL arithmetic);
-    with ``faults_only``, only as far as the fault checks can tell (:data:`SQL_RANGES`)."""
+def _scaled_sql(query: str, scale: str) -> str:
+    """``query`` with ``si_T`` converted from ``scale`` to ITS-90 (layers of SQL arithmetic)."""
     if scale == "ITS-90":
         return query
-    if faults_only:
-        return f"SELECT * REPLACE ({SQL_RANGES[scale]('si_T')} AS si_T) FROM ({query})"
     layers, result = SQL_CONVERSIONS[scale]("si_T")
     for expression, name in layers:
         query = f"SELECT *, {expression} AS {name} FROM ({query})"
@@ -207,8 +204,7 @@ def duplicates_sql(staged: str, spec: TableSpec, molar_mass: float, by_file: boo
 
 
 def normalised_query(staged: str, spec: TableSpec, molar_mass: float, duplicates: str,
-                     by_file: bool = False, parsed: bool = False, faults_only: bool = False
-                     ) -> tuple[str, dict[str, dict]]:
+                     by_file: bool = False, parsed: bool = False) -> tuple[str, dict[str, dict]]:
     """The one pass over ``staged`` that parses, converts units and the temperature scale (SQL
     arithmetic generated from the published coefficients, :mod:`pipeline.ingest.scales`)
     and names each row's first fault: a query of ``row_number``, per mapped column
@@ -216,16 +212,12 @@ def normalised_query(staged: str, spec: TableSpec, molar_mass: float, duplicates
     ``num_<key>``: the number read from the cell, before any conversion). ``duplicates``
     names a table (or CTE) of the keys of duplicate rows (:func:`duplicates_sql`).
 
-    With ``faults_only`` the temperature is not converted to ITS-90, only checked against the
-    range of its scale (the ``si_T`` of such a query is no ITS-90 value; ``fault`` is the
-    same): for a pass that only looks for the faulty rows.
-
     Returns the query and the uncertainty rules per quantity key for the loader."""
     cols, rules = _plan(spec, molar_mass)
     scale = get_scale(spec.temperature.scale).name
     if scale != "ITS-90" and scale not in SQL_CONVERSIONS:
         raise AssertionError(f"no SQL conversion for the supported scale {scale}")
-    query = _scaled_sql(_parse_sql(staged, cols, spec, duplicates, by_file), scale, faults_only)
+    query = _scaled_sql(_parse_sql(staged, cols, spec, duplicates, by_file), scale)
     col = spec.temperature.column.replace("'", "''")
     # a finite temperature that the scale conversion turned into NaN is out of its range; this
     # wins over the generic "finite number became non-finite" arm of _fault_sql
@@ -251,8 +243,6 @@ def layout(spec: TableSpec, molar_mass: float) -> str:
 
 #: scale -> SQL conversion to ITS-90 (layers, result), for every non-identity scale
 SQL_CONVERSIONS = {"IPTS-68": ipts68_to_its90_sql}
-#: scale -> SQL giving, per temperature, the faults the conversion would give (no arithmetic)
-SQL_RANGES = {"IPTS-68": ipts68_range_sql}
 
 
 def uncertainty_sql(key: str, rules: dict[str, dict]) -> str:

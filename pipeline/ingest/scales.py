@@ -240,18 +240,6 @@ def ipts68_to_its90_sql(col: str, prefix: str = "fl_t90_"
     return layers, result
 
 
-def ipts68_range_sql(col: str) -> str:
-    """What :func:`ipts68_to_its90_sql` gives the fault checks, without its arithmetic: NaN
-    for a finite positive value outside 13.81 K <= T68 <= 1337.58 K, the value unchanged
-    otherwise. Inside that range the conversion moves a temperature by less than 0.1 K, so it
-    stays positive, finite and far below any physical bound: every fault a row gets is the
-    same with this expression as with the conversion (``tests/ingest/test_scales.py``
-    compares them on a grid through both edges). For a pass that only looks for faults."""
-    return (f"CASE WHEN {col} > 0 AND isfinite({col}) THEN (CASE WHEN {col} >= "
-            f"{_double(T68_MIN_K)} AND {col} <= {_double(T68_MAX_K)} THEN {col} "
-            f"ELSE CAST('nan' AS DOUBLE) END) ELSE {col} END")
-
-
 def _identity(T_K: np.ndarray) -> np.ndarray:
     return np.array(T_K, dtype=np.float64, copy=True)
 

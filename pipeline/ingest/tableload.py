@@ -6,11 +6,12 @@ is never copied into a normalised table. Instead:
 
 1. the row keys of duplicate rows go to a small table (a hash of the mapped cells, grouped
    once: set-based, and usually empty);
-2. the rows with a fault are parsed out of the staged table into a small table, and sent to
-   quarantine with one block of ids in row order;
-3. ONE ``INSERT ... SELECT`` parses the staged table again, converts units and the
-   temperature scale, and writes every observation of every quantity (the quantities of a
-   row are a join with a small list, not one pass each).
+2. ONE ``INSERT ... SELECT`` parses the staged table, converts units and the temperature
+   scale, and writes every observation of every quantity of the rows without a fault (the
+   quantities of a row are a join with a small list, not one pass each);
+3. the staged rows that gave no observation (an anti-join on the row number) are the faulty
+   ones: only they are parsed again, and sent to quarantine with one block of ids in row
+   order.
 
 Original cells without a second text column on every row: an observation keeps the number
 read from each cell (``T_parsed``, ``value_parsed``, in the file's unit and scale) and the
@@ -63,16 +64,23 @@ def load_staged(ing, file_id: int, rel: str, sha: str, spec, staged, rejects: li
     query, rules = normalised_query(staged.table, spec, molar_mass, "fl_dups", parsed=True)
     for row, column, raw, code, message, cell in rejects:
         ing._quarantine(file_id, sha, rel, row, column, raw, code, f"{rel}, {message}", cell)
-    faults, _ = normalised_query(staged.table, spec, molar_mass, "fl_dups", faults_only=True)
-    con.execute(f"CREATE OR REPLACE TEMP TABLE fl_faults AS SELECT * EXCLUDE (si_T) FROM "
-                f"({faults}) WHERE fault IS NOT NULL")
-    bad = con.execute("SELECT count(*) FROM fl_faults").fetchall()[0][0]
+    _insert_columns(con, file_id, spec, rules)
+    if rows:
+        _insert_observations(ing, file_id, spec, rules, staged, query)
+    # the rows that gave no observation are the faulty ones: only they are parsed again
+    con.execute(f"CREATE OR REPLACE TEMP TABLE fl_rest AS SELECT * FROM {staged.table} s "
+                "WHERE NOT EXISTS (SELECT 1 FROM observation o WHERE o.file_id = ? AND "
+                "o.row_number = s.row_number)", [file_id])
+    faults, _ = normalised_query("fl_rest", spec, molar_mass, "fl_dups")
+    con.execute(f"CREATE OR REPLACE TEMP TABLE fl_faults AS SELECT * FROM ({faults}) "
+                "WHERE fault IS NOT NULL")
+    bad, rest = con.execute("SELECT (SELECT count(*) FROM fl_faults), "
+                            "(SELECT count(*) FROM fl_rest)").fetchall()[0]
+    if bad != rest:
+        raise AssertionError(f"{rest - bad} row(s) neither loaded nor faulty")
     if bad:
         _quarantine_faults(ing, file_id, sha, rel, spec, staged, bad)
-    _insert_columns(con, file_id, spec, rules)
-    if rows > bad:
-        _insert_observations(ing, file_id, spec, rules, staged, query)
-    con.execute("DROP TABLE fl_dups; DROP TABLE fl_faults")
+    con.execute("DROP TABLE fl_dups; DROP TABLE fl_rest; DROP TABLE fl_faults")
     return rows - bad, bad + len(rejects)
 
 
