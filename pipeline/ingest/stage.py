@@ -64,7 +64,13 @@ from pipeline.ingest.points import constant_row, fixed_point_row
 from pipeline.ingest.rawread import MAX_TOML_BYTES, read_regular
 from pipeline.ingest.results import BatchResult, FileResult, IngestResult
 from pipeline.ingest.reader import stage_csv
-from pipeline.ingest.tableload import cell_sql, load_staged, raw_text_sql
+from pipeline.ingest.tableload import (
+    cell_sql,
+    load_staged,
+    memory_budget,
+    raw_text_sql,
+    restore_memory,
+)
 from pipeline.ingest.workbook import is_workbook, stage_workbook, table_path
 from pipeline.store.runs import end_run
 
@@ -159,6 +165,7 @@ class Ingestor:
                  run_id: str):
         self.con, self.root, self.fluids, self.run_id = con, root, fluids, run_id
         self._current_files: dict | None = None     # see _current
+        self._memory_before: str | None = None      # see tableload.memory_budget
 
     # -- what is in the store -------------------------------------------------------------
     def _current(self, batch: str) -> dict[str, tuple[int, str, str]]:
@@ -234,6 +241,8 @@ class Ingestor:
         except BaseException:
             _rollback(self.con)
             raise
+        finally:
+            restore_memory(self)
 
     def _load(self, plan: _Plan, current, unchanged: set[str], removed: list[str]) -> BatchResult:
         self._next_obs = None        # the next free obs_id, read once per batch
@@ -355,6 +364,10 @@ class Ingestor:
         needed.update({q: c.column for q, c in spec.value_columns().items()})
         needed.update({f"uncertainty of {q}": u.column for q, u in spec.uncertainty.items()
                        if u.column})
+        with memory_budget(self, len(content)):
+            return self._load_staged(file_id, rel, content, sha, spec, needed)
+
+    def _load_staged(self, file_id, rel, content, sha, spec: TableSpec, needed) -> FileResult:
         if is_workbook(spec.file):
             staged = stage_workbook(self.con, content, spec, rel, needed, "fl_stage")
             rejects = [(row, column, raw, code, f"cell {staged.cell(column, row)} (row {row}, "

@@ -63,3 +63,39 @@ def test_the_canonical_rendering_is_the_shortest_round_trip_text():
                      "12.34567", "6.02214076e+23", "273.16", "1234567890123456.0", "-0.0",
                      "5e-324", "1.7976931348623157e+308"]
     assert [float(t) for t in texts] == values
+
+
+def test_a_large_table_loads_under_the_memory_budget_and_the_limit_is_set_back(
+        raw_root, store_path, monkeypatch):
+    """A table file over the size threshold loads under DuckDB's lowered memory limit (seen
+    from inside the load) with the same rows; the connection's own limit is back afterwards,
+    also after a batch that failed inside the budget."""
+    from pipeline.ingest import tableload
+
+    monkeypatch.setattr(tableload, "LARGE_TABLE_BYTES", 10)
+    seen = []
+    original = tableload._insert_observations
+
+    def watching(ing, *args):
+        seen.append(ing.con.execute("SELECT current_setting('memory_limit')").fetchone()[0])
+        if len(seen) == 2:
+            raise OSError("injected after the budget was set")
+        return original(ing, *args)
+
+    monkeypatch.setattr(tableload, "_insert_observations", watching)
+    write_batch(raw_root, "b1", SIMPLE_BATCH.format(source="rig-a"),
+                {"vp.csv": "T,p\n85.0,78.9\n87.3,101.3\n"})
+    with open_store(store_path) as s:
+        before = s.con.execute("SELECT current_setting('memory_limit')").fetchone()[0]
+        assert not run_ingest(s.con, [raw_root]).errors
+        assert s.con.execute("SELECT current_setting('memory_limit')").fetchone()[0] == before
+        assert s.con.execute("SELECT count(*) FROM observation").fetchone()[0] == 2
+        write_batch(raw_root, "b2", SIMPLE_BATCH.format(source="rig-b"),
+                    {"vp.csv": "T,p\n88.0,110.0\n"})
+        try:
+            run_ingest(s.con, [raw_root])
+        except OSError:
+            pass
+        assert s.con.execute("SELECT current_setting('memory_limit')").fetchone()[0] == before
+    assert seen[0] == seen[1] != before
+    assert seen[0] in ("190.7 MiB", "200.0 MB")
