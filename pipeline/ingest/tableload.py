@@ -43,7 +43,7 @@ LARGE_FILE_ROWS = 100_000
 LARGE_TABLE_BYTES = 16 * 1024 * 1024
 #: DuckDB's memory limit while a large table loads: its staged rows and hash tables spill to
 #: the store's temporary folder instead of growing the process (2 M rows: peak RSS about
-#: 630 -> 500 MiB for the same CPU time, measured with benchmarks/ingest.py's data)
+#: 700 -> 500 MiB, for up to about 13 % more CPU time; DEVELOPERS.md has the figures)
 LARGE_TABLE_MEMORY = "200MB"
 #: SQL of the canonical rendering of a parsed number; the cell's text is kept only when it
 #: differs (the view observation_history of migration 009 uses the same expression)
