@@ -174,9 +174,11 @@ def _fault_sql(cols: list[Column]) -> str:
 
 
 def normalise(con: duckdb.DuckDBPyConnection, staged: str, spec: TableSpec,
-              molar_mass: float, out: str, by_file: bool = False) -> dict[str, dict]:
+              molar_mass: float, out: str, by_file: bool = False, parsed: bool = False
+              ) -> dict[str, dict]:
     """Create temp table ``out``: ``row_number``, and per mapped column ``txt_<key>`` (the cell
-    as written), ``empty_<key>`` and ``si_<key>`` (its SI value), and ``fault``.
+    as written), ``empty_<key>`` and ``si_<key>`` (its SI value), and ``fault`` (with
+    ``parsed``, also ``num_<key>``, see :func:`normalised_query`).
 
     Returns the uncertainty rules per quantity key for the loader. One statement (a fixed
     cost per file counts when thousands of small files arrive): a materialised CTE of the
@@ -188,7 +190,7 @@ def normalise(con: duckdb.DuckDBPyConnection, staged: str, spec: TableSpec,
     duplicates counted within each file.
     """
     duplicates = "fl_duplicate_rows"   # a CTE of the one statement below
-    query, rules = normalised_query(staged, spec, molar_mass, duplicates, by_file)
+    query, rules = normalised_query(staged, spec, molar_mass, duplicates, by_file, parsed)
     con.execute(
         f"CREATE OR REPLACE TEMP TABLE {out} AS "
         f"WITH {duplicates} AS MATERIALIZED ({duplicates_sql(staged, spec, molar_mass, by_file)}"

@@ -63,6 +63,7 @@ from pipeline.ingest.discover import (
 from pipeline.ingest.points import constant_row, fixed_point_row
 from pipeline.ingest.rawread import MAX_TOML_BYTES, read_regular
 from pipeline.ingest.results import BatchResult, FileResult, IngestResult
+from pipeline.ingest.normalise import normalise  # noqa: F401 - the group loader calls stage.normalise
 from pipeline.ingest.reader import stage_csv
 from pipeline.ingest.tableload import (
     cell_sql,

@@ -32,6 +32,7 @@ import duckdb
 from pipeline.ingest.normalise import (
     QUANTITY_KIND,
     duplicates_sql,
+    normalise,
     normalised_query,
     uncertainty_sql,
 )
@@ -99,14 +100,26 @@ def load_staged(ing, file_id: int, rel: str, sha: str, spec, staged, rejects: li
     con = ing.con
     molar_mass = ing.fluids[spec.fluid].molar_mass_kg_mol
     rows = con.execute(f"SELECT count(*) FROM {staged.table}").fetchall()[0][0]
+    for row, column, raw, code, message, cell in rejects:
+        ing._quarantine(file_id, sha, rel, row, column, raw, code, f"{rel}, {message}", cell)
+    if rows <= LARGE_FILE_ROWS:
+        # a small table: normalised once into a table (the large generated query compiled
+        # once per file is what a small file costs), then inserted and quarantined from it
+        rules = normalise(con, staged.table, spec, molar_mass, "fl_norm", parsed=True)
+        _insert_columns(con, file_id, spec, rules)
+        _insert_observations(ing, file_id, spec, rules, staged, "SELECT * FROM fl_norm")
+        con.execute("CREATE OR REPLACE TEMP TABLE fl_faults AS SELECT * FROM fl_norm "
+                    "WHERE fault IS NOT NULL")
+        bad = con.execute("SELECT count(*) FROM fl_faults").fetchall()[0][0]
+        if bad:
+            _quarantine_faults(ing, file_id, sha, rel, spec, staged, bad)
+        con.execute("DROP TABLE fl_norm; DROP TABLE fl_faults")
+        return rows - bad, bad + len(rejects)
     con.execute(f"CREATE OR REPLACE TEMP TABLE fl_dups AS "
                 f"{duplicates_sql(staged.table, spec, molar_mass)}")
     query, rules = normalised_query(staged.table, spec, molar_mass, "fl_dups", parsed=True)
-    for row, column, raw, code, message, cell in rejects:
-        ing._quarantine(file_id, sha, rel, row, column, raw, code, f"{rel}, {message}", cell)
     _insert_columns(con, file_id, spec, rules)
-    if rows:
-        _insert_observations(ing, file_id, spec, rules, staged, query)
+    _insert_observations(ing, file_id, spec, rules, staged, query)
     # the rows that gave no observation are the faulty ones: only they are parsed again
     con.execute(f"CREATE OR REPLACE TEMP TABLE fl_rest AS SELECT * FROM {staged.table} s "
                 "WHERE NOT EXISTS (SELECT 1 FROM observation o WHERE o.file_id = ? AND "

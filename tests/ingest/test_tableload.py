@@ -99,3 +99,18 @@ def test_a_large_table_loads_under_the_memory_budget_and_the_limit_is_set_back(
         assert s.con.execute("SELECT current_setting('memory_limit')").fetchone()[0] == before
     assert seen[0] == seen[1] != before
     assert seen[0] in ("190.7 MiB", "200.0 MB")
+
+
+def test_small_batches_load_together_without_falling_back(raw_root, store_path, caplog):
+    """Two small good batches load in one group: the group loader never reports a failed
+    group (a failure would still give the same store, one batch at a time, only slower)."""
+    import logging
+
+    for name, p in (("a", "78.9"), ("b", "79.0")):
+        write_batch(raw_root, name, SIMPLE_BATCH.format(source=f"rig-{name}"),
+                    {"vp.csv": f"T,p\n85.0,{p}\n87.3,101.3\n"})
+    with caplog.at_level(logging.DEBUG, logger="pipeline.ingest.grouped"):
+        assert not ingest(store_path, raw_root).errors
+    assert "failed" not in caplog.text
+    with open_store(store_path, read_only=True) as s:
+        assert s.con.execute("SELECT count(*) FROM observation").fetchone()[0] == 4
