@@ -2,7 +2,8 @@
 
 The staged table (``fl_stage``: ``row_number`` and the cells as text, from
 :func:`pipeline.ingest.reader.stage_csv` or :func:`pipeline.ingest.workbook.stage_workbook`)
-is never copied into a normalised table. Instead:
+of a large file (more than :data:`LARGE_FILE_ROWS` rows) is never copied into a normalised
+table (a small one is, since compiling the generated query twice costs it more). Instead:
 
 1. the row keys of duplicate rows go to a small table (a hash of the mapped cells, grouped
    once: set-based, and usually empty);
