@@ -16,8 +16,10 @@ Every measurement runs in its own fresh process (``--child``), so the peak RSS p
 process's own high-water mark (``VmHWM`` of /proc/self/status, which starts afresh at exec;
 ``ru_maxrss`` would carry the parent's). The bare load and the ingest alternate within each
 repeat (``--repeat``, default 3), so the machine's load weighs on both alike; times are shown
-as min / median / max and the ratios are of the medians. The machine's load average is printed
-before and after.
+as min / median / max and the ratios are of the medians. Each side's CPU time (all its
+threads, user + system, over the same window as its wall time) is printed beside: on a
+machine loaded by other work it moves far less than the wall time. The machine's load
+average is printed before and after.
 
 With ``--before DIR`` the ingest of the checkout at DIR (for example a worktree of the code
 before a change) is measured too, in the same repeats, and its ratios printed beside.
@@ -135,35 +137,43 @@ def peak_mib() -> float:
     raise RuntimeError("no VmHWM in /proc/self/status")
 
 
+def cpu_seconds() -> float:
+    """CPU time of this process so far, every thread (DuckDB's too), user + system [s]."""
+    import resource
+
+    use = resource.getrusage(resource.RUSAGE_SELF)
+    return use.ru_utime + use.ru_stime
+
+
 def child_bare(raw: Path, db: Path) -> dict:
     """DuckDB's typed read_csv of every table file of ``raw`` into one table, one statement
     per file (the big batch has one file)."""
     import duckdb
 
     files = sorted(str(p) for p in raw.rglob("*.csv"))
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), cpu_seconds()
     con = duckdb.connect(str(db))
     con.execute("CREATE TABLE t (T DOUBLE, p DOUBLE, u_p DOUBLE)")
     for f in files:
         con.execute(f"INSERT INTO t SELECT * FROM read_csv(?, header=true, auto_detect=false, "
                     f"columns={COLUMNS}, ignore_errors=true)", [f])
     con.close()
-    return {"seconds": time.perf_counter() - t0, "files": len(files)}
+    return {"seconds": time.perf_counter() - t0, "cpu": cpu_seconds() - c0, "files": len(files)}
 
 
 def child_ingest(raw: Path, db: Path) -> dict:
     from pipeline.ingest.stage import run_ingest
     from pipeline.store import open_store
 
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), cpu_seconds()
     with open_store(db) as s:
         result = run_ingest(s.con, [raw])
-    seconds = time.perf_counter() - t0
+    seconds, cpu = time.perf_counter() - t0, cpu_seconds() - c0
     if result.errors:
         raise SystemExit(f"ingest refused batches: {[b.error for b in result.errors][:3]}")
     rows = [sum(b.rows[k] for b in result.batches) for k in range(3)]
     files = sum(1 for b in result.batches for f in b.files if not f.path.endswith("batch.toml"))
-    return {"seconds": seconds, "rows": rows, "files": files}
+    return {"seconds": seconds, "cpu": cpu, "rows": rows, "files": files}
 
 
 def run_child(side: str, raw: Path, db: Path, code: str | None = None) -> dict:
@@ -213,6 +223,9 @@ def report_before(full: list[dict], old: list[dict], bare: list[dict], per: floa
           f"{spread([o['seconds'] * per for o in old], '.2f')} {unit}, peak RSS "
           f"{spread([o['peak_mib'] for o in old], '.0f')} MiB; ratio to bare {to / tb:.2f}, "
           f"speed-up now / before {to / tf:.2f}x")
+    co, cf = (statistics.median([r.get("cpu", 0.0) for r in side]) for side in (old, full))
+    if co and cf:
+        print(f"  CPU time before / now: {co:.2f} / {cf:.2f} s ({co / cf:.2f}x)")
 
 
 def report_big(bare: list[dict], full: list[dict], rows: int) -> None:
@@ -227,6 +240,10 @@ def report_big(bare: list[dict], full: list[dict], rows: int) -> None:
           f"peak RSS {spread(mb, '.0f')} MiB")
     print(f"  full ingest into a file-backed store:  {spread(tf, '.2f')} s, "
           f"peak RSS {spread(mf, '.0f')} MiB")
+    cb, cf = [b.get("cpu", 0.0) for b in bare], [f.get("cpu", 0.0) for f in full]
+    print(f"  CPU time (all threads), bare / ingest: {spread(cb, '.2f')} s / {spread(cf, '.2f')} "
+          f"s; ratio {statistics.median(cf) / statistics.median(cb):.2f} (less swayed by the "
+          "machine's load than the wall time)")
     print(f"  time ratio ingest / bare: {time_ratio:.2f}  (target <= {TARGET_BIG_TIME}: "
           f"{'met' if time_ratio <= TARGET_BIG_TIME else 'NOT met'})")
     print(f"  peak RSS ratio ingest / bare: {rss_ratio:.2f}  (target <= {TARGET_BIG_RSS}: "

@@ -127,7 +127,7 @@ def build_store(path: Path, n: int) -> None:
                         "T": T_obs.ravel(), "p": p_obs.ravel()})
         con.register("obs", obs)
         con.execute("""INSERT INTO observation SELECT obs_id, file_id, row_number, 'pressure', T,
-            0.01, p, 1e-3 * p, CAST(T AS VARCHAR), CAST(p AS VARCHAR), NULL, NULL FROM obs""")
+            0.01, p, 1e-3 * p, NULL, NULL, NULL, NULL, T, p FROM obs""")
         fits = []
         for i in range(n):
             for boundary, curve in (("liquid-vapour", vap[i]), ("solid-vapour", sub[i])):

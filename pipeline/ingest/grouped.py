@@ -318,7 +318,9 @@ def _insert_observations(con, g: int, group: list[_File], rules: dict) -> None:
                f"WHERE fault IS NULL AND NOT empty_{q}" for qi, q in enumerate(quantities)]
     con.execute("WITH fl_bases AS (SELECT * FROM (VALUES " + ", ".join(
         ["(?::BIGINT, ?::BIGINT, ?::BIGINT)"] * len(bases)) + ") AS v(fl_file, base, file_id)) "
-        "INSERT INTO observation " + " UNION ALL ".join(selects), params)
+        "INSERT INTO observation (obs_id, file_id, row_number, quantity, T_K, u_T_K, value_si, "
+        "u_value_si, T_original, value_original, T_cell_ref, value_cell_ref) "
+        + " UNION ALL ".join(selects), params)
 
 
 def _quarantine_faults(ing, f: _File, g: int) -> None:

@@ -174,39 +174,62 @@ def _fault_sql(cols: list[Column]) -> str:
 
 
 def normalise(con: duckdb.DuckDBPyConnection, staged: str, spec: TableSpec,
-              molar_mass: float, out: str, by_file: bool = False) -> dict[str, dict]:
+              molar_mass: float, out: str, by_file: bool = False, parsed: bool = False
+              ) -> dict[str, dict]:
     """Create temp table ``out``: ``row_number``, and per mapped column ``txt_<key>`` (the cell
-    as written), ``empty_<key>`` and ``si_<key>`` (its SI value), and ``fault``.
+    as written), ``empty_<key>`` and ``si_<key>`` (its SI value), and ``fault`` (with
+    ``parsed``, also ``num_<key>``, see :func:`normalised_query`).
 
     Returns the uncertainty rules per quantity key for the loader. One statement (a fixed
     cost per file counts when thousands of small files arrive): a materialised CTE of the
     row numbers of duplicate rows (a hash of their mapped cells, grouped once - not a window
-    sort), then one pass that parses, converts units and the temperature scale (SQL
-    arithmetic generated from the published coefficients, :mod:`pipeline.ingest.scales`)
-    and names each row's first fault.
+    sort), then :func:`normalised_query`.
 
     With ``by_file``, ``staged`` holds the rows of several files of the same layout, told
     apart by the column ``fl_file`` (kept in ``out``): one statement normalises them all,
     duplicates counted within each file.
     """
-    cols, rules = _plan(spec, molar_mass)
     duplicates = "fl_duplicate_rows"   # a CTE of the one statement below
+    query, rules = normalised_query(staged, spec, molar_mass, duplicates, by_file, parsed)
+    con.execute(
+        f"CREATE OR REPLACE TEMP TABLE {out} AS "
+        f"WITH {duplicates} AS MATERIALIZED ({duplicates_sql(staged, spec, molar_mass, by_file)}"
+        f") {query}")
+    return rules
+
+
+def duplicates_sql(staged: str, spec: TableSpec, molar_mass: float, by_file: bool = False
+                   ) -> str:
+    """The query of the row keys of ``staged`` that repeat an earlier row (see
+    :func:`_duplicates_sql`), for a table or CTE named by :func:`normalised_query`."""
+    return _duplicates_sql(staged, _plan(spec, molar_mass)[0], by_file)
+
+
+def normalised_query(staged: str, spec: TableSpec, molar_mass: float, duplicates: str,
+                     by_file: bool = False, parsed: bool = False) -> tuple[str, dict[str, dict]]:
+    """The one pass over ``staged`` that parses, converts units and the temperature scale (SQL
+    arithmetic generated from the published coefficients, :mod:`pipeline.ingest.scales`)
+    and names each row's first fault: a query of ``row_number``, per mapped column
+    ``txt_<key>``, ``empty_<key>`` and ``si_<key>``, and ``fault`` (with ``parsed``, also
+    ``num_<key>``: the number read from the cell, before any conversion). ``duplicates``
+    names a table (or CTE) of the keys of duplicate rows (:func:`duplicates_sql`).
+
+    Returns the query and the uncertainty rules per quantity key for the loader."""
+    cols, rules = _plan(spec, molar_mass)
     scale = get_scale(spec.temperature.scale).name
     if scale != "ITS-90" and scale not in SQL_CONVERSIONS:
         raise AssertionError(f"no SQL conversion for the supported scale {scale}")
-    parsed = _scaled_sql(_parse_sql(staged, cols, spec, duplicates, by_file), scale)
+    query = _scaled_sql(_parse_sql(staged, cols, spec, duplicates, by_file), scale)
     col = spec.temperature.column.replace("'", "''")
     # a finite temperature that the scale conversion turned into NaN is out of its range; this
     # wins over the generic "finite number became non-finite" arm of _fault_sql
     scale_arm = (f"WHEN isfinite(num_T) AND isnan(si_T) THEN 'out-of-scale-range|{col}' "
                  if scale != "ITS-90" else "")
-    kept = ", ".join(f"{kind}_{c.key}" for c in cols for kind in ("txt", "empty", "si"))
-    con.execute(
-        f"CREATE OR REPLACE TEMP TABLE {out} AS "
-        f"WITH {duplicates} AS MATERIALIZED ({_duplicates_sql(staged, cols, by_file)}) "
-        f"SELECT {'fl_file, ' if by_file else ''}row_number, {kept}, CASE {scale_arm}WHEN true THEN fault END AS fault FROM "
-        f"(SELECT *, {_fault_sql(cols)} AS fault FROM ({parsed}))")
-    return rules
+    kinds = ("txt", "empty", "si", "num") if parsed else ("txt", "empty", "si")
+    kept = ", ".join(f"{kind}_{c.key}" for c in cols for kind in kinds)
+    return (f"SELECT {'fl_file, ' if by_file else ''}row_number, {kept}, CASE {scale_arm}"
+            f"WHEN true THEN fault END AS fault FROM "
+            f"(SELECT *, {_fault_sql(cols)} AS fault FROM ({query}))"), rules
 
 
 def layout(spec: TableSpec, molar_mass: float) -> str:

@@ -65,14 +65,21 @@ def read_regular(path: Path, label: str, *, limit: int | None = None,
         if limit is not None and info.st_size > limit:
             raise error(f"is {info.st_size:,} bytes long, over the limit of {limit:,} bytes",
                         file=label)
-        chunks, size = [], 0
-        while chunk := os.read(fd, 1 << 20):
-            chunks.append(chunk)
-            size += len(chunk)
+        # the size the file has now in one read (one buffer, not chunks joined into a second
+        # copy: a large table would need twice its size); then on to the end of the file (a
+        # short read, a file that grew, one that states no size)
+        first = os.read(fd, info.st_size + 1) if info.st_size else b""
+        chunks, size = [first], len(first)
+        while True:
             if limit is not None and size > limit:
                 raise error(f"grew past the limit of {limit:,} bytes while being read",
                             file=label)
-        return b"".join(chunks)
+            chunk = os.read(fd, 1 << 20)
+            if not chunk:
+                break
+            chunks.append(chunk)
+            size += len(chunk)
+        return first if len(chunks) == 1 else b"".join(chunks)
     except OSError as err:
         raise error(f"cannot be read: {err.strerror or err}", file=label) from None
     finally:

@@ -17,6 +17,7 @@ header columns and :data:`MAX_LINE_BYTES` bytes per line (a longer line is no nu
 
 from __future__ import annotations
 
+import codecs
 import csv
 import io
 import os
@@ -59,6 +60,25 @@ def _decode(data: bytes, encoding: str, label: str) -> str:
         hint = " ; declare encoding = \"latin-1\" in the table entry if the file is Latin-1"
         raise BatchError(f"byte {err.start} is not valid {encoding}{hint}", file=label,
                          row=line - 1) from None
+
+
+_CHECK_CHUNK = 1 << 22
+
+
+def _check_encoding(data: bytes, encoding: str, label: str) -> None:
+    """Refuse bytes that are not valid in ``encoding`` as :func:`_decode` does, without
+    keeping the decoded text (a large file is checked a few MiB at a time)."""
+    if ENCODINGS[encoding] != "utf-8":
+        return                           # every byte is a Latin-1 character
+    decoder = codecs.getincrementaldecoder("utf-8")()
+    view = memoryview(data)
+    try:
+        for start in range(0, len(view), _CHECK_CHUNK):
+            decoder.decode(view[start:start + _CHECK_CHUNK])
+        decoder.decode(b"", final=True)
+    except UnicodeDecodeError:
+        _decode(data, encoding, label)   # the same message, with its byte and row
+        raise AssertionError("incremental and whole UTF-8 decoding disagree") from None
 
 
 def read_header(first: str, spec, label: str) -> tuple[str, ...]:
@@ -111,18 +131,26 @@ class _Lines:
     @classmethod
     def of(cls, data: bytes) -> "_Lines":
         buf = np.frombuffer(data, dtype=np.uint8)
-        newlines = np.flatnonzero(buf == 10)
-        starts = np.concatenate(([0], newlines + 1))
-        ends = np.concatenate((newlines, [buf.size]))
+        # the newlines found a few MiB at a time: no mask as large as the file
+        newlines = np.concatenate([np.flatnonzero(buf[i:i + _CHECK_CHUNK] == 10) + i
+                                   for i in range(0, buf.size, _CHECK_CHUNK)] or
+                                  [np.zeros(0, np.int64)]).astype(np.int64, copy=False)
+        starts = np.empty(newlines.size + 1, dtype=np.int64)
+        starts[0] = 0
+        starts[1:] = newlines + 1
+        length = np.append(newlines, buf.size)      # the ends, made lengths in place
+        del newlines
         if starts[-1] == buf.size:          # trailing newline: no last line
-            starts, ends = starts[:-1], ends[:-1]
-        length = ends - starts
-        has = length > 0
-        cr = np.zeros_like(length, dtype=bool)
+            starts, length = starts[:-1], length[:-1]
+        has = length > starts
+        ends = length
+        cr = np.zeros(ends.shape, dtype=bool)
         cr[has] = buf[ends[has] - 1] == 13
-        first = np.full(length.shape, -1, dtype=np.int64)
+        first = np.full(ends.shape, -1, dtype=np.int16)
         first[has] = buf[starts[has]]
-        return cls(starts, length - cr, first)
+        length -= starts
+        length -= cr
+        return cls(starts, length, first)
 
     def skipped(self, comment: str) -> np.ndarray:
         """Per line: blank (or only ``\\r``), or starting with the comment character."""
@@ -133,21 +161,29 @@ class _Lines:
 
 
 class _Physical:
-    """The file's lines (``physical[i]`` is line i + 1), split only when first needed: a large
-    file without rejects or comments never pays for a list of its lines."""
+    """The file's lines (``physical[i]`` is line i + 1) from its bytes (BOM removed), decoded
+    only when first needed: a large file without rejects or comments never pays for its
+    text, nor for a list of its lines."""
 
-    def __init__(self, text: str):
-        self._text, self._lines = text, None
+    def __init__(self, body: bytes, encoding: str):
+        self._body, self._encoding, self._text, self._lines = body, encoding, None, None
+
+    @property
+    def text(self) -> str:
+        if self._text is None:
+            self._text = self._body.decode(ENCODINGS[self._encoding])
+        return self._text
 
     def _split(self) -> list[str]:
         if self._lines is None:
-            self._lines = self._text.split("\n")
+            self._lines = self.text.split("\n")
         return self._lines
 
     def __getitem__(self, i: int) -> str:
-        if i == 0 and self._lines is None:
-            end = self._text.find("\n")
-            return self._text if end < 0 else self._text[:end]
+        if i == 0 and self._lines is None:   # a newline byte is never part of a character
+            end = self._body.find(b"\n")
+            first = self._body if end < 0 else self._body[:end]
+            return first.decode(ENCODINGS[self._encoding])
         return self._split()[i]
 
     def __len__(self) -> int:
@@ -234,6 +270,9 @@ def _private_copy(data: bytes, start: int) -> str:
     fd, path = tempfile.mkstemp(prefix="fluidledger-stage-", suffix=".csv")
     try:
         with os.fdopen(fd, "wb") as fh:
+            if data.find(b"\r", start) < 0:     # no line ending to change: written as it is
+                fh.write(view)
+                return path
             pos, size = 0, len(view)
             while pos < size:
                 end = min(pos + _COPY_CHUNK, size)
@@ -253,11 +292,11 @@ _COPY_CHUNK = 1 << 22
 def stage_csv(con: duckdb.DuckDBPyConnection, data: bytes, spec, label: str,
               needed: dict[str, str], table: str) -> StagedTable:
     """Stage the CSV file whose bytes are ``data`` into temporary table ``table``."""
-    text = _decode(data, spec.encoding, label)
+    _check_encoding(data, spec.encoding, label)
     body = data[3:] if data.startswith(b"\xef\xbb\xbf") else data
     info = _Lines.of(body)
     header_line = _header_line(info, spec.comment, label)
-    physical = _Physical(text)
+    physical = _Physical(body, spec.encoding)
     first = physical[header_line - 1]
     if first.count(spec.delimiter) >= MAX_COLUMNS and len(first) > MAX_LINE_BYTES:
         raise BatchError(f"header has more than {MAX_COLUMNS:,} columns ({len(first):,} "
@@ -303,6 +342,7 @@ def stage_csv(con: duckdb.DuckDBPyConnection, data: bytes, spec, label: str,
     if not np.isin(reject_lines, lines).all():
         # DuckDB numbered a record on a line that is not a data line: it broke a line at a
         # lone carriage return, so its line numbers no longer match the file's
+        text = physical.text
         cr = re.search("\r(?!\n)", text)
         row = text.count("\n", 0, cr.start()) + 1 - header_line if cr else None
         raise BatchError("a carriage return not followed by a newline splits a row; remove it "

@@ -34,7 +34,6 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 import duckdb
-import pyarrow as pa
 
 from pipeline import __version__
 from pipeline.errors import (
@@ -61,18 +60,23 @@ from pipeline.ingest.discover import (
     real_folder,
     table_file,
 )
-from pipeline.ingest.normalise import QUANTITY_KIND, normalise, uncertainty_sql
 from pipeline.ingest.points import constant_row, fixed_point_row
 from pipeline.ingest.rawread import MAX_TOML_BYTES, read_regular
 from pipeline.ingest.results import BatchResult, FileResult, IngestResult
+from pipeline.ingest.normalise import normalise  # noqa: F401 - the group loader calls stage.normalise
 from pipeline.ingest.reader import stage_csv
+from pipeline.ingest.tableload import (
+    cell_sql,
+    load_staged,
+    memory_budget,
+    raw_text_sql,
+    restore_memory,
+)
 from pipeline.ingest.workbook import is_workbook, stage_workbook, table_path
 from pipeline.store.runs import end_run
 
 log = logging.getLogger(__name__)
 REMOVED = 0  # raw_file.superseded_by for a file that disappeared from raw/
-#: Rows above which the observation insert is told it need not keep row order
-LARGE_FILE_ROWS = 100_000
 
 
 def utcnow() -> datetime:
@@ -162,6 +166,7 @@ class Ingestor:
                  run_id: str):
         self.con, self.root, self.fluids, self.run_id = con, root, fluids, run_id
         self._current_files: dict | None = None     # see _current
+        self._memory_before: str | None = None      # see tableload.memory_budget
 
     # -- what is in the store -------------------------------------------------------------
     def _current(self, batch: str) -> dict[str, tuple[int, str, str]]:
@@ -237,6 +242,8 @@ class Ingestor:
         except BaseException:
             _rollback(self.con)
             raise
+        finally:
+            restore_memory(self)
 
     def _load(self, plan: _Plan, current, unchanged: set[str], removed: list[str]) -> BatchResult:
         self._next_obs = None        # the next free obs_id, read once per batch
@@ -358,6 +365,10 @@ class Ingestor:
         needed.update({q: c.column for q, c in spec.value_columns().items()})
         needed.update({f"uncertainty of {q}": u.column for q, u in spec.uncertainty.items()
                        if u.column})
+        with memory_budget(self, len(content)):
+            return self._load_staged(file_id, rel, content, sha, spec, needed)
+
+    def _load_staged(self, file_id, rel, content, sha, spec: TableSpec, needed) -> FileResult:
         if is_workbook(spec.file):
             staged = stage_workbook(self.con, content, spec, rel, needed, "fl_stage")
             rejects = [(row, column, raw, code, f"cell {staged.cell(column, row)} (row {row}, "
@@ -368,122 +379,14 @@ class Ingestor:
             rejects = [(row, column, raw, "bad-row-shape", f"row {row}" + (
                 f", column '{column}'" if column else "") + f": {message}", None)
                 for row, column, raw, message in staged.rejects]
-        molar_mass = self.fluids[spec.fluid].molar_mass_kg_mol
-        rules = normalise(self.con, "fl_stage", spec, molar_mass, "fl_norm")
-        quantities = list(spec.value_columns())
-        loaded, bad, *last_rows = self.con.execute(
-            "SELECT count(*) FILTER (WHERE fault IS NULL), count(*) FILTER (WHERE fault IS NOT "
-            "NULL), " + ", ".join(f"max(row_number) FILTER (WHERE fault IS NULL AND NOT "
-                                  f"empty_{q})" for q in quantities) + " FROM fl_norm"
-        ).fetchall()[0]
-        for row, column, raw, code, message, cell in rejects:
-            self._quarantine(file_id, sha, rel, row, column, raw, code, f"{rel}, {message}", cell)
-        self._insert_observations(file_id, spec, rules, staged, last_rows)
-        if bad:
-            self._quarantine_faults(file_id, sha, rel, spec, staged)
-        quarantined = bad + len(rejects)
+        loaded, quarantined = load_staged(self, file_id, rel, sha, spec, staged, rejects)
         self._count(file_id, staged.rows_read, loaded, quarantined)
-        self.con.execute("DROP TABLE fl_stage; DROP TABLE fl_norm")
+        self.con.execute("DROP TABLE fl_stage")
         return FileResult(rel, "loaded", staged.rows_read, loaded, quarantined)
 
-    def _quarantine_faults(self, file_id, sha, rel, spec: TableSpec, staged) -> None:
-        """The rows of fl_norm with a fault, to quarantine with their reason and cell."""
-        cell_ref, cell_params = self._cell_ref(spec, staged)
-        where = ("printf('row %d%s', row_number, CASE WHEN split_part(fault, '|', 2) <> '' THEN "
-                 "printf(', column ''%s''', split_part(fault, '|', 2)) ELSE '' END)")
-        if cell_params:     # a workbook: the cell first, as the spreadsheet shows it
-            where = (f"CASE WHEN cell_ref IS NULL THEN {where} ELSE printf('cell %s (row %d, "
-                     "column ''%s'')', cell_ref, row_number, split_part(fault, '|', 2)) END")
-        self.con.execute(
-            "INSERT INTO quarantine SELECT nextval('q_id_seq'), ?, ?, ?, row_number, "
-            "nullif(split_part(fault, '|', 2), ''), raw, split_part(fault, '|', 1), "
-            f"printf('%s, %s: %s (cell %s)', ?, {where}, split_part(fault, '|', 1), "
-            "coalesce(cell, 'empty')), ?, cell_ref FROM ("
-            f"SELECT *, {self._raw_text(spec)} AS raw, {self._cell(spec)} AS cell, "
-            f"{cell_ref} AS cell_ref FROM fl_norm WHERE fault IS NOT NULL)",
-            [file_id, sha, rel, rel, self.run_id, *cell_params])
-
-    @staticmethod
-    def _raw_text(spec: TableSpec) -> str:
-        keys = ["T"] + list(spec.value_columns())
-        sep = spec.delimiter.replace("'", "''")
-        return "concat_ws('" + sep + "', " + ", ".join(f"coalesce(txt_{k}, '')" for k in keys) + ")"
-
-    @staticmethod
-    def _cell(spec: TableSpec) -> str:
-        def lit(text: str) -> str:
-            return "'" + text.replace("'", "''") + "'"
-
-        arms = [f"WHEN split_part(fault, '|', 2) = {lit(spec.temperature.column)} THEN txt_T"]
-        arms += [f"WHEN split_part(fault, '|', 2) = {lit(c.column)} THEN txt_{q}"
-                 for q, c in spec.value_columns().items()]
-        arms += [f"WHEN split_part(fault, '|', 2) = {lit(u.column)} "
-                 f"THEN txt_u_{'T' if q == 'temperature' else q}"
-                 for q, u in spec.uncertainty.items() if u.column]
-        return "CASE " + " ".join(arms) + " END"
-
-    @staticmethod
-    def _cell_ref(spec: TableSpec, staged) -> tuple[str, list]:
-        """SQL (and its parameters) of the workbook cell at fault in fl_norm; NULL for CSV."""
-        if not is_workbook(spec.file):
-            return "NULL", []
-        columns = [spec.temperature.column] + [c.column for c in spec.value_columns().values()]
-        columns += [u.column for u in spec.uncertainty.values() if u.column]
-        arms, params = [], []
-        for column in columns:
-            arms.append("WHEN split_part(fault, '|', 2) = ? THEN concat(?, row_number + ?)")
-            params += [column, staged.cell_prefix(column), staged.header_row]
-        return "CASE " + " ".join(arms) + " END", params
-
-    def _insert_observations(self, file_id, spec: TableSpec, rules, staged,
-                             last_rows: list[int | None]) -> None:
-        """Narrow bulk inserts (per-file facts go to raw_column once, in one statement); ids
-        are allocated as a block after the current maximum, so no sequence is touched per
-        row, and every quantity goes in the same statement. A workbook's values keep their
-        cells (``VLE!C14``): the column's prefix and the sheet row. ``last_rows`` is the
-        last row number loaded per quantity (None: none), which gives the next free id
-        without asking the store again."""
-        quantities = list(spec.value_columns().items())
-        if self._next_obs is None:
-            self._next_obs = self.con.execute(
-                "SELECT coalesce(max(obs_id), 0) + 1 FROM observation").fetchall()[0][0]
-        base = self._next_obs
-        t = spec.temperature
-        columns = [("temperature", t.column, t.unit, t.scale, "K", rules.get("T"))]
-        columns += [(q, cs.column, cs.unit, None, QUANTITY_KIND[q][1], rules.get(q))
-                    for q, cs in quantities]
-        self.con.execute(
-            "INSERT INTO raw_column VALUES " + ", ".join(["(?, ?, ?, ?, ?, ?, ?)"] * len(columns)),
-            [v for quantity, column, unit, scale, si_unit, rule in columns
-             for v in (file_id, quantity, column, unit, scale, si_unit,
-                       json.dumps(rule, sort_keys=True) if rule else None)])
-        if all(last is None for last in last_rows):
-            return
-        uT = uncertainty_sql("T", rules)
-        workbook = is_workbook(spec.file)
-        cells = "concat(?, row_number + ?), concat(?, row_number + ?)" if workbook else "NULL, NULL"
-        selects, params = [], []
-        for qi, (q, cs) in enumerate(quantities):
-            if last_rows[qi] is None:
-                continue
-            params += [base, file_id, q]
-            if workbook:
-                params += [staged.cell_prefix(t.column), staged.header_row,
-                           staged.cell_prefix(cs.column), staged.header_row]
-            selects.append(
-                f"SELECT ? + (row_number - 1) * {len(quantities)} + {qi}, ?, row_number, ?, "
-                f"si_T, {uT}, si_{q}, {uncertainty_sql(q, rules)}, txt_T, txt_{q}, {cells} "
-                f"FROM fl_norm WHERE fault IS NULL AND NOT empty_{q}")
-        # ids and row numbers are explicit, so a large bulk insert need not keep row order
-        # (a small one skips the two statements that say so)
-        large = staged.rows_read > LARGE_FILE_ROWS
-        if large:
-            self.con.execute("SET preserve_insertion_order = false")
-        self.con.execute("INSERT INTO observation " + " UNION ALL ".join(selects), params)
-        if large:
-            self.con.execute("RESET preserve_insertion_order")
-        self._next_obs = max(base + (last - 1) * len(quantities) + qi
-                             for qi, last in enumerate(last_rows) if last is not None) + 1
+    # the SQL of a faulty row's text and cell, shared with the group loader
+    _raw_text = staticmethod(raw_text_sql)
+    _cell = staticmethod(cell_sql)
 
 
 def _rollback(con) -> None:
@@ -509,21 +412,16 @@ def _internal(batch: str, err: Exception) -> BatchResult:
 
 def _upsert_fluids(con, fluids: dict[str, Fluid], run_id: str) -> None:
     """Every fluid of fluids.toml written with this run's id, in one statement (a statement
-    per fluid cost 1.4 s of a 1,000-fluid nightly with nothing else to do)."""
-    rows = pa.table({
-        "fluid_id": pa.array([f.id for f in fluids.values()], pa.string()),
-        "name": pa.array([f.name for f in fluids.values()], pa.string()),
-        "formula": pa.array([f.formula or None for f in fluids.values()], pa.string()),
-        "cas_rn": pa.array([f.cas_rn or None for f in fluids.values()], pa.string()),
-        "molar_mass_kg_mol": pa.array([f.molar_mass_kg_mol for f in fluids.values()],
-                                      pa.float64()),
-        "updated_run_id": pa.array([run_id] * len(fluids), pa.string())})
+    per fluid cost 1.4 s of a 1,000-fluid nightly with nothing else to do); the columns go
+    as list parameters, so no Arrow table (whose first use costs imports) is needed."""
+    f = list(fluids.values())
     con.execute("BEGIN TRANSACTION")
-    con.register("fl_fluids_in", rows)
-    try:
-        con.execute("INSERT OR REPLACE INTO fluid SELECT * FROM fl_fluids_in")
-    finally:
-        con.unregister("fl_fluids_in")
+    con.execute(
+        "INSERT OR REPLACE INTO fluid SELECT unnest($id), unnest($name), unnest($formula), "
+        "unnest($cas_rn), unnest($molar_mass), $run_id",
+        {"id": [x.id for x in f], "name": [x.name for x in f],
+         "formula": [x.formula or None for x in f], "cas_rn": [x.cas_rn or None for x in f],
+         "molar_mass": [float(x.molar_mass_kg_mol) for x in f], "run_id": run_id})
     con.execute("COMMIT")
 
 

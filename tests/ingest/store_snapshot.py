@@ -17,6 +17,7 @@ import tomllib
 from pathlib import Path
 
 from pipeline.ingest.stage import run_ingest
+from pipeline.ingest.tableload import original_text
 from pipeline.store import open_store
 
 HERE = Path(__file__).resolve().parent
@@ -28,13 +29,23 @@ TABLES = ("fluid", "source", "raw_file", "raw_column", "observation", "quarantin
 VOLATILE = ("updated_run_id", "ingest_run_id", "superseded_run_id", "ingested_at", "run_id")
 
 
+#: how the store keeps a column the snapshots hold (since migration 009 an observation keeps
+#: the number read from a cell, and the cell's text only where it is not the number's
+#: canonical rendering): the snapshot holds the cell's text as written, as before
+RECOVERED = {("observation", "T_original"): original_text("T_original", "T_parsed"),
+             ("observation", "value_original"): original_text("value_original", "value_parsed")}
+#: columns the snapshots do not hold, since the text recovered above is compared instead
+DERIVED = {("observation", "T_parsed"), ("observation", "value_parsed")}
+
+
 def snapshot(con) -> dict[str, list[list]]:
     """Every row of the data tables in primary-key order, as JSON-able lists."""
     out = {}
     for table in TABLES:
         cols = [r[0] for r in con.execute(f"DESCRIBE {table}").fetchall()
-                if r[0] not in VOLATILE]
-        rows = con.execute(f"SELECT {', '.join(cols)} FROM {table} ORDER BY ALL").fetchall()
+                if r[0] not in VOLATILE and (table, r[0]) not in DERIVED]
+        select = ", ".join(f"{RECOVERED.get((table, c), c)} AS {c}" for c in cols)
+        rows = con.execute(f"SELECT {select} FROM {table} ORDER BY ALL").fetchall()
         out[table] = [cols] + [[v if not isinstance(v, (list, tuple)) else list(v) for v in r]
                                for r in rows]
     return out

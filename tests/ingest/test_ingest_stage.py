@@ -5,7 +5,7 @@ from __future__ import annotations
 import duckdb
 import pytest
 
-from pipeline.ingest import stage
+from pipeline.ingest import stage, tableload
 from pipeline.ingest.stage import run_ingest
 from pipeline.store import open_store
 from tests.conftest import SIMPLE_BATCH, SIMPLE_CSV, write_batch
@@ -100,15 +100,15 @@ def test_failure_part_way_leaves_store_exactly_as_before(raw_root, store_path, m
         before = snapshot(s.con)
     write_batch(raw_root, "b1", two, {"vp.csv": SIMPLE_CSV, "vp2.csv": SIMPLE_CSV.replace("85.0", "86.0")})
     calls = {"n": 0}
-    original = stage.Ingestor._insert_observations
+    original = tableload._insert_observations
 
-    def failing(self, *args, **kwargs):
+    def failing(*args, **kwargs):
         calls["n"] += 1
         if calls["n"] == 2:
             raise OSError("disk full (injected)")
-        return original(self, *args, **kwargs)
+        return original(*args, **kwargs)
 
-    monkeypatch.setattr(stage.Ingestor, "_insert_observations", failing)
+    monkeypatch.setattr(tableload, "_insert_observations", failing)
     with pytest.raises(OSError, match="injected"):
         ingest(store_path, raw_root)
     assert calls["n"] == 2

@@ -18,15 +18,23 @@ def test_an_unexpected_exception_in_one_batch_refuses_only_that_batch(raw_root, 
     for name in ("a", "b", "c"):
         write_batch(raw_root, name, SIMPLE_BATCH.format(source=f"rig-{name}"),
                     {"vp.csv": SIMPLE_CSV.replace("78.9", f"7{ord(name)}.9")})
-    original = stage.normalise
-
-    def faulty(con, staged, spec, molar_mass, out):
+    def bug_in_b(con, spec):
         if spec.file == "vp.csv" and con.execute(
                 "SELECT count(*) FROM source WHERE source_id = 'rig-b'").fetchone()[0]:
             raise ZeroDivisionError("a bug in batch b")
-        return original(con, staged, spec, molar_mass, out)
 
-    monkeypatch.setattr(stage, "normalise", faulty)
+    original_normalise, original_load = stage.normalise, stage.load_staged
+
+    def faulty_normalise(con, staged, spec, *args, **kwargs):     # the batches loaded together
+        bug_in_b(con, spec)
+        return original_normalise(con, staged, spec, *args, **kwargs)
+
+    def faulty_load(ing, file_id, rel, sha, spec, staged, rejects):  # a batch loaded alone
+        bug_in_b(ing.con, spec)
+        return original_load(ing, file_id, rel, sha, spec, staged, rejects)
+
+    monkeypatch.setattr(stage, "normalise", faulty_normalise)
+    monkeypatch.setattr(stage, "load_staged", faulty_load)
     code = main(["ingest", str(raw_root), "--store", str(store_path)])
     out, err = capsys.readouterr()
     assert code == EXIT_INTERNAL

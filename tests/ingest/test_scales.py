@@ -235,3 +235,4 @@ def test_sql_conversion_equals_the_numpy_conversion_bit_for_bit():
     con.register("n", pa.table({"x": pa.array([None], type=pa.float64())}))
     query_n = query.replace("FROM t", "FROM n", 1)
     assert con.execute(f"SELECT {result} FROM ({query_n})").fetchall() == [(None,)]
+

@@ -112,7 +112,7 @@ def test_workbook_rows_load_like_the_same_csv(raw_root, store_path, tmp_path):
     of T and of the value."""
     assert not ingest(raw_root, store_path, {"VLE": GOOD}).errors
     got = query(store_path, "SELECT row_number, T_K, value_si, u_value_si, T_original, "
-                            "value_original, T_cell_ref, value_cell_ref FROM observation "
+                            "value_original, T_cell_ref, value_cell_ref FROM observation_history "
                             "ORDER BY row_number")
     csv_root, csv_store = tmp_path / "csv-raw", tmp_path / "csv.duckdb"
     csv_root.mkdir()
@@ -121,7 +121,7 @@ def test_workbook_rows_load_like_the_same_csv(raw_root, store_path, tmp_path):
     with open_store(csv_store) as s:
         run_ingest(s.con, [csv_root])
     want = query(csv_store, "SELECT row_number, T_K, value_si, u_value_si, T_original, "
-                            "value_original FROM observation ORDER BY row_number")
+                            "value_original FROM observation_history ORDER BY row_number")
     # a number cell's text is its shortest round-trip form: here the CSV's own text
     assert [g[:6] for g in got] == want
     assert [g[6:] for g in got] == [("VLE!A2", "VLE!B2"), ("VLE!A3", "VLE!B3"),
@@ -135,7 +135,7 @@ def test_formula_cells_read_as_their_cached_values(raw_root, store_path):
     rows = [["T", "p_bar", "p"], [85.0, 0.789, Formula("=B2*100", 78.9)],
             [87.3, 1.013, Formula("=B3*100", 101.3)]]
     assert not ingest(raw_root, store_path, {"VLE": rows}, extra='extra_columns = "ignore"').errors
-    assert query(store_path, "SELECT value_original, value_si, value_cell_ref FROM observation "
+    assert query(store_path, "SELECT value_original, value_si, value_cell_ref FROM observation_history "
                              "ORDER BY row_number") == [("78.9", 78900.0, "VLE!C2"),
                                                         ("101.3", 101300.0, "VLE!C3")]
 

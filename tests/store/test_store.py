@@ -88,6 +88,37 @@ def test_cell_migrations_keep_old_rows_with_no_cells(store_path):
                              "FROM release_provenance").fetchall() == [([1], None)]
 
 
+def test_migration_009_keeps_the_cell_texts_of_a_store_written_before(store_path, raw_root):
+    """A version-8 store's observations keep their texts through migration 009 (the parsed
+    numbers stay NULL) and observation_history shows them as before; a file ingested after
+    it keeps only the texts that are not the canonical rendering of their numbers."""
+    from pipeline.ingest.stage import run_ingest
+    from tests.conftest import SIMPLE_BATCH, write_batch
+
+    con = duckdb.connect(str(store_path))
+    for number, _, sql in MIGRATIONS[:8]:
+        con.execute(sql)
+        con.execute("INSERT INTO schema_version VALUES (?, now(), 'fixture')", [number])
+    con.execute("INSERT INTO raw_file VALUES (nextval('file_id_seq'), 'aa', 'bb', 'b0/vp.csv', "
+                "'b0', 'table', 's', 0, 'argon', 'liquid-vapour', '', 10, 1, 1, 0, 'r', now(), "
+                "NULL, NULL)")
+    con.execute("INSERT INTO raw_column VALUES (1, 'temperature', 'T', 'K', 'ITS-90', 'K', NULL),"
+                " (1, 'pressure', 'p', 'kPa', NULL, 'Pa', NULL)")
+    con.execute("INSERT INTO observation VALUES (7, 1, 1, 'pressure', 87.3, NULL, 101300.0, NULL, "
+                "'87.30', '101.3', NULL, NULL)")
+    con.close()
+    write_batch(raw_root, "b1", SIMPLE_BATCH.format(source="rig-a"), {"vp.csv": "T,p\n85.0,78.90\n"})
+    with open_store(store_path) as s:
+        assert current_version(s.con) == 9
+        assert not run_ingest(s.con, [raw_root / "b1"]).errors
+        assert s.con.execute("SELECT obs_id, T_original, value_original, T_parsed, value_parsed "
+                             "FROM observation ORDER BY obs_id").fetchall() == [
+            (7, "87.30", "101.3", None, None), (8, None, "78.90", 85.0, 78.9)]
+        assert s.con.execute("SELECT obs_id, T_original, value_original FROM observation_history "
+                             "ORDER BY obs_id").fetchall() == [(7, "87.30", "101.3"),
+                                                               (8, "85.0", "78.90")]
+
+
 def test_second_writer_gets_busy_error(store_path):
     """While one process holds the store, a second writer gets 'busy, retry later' with the PID."""
     open_store(store_path).close()
