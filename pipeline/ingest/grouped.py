@@ -25,14 +25,19 @@ refuses only the faulty batch and names it. A problem of the machine or Ctrl-C s
 
 from __future__ import annotations
 
+import json
 import logging
 from pathlib import Path
 
 import duckdb
+import numpy as np
+import pyarrow as pa
 
 from pipeline.crashpoints import crash_point
 from pipeline.errors import BatchError, environment_problem, is_interrupt
 from pipeline.ingest.normalise import QUANTITY_KIND, ident, layout, uncertainty_sql
+from pipeline.ingest.plaincsv import split_plain
+from pipeline.ingest.points import constant_row, fixed_point_row
 from pipeline.ingest.reader import stage_csv
 from pipeline.ingest.results import BatchResult, FileResult
 from pipeline.ingest.workbook import is_workbook
@@ -189,56 +194,131 @@ def _drop(con) -> None:
 class _File:
     """One changed table of the group, staged."""
 
-    def __init__(self, k, result, file_id, rel, sha, spec, staged, rejects, molar_mass):
-        self.k, self.result, self.file_id, self.rel, self.sha = k, result, file_id, rel, sha
-        self.spec, self.staged, self.rejects = spec, staged, rejects
+    def __init__(self, k, index, result, rel, sha, spec, molar_mass, content):
+        self.k, self.index, self.result, self.rel, self.sha = k, index, result, rel, sha
+        self.spec = spec
+        self.content = content
+        self.file_id = None            # from the group's block of file ids
         self.layout = layout(spec, molar_mass)
         self.molar_mass = molar_mass
         self.slot = len(result.files)
         result.files.append(None)      # filled when the file's counts are known
-        self.loaded = self.bad = 0
+        self.rows_read = self.loaded = self.bad = 0
+        self.rejects: list = []
         self.last_rows: list = [None] * len(spec.value_columns())
         self.base = None
 
 
+class _Group:
+    """What a group writes, assembled in Python in the order the batch-alone path writes it
+    (see :func:`_load_together`)."""
+
+    def __init__(self, ing):
+        self.ing = ing
+        self.results: list[BatchResult] = []
+        self.files: list[_File] = []
+        self.new_files: list[list] = []      # raw_file rows, ids given later, counts last
+        self.supersede: list[tuple[int, int | None]] = []   # (old id, index in new_files)
+        self.points = {"fixed_point": [], "constant": []}   # (index in new_files, row)
+        self.quarantine: list[tuple] = []    # in the order the batch-alone path writes
+        self.sources: list[list] = []
+
+    def add(self, p, tables: dict[str, str]) -> None:
+        """Plan one prepared batch (its retirements, manifest entries and tables); ``tables``
+        (path -> SHA-256 of the current tables) is updated as the batch-alone path would."""
+        ing, plan = self.ing, p.plan
+        s = plan.manifest.source
+        self.sources.append([s.id, s.kind, s.citation, s.doi or None, s.license or None,
+                             plan.batch, ing.run_id])
+        result = BatchResult(plan.batch, "loaded")
+        self.results.append(result)
+        for path in p.removed:
+            self.supersede.append((p.current[path][0], None))
+            tables.pop(path, None)
+        if plan.manifest_path not in p.unchanged:
+            result.files.append(self._manifest(plan, p.current.get(plan.manifest_path)))
+        else:
+            result.files.append(FileResult(plan.manifest_path, "unchanged"))
+        for i, spec, rel, _, content, sha, mapping in plan.tables:
+            if rel in p.unchanged:
+                result.files.append(FileResult(rel, "unchanged"))
+                continue
+            twins = sorted(q for q, s in tables.items() if s == sha and q != rel)
+            if twins:   # the batch-alone path refuses it and names the twin
+                raise BatchError(f"has the same content as '{twins[0]}'", file=rel)
+            index = self._new_file(rel, plan, "table", sha, mapping, len(content), spec, i,
+                                   p.current.get(rel))
+            tables[rel] = sha
+            f = _File(len(self.files), index, result, rel, sha, spec,
+                      ing.fluids[spec.fluid].molar_mass_kg_mol, content)
+            self.files.append(f)
+            self.quarantine.append(("table", f))
+
+    def _new_file(self, rel, plan, role, sha, mapping, size, spec=None, index=None,
+                  old=None) -> int:
+        """A raw_file row (as ``Ingestor._new_file`` writes it), its id and counts to come;
+        the old version's retirement."""
+        from pipeline.ingest.stage import utcnow
+
+        self.new_files.append([None, sha, mapping, rel, plan.batch, role,
+                               plan.manifest.source.id, index,
+                               spec.fluid if spec else None, spec.boundary if spec else None,
+                               spec.solid_phase if spec else None, size, 0, 0, 0,
+                               self.ing.run_id, utcnow(), None, None])
+        if old is not None:
+            self.supersede.append((old[0], len(self.new_files) - 1))
+        return len(self.new_files) - 1
+
+    def _manifest(self, plan, old) -> FileResult:
+        """The manifest's raw_file row and its fixed points and constants (as
+        ``Ingestor._load_manifest`` writes them)."""
+        label = plan.manifest_path
+        index = self._new_file(label, plan, "manifest", plan.manifest_sha, plan.manifest_sha,
+                               plan.manifest_bytes, old=old)
+        entries = [(fixed_point_row, e, "fixed_point") for e in plan.manifest.fixed_point]
+        entries += [(constant_row, e, "constant") for e in plan.manifest.constant]
+        counters = {"fixed_point": 0, "constant": 0}
+        loaded = quarantined = 0
+        for build, spec, kind in entries:
+            counters[kind] += 1
+            row, rejected = build(spec, counters[kind],
+                                  self.ing.fluids[spec.fluid].molar_mass_kg_mol, label)
+            if rejected is not None:
+                self.quarantine.append(("entry", index, plan.manifest_sha, label, rejected))
+                quarantined += 1
+            else:
+                self.points[kind].append((index, spec.fluid, plan.manifest.source.id,
+                                          plan.manifest_sha, label, row))
+                loaded += 1
+        counts = self.new_files[index]
+        counts[12:15] = [loaded + quarantined, loaded, quarantined]
+        return FileResult(label, "loaded", loaded + quarantined, loaded, quarantined)
+
+
 def _load_together(ing, pendings: list) -> list:
+    """Load the group (see the module docstring): everything is first assembled in Python,
+    then written in a few statements per group and per layout."""
     from pipeline.ingest import stage
 
     con = ing.con
-    results, files = [], []
-    layouts: dict[str, list[_File]] = {}
+    _check_sources(con, pendings)
+    group = _Group(ing)
+    tables = _current_tables(con, pendings)
     for p in pendings:
-        result = BatchResult(p.plan.batch, "loaded")
-        results.append(result)
-        for i, spec, rel, path, content, sha, file_id in ing.begin(p.plan, p.current,
-                                                                   p.unchanged, p.removed,
-                                                                   result):
-            k = len(files)
-            staged = stage_csv(con, content, spec, rel, _needed(spec), "fl_gstage")
-            rejects = [(row, column, raw, "bad-row-shape", f"row {row}" + (
-                f", column '{column}'" if column else "") + f": {message}", None)
-                for row, column, raw, message in staged.rejects]
-            f = _File(k, result, file_id, rel, sha, spec, staged, rejects,
-                      ing.fluids[spec.fluid].molar_mass_kg_mol)
-            files.append(f)
-            # the mapped columns of the files of one layout gather in one table
-            columns = ", ".join(ident(c) for c in _needed(spec).values())
-            if f.layout in layouts:
-                g = list(layouts).index(f.layout)
-                con.execute(f"INSERT INTO fl_glayout_{g} SELECT {k}, row_number, {columns} "
-                            "FROM fl_gstage")
-            else:
-                g = len(layouts)
-                con.execute(f"CREATE TEMP TABLE fl_glayout_{g} AS SELECT {k}::BIGINT AS "
-                            f"fl_file, row_number, {columns} FROM fl_gstage")
-            layouts.setdefault(f.layout, []).append(f)
+        group.add(p, tables)
+    first_id = _block(con, "file_id_seq", len(group.new_files))
+    for n, row in enumerate(group.new_files):
+        row[0] = first_id + n
+    for f in group.files:
+        f.file_id = group.new_files[f.index][0]
+    layouts = _stage(con, group.files)
     rules_of = {}
-    for g, (key, group) in enumerate(layouts.items()):
-        first = group[0]
+    for g, (key, members) in enumerate(layouts.items()):
+        first = members[0]
         rules_of[key] = stage.normalise(con, f"fl_glayout_{g}", first.spec, first.molar_mass,
                                         f"fl_gnorm_{g}", by_file=True)
         quantities = list(first.spec.value_columns())
-        by_k = {f.k: f for f in group}
+        by_k = {f.k: f for f in members}
         for k, loaded, bad, *last in con.execute(
                 "SELECT fl_file, count(*) FILTER (WHERE fault IS NULL), count(*) FILTER "
                 "(WHERE fault IS NOT NULL)" + "".join(
@@ -247,34 +327,126 @@ def _load_together(ing, pendings: list) -> list:
             by_k[k].loaded, by_k[k].bad, by_k[k].last_rows = loaded, bad, last
     # ids file after file, as the batch-alone path gives them
     next_obs = con.execute("SELECT coalesce(max(obs_id), 0) + 1 FROM observation").fetchall()[0][0]
-    for f in files:
+    for f in group.files:
         f.base = next_obs
         n = len(f.last_rows)
         if any(last is not None for last in f.last_rows):
             next_obs = max(f.base + (last - 1) * n + qi for qi, last in enumerate(f.last_rows)
                            if last is not None) + 1
-    _insert_columns(con, files, rules_of)
-    for g, group in enumerate(layouts.values()):
-        _insert_observations(con, g, group, rules_of[group[0].layout])
-    counts = []
-    for f in files:
+    _insert_columns(con, group.files, rules_of)
+    for g, members in enumerate(layouts.values()):
+        _insert_observations(con, g, members, rules_of[members[0].layout])
+    _insert_points(con, group)
+    g_of = {key: g for g, key in enumerate(layouts)}
+    for item in group.quarantine:
+        if item[0] == "entry":
+            _, index, sha, label, r = item
+            ing._quarantine(group.new_files[index][0], sha, label, r.entry, r.key, r.raw,
+                            r.code, r.message)
+            continue
+        f = item[1]
         for row, column, raw, code, message, cell in f.rejects:
             ing._quarantine(f.file_id, f.sha, f.rel, row, column, raw, code,
                             f"{f.rel}, {message}", cell)
         if f.bad:
-            _quarantine_faults(ing, f, list(layouts).index(f.layout))
+            _quarantine_faults(ing, f, g_of[f.layout])
         quarantined = f.bad + len(f.rejects)
-        if f.staged.rows_read != f.loaded + quarantined:
-            raise BatchError(f"row accounting failed: {f.staged.rows_read} read != {f.loaded} "
+        if f.rows_read != f.loaded + quarantined:
+            raise BatchError(f"row accounting failed: {f.rows_read} read != {f.loaded} "
                              f"loaded + {quarantined} quarantined", file=f.rel)
-        counts += [f.file_id, f.staged.rows_read, f.loaded, quarantined]
-        f.result.files[f.slot] = FileResult(f.rel, "loaded", f.staged.rows_read, f.loaded,
-                                            quarantined)
-    if files:
-        con.execute("UPDATE raw_file SET rows_read = v.r, rows_loaded = v.l, rows_quarantined = "
-                    "v.q FROM (VALUES " + ", ".join(["(?, ?, ?, ?)"] * len(files)) +
-                    ") AS v(id, r, l, q) WHERE raw_file.file_id = v.id", counts)
-    return results
+        group.new_files[f.index][12:15] = [f.rows_read, f.loaded, quarantined]
+        f.result.files[f.slot] = FileResult(f.rel, "loaded", f.rows_read, f.loaded, quarantined)
+    _write_files(con, group)
+    return group.results
+
+
+def _check_sources(con, pendings: list) -> None:
+    """Refuse the group (its batches then load one at a time, which names the faulty one)
+    when a source is declared by two of its batches, or by a batch of the store that is not
+    the one declaring it now."""
+    ids = [p.plan.manifest.source.id for p in pendings]
+    if len(set(ids)) != len(ids):
+        raise BatchError("a source is declared by two batches of the group")
+    batch_of = {p.plan.manifest.source.id: p.plan.batch for p in pendings}
+    for source_id, owner in con.execute("SELECT source_id, batch FROM source WHERE "
+                                        "list_contains(?, source_id)", [ids]).fetchall():
+        if owner != batch_of[source_id]:
+            raise BatchError(f"source id '{source_id}' was declared by batch '{owner}'")
+
+
+def _current_tables(con, pendings: list) -> dict[str, str]:
+    """Current tables (path -> SHA-256) with the content of one of the group's files."""
+    shas = sorted({t[5] for p in pendings for t in p.plan.tables})
+    if not shas:
+        return {}
+    return dict(con.execute(
+        "SELECT path, sha256 FROM raw_file WHERE list_contains(?, sha256) AND role = 'table' "
+        "AND superseded_by IS NULL", [shas]).fetchall())
+
+
+def _block(con, sequence: str, n: int) -> int | None:
+    """The first of ``n`` consecutive ids drawn from ``sequence`` in one statement."""
+    if n == 0:
+        return None
+    first, last = con.execute(f"SELECT min(v), max(v) FROM (SELECT nextval('{sequence}') AS v "
+                              "FROM range(?))", [n]).fetchall()[0]
+    if last - first + 1 != n:
+        raise AssertionError(f"{sequence} gave no block of {n} ids")
+    return first
+
+
+def _stage(con, files: list[_File]) -> dict[str, list[_File]]:
+    """Stage every file of the group into one table per layout (``fl_glayout_<g>``: the
+    file's ordinal ``fl_file``, ``row_number`` and the mapped columns as text). Plain files
+    (:mod:`pipeline.ingest.plaincsv`) are split in Python and reach DuckDB as one Arrow
+    table per layout; any other file is staged by DuckDB (:func:`stage_csv`), as alone."""
+    layouts: dict[str, list[_File]] = {}
+    plain: dict[str, list] = {}
+    made: set[str] = set()
+    for f in files:
+        needed = _needed(f.spec)
+        columns = list(dict.fromkeys(needed.values()))
+        layouts.setdefault(f.layout, []).append(f)
+        g = list(layouts).index(f.layout)
+        staged = split_plain(f.content, f.spec, f.rel, needed)
+        if staged is not None:
+            f.rows_read = staged.rows_read
+            plain.setdefault(f.layout, []).append((f, staged))
+        else:
+            staged = stage_csv(con, f.content, f.spec, f.rel, needed, "fl_gstage")
+            f.rows_read = staged.rows_read
+            f.rejects = [(row, column, raw, "bad-row-shape", f"row {row}" + (
+                f", column '{column}'" if column else "") + f": {message}", None)
+                for row, column, raw, message in staged.rejects]
+            select = ", ".join(ident(c) for c in columns)
+            if f.layout in made:
+                con.execute(f"INSERT INTO fl_glayout_{g} SELECT {f.k}, row_number, {select} "
+                            "FROM fl_gstage")
+            else:
+                con.execute(f"CREATE TEMP TABLE fl_glayout_{g} AS SELECT {f.k}::BIGINT AS "
+                            f"fl_file, row_number::BIGINT AS row_number, {select} "
+                            "FROM fl_gstage")
+                made.add(f.layout)
+        f.content = None               # the bytes are no longer needed
+    for key, members in plain.items():
+        g = list(layouts).index(key)
+        columns = list(members[0][1].cells)
+        arrays = {"fl_file": pa.array(np.concatenate([np.full(t.rows_read, f.k, np.int64)
+                                                      for f, t in members])),
+                  "row_number": pa.array(np.concatenate([t.row_numbers for _, t in members])
+                                         .astype(np.int64))}
+        for c in columns:
+            arrays[c] = pa.array([v for _, t in members for v in t.cells[c]], pa.string())
+        con.register("fl_gplain", pa.table(arrays))
+        try:
+            names = ", ".join(ident(c) for c in ("fl_file", "row_number", *columns))
+            if key in made:
+                con.execute(f"INSERT INTO fl_glayout_{g} SELECT {names} FROM fl_gplain")
+            else:
+                con.execute(f"CREATE TEMP TABLE fl_glayout_{g} AS SELECT {names} FROM fl_gplain")
+        finally:
+            con.unregister("fl_gplain")
+    return layouts
 
 
 def _needed(spec) -> dict[str, str]:
@@ -285,40 +457,107 @@ def _needed(spec) -> dict[str, str]:
     return needed
 
 
+def _arrow(con, name: str, schema: list[tuple[str, pa.DataType]], rows: list) -> None:
+    """Register ``rows`` (lists in ``schema``'s order) as the Arrow table ``name``."""
+    con.register(name, pa.table({c: pa.array([r[i] for r in rows], t)
+                                 for i, (c, t) in enumerate(schema)}))
+
+
+def _insert_from(con, name: str, schema, rows: list, sql: str) -> None:
+    """Run ``sql`` (which reads ``name``) over ``rows`` registered as an Arrow table."""
+    if not rows:
+        return
+    _arrow(con, name, schema, rows)
+    try:
+        con.execute(sql)
+    finally:
+        con.unregister(name)
+
+
+_S, _I, _F = pa.string(), pa.int64(), pa.float64()
+RAW_FILE = [("file_id", _I), ("sha256", _S), ("mapping_sha256", _S), ("path", _S),
+            ("batch", _S), ("role", _S), ("source_id", _S), ("table_index", _I),
+            ("fluid_id", _S), ("boundary", _S), ("solid_phase", _S), ("size_bytes", _I),
+            ("rows_read", _I), ("rows_loaded", _I), ("rows_quarantined", _I),
+            ("ingest_run_id", _S), ("ingested_at", pa.timestamp("us")),
+            ("superseded_by", _I), ("superseded_run_id", _S)]
+SOURCE = [("source_id", _S), ("kind", _S), ("citation", _S), ("doi", _S), ("license", _S),
+          ("batch", _S), ("run_id", _S)]
+RAW_COLUMN = [("file_id", _I), ("quantity", _S), ("column", _S), ("unit", _S), ("scale", _S),
+              ("si_unit", _S), ("rule", _S)]
+FIXED_POINT = [("fp_id", _I), ("fluid_id", _S), ("kind", _S), ("phases", _S), ("T_K", _F),
+               ("u_T_K", _F), ("p_Pa", _F), ("u_p_Pa", _F), ("rho_kg_m3", _F),
+               ("u_rho_kg_m3", _F), ("source_id", _S), ("file_id", _I), ("sha", _S),
+               ("path", _S), ("entry_number", _I), ("original_json", _S), ("run_id", _S)]
+CONSTANT = [("const_id", _I), ("fluid_id", _S), ("name", _S), ("value_si", _F), ("u_si", _F),
+            ("si_unit", _S), ("source_id", _S), ("file_id", _I), ("sha", _S), ("path", _S),
+            ("entry_number", _I), ("original_json", _S), ("run_id", _S)]
+
+
+def _write_files(con, group: _Group) -> None:
+    """The group's raw_file rows with their counts, its retirements and its sources: one
+    statement each."""
+    _insert_from(con, "fl_gfiles", RAW_FILE, group.new_files,
+                 "INSERT INTO raw_file SELECT * FROM fl_gfiles")
+    from pipeline.ingest.stage import REMOVED
+
+    rows = [[old, REMOVED if new is None else group.new_files[new][0], group.ing.run_id]
+            for old, new in group.supersede]
+    _insert_from(con, "fl_gsupersede", [("old", _I), ("new", _I), ("run_id", _S)], rows,
+                 "UPDATE raw_file SET superseded_by = s.new, superseded_run_id = s.run_id "
+                 "FROM fl_gsupersede s WHERE raw_file.file_id = s.old")
+    _insert_from(con, "fl_gsources", SOURCE, group.sources,
+                 "INSERT OR REPLACE INTO source SELECT * FROM fl_gsources")
+
+
+def _insert_points(con, group: _Group) -> None:
+    """The fixed points and constants of the group's manifests, ids in the order the
+    batch-alone path draws them."""
+    run_id, ids = group.ing.run_id, [r[0] for r in group.new_files]
+    fixed = group.points["fixed_point"]
+    first = _block(con, "fp_id_seq", len(fixed))
+    rows = [[first + n, fluid, r["kind"], r["phases"], r["T_K"], r["u_T_K"], r["p_Pa"],
+             r["u_p_Pa"], r["rho_kg_m3"], r["u_rho_kg_m3"], source, ids[index], sha, label,
+             r["entry_number"], r["original_json"], run_id]
+            for n, (index, fluid, source, sha, label, r) in enumerate(fixed)]
+    _insert_from(con, "fl_gfixed", FIXED_POINT, rows,
+                 "INSERT INTO fixed_point SELECT * FROM fl_gfixed")
+    constants = group.points["constant"]
+    first = _block(con, "const_id_seq", len(constants))
+    rows = [[first + n, fluid, r["name"], r["value_si"], r["u_si"], r["si_unit"], source,
+             ids[index], sha, label, r["entry_number"], r["original_json"], run_id]
+            for n, (index, fluid, source, sha, label, r) in enumerate(constants)]
+    _insert_from(con, "fl_gconstants", CONSTANT, rows,
+                 "INSERT INTO stated_constant SELECT * FROM fl_gconstants")
+
+
 def _insert_columns(con, files: list[_File], rules_of: dict) -> None:
     """The raw_column rows of every file of the group, in one INSERT."""
-    import json
-
     values = []
     for f in files:
         rules, t = rules_of[f.layout], f.spec.temperature
         rows = [("temperature", t.column, t.unit, t.scale, "K", rules.get("T"))]
         rows += [(q, cs.column, cs.unit, None, QUANTITY_KIND[q][1], rules.get(q))
                  for q, cs in f.spec.value_columns().items()]
-        values += [(f.file_id, q, column, unit, scale, si_unit,
-                    json.dumps(rule, sort_keys=True) if rule else None)
+        values += [[f.file_id, q, column, unit, scale, si_unit,
+                    json.dumps(rule, sort_keys=True) if rule else None]
                    for q, column, unit, scale, si_unit, rule in rows]
-    if values:
-        con.execute("INSERT INTO raw_column VALUES " + ", ".join(["(?, ?, ?, ?, ?, ?, ?)"]
-                                                                 * len(values)),
-                    [v for row in values for v in row])
+    _insert_from(con, "fl_gcolumns", RAW_COLUMN, values,
+                 "INSERT INTO raw_column SELECT * FROM fl_gcolumns")
 
 
 def _insert_observations(con, g: int, group: list[_File], rules: dict) -> None:
     """Every observation of a layout's files in one INSERT; each file's ids from its base."""
     quantities = list(group[0].spec.value_columns())
     n, uT = len(quantities), uncertainty_sql("T", rules)
-    bases = [f for f in group if any(last is not None for last in f.last_rows)]
-    if not bases:
-        return
-    params = [v for f in bases for v in (f.k, f.base, f.file_id)]
+    bases = [[f.k, f.base, f.file_id] for f in group
+             if any(last is not None for last in f.last_rows)]
     selects = [f"SELECT b.base + (row_number - 1) * {n} + {qi}, b.file_id, row_number, "
                f"'{q}', si_T, {uT}, si_{q}, {uncertainty_sql(q, rules)}, txt_T, txt_{q}, NULL, "
-               f"NULL FROM fl_gnorm_{g} JOIN fl_bases b USING (fl_file) "
+               f"NULL FROM fl_gnorm_{g} JOIN fl_gbases b USING (fl_file) "
                f"WHERE fault IS NULL AND NOT empty_{q}" for qi, q in enumerate(quantities)]
-    con.execute("WITH fl_bases AS (SELECT * FROM (VALUES " + ", ".join(
-        ["(?::BIGINT, ?::BIGINT, ?::BIGINT)"] * len(bases)) + ") AS v(fl_file, base, file_id)) "
-        "INSERT INTO observation " + " UNION ALL ".join(selects), params)
+    _insert_from(con, "fl_gbases", [("fl_file", _I), ("base", _I), ("file_id", _I)], bases,
+                 "INSERT INTO observation " + " UNION ALL ".join(selects))
 
 
 def _quarantine_faults(ing, f: _File, g: int) -> None:
