@@ -404,7 +404,7 @@ def _stage(con, files: list[_File]) -> dict[str, list[_File]]:
     plain: dict[str, list] = {}
     made: set[str] = set()
     for f in files:
-        needed = _needed(f.spec)
+        needed = needed_columns(f.spec)
         columns = list(dict.fromkeys(needed.values()))
         layouts.setdefault(f.layout, []).append(f)
         g = list(layouts).index(f.layout)
@@ -449,7 +449,8 @@ def _stage(con, files: list[_File]) -> dict[str, list[_File]]:
     return layouts
 
 
-def _needed(spec) -> dict[str, str]:
+def needed_columns(spec) -> dict[str, str]:
+    """Role -> CSV column of every column a table maps (temperature, values, uncertainties)."""
     needed = {"temperature": spec.temperature.column}
     needed.update({q: c.column for q, c in spec.value_columns().items()})
     needed.update({f"uncertainty of {q}": u.column for q, u in spec.uncertainty.items()

@@ -98,3 +98,105 @@ def test_the_same_batch_named_twice_loads_once(raw_root, tmp_path):
         result = run_ingest(s.con, [raw_root, raw_root / "a"])
     assert [(b.batch, b.status) for b in result.batches] == [
         ("a", "loaded"), ("b", "loaded"), ("a", "unchanged")]
+
+
+# argon's triple point (Tt = 83.8058 K, ITS-90 defining fixed point; pt about 68.9 kPa) and a
+# critical point near published values (test data; the constants are invented values)
+TRIPLE = {"fluid": "argon", "kind": "triple", "T": {"value": 83.8058, "unit": "K", "u": 0.0002},
+          "p": {"value": 68.89, "unit": "kPa", "u": 0.02}}
+CRITICAL = {"fluid": "argon", "kind": "critical", "T": {"value": 150.687, "unit": "K", "u": 0.015},
+            "p": {"value": 4.863, "unit": "MPa", "u": 0.003}}
+OMEGA = {"fluid": "argon", "name": "acentric_factor", "value": -0.002, "unit": "1"}
+BAD_T_NB = {"fluid": "argon", "name": "normal_boiling_T", "value": -87.3, "unit": "K"}
+# files the Python split leaves to DuckDB: a quoted cell, a ragged row, an inline comment
+QUOTED = 'T,p\n85.0,"78.9"\n87.3,101.3\n'
+RAGGED = "T,p\n85.0,78.9\n87.3,101.3,7\n90.0\n91.0,140.0\n"
+INLINE = "# rig log\nT,p\n85.0,78.9\n87.3,101.3 # drift\n90.0,133.6\n"
+
+
+def _mixed(root, version: int) -> None:
+    """Five batches mixing plain files with files DuckDB must read, fixed points and
+    constants (one refused to quarantine); ``version`` 2 changes a file, drops one and
+    changes a manifest."""
+    tables = [vp_table(), vp_table(file="vp2.csv", p_unit="bar", u_p_rel=None,
+                                   temperature={"column": "T", "unit": "degC"})]
+    for i in range(5):
+        files = {"vp.csv": ROWS.replace("78.9", f"78.{i}"),
+                 "vp2.csv": ROWS.replace("85.0", f"-18{i}.0").replace("78.9", f"0.7{i}")}
+        batch_tables = list(tables)
+        if i == 1:
+            files["vp2.csv"] = QUOTED.replace("85.0", "-188.0").replace("78.9", "0.79")
+        if i == 2:
+            files["vp.csv"] = RAGGED.replace("78.9", "78.8")
+        if i == 3:
+            files["vp.csv"] = INLINE.replace("78.9", "78.7")
+            batch_tables[0] = vp_table(comment="#")
+        points, constants = [], []
+        if i in (0, 3):
+            points, constants = [TRIPLE, CRITICAL], [OMEGA, BAD_T_NB]
+        if version == 2 and i == 0:
+            files["vp.csv"] = files["vp.csv"].replace("133.6", "133.5")
+        if version == 2 and i == 4:
+            batch_tables = batch_tables[:1]
+            (root / f"m{i}" / "vp2.csv").unlink()
+            del files["vp2.csv"]
+        if version == 2 and i == 3:
+            constants = [OMEGA]
+        write_batch(root, f"m{i}", batch_toml(source(f"rig-m{i}", "Test rig, invented campaign"),
+                                              batch_tables, points, constants), files)
+
+
+def test_plain_and_odd_files_points_and_changes_load_as_one_batch_at_a_time(
+        raw_root, tmp_path, monkeypatch):
+    """A group mixing plain files with files DuckDB reads (quoted cells, ragged rows, inline comments), fixed points and constants (one quarantined), then a second ingest that changes a file, drops one and changes a manifest, leaves every table and every batch result as loading one batch at a time does."""
+    stores, calls, original = {}, [], grouped.load_group
+
+    def counted(ing, pendings):
+        calls.append(len(pendings))
+        return original(ing, pendings)
+    monkeypatch.setattr(grouped, "load_group", counted)
+    for mode in ("group", "alone"):
+        if mode == "alone":
+            monkeypatch.setattr(grouped, "GROUP_BATCHES", 1)
+        _mixed(raw_root, 1)
+        with open_store(tmp_path / f"{mode}.duckdb") as s:
+            first = run_ingest(s.con, [raw_root])
+        _mixed(raw_root, 2)
+        with open_store(tmp_path / f"{mode}.duckdb") as s:
+            second = run_ingest(s.con, [raw_root])
+            stores[mode] = (snapshot(s.con), first.asdict()["batches"],
+                            second.asdict()["batches"])
+    assert calls == [5, 3]                    # m0, m3 and m4 changed: one group
+    assert stores["group"] == stores["alone"]
+    snap, first, second = stores["group"]
+    assert [b["status"] for b in first] == ["loaded"] * 5
+    assert [b["status"] for b in second] == ["loaded", "unchanged", "unchanged", "loaded",
+                                             "loaded"]
+    # the superseded manifest's fixed points and constant stay as history
+    assert len(snap["fixed_point"]) - 1 == 6 and len(snap["stated_constant"]) - 1 == 3
+    reasons = {row[snap["quarantine"][0].index("reason_code")] for row in snap["quarantine"][1:]}
+    assert {"bad-row-shape", "not-a-number", "duplicate-row", "non-positive-value"} <= reasons
+
+
+def test_a_file_rewritten_while_its_group_loads_keeps_the_hashed_rows(raw_root, tmp_path,
+                                                                     monkeypatch):
+    """Issue 13 in a group: files rewritten after their bytes were read and hashed, before the group stages them, are stored with the rows of the hashed bytes."""
+    import hashlib
+
+    _raw(raw_root, ["a", "b"])
+    hashed = {p.parent.name: hashlib.sha256(p.read_bytes()).hexdigest()
+              for p in raw_root.glob("*/vp.csv")}
+    original = grouped._stage
+
+    def rewrite_then_stage(con, files):
+        for p in raw_root.glob("*/vp.csv"):
+            p.write_text("T,p\n85.0,11.1\n", encoding="utf-8")      # the concurrent writer
+        return original(con, files)
+    monkeypatch.setattr(grouped, "_stage", rewrite_then_stage)
+    with open_store(tmp_path / "store.duckdb") as s:
+        run_ingest(s.con, [raw_root])
+        rows = s.con.execute(
+            "SELECT f.batch, f.sha256, count(*), min(o.value_si) FROM observation o JOIN raw_file "
+            "f USING (file_id) WHERE f.path LIKE '%/vp.csv' GROUP BY ALL ORDER BY 1").fetchall()
+    assert [(b, sha) for b, sha, _, _ in rows] == sorted(hashed.items())
+    assert all(n == 3 and low >= 78.0e3 for _, _, n, low in rows)    # not 11.1 kPa
