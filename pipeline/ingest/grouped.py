@@ -1,26 +1,39 @@
 """Many small batches in few statements (issue 14): one transaction and shared passes.
 
 Loading a small CSV file alone costs a fixed ~20 statements, most of the time the database
-spends on it; the largest of them, the normalise pass, is compiled anew for every file. Here
-consecutive batches whose changed tables are all small CSV files are loaded together, in one
-transaction:
+spends on it. Here consecutive batches whose changed tables are all small CSV files are
+loaded together, in one transaction, with a handful of statements per group and per layout
+instead of per file:
 
-1. each batch's source, retirements and manifest entries are written and each file is staged
-   exactly as :meth:`Ingestor.begin` and :func:`stage_csv` do for a batch alone (same order, so
-   the same ``file_id`` values);
-2. the files of one *layout* (:func:`pipeline.ingest.normalise.layout`: the same mapped columns,
-   units, scale, uncertainty rules and number style) are normalised in ONE statement, told
-   apart by an ordinal ``fl_file``, duplicates counted within each file;
-3. the row counts of every file come from one query per layout, the observations of every
-   file of a layout go in one INSERT (ids allocated as the batch-alone path allocates them,
-   file after file), the columns of every file in one INSERT, the counts in one UPDATE.
-   Quarantine rows keep the order of ids a batch alone gives them (the reader's rejects of a
-   file, then its faulty rows in row order); they are written per faulty file, which is rare.
+1. **Assembled in Python first** (:class:`_Group`), in the order the batch-alone path writes
+   (so the same ids): each batch's source, retirements, manifest row, fixed points and
+   constants (built by :mod:`pipeline.ingest.points`, one quarantined like alone), and its
+   changed tables. Twins (a file with the content of another current table) and sources
+   declared elsewhere are found from one query each; either makes the group fail (below).
+2. **Ids in blocks**: ``file_id``, ``fp_id`` and ``const_id`` are drawn as one block of the
+   sequence each and given out in that order.
+3. **Staged without a statement per file**: a *plain* file (:mod:`pipeline.ingest.plaincsv`:
+   no quote, no lone CR, rows of the header's width - nearly every small file) is split in
+   Python from the bytes that were hashed, and the plain files of one *layout*
+   (:func:`pipeline.ingest.normalise.layout`: the same mapped columns, units, scale,
+   uncertainty rules and number style) reach DuckDB as ONE Arrow table, their ordinal in
+   ``fl_file``. Any other file is staged by DuckDB (:func:`stage_csv`) exactly as alone and
+   appended to its layout's table.
+4. **One pass per layout**: normalised in one statement (duplicates counted within each
+   file), counted in one query; the observations of every file of a layout go in one
+   INSERT (ids file after file, as the batch-alone path allocates them).
+5. **One statement per table for the group**: raw_column, fixed_point, stated_constant,
+   raw_file (with its final counts), the retirements, the sources; each from an Arrow table.
+   Quarantine rows keep the order of ids a batch alone gives them (a manifest's refused
+   entries, then per file the reader's rejects and its faulty rows in row order); they are
+   written per faulty file or entry, which is rare.
 
 **Isolation.** Whatever goes wrong while a group loads (a refused file, a source declared by
-two batches of the group, any exception), the group's transaction is rolled back, leaving the
-store as it was, and its batches are loaded again one at a time by the batch-alone path, which
-refuses only the faulty batch and names it. A problem of the machine or Ctrl-C stops the run.
+two batches of the group or by another batch of the store, a twin file, any exception), the
+group's transaction is rolled back, leaving the store as it was, and its batches are loaded
+again one at a time by the batch-alone path, which refuses only the faulty batch and names it
+(or loads it, where the group was only cautious). A problem of the machine or Ctrl-C stops
+the run.
 """
 
 from __future__ import annotations
@@ -72,6 +85,7 @@ def ingest_batches(ingestor, batches: list[Path], progress) -> list:
     refused."""
     results: list = []
     pending: list = []
+    names: set[str] = set()            # the batches in ``pending``
     size = [0, 0]
 
     def done(slot: int, batch_dir: Path, result: BatchResult) -> None:
@@ -88,6 +102,7 @@ def ingest_batches(ingestor, batches: list[Path], progress) -> list:
         for (slot, batch_dir, _), result in zip(pending, loaded):
             done(slot, batch_dir, result)
         pending.clear()
+        names.clear()
         size[:] = [0, 0]
 
     for batch_dir in batches:
@@ -102,7 +117,7 @@ def ingest_batches(ingestor, batches: list[Path], progress) -> list:
             done(len(results) - 1, batch_dir, ingestor.load_alone(prepared))
             continue
         files, nbytes = weight(prepared)
-        if any(p.plan.batch == prepared.plan.batch for _, _, p in pending):
+        if prepared.plan.batch in names:
             # the same batch named twice (two paths): the first must load before the second
             # is compared with the store
             flush()
@@ -114,6 +129,7 @@ def ingest_batches(ingestor, batches: list[Path], progress) -> list:
                         GROUP_FILES or size[1] + nbytes > GROUP_BYTES):
             flush()
         pending.append((len(results) - 1, batch_dir, prepared))
+        names.add(prepared.plan.batch)
         size[0] += files
         size[1] += nbytes
     if pending:
