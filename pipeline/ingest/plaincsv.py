@@ -1,12 +1,13 @@
 """Plain CSV files split in Python, exactly as DuckDB's strict reader would stage them.
 
-Most small files of a compilation are *plain*: no quote character anywhere from the header
-line on, no carriage return other than the one of a CRLF line break, no NUL byte, no comment
-character inside a data line, and every data line has the header's number of fields. In such
-a file each record is one line and each field is the text between two delimiters, so a
-split gives exactly the rows DuckDB's reader stages with the dialect of
-:func:`pipeline.ingest.reader.stage_csv` (an empty field is NULL, spaces are kept, blank and
-whole comment lines are skipped, row numbers count from the header). Reading a plain file
+Most small files of a compilation are *plain*: from the header line on, a quote character
+only around a whole field (``"101.3"``), no carriage return other than the one of a CRLF line
+break, no NUL byte, no comment character inside a data line, and every data line has the
+header's number of fields. In such a file each record is one line and each field is the text
+between two delimiters (without its quotes), so a split gives exactly the rows DuckDB's
+reader stages with the dialect of :func:`pipeline.ingest.reader.stage_csv` (an empty field,
+quoted or not, is NULL; spaces are kept; blank and whole comment lines are skipped; row
+numbers count from the header). Reading a plain file
 costs no SQL statement: the many small files of a group (:mod:`pipeline.ingest.grouped`)
 reach DuckDB as one Arrow table. ``tests/ingest/test_plaincsv.py`` holds the split equal to
 DuckDB's staging on generated files and on the bad-input corpus.
@@ -70,19 +71,26 @@ def split_plain(data: bytes, spec, label: str, needed: dict[str, str]) -> PlainT
     lines = _data_lines(info, spec.comment, header_line)
     if lines.size == 0:
         raise BatchError("file has a header but no data rows", file=label)
-    # plain: what DuckDB reads from the header line on holds no quote, lone CR or NUL
+    # plain: what DuckDB reads from the header line on holds no NUL or lone CR, and each
+    # line is one record (a quote only around a whole field)
     rest = "\n".join(physical[header_line - 1:])
-    if spec.quote in rest or "\x00" in rest or "\r" in rest.replace("\r\n", "\n"):
+    if "\x00" in rest or "\r" in rest.replace("\r\n", "\n"):
         return None
-    width, delimiter = len(header), spec.delimiter
+    width, delimiter, quote = len(header), spec.delimiter, spec.quote
+    if _fields(first.removesuffix("\r"), delimiter, quote) is None:
+        return None
+    data = set(lines.tolist())
+    if any(quote in physical[n] for n in range(header_line, len(physical)) if n + 1 not in data):
+        return None                    # a quote on a comment line
     records = []
     for n in lines.tolist():
-        line = physical[n - 1]
-        if line.endswith("\r"):
-            line = line[:-1]
+        line = physical[n - 1].removesuffix("\r")
         if (spec.comment and spec.comment in line) or line.count(delimiter) != width - 1:
             return None
-        records.append(line.split(delimiter))
+        fields = _fields(line, delimiter, quote)
+        if fields is None:
+            return None
+        records.append(fields)
     positions = {name: i for i, name in enumerate(header)}
     cells = {}
     for column in dict.fromkeys(needed.values()):
@@ -90,3 +98,22 @@ def split_plain(data: bytes, spec, label: str, needed: dict[str, str]) -> PlainT
         cells[column] = [r[i] or None for r in records]
     return PlainTable(header, len(records), lines - header_line, cells)
 
+
+
+def _fields(line: str, delimiter: str, quote: str) -> list[str] | None:
+    """The fields of a line split at every delimiter; a field may be quoted whole
+    (``"101.3"``, ``""``) when no quote is inside it. None when a quote is anywhere else
+    (a field quoted in part, an escaped quote, a delimiter or line break inside quotes):
+    such a line is left to DuckDB."""
+    fields = line.split(delimiter)
+    if quote not in line:
+        return fields
+    out = []
+    for field in fields:
+        if quote in field:
+            if len(field) < 2 or field[0] != quote or field[-1] != quote or \
+                    quote in field[1:-1]:
+                return None
+            field = field[1:-1]
+        out.append(field)
+    return out

@@ -108,8 +108,10 @@ CRITICAL = {"fluid": "argon", "kind": "critical", "T": {"value": 150.687, "unit"
             "p": {"value": 4.863, "unit": "MPa", "u": 0.003}}
 OMEGA = {"fluid": "argon", "name": "acentric_factor", "value": -0.002, "unit": "1"}
 BAD_T_NB = {"fluid": "argon", "name": "normal_boiling_T", "value": -87.3, "unit": "K"}
-# files the Python split leaves to DuckDB: a quoted cell, a ragged row, an inline comment
-QUOTED = 'T,p\n85.0,"78.9"\n87.3,101.3\n'
+# files the Python split leaves to DuckDB: a delimiter inside quotes, a ragged row, an inline
+# comment; and a file quoted whole, which it splits
+QUOTED = 'T,p\n85.0,"78.9"\n87.3,"101,3"\n90.0,133.6\n'
+WHOLE_QUOTED = '"T","p"\n"85.0","78.4"\n"87.3",""\n"90.0","133.6"\n'
 RAGGED = "T,p\n85.0,78.9\n87.3,101.3,7\n90.0\n91.0,140.0\n"
 INLINE = "# rig log\nT,p\n85.0,78.9\n87.3,101.3 # drift\n90.0,133.6\n"
 
@@ -131,6 +133,8 @@ def _mixed(root, version: int) -> None:
         if i == 3:
             files["vp.csv"] = INLINE.replace("78.9", "78.7")
             batch_tables[0] = vp_table(comment="#")
+        if i == 4:
+            files["vp.csv"] = WHOLE_QUOTED
         points, constants = [], []
         if i in (0, 3):
             points, constants = [TRIPLE, CRITICAL], [OMEGA, BAD_T_NB]
@@ -148,13 +152,19 @@ def _mixed(root, version: int) -> None:
 
 def test_plain_and_odd_files_points_and_changes_load_as_one_batch_at_a_time(
         raw_root, tmp_path, monkeypatch):
-    """A group mixing plain files with files DuckDB reads (quoted cells, ragged rows, inline comments), fixed points and constants (one quarantined), then a second ingest that changes a file, drops one and changes a manifest, leaves every table and every batch result as loading one batch at a time does."""
-    stores, calls, original = {}, [], grouped.load_group
+    """A group mixing plain files (one quoted whole) with files DuckDB reads (a delimiter inside quotes, ragged rows, inline comments), fixed points and constants (one quarantined), then a second ingest that changes a file, drops one and changes a manifest, leaves every table and every batch result as loading one batch at a time does."""
+    stores, calls, read_by_duckdb = {}, [], []
+    original, stage_csv = grouped.load_group, grouped.stage_csv
 
     def counted(ing, pendings):
         calls.append(len(pendings))
         return original(ing, pendings)
+
+    def staged(con, data, spec, label, *args):
+        read_by_duckdb.append(label)
+        return stage_csv(con, data, spec, label, *args)
     monkeypatch.setattr(grouped, "load_group", counted)
+    monkeypatch.setattr(grouped, "stage_csv", staged)
     for mode in ("group", "alone"):
         if mode == "alone":
             monkeypatch.setattr(grouped, "GROUP_BATCHES", 1)
@@ -167,6 +177,7 @@ def test_plain_and_odd_files_points_and_changes_load_as_one_batch_at_a_time(
             stores[mode] = (snapshot(s.con), first.asdict()["batches"],
                             second.asdict()["batches"])
     assert calls == [5, 3]                    # m0, m3 and m4 changed: one group
+    assert read_by_duckdb == ["m1/vp2.csv", "m2/vp.csv", "m3/vp.csv"]     # the odd files
     assert stores["group"] == stores["alone"]
     snap, first, second = stores["group"]
     assert [b["status"] for b in first] == ["loaded"] * 5
@@ -175,7 +186,8 @@ def test_plain_and_odd_files_points_and_changes_load_as_one_batch_at_a_time(
     # the superseded manifest's fixed points and constant stay as history
     assert len(snap["fixed_point"]) - 1 == 6 and len(snap["stated_constant"]) - 1 == 3
     reasons = {row[snap["quarantine"][0].index("reason_code")] for row in snap["quarantine"][1:]}
-    assert {"bad-row-shape", "not-a-number", "duplicate-row", "non-positive-value"} <= reasons
+    assert {"bad-row-shape", "not-a-number", "duplicate-row", "non-positive-value",
+            "missing-value"} <= reasons
 
 
 def test_a_file_rewritten_while_its_group_loads_keeps_the_hashed_rows(raw_root, tmp_path,

@@ -63,8 +63,10 @@ def _by_split(data, spec, needed, columns):
 # now and then a quote, a comment character, NUL or a lone carriage return; rows of the
 # header's width mostly, blank and comment lines, LF or CRLF breaks
 COMMON = ["85.0", "78.9", "1e5", "-3", "", " ", " 7 ", "x", "é", "n.m."]
-CELLS = st.sampled_from(COMMON * 6 + ['"', "'", "#", "\x00", "\r", "1,5", "a\tb", "a;b"])
-HEADERS = {"T{d}p": 2, "p{d}T": 2, " T{d}p": 2, "T{d}p{d}note": 3, "T{d}p{d}": 3}
+CELLS = st.sampled_from(COMMON * 6 + ['"', "'", "#", "\x00", "\r", "1,5", "a\tb", "a;b",
+                                      '"85.0"', '""', "'7'", '"a,b"', '"x"y', '"a""b"', ' "1"'])
+HEADERS = {"T{d}p": 2, "p{d}T": 2, " T{d}p": 2, "T{d}p{d}note": 3, "T{d}p{d}": 3,
+           '"T"{d}"p"': 2, "'T'{d}p": 2}
 
 
 @st.composite
@@ -104,14 +106,15 @@ def test_a_plain_file_splits_into_the_rows_duckdb_stages(header, data, crlf, las
 
 
 def test_common_files_are_plain_and_odd_ones_are_left_to_duckdb():
-    """A file of numbers with LF or CRLF breaks, blank and comment lines is split; a quote, a lone carriage return, an inline comment or a short row leaves the file to DuckDB."""
+    """A file of numbers with LF or CRLF breaks, blank and comment lines, whole fields quoted, is split; a quote inside a field or around a delimiter, a lone carriage return, an inline comment, a short row or a quote on a comment line leaves the file to DuckDB."""
     plain = [b"T,p\n85.0,78.9\n87.3,101.3\n", b"T,p\r\n85.0,78.9\r\n\r\n87.3,\r\n",
-             b"# rig B\nT,p\n85.0,78.9\n# drift\n\n90.0,133.6"]
+             b"# rig B\nT,p\n85.0,78.9\n# drift\n\n90.0,133.6",
+             b'"T","p"\n"85.0","78.9"\n87.3,""\n']
     for data in plain:
         assert _by_split(data, _spec(comment="#"), needed_columns(_spec()), ["T", "p"]) == \
             _by_duckdb(data, _spec(comment="#"), needed_columns(_spec()), ["T", "p"])
-    odd = [b'T,p\n"85.0",78.9\n', b"T,p\n85.0,78.9\r87.3,1\n", b"T,p\n85.0,78.9#x\n",
-           b"T,p\n85.0\n"]
+    odd = [b'T,p\n"85.0"7,78.9\n', b'T,p\n"8,5",78.9\n', b"T,p\n85.0,78.9\r87.3,1\n",
+           b"T,p\n85.0,78.9#x\n", b"T,p\n85.0\n", b'T,p\n# a "note\n85.0,78.9\n']
     for data in odd:
         assert split_plain(data, _spec(comment="#"), "vp.csv", needed_columns(_spec())) is None
 
