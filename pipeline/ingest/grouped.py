@@ -574,7 +574,9 @@ def _insert_observations(con, g: int, group: list[_File], rules: dict) -> None:
                f"NULL FROM fl_gnorm_{g} JOIN fl_gbases b USING (fl_file) "
                f"WHERE fault IS NULL AND NOT empty_{q}" for qi, q in enumerate(quantities)]
     _insert_from(con, "fl_gbases", [("fl_file", _I), ("base", _I), ("file_id", _I)], bases,
-                 "INSERT INTO observation " + " UNION ALL ".join(selects))
+                 "INSERT INTO observation (obs_id, file_id, row_number, quantity, T_K, u_T_K, "
+                 "value_si, u_value_si, T_original, value_original, T_cell_ref, value_cell_ref) "
+                 + " UNION ALL ".join(selects))
 
 
 def _quarantine_faults(ing, f: _File, g: int) -> None:
