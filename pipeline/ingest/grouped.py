@@ -31,9 +31,10 @@ instead of per file:
 **Isolation.** Whatever goes wrong while a group loads (a refused file, a source declared by
 two batches of the group or by another batch of the store, a twin file, any exception), the
 group's transaction is rolled back, leaving the store as it was, and its batches are loaded
-again one at a time by the batch-alone path, which refuses only the faulty batch and names it
-(or loads it, where the group was only cautious). A problem of the machine or Ctrl-C stops
-the run.
+again as two groups, halves of it, down to groups of fewer than :data:`SPLIT_FROM` batches,
+which load one at a time by the batch-alone path: that refuses only the faulty batch and
+names it (or loads it, where the group was only cautious), and the other batches of a large
+group still load in groups. A problem of the machine or Ctrl-C stops the run.
 """
 
 from __future__ import annotations
@@ -59,6 +60,9 @@ log = logging.getLogger(__name__)
 
 #: Largest table file loaded in a group [bytes]; a larger one is loaded with its batch alone
 SMALL_FILE_BYTES = 1 << 20
+#: A failed group of this many batches or more is loaded again as two groups (halves); a
+#: smaller one one batch at a time
+SPLIT_FROM = 4
 #: Bounds of one group: batches, table files, bytes held in memory
 GROUP_BATCHES = 250
 GROUP_FILES = 1000
@@ -149,11 +153,11 @@ def load_group(ingestor, pendings: list) -> list:
         results = _load_together(ingestor, pendings)
         con.execute("COMMIT")
         return results
-    except Exception as err:  # noqa: BLE001 - the batches are loaded again one at a time
+    except Exception as err:  # noqa: BLE001 - the batches are loaded again in halves
         _rollback(con)
         if is_interrupt(err) or environment_problem(err) is not None:
             raise
-        log.debug("a group of %d batches failed (%s: %s); loading them one at a time",
+        log.debug("a group of %d batches failed (%s: %s); loading it again in halves",
                   len(pendings), type(err).__name__, err)
     except BaseException:
         _rollback(con)
@@ -161,24 +165,32 @@ def load_group(ingestor, pendings: list) -> list:
     finally:
         _drop_temporary(con)
     _restore_sequences(con, before)
-    return [ingestor.load_alone(p) for p in pendings]
+    if len(pendings) < SPLIT_FROM:
+        return [ingestor.load_alone(p) for p in pendings]
+    # halves: the faulty batch ends in a group of its own after a few halvings, and the
+    # others still load in groups (a group that loads leaves what one at a time leaves)
+    half = len(pendings) // 2
+    return load_group(ingestor, pendings[:half]) + load_group(ingestor, pendings[half:])
 
 
 #: The id sequences the ingest draws from
 SEQUENCES = ("file_id_seq", "fp_id_seq", "const_id_seq", "q_id_seq")
 
 
-def _sequences(con) -> dict[str, int | None]:
-    """The last value each id sequence gave (None: none yet)."""
-    return dict(con.execute("SELECT sequence_name, last_value FROM duckdb_sequences() "
+def _sequences(con) -> dict[str, int]:
+    """The value each id sequence gives next. (Not its ``last_value``: that is NULL for a
+    sequence made again by :func:`_restore_sequences` and not drawn from since, which once
+    made a second failed group start the sequence again at 1.)"""
+    return dict(con.execute("SELECT sequence_name, coalesce(last_value + increment_by, "
+                            "start_value) FROM duckdb_sequences() "
                             "WHERE list_contains(?, sequence_name)", [list(SEQUENCES)]
                             ).fetchall())
 
 
-def _restore_sequences(con, before: dict[str, int | None]) -> None:
+def _restore_sequences(con, before: dict[str, int]) -> None:
     """A rolled-back transaction keeps the values its sequences gave away (DuckDB's sequences
-    are not transactional): start each again where it stood, so the batches loaded one at a
-    time get the ids they would have had without the failed group."""
+    are not transactional): start each again where it stood, so the batches loaded after a
+    failed group get the ids they would have had without it."""
     now = _sequences(con)
     changed = [name for name in SEQUENCES if now.get(name) != before.get(name)]
     if not changed:
@@ -186,7 +198,7 @@ def _restore_sequences(con, before: dict[str, int | None]) -> None:
     con.execute("BEGIN TRANSACTION")
     for name in changed:
         con.execute(f"DROP SEQUENCE {name}")
-        con.execute(f"CREATE SEQUENCE {name} START {int(before.get(name) or 0) + 1}")
+        con.execute(f"CREATE SEQUENCE {name} START {int(before[name])}")
     con.execute("COMMIT")
 
 
@@ -377,9 +389,9 @@ def _load_together(ing, pendings: list) -> list:
 
 
 def _check_sources(con, pendings: list) -> None:
-    """Refuse the group (its batches then load one at a time, which names the faulty one)
-    when a source is declared by two of its batches, or by a batch of the store that is not
-    the one declaring it now."""
+    """Refuse the group (its batches then load in smaller groups and alone, which names the
+    faulty one) when a source is declared by two of its batches, or by a batch of the store
+    that is not the one declaring it now."""
     ids = [p.plan.manifest.source.id for p in pendings]
     if len(set(ids)) != len(ids):
         raise BatchError("a source is declared by two batches of the group")

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import shutil
+
 import pytest
 
 import pipeline.ingest.grouped as grouped
@@ -212,3 +214,37 @@ def test_a_file_rewritten_while_its_group_loads_keeps_the_hashed_rows(raw_root, 
             "f USING (file_id) WHERE f.path LIKE '%/vp.csv' GROUP BY ALL ORDER BY 1").fetchall()
     assert [(b, sha) for b, sha, _, _ in rows] == sorted(hashed.items())
     assert all(n == 3 and low >= 78.0e3 for _, _, n, low in rows)    # not 11.1 kPa
+
+
+def test_a_failed_large_group_loads_again_in_halves(raw_root, tmp_path, monkeypatch):
+    """Beside batches already in the store, a group of eight batches with one faulty batch is loaded again as halves, down to the faulty one alone: the other batches still load in groups, every id sequence starts again where it stood after each failed group (also one made again and not drawn from since), and the store is what one batch at a time leaves."""
+    names = [f"h{i}" for i in range(8)]
+    stores, calls, original = {}, [], grouped.load_group
+
+    def counted(ing, pendings):
+        calls.append([p.plan.batch for p in pendings])
+        return original(ing, pendings)
+    monkeypatch.setattr(grouped, "load_group", counted)
+    for mode in ("group", "alone"):
+        if mode == "alone":
+            monkeypatch.setattr(grouped, "GROUP_BATCHES", 1)
+        for folder in raw_root.glob("[rh]*"):
+            shutil.rmtree(folder)
+        _raw(raw_root, ["r0", "r1", "r2", "r3"])
+        for f in raw_root.glob("r*/*.csv"):                # other contents than h0-h3's
+            f.write_text(f.read_text().replace("90.0", "90.5"))
+        _ingest(tmp_path / f"{mode}.duckdb", raw_root)      # the resident batches
+        calls.clear()
+        _raw(raw_root, names)
+        # refused while its group stages files, after the group drew its ids
+        (raw_root / "h5" / "vp2.csv").write_text("T,x\n85.0,1.0\n", encoding="utf-8")
+        stores[mode] = _ingest(tmp_path / f"{mode}.duckdb", raw_root)
+        if mode == "group":
+            assert calls == [names, names[:4], names[4:], names[4:6], names[6:]]
+    (result, snap), (alone, snap_alone) = stores["group"], stores["alone"]
+    assert [b.status for b in result.batches] == \
+        ["loaded"] * 5 + ["error"] + ["loaded"] * 2 + ["unchanged"] * 4       # h0-h7, r0-r3
+    assert "h5/vp2.csv" in result.batches[5].error and "not in the header" in \
+        result.batches[5].error
+    assert snap == snap_alone
+    assert [b.error for b in result.batches] == [b.error for b in alone.batches]
