@@ -49,6 +49,13 @@ import pyarrow as pa
 
 from pipeline.crashpoints import crash_point
 from pipeline.errors import BatchError, environment_problem, is_interrupt
+from pipeline.ingest.groupwrite import (
+    RAW_COLUMN,
+    block,
+    insert_from,
+    insert_points,
+    write_files,
+)
 from pipeline.ingest.normalise import QUANTITY_KIND, ident, layout, uncertainty_sql
 from pipeline.ingest.plaincsv import split_plain
 from pipeline.ingest.points import constant_row, fixed_point_row
@@ -251,7 +258,7 @@ class _Group:
         self.quarantine: list[tuple] = []    # in the order the batch-alone path writes
         self.sources: list[list] = []
 
-    def add(self, p, tables: dict[str, str]) -> None:
+    def add(self, p, tables: _Tables) -> None:
         """Plan one prepared batch (its retirements, manifest entries and tables); ``tables``
         (path -> SHA-256 of the current tables) is updated as the batch-alone path would."""
         ing, plan = self.ing, p.plan
@@ -262,7 +269,7 @@ class _Group:
         self.results.append(result)
         for path in p.removed:
             self.supersede.append((p.current[path][0], None))
-            tables.pop(path, None)
+            tables.pop(path)
         if plan.manifest_path not in p.unchanged:
             result.files.append(self._manifest(plan, p.current.get(plan.manifest_path)))
         else:
@@ -271,12 +278,12 @@ class _Group:
             if rel in p.unchanged:
                 result.files.append(FileResult(rel, "unchanged"))
                 continue
-            twins = sorted(q for q, s in tables.items() if s == sha and q != rel)
+            twins = tables.twins(sha, rel)
             if twins:   # the batch-alone path refuses it and names the twin
                 raise BatchError(f"has the same content as '{twins[0]}'", file=rel)
             index = self._new_file(rel, plan, "table", sha, mapping, len(content), spec, i,
                                    p.current.get(rel))
-            tables[rel] = sha
+            tables.set(rel, sha)
             f = _File(len(self.files), index, result, rel, sha, spec,
                       ing.fluids[spec.fluid].molar_mass_kg_mol, content)
             self.files.append(f)
@@ -331,10 +338,10 @@ def _load_together(ing, pendings: list) -> list:
     con = ing.con
     _check_sources(con, pendings)
     group = _Group(ing)
-    tables = _current_tables(con, pendings)
+    tables = _Tables(con, pendings)
     for p in pendings:
         group.add(p, tables)
-    first_id = _block(con, "file_id_seq", len(group.new_files))
+    first_id = block(con, "file_id_seq", len(group.new_files))
     for n, row in enumerate(group.new_files):
         row[0] = first_id + n
     for f in group.files:
@@ -364,7 +371,7 @@ def _load_together(ing, pendings: list) -> list:
     _insert_columns(con, group.files, rules_of)
     for g, members in enumerate(layouts.values()):
         _insert_observations(con, g, members, rules_of[members[0].layout])
-    _insert_points(con, group)
+    insert_points(con, group)
     g_of = {key: g for g, key in enumerate(layouts)}
     for item in group.quarantine:
         if item[0] == "entry":
@@ -384,7 +391,7 @@ def _load_together(ing, pendings: list) -> list:
                              f"loaded + {quarantined} quarantined", file=f.rel)
         group.new_files[f.index][12:15] = [f.rows_read, f.loaded, quarantined]
         f.result.files[f.slot] = FileResult(f.rel, "loaded", f.rows_read, f.loaded, quarantined)
-    _write_files(con, group)
+    write_files(con, group)
     return group.results
 
 
@@ -402,25 +409,33 @@ def _check_sources(con, pendings: list) -> None:
             raise BatchError(f"source id '{source_id}' was declared by batch '{owner}'")
 
 
-def _current_tables(con, pendings: list) -> dict[str, str]:
-    """Current tables (path -> SHA-256) with the content of one of the group's files."""
-    shas = sorted({t[5] for p in pendings for t in p.plan.tables})
-    if not shas:
-        return {}
-    return dict(con.execute(
-        "SELECT path, sha256 FROM raw_file WHERE list_contains(?, sha256) AND role = 'table' "
-        "AND superseded_by IS NULL", [shas]).fetchall())
+class _Tables:
+    """The current tables whose content is that of one of the group's files (path -> SHA-256,
+    and the paths of each SHA-256), kept as the group's batches change them."""
 
+    def __init__(self, con, pendings: list):
+        self.sha_of: dict[str, str] = {}
+        self.paths_of: dict[str, set[str]] = {}
+        shas = sorted({t[5] for p in pendings for t in p.plan.tables})
+        if shas:
+            for path, sha in con.execute(
+                    "SELECT path, sha256 FROM raw_file WHERE list_contains(?, sha256) AND "
+                    "role = 'table' AND superseded_by IS NULL", [shas]).fetchall():
+                self.set(path, sha)
 
-def _block(con, sequence: str, n: int) -> int | None:
-    """The first of ``n`` consecutive ids drawn from ``sequence`` in one statement."""
-    if n == 0:
-        return None
-    first, last = con.execute(f"SELECT min(v), max(v) FROM (SELECT nextval('{sequence}') AS v "
-                              "FROM range(?))", [n]).fetchall()[0]
-    if last - first + 1 != n:
-        raise AssertionError(f"{sequence} gave no block of {n} ids")
-    return first
+    def set(self, path: str, sha: str) -> None:
+        self.pop(path)
+        self.sha_of[path] = sha
+        self.paths_of.setdefault(sha, set()).add(path)
+
+    def pop(self, path: str) -> None:
+        sha = self.sha_of.pop(path, None)
+        if sha is not None:
+            self.paths_of[sha].discard(path)
+
+    def twins(self, sha: str, path: str) -> list[str]:
+        """Other current tables with this content."""
+        return sorted(self.paths_of.get(sha, set()) - {path})
 
 
 def _stage(con, files: list[_File]) -> dict[str, list[_File]]:
@@ -434,6 +449,10 @@ def _stage(con, files: list[_File]) -> dict[str, list[_File]]:
     for f in files:
         needed = needed_columns(f.spec)
         columns = list(dict.fromkeys(needed.values()))
+        if any(c.lower() in ("fl_file", "row_number") for c in columns):
+            # the names of the layout table's own columns: such a file loads alone
+            raise BatchError("a mapped column is named like a column of the group's tables",
+                             file=f.rel)
         layouts.setdefault(f.layout, []).append(f)
         g = list(layouts).index(f.layout)
         staged = split_plain(f.content, f.spec, f.rel, needed)
@@ -486,80 +505,6 @@ def needed_columns(spec) -> dict[str, str]:
     return needed
 
 
-def _arrow(con, name: str, schema: list[tuple[str, pa.DataType]], rows: list) -> None:
-    """Register ``rows`` (lists in ``schema``'s order) as the Arrow table ``name``."""
-    con.register(name, pa.table({c: pa.array([r[i] for r in rows], t)
-                                 for i, (c, t) in enumerate(schema)}))
-
-
-def _insert_from(con, name: str, schema, rows: list, sql: str) -> None:
-    """Run ``sql`` (which reads ``name``) over ``rows`` registered as an Arrow table."""
-    if not rows:
-        return
-    _arrow(con, name, schema, rows)
-    try:
-        con.execute(sql)
-    finally:
-        con.unregister(name)
-
-
-_S, _I, _F = pa.string(), pa.int64(), pa.float64()
-RAW_FILE = [("file_id", _I), ("sha256", _S), ("mapping_sha256", _S), ("path", _S),
-            ("batch", _S), ("role", _S), ("source_id", _S), ("table_index", _I),
-            ("fluid_id", _S), ("boundary", _S), ("solid_phase", _S), ("size_bytes", _I),
-            ("rows_read", _I), ("rows_loaded", _I), ("rows_quarantined", _I),
-            ("ingest_run_id", _S), ("ingested_at", pa.timestamp("us")),
-            ("superseded_by", _I), ("superseded_run_id", _S)]
-SOURCE = [("source_id", _S), ("kind", _S), ("citation", _S), ("doi", _S), ("license", _S),
-          ("batch", _S), ("run_id", _S)]
-RAW_COLUMN = [("file_id", _I), ("quantity", _S), ("column", _S), ("unit", _S), ("scale", _S),
-              ("si_unit", _S), ("rule", _S)]
-FIXED_POINT = [("fp_id", _I), ("fluid_id", _S), ("kind", _S), ("phases", _S), ("T_K", _F),
-               ("u_T_K", _F), ("p_Pa", _F), ("u_p_Pa", _F), ("rho_kg_m3", _F),
-               ("u_rho_kg_m3", _F), ("source_id", _S), ("file_id", _I), ("sha", _S),
-               ("path", _S), ("entry_number", _I), ("original_json", _S), ("run_id", _S)]
-CONSTANT = [("const_id", _I), ("fluid_id", _S), ("name", _S), ("value_si", _F), ("u_si", _F),
-            ("si_unit", _S), ("source_id", _S), ("file_id", _I), ("sha", _S), ("path", _S),
-            ("entry_number", _I), ("original_json", _S), ("run_id", _S)]
-
-
-def _write_files(con, group: _Group) -> None:
-    """The group's raw_file rows with their counts, its retirements and its sources: one
-    statement each."""
-    _insert_from(con, "fl_gfiles", RAW_FILE, group.new_files,
-                 "INSERT INTO raw_file SELECT * FROM fl_gfiles")
-    from pipeline.ingest.stage import REMOVED
-
-    rows = [[old, REMOVED if new is None else group.new_files[new][0], group.ing.run_id]
-            for old, new in group.supersede]
-    _insert_from(con, "fl_gsupersede", [("old", _I), ("new", _I), ("run_id", _S)], rows,
-                 "UPDATE raw_file SET superseded_by = s.new, superseded_run_id = s.run_id "
-                 "FROM fl_gsupersede s WHERE raw_file.file_id = s.old")
-    _insert_from(con, "fl_gsources", SOURCE, group.sources,
-                 "INSERT OR REPLACE INTO source SELECT * FROM fl_gsources")
-
-
-def _insert_points(con, group: _Group) -> None:
-    """The fixed points and constants of the group's manifests, ids in the order the
-    batch-alone path draws them."""
-    run_id, ids = group.ing.run_id, [r[0] for r in group.new_files]
-    fixed = group.points["fixed_point"]
-    first = _block(con, "fp_id_seq", len(fixed))
-    rows = [[first + n, fluid, r["kind"], r["phases"], r["T_K"], r["u_T_K"], r["p_Pa"],
-             r["u_p_Pa"], r["rho_kg_m3"], r["u_rho_kg_m3"], source, ids[index], sha, label,
-             r["entry_number"], r["original_json"], run_id]
-            for n, (index, fluid, source, sha, label, r) in enumerate(fixed)]
-    _insert_from(con, "fl_gfixed", FIXED_POINT, rows,
-                 "INSERT INTO fixed_point SELECT * FROM fl_gfixed")
-    constants = group.points["constant"]
-    first = _block(con, "const_id_seq", len(constants))
-    rows = [[first + n, fluid, r["name"], r["value_si"], r["u_si"], r["si_unit"], source,
-             ids[index], sha, label, r["entry_number"], r["original_json"], run_id]
-            for n, (index, fluid, source, sha, label, r) in enumerate(constants)]
-    _insert_from(con, "fl_gconstants", CONSTANT, rows,
-                 "INSERT INTO stated_constant SELECT * FROM fl_gconstants")
-
-
 def _insert_columns(con, files: list[_File], rules_of: dict) -> None:
     """The raw_column rows of every file of the group, in one INSERT."""
     values = []
@@ -571,8 +516,11 @@ def _insert_columns(con, files: list[_File], rules_of: dict) -> None:
         values += [[f.file_id, q, column, unit, scale, si_unit,
                     json.dumps(rule, sort_keys=True) if rule else None]
                    for q, column, unit, scale, si_unit, rule in rows]
-    _insert_from(con, "fl_gcolumns", RAW_COLUMN, values,
+    insert_from(con, "fl_gcolumns", RAW_COLUMN, values,
                  "INSERT INTO raw_column SELECT * FROM fl_gcolumns")
+
+
+BASES = [("fl_file", pa.int64()), ("base", pa.int64()), ("file_id", pa.int64())]
 
 
 def _insert_observations(con, g: int, group: list[_File], rules: dict) -> None:
@@ -585,7 +533,7 @@ def _insert_observations(con, g: int, group: list[_File], rules: dict) -> None:
                f"'{q}', si_T, {uT}, si_{q}, {uncertainty_sql(q, rules)}, txt_T, txt_{q}, NULL, "
                f"NULL FROM fl_gnorm_{g} JOIN fl_gbases b USING (fl_file) "
                f"WHERE fault IS NULL AND NOT empty_{q}" for qi, q in enumerate(quantities)]
-    _insert_from(con, "fl_gbases", [("fl_file", _I), ("base", _I), ("file_id", _I)], bases,
+    insert_from(con, "fl_gbases", BASES, bases,
                  "INSERT INTO observation (obs_id, file_id, row_number, quantity, T_K, u_T_K, "
                  "value_si, u_value_si, T_original, value_original, T_cell_ref, value_cell_ref) "
                  + " UNION ALL ".join(selects))
