@@ -248,3 +248,19 @@ def test_a_failed_large_group_loads_again_in_halves(raw_root, tmp_path, monkeypa
         result.batches[5].error
     assert snap == snap_alone
     assert [b.error for b in result.batches] == [b.error for b in alone.batches]
+
+
+def test_a_column_named_like_the_group_tables_own_columns_loads_alone(raw_root, tmp_path,
+                                                                      monkeypatch):
+    """A table whose temperature column is called fl_file (a column of the group's staging tables) makes its group load in smaller groups and alone; every batch loads as one at a time loads it."""
+    _raw(raw_root, ["a", "b", "c"])
+    table = vp_table(temperature={"column": "FL_FILE", "unit": "K"})
+    write_batch(raw_root, "b", batch_toml(source("rig-b", "Test rig, invented campaign"),
+                                          [table], format_version=None),
+                {"vp.csv": ROWS.replace("T,p", "FL_FILE,p").replace("78.9", "77.7")})
+    (raw_root / "b" / "vp2.csv").unlink()
+    result, snap = _ingest(tmp_path / "store.duckdb", raw_root)
+    assert [b.status for b in result.batches] == ["loaded"] * 3
+    monkeypatch.setattr(grouped, "GROUP_BATCHES", 1)
+    alone, snap_alone = _ingest(tmp_path / "alone.duckdb", raw_root)
+    assert snap == snap_alone
