@@ -126,8 +126,10 @@ def _validator(schema_name: str):
     return Validator(load_schema(schema_name))
 
 
-#: Most values a schema node remembers as valid (its memo is emptied when it is full)
+#: Most values a schema node remembers as valid (its memo is emptied when it is full), and
+#: the longest canonical JSON text of a value remembered [characters]
 _MEMO_VALUES = 20_000
+_MEMO_TEXT = 4096
 #: Keywords that look at which properties or items other keywords evaluated: a schema using
 #: one is validated whole
 _NOT_SPLIT = {"unevaluatedProperties", "unevaluatedItems", "prefixItems", "$dynamicRef",
@@ -200,7 +202,7 @@ class _Node:
         if isinstance(value, list) and self.items is not None and \
                 not all(self.items.valid(item) for item in value):
             return False
-        if key is not None:
+        if key is not None and len(key) <= _MEMO_TEXT:
             if len(self.memo) >= _MEMO_VALUES:
                 self.memo.clear()
             self.memo.add(key)
@@ -230,8 +232,6 @@ def is_valid(document: Any, schema_name: str) -> bool:
 
 def schema_errors(document: Any, schema_name: str) -> list[tuple[str, str]]:
     """All violations of a schema, as (key path, what was expected), sorted by path."""
-    if is_valid(document, schema_name):
-        return []
     validator = _validator(schema_name)
     found = []
     for err in validator.iter_errors(document):
@@ -255,7 +255,7 @@ def validated(path: Path, schema_name: str, error=BatchError, *, data: bytes | N
     """Parse and validate a manifest; raise ``error`` listing every violation."""
     label = label or str(path)
     document = read_toml(path, error, data=data, label=label)
-    problems = schema_errors(document, schema_name)
+    problems = [] if is_valid(document, schema_name) else schema_errors(document, schema_name)
     if problems:
         key, what = problems[0]
         more = f" (and {len(problems) - 1} more: " + "; ".join(
