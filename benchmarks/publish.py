@@ -307,8 +307,19 @@ def child_macro(published: str, repeat: int) -> None:
               "c.quantity = 'pressure') p JOIN curated_curves c ON c.fluid_id = p.fluid_id AND "
               "c.boundary = 'liquid-vapour' AND c.solid_phase = '' AND c.quantity = 'pressure')")
 
+    # the table macro (bulk form): the same points as a view, evaluated in one join
+    con.execute("CREATE TEMP VIEW bench_points AS SELECT c.fluid_id, c.T_min_K + (c.T_max_K - "
+                f"c.T_min_K) * (k + 0.5) / {int(per)} AS temperature_K FROM curated_curves c, "
+                f"range({int(per)}) r(k) WHERE c.boundary = 'liquid-vapour' AND "
+                "c.quantity = 'pressure'")
+    table = ("SELECT count(vapour_pressure_Pa), sum(vapour_pressure_Pa) FROM "
+             "fl_vapour_pressure_table('bench_points')")
+
     def run_sql():
         return con.execute(sql, [per, per]).fetchone()
+
+    def run_table():
+        return con.execute(table).fetchone()
 
     def run_joined():
         return con.execute(joined, [per, per]).fetchone()
@@ -321,8 +332,8 @@ def child_macro(published: str, repeat: int) -> None:
         return float(np.sum(evaluate_batch(curves, lo + (hi - lo) * k / per)))
 
     out = {}
-    for name, fn in (("sql", run_sql), ("joined", run_joined), ("per_curve", run_per_curve),
-                     ("batched", run_batched)):
+    for name, fn in (("sql", run_sql), ("table", run_table), ("joined", run_joined),
+                     ("per_curve", run_per_curve), ("batched", run_batched)):
         result = fn()                                 # warm-up (and the value to compare)
         times = []
         for _ in range(repeat):
@@ -335,25 +346,27 @@ def child_macro(published: str, repeat: int) -> None:
 
 def report_macro(result: dict) -> float:
     n_sql, s_sql = result["sql"]["value"]
-    print(f"  fl_vapour_pressure over {result['rows']:,} (fluid, T) rows of {result['curves']:,} "
-          "curves (after one warm-up run each):")
-    for name, label in (("sql", "DuckDB fl_vapour_pressure"),
+    print(f"  {result['rows']:,} (fluid, T) rows of {result['curves']:,} vapour-pressure curves "
+          "(after one warm-up run each):")
+    for name, label in (("sql", "DuckDB fl_vapour_pressure per row"),
+                        ("table", "DuckDB fl_vapour_pressure_table"),
                         ("joined", "DuckDB join + fl_form_value"),
                         ("per_curve", "numpy, Curve.value per curve"),
                         ("batched", "numpy, evaluate_batch")):
-        print(f"    {label:<32} {spread(result[name]['times'])} s")
+        print(f"    {label:<36} {spread(result[name]['times'])} s")
+    agree = {k: abs(result[k]["value"][1] / s_sql - 1) for k in ("table", "joined")}
     agree_c = abs(s_sql / result["per_curve"]["value"] - 1)
     agree_b = abs(s_sql / result["batched"]["value"] - 1)
+    print(f"    sums agree to {agree_c:.1e} (per curve), {agree_b:.1e} (batched), "
+          f"{agree['table']:.1e} (table macro), {agree['joined']:.1e} (join) relative")
     med = {k: statistics.median(result[k]["times"])
-           for k in ("sql", "joined", "per_curve", "batched")}
-    agree_j = abs(result["joined"]["value"][1] / s_sql - 1)
-    print(f"    sums agree to {agree_c:.1e} (per curve), {agree_b:.1e} (batched), {agree_j:.1e} "
-          "(join) relative")
-    ratio = med["sql"] / med["batched"]
-    print(f"  ratio fl_vapour_pressure / numpy (medians): {med['sql'] / med['per_curve']:.2f} per "
-          f"curve, {ratio:.2f} batched   (target <= {TARGET_MACRO:g} batched)")
-    print(f"  ratio join + fl_form_value / numpy batched (medians): "
-          f"{med['joined'] / med['batched']:.2f}")
+           for k in ("sql", "table", "joined", "per_curve", "batched")}
+    ratio = med["table"] / med["batched"]
+    print(f"  ratio SQL curve macro over 1 M rows / numpy batched (medians): table macro "
+          f"{ratio:.2f} (target <= {TARGET_MACRO:g}), per-row scalar macro "
+          f"{med['sql'] / med['batched']:.2f}, join + fl_form_value "
+          f"{med['joined'] / med['batched']:.2f}; per curve: table macro "
+          f"{med['table'] / med['per_curve']:.2f}")
     return ratio
 
 

@@ -259,10 +259,12 @@ def test_the_published_file_documents_every_object(published_demo):
         UNION ALL SELECT 'column ' || table_name || '.' || column_name FROM duckdb_columns()
             WHERE NOT internal AND comment IS NULL
         UNION ALL SELECT 'macro ' || function_name FROM duckdb_functions()
-            WHERE function_type = 'macro' AND function_name LIKE 'fl_%' AND comment IS NULL
+            WHERE function_type IN ('macro', 'table_macro') AND function_name LIKE 'fl_%'
+            AND comment IS NULL
     """).fetchall()
-    macros = con.execute("SELECT count(DISTINCT function_name) FROM duckdb_functions() "
-                         "WHERE function_type = 'macro' AND function_name LIKE 'fl_%'").fetchone()
+    macros = con.execute("SELECT count(DISTINCT function_name) FROM duckdb_functions() WHERE "
+                         "function_type IN ('macro', 'table_macro') AND function_name LIKE 'fl_%'"
+                         ).fetchone()
     con.close()
     assert missing == [] and macros[0] == len(sqlmacros.MACRO_NAMES)
 
@@ -280,3 +282,92 @@ def test_the_vapour_pressure_macro_answers_at_tc(published_demo):
     assert T_max == pytest.approx(647.096, abs=1e-9)
     assert at_tc == pytest.approx(22.064e6, rel=1e-4)
     assert above is None
+
+
+def test_table_macros_give_the_scalar_macros_values_for_every_form(every_form):
+    """fl_curve_value_table (curves joined once, coefficients as scalar columns) returns, for
+    every form, exactly what fl_curve_value returns per row: the same arithmetic, NULL outside
+    the range and for an unknown fluid; the caller's other columns are kept."""
+    target, rows = every_form
+    con = duckdb.connect(str(target), read_only=True)
+    forms = set()
+    for row, curve in rows:
+        T = np.linspace(curve.T_min_K, curve.T_max_K, 17).tolist() + [curve.T_max_K * 1.5]
+        con.execute("CREATE OR REPLACE TEMP TABLE pts AS SELECT f AS fluid_id, t AS "
+                    "temperature_K, i AS tag FROM unnest(?) WITH ORDINALITY u(t, i), "
+                    "unnest(?) v(f)", [T, [row["fluid_id"], "no-such-fluid"]])
+        key = [row["boundary"], row["solid_phase"], row["quantity"]]
+        table = con.execute("SELECT fluid_id, tag, value FROM fl_curve_value_table('pts', ?, ?, "
+                            "?) ORDER BY fluid_id, tag", key).fetchall()
+        scalar = con.execute("SELECT fluid_id, tag, fl_curve_value(fluid_id, ?, ?, ?, "
+                             "temperature_K) FROM pts ORDER BY fluid_id, tag", key).fetchall()
+        assert table == scalar, row["form"]
+        assert [v for f, _, v in table if f == row["fluid_id"]][-1] is None
+        assert {v for f, _, v in table if f == "no-such-fluid"} == {None}
+        forms.add(row["form"])
+    con.close()
+    assert forms == set(FORMS)
+
+
+def test_named_table_macros_match_the_named_macros(published_demo, tmp_path):
+    """Each named table macro (vapour, melting per phase, sublimation, both saturated
+    densities) gives the named scalar macro's value on every row, also in the PyPI duckdb CLI
+    (an older DuckDB)."""
+    con = duckdb.connect(str(published_demo["file"]), read_only=True)
+    con.execute("CREATE TEMP TABLE pts AS SELECT c.fluid_id, c.solid_phase, c.T_min_K + "
+                "(c.T_max_K - c.T_min_K) * k / 9.0 AS temperature_K, c.boundary, c.quantity, k "
+                "FROM curated_curves c, range(10) r(k)")
+    pairs = [("fl_vapour_pressure_table('pts')", "vapour_pressure_Pa",
+              "fl_vapour_pressure(fluid_id, temperature_K)"),
+             ("fl_saturated_liquid_density_table('pts')", "rho_liquid_kg_m3",
+              "fl_saturated_liquid_density(fluid_id, temperature_K)"),
+             ("fl_saturated_vapour_density_table('pts')", "rho_vapour_kg_m3",
+              "fl_saturated_vapour_density(fluid_id, temperature_K)")]
+    for phase in ("", "Ih", "III", "V"):
+        pairs += [(f"fl_melting_pressure_table('pts', phase := '{phase}')", "melting_pressure_Pa",
+                   f"fl_melting_pressure(fluid_id, temperature_K, phase := '{phase}')"),
+                  (f"fl_sublimation_pressure_table('pts', phase := '{phase}')",
+                   "sublimation_pressure_Pa",
+                   f"fl_sublimation_pressure(fluid_id, temperature_K, phase := '{phase}')")]
+    non_null = 0
+    for table_call, column, scalar_call in pairs:
+        got = con.execute(f"SELECT fluid_id, solid_phase, boundary, quantity, k, {column} FROM "
+                          f"{table_call} ORDER BY ALL").fetchall()
+        want = con.execute(f"SELECT fluid_id, solid_phase, boundary, quantity, k, {scalar_call} "
+                           "FROM pts ORDER BY ALL").fetchall()
+        assert got == want, table_call
+        non_null += sum(r[-1] is not None for r in got)
+    expected = con.execute("SELECT fl_vapour_pressure('argon', 100.0)").fetchone()[0]
+    con.close()
+    assert non_null >= 10 * 8
+    cli = _duckdb_cli(tmp_path)
+    proc = subprocess.run(cli + ["-readonly", "-csv", "-noheader", str(published_demo["file"]),
+                                 "-c", "CREATE TEMP TABLE p AS SELECT 'argon' AS fluid_id, "
+                                       "100.0 AS temperature_K; SELECT vapour_pressure_Pa FROM "
+                                       "fl_vapour_pressure_table('p');"],
+                          capture_output=True, text=True, timeout=60)
+    assert proc.returncode == 0, proc.stderr
+    assert float(proc.stdout.strip()) == pytest.approx(expected, rel=1e-12)
+
+
+def test_the_readme_table_macro_example_runs_as_written(published_demo):
+    """The README's bulk-evaluation SQL block runs on the demo's published file (with a
+    my_data table of argon and water points) and adds each named column."""
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    block = next(b.split("```", 1)[0] for b in readme.split("```sql")[1:]
+                 if "fl_vapour_pressure_table" in b)
+    con = duckdb.connect(str(published_demo["file"]), read_only=True)
+    con.execute("CREATE TEMP TABLE my_data AS SELECT * FROM (VALUES ('argon', 100.0, 1), "
+                "('water', 260.0, 2), ('water', 373.124, 3)) v(fluid_id, T, run)")
+    code = "\n".join(line.split("--", 1)[0] for line in block.splitlines())
+    statements = [s.strip() for s in code.split(";") if s.strip()]
+    results = [con.execute(s).fetchdf() for s in statements]
+    con.close()
+    assert len(statements) == 4
+    vp, melt, rho = results[1], results[2], results[3]
+    # argon boils at 87.3 K, about 0.32 MPa at 100 K; water at 373.124 K: 101.325 kPa
+    # (IAPWS-95 normal boiling point, common practice to quote it so)
+    by_run = dict(zip(vp["run"], vp["vapour_pressure_Pa"]))
+    assert by_run[1] > 3e5 and by_run[3] == pytest.approx(101325.0, rel=2e-3)
+    assert melt.loc[melt["run"] == 2, "melting_pressure_Pa"].iloc[0] > 1e8   # Ih at 260 K
+    assert rho["value"].notna().sum() >= 2
