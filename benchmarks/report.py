@@ -11,6 +11,9 @@ record (what the stage really does: figures, pages, results.json, junit.xml, rep
   cold, pool  the same report again with the figure and page caches emptied, drawn by one
               worker process per CPU (``FLUIDLEDGER_REPORT_WORKERS``; ``--cold`` only: the
               pool measured against one process);
+  cold, before  with ``--before REPO``: the same cold nightly (``--full`` on an empty store of
+              the same raw folder) run by another checkout's code, e.g. the main branch
+              before a change to the figures, in the same run (``--cold`` only);
   --full      ``nightly --full`` again: every stage recomputed, no figure redrawn;
   unchanged   ``nightly`` with nothing new (``--repeat`` times);
   one batch   ``nightly`` after one fluid's vapour-pressure file changed (``--repeat``
@@ -28,7 +31,7 @@ Also the peak RSS of each child (the whole nightly process: ``ru_maxrss`` of tha
 alone), the size of report.html and of the run folder (pages are links into the page cache:
 counted once), and the load average.
 
-    python benchmarks/report.py [--fluids N] [--repeat N] [--cold] [--keep DIR]
+    python benchmarks/report.py [--fluids N] [--repeat N] [--cold [--before REPO]] [--keep DIR]
 """
 
 from __future__ import annotations
@@ -60,6 +63,26 @@ def _child(args: list[str], env: dict, out) -> None:
 
     code = main(["nightly", "--quiet", "--exit-zero", *args])
     out.put((code, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024))
+
+
+#: A nightly run by another checkout's code, in a fresh interpreter (its package first on the
+#: path): prints its exit code and its own peak RSS [MiB].
+OTHER = """import json, os, resource, sys
+sys.path.insert(0, sys.argv[1])
+from pipeline.cli import main
+code = main(["nightly", "--quiet", "--exit-zero", *json.loads(sys.argv[2])])
+print(json.dumps([code, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024]))
+"""
+
+
+def run_other(repo: Path, args: list[str]) -> tuple[int, float]:
+    """One nightly run by the checkout at ``repo``: (exit code, its peak RSS [MiB])."""
+    import subprocess
+
+    out = subprocess.run([sys.executable, "-c", OTHER, str(repo), json.dumps(args)],
+                         check=True, capture_output=True, text=True, cwd=str(repo))
+    code, peak = json.loads(out.stdout.strip().splitlines()[-1])
+    return code, peak
 
 
 def run(common: list[str], *extra: str, env: dict | None = None) -> tuple[int, float]:
@@ -104,6 +127,8 @@ def main() -> None:
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--cold", action="store_true",
                     help="also draw every figure again in one process (slow: minutes)")
+    ap.add_argument("--before", type=Path, default=None,
+                    help="with --cold: also run the cold nightly with this checkout's code")
     ap.add_argument("--keep", type=Path, default=None)
     args = ap.parse_args()
     tmp = args.keep or Path(tempfile.mkdtemp(prefix="fl-report-bench-"))
@@ -132,6 +157,15 @@ def main() -> None:
                            f"folder {total / 1e6:.1f} MB; exit {code}")
             return detail
 
+        if args.cold and args.before:      # the other code first, on its own store
+            other = ["--store", str(tmp / "before.duckdb"), "--raw", str(raw), "--reports",
+                     str(tmp / "reports-before")]
+            code, peak = run_other(args.before.resolve(), [*other, "--full"])
+            seconds, detail, folder = last_report(tmp / "before.duckdb")
+            rows["cold, before"], rss["cold, before"] = [seconds], [peak]
+            files["cold, before"] = [detail.get("files_s", float("nan"))]
+            notes["cold, before"] = (f"{args.before}: drawn {detail.get('plots_drawn')}; "
+                                     f"exit {code}")
         measure("cold", "--full")
         if args.cold:
             shutil.rmtree(reports / ".cache" / "plots", ignore_errors=True)
@@ -159,6 +193,10 @@ def main() -> None:
         for name, note in notes.items():
             print(f"  {name}: {note}; of the median, results.json, junit.xml, summary and "
                   f"report.html {statistics.median(files[name]):.2f} s")
+        if "cold, before" in rows:
+            one, old = rows["cold"][0], rows["cold, before"][0]
+            print(f"cold report, this code against {args.before}: {one / old:.3f} "
+                  f"({one:.1f} s vs {old:.1f} s)")
         if "cold, pool" in rows:
             one, pool = rows["cold"][0], rows["cold, pool"][0]
             print(f"cold report, worker pool against one process: {pool / one:.2f} "

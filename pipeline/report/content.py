@@ -258,25 +258,38 @@ def flag_groups(g, named: Mapping[str, Any], numbers: np.ndarray,
     """Number the flagged points of one fluid (frame ``g`` of :data:`_OBS_SQL` rows): points
     of one file flagged for the same failing checks form a group (fit outliers alone form
     their own), numbered in order of their first observation; ``numbers`` gets each point's
-    group number."""
+    group number. Only the rows a check names or the fit flagged are visited."""
+    obs_ids = g["obs_id"].to_numpy(np.int64)
+    paths = g["file_path"].to_numpy(object)
+    outlier = g["is_outlier"].to_numpy(bool)
+    by_obs, by_file = named["obs"], named["files"]
+    candidate = outlier.copy()
+    if by_obs:
+        candidate |= np.fromiter((int(i) in by_obs for i in obs_ids), bool, len(obs_ids))
+    if by_file:
+        candidate |= np.fromiter((f in by_file for f in paths), bool, len(paths))
     groups: dict[tuple, list[int]] = {}
-    for i, row in enumerate(g.itertuples(index=False)):
-        checks = set(named["obs"].get(int(row.obs_id), ())) | \
-            set(named["files"].get(row.file_path, ()))
-        if not checks and not row.is_outlier:
+    for i in np.flatnonzero(candidate).tolist():
+        checks = set(by_obs.get(int(obs_ids[i]), ())) | set(by_file.get(paths[i], ()))
+        if not checks and not outlier[i]:
             continue
-        key = (row.file_path, tuple(sorted(checks)) or ("fit outlier",))
+        key = (paths[i], tuple(sorted(checks)) or ("fit outlier",))
         groups.setdefault(key, []).append(i)
     out = []
-    ordered = sorted(groups.items(), key=lambda kv: int(g["obs_id"].iat[kv[1][0]]))
+    T_K = g["T_K"].to_numpy(float)
+    rows = g["row_number"].to_numpy(np.int64)
+    sources = g["source_id"].to_numpy(object)
+    ordered = sorted(groups.items(), key=lambda kv: int(obs_ids[kv[1][0]]))
     for n, ((path, reasons), idx) in enumerate(ordered, start=1):
         numbers[idx] = n
-        sub = g.iloc[idx]
-        out.append(FlagGroup(n, path, str(sub["source_id"].iat[0]), reasons,
-                             tuple(int(x) for x in sub["obs_id"]),
-                             tuple(int(x) for x in sub["row_number"]),
-                             float(sub["T_K"].min()), float(sub["T_K"].max()),
-                             int(sub["is_outlier"].sum()), corrections.get(path, "")))
+        T = T_K[idx]
+        T = T[~np.isnan(T)]
+        out.append(FlagGroup(n, path, str(sources[idx[0]]), reasons,
+                             tuple(int(x) for x in obs_ids[idx]),
+                             tuple(int(x) for x in rows[idx]),
+                             float(T.min()) if len(T) else math.nan,
+                             float(T.max()) if len(T) else math.nan,
+                             int(outlier[idx].sum()), corrections.get(path, "")))
     return out
 
 

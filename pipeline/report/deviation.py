@@ -14,7 +14,6 @@ triangles pointing the way they are off, their hover text giving the true deviat
 from __future__ import annotations
 
 import math
-from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -22,7 +21,6 @@ from pipeline.report.plots import (
     K_COVERAGE,
     CurveSpec,
     PhaseDiagramData,
-    Titles,
     _finite,
     curve_colour,
     draw_flags,
@@ -30,11 +28,8 @@ from pipeline.report.plots import (
     finish,
     solid_phases,
     source_styles,
-    style_axes,
 )
-
-if TYPE_CHECKING:   # matplotlib is imported only when a figure is drawn
-    from matplotlib.figure import Figure
+from pipeline.report.svgkit import Canvas, Handle, Panel, PointStyle
 
 #: Panels per row.
 COLUMNS = 3
@@ -84,10 +79,8 @@ def y_range(dev: np.ndarray, flagged: np.ndarray, half: np.ndarray) -> float:
     return max(1.15 * max(spread, width), MIN_HALF_RANGE)
 
 
-def _panel(ax, data: PhaseDiagramData, spec: CurveSpec, styles, phases, titles: Titles,
+def _panel(fig: Canvas, ax: Panel, data: PhaseDiagramData, spec: CurveSpec, styles, phases,
            legend: dict) -> dict:
-    from matplotlib.lines import Line2D
-
     obs = data.observations
     sel = (obs.boundary == spec.boundary) & (obs.solid_phase == spec.solid_phase) & \
         _finite(obs.T_K, obs.p_Pa) & (obs.p_Pa > 0) if len(obs) else np.zeros(0, bool)
@@ -99,67 +92,58 @@ def _panel(ax, data: PhaseDiagramData, spec: CurveSpec, styles, phases, titles: 
     lim = y_range(dev[sel], (obs.flag[sel] > 0), half)
     colour = curve_colour(spec.boundary, spec.solid_phase, phases)
     if len(T_band) and np.any(half > 0):
-        patch = ax.fill_between(T_band, -half, half, color=BAND_COLOUR, alpha=0.35, linewidth=0,
-                                zorder=0.8)
-        legend.setdefault("fit uncertainty band (k = 2)", patch)
-    ax.axhline(0.0, color=colour, linewidth=1.1, zorder=1.0)
+        label = "fit uncertainty band (k = 2)"
+        ax.band(T_band, -half, half, BAND_COLOUR, 0.35, 0.8, label=label)
+        legend.setdefault(label, Handle("patch", colour=BAND_COLOUR, alpha=0.35))
+    ax.hline(0.0, colour, 1.1, 1.0)
     y = np.clip(dev, -lim, lim)
     off = sel & (np.abs(dev) > lim)
     note = [f"deviation from the fit: {d:+.4g} %" if np.isfinite(d) else "" for d in dev]
-    draw_points(ax, obs, styles, sel & ~off, obs.T_K, y, titles, legend, note)
+    draw_points(fig, ax, obs, styles, sel & ~off, obs.T_K, y, legend, note)
     for source, st in styles.items():     # beyond the axis: a triangle on the edge
         for sign, marker in ((1.0, "^"), (-1.0, "v")):
             edge = np.flatnonzero(off & (np.sign(dev) == sign) & (obs.source_id == source))
             if len(edge):
-                artist = ax.scatter(obs.T_K[edge], y[edge], marker=marker, s=34,
-                                    color=st.colour, edgecolors="black", linewidths=0.4,
-                                    zorder=3.8)
-                titles.add(artist, [obs.hover(i, note[i] + " (beyond the axis)")
-                                    for i in edge], "edge")
+                ax.points(fig, obs.T_K[edge], y[edge],
+                          PointStyle(marker, 34.0, st.colour, "#000000", 0.4), 3.8,
+                          layer="edge", label=source,
+                          titles=[obs.hover(i, note[i] + " (beyond the axis)") for i in edge])
                 legend.setdefault("off the axis: triangle on the edge (value on hover)",
-                                  Line2D([], [], marker="^", color="#777777",
-                                         markeredgecolor="black", markeredgewidth=0.4,
-                                         linestyle="none", markersize=6))
-    anchors = draw_flags(ax, obs, sel, obs.T_K, y, titles, legend)
+                                  Handle("marker", PointStyle("^", 36.0, "#777777", "#000000",
+                                                              0.4)))
+    anchors = draw_flags(fig, ax, obs, sel, obs.T_K, y, legend)
     lo, hi = float(spec.curve.T_min_K), float(spec.curve.T_max_K)
     pad = 0.03 * (hi - lo) if hi > lo else 1.0
     T_all = np.concatenate([obs.T_K[sel], [lo, hi]])
-    ax.set_xlim(float(np.nanmin(T_all)) - pad, float(np.nanmax(T_all)) + pad)
-    ax.set_ylim(-lim * 1.06, lim * 1.06)
-    ax.yaxis.get_offset_text().set_fontsize(7.0)
+    ax.xlim = (float(np.nanmin(T_all)) - pad, float(np.nanmax(T_all)) + pad)
+    ax.ylim = (-lim * 1.06, lim * 1.06)
     return anchors
 
 
 def deviation_figure(data: PhaseDiagramData, *, width_in: float = 10.4,
-                     panel_in: float = 2.25) -> Figure | None:
-    """One panel per fitted pressure curve (None when the fluid has none); ``fig.fl_titles``
-    holds the hover texts."""
-    from matplotlib.figure import Figure   # lazy: a report that draws nothing never imports it
-
+                     panel_in: float = 2.25) -> Canvas | None:
+    """One panel per fitted pressure curve (None when the fluid has none), ready to be
+    written as SVG (:func:`pipeline.report.svg.figure_svg`)."""
     specs = pressure_curves(data)
     if not specs:
         return None
     ncols = min(COLUMNS, len(specs))
     nrows = -(-len(specs) // ncols)
-    fig = Figure(figsize=(width_in, nrows * panel_in + 1.5), dpi=72)
-    axes = fig.subplots(nrows, ncols, squeeze=False)
+    fig = Canvas(width_in * 72, (nrows * panel_in + 1.5) * 72)
     obs = data.observations
     ok = _finite(obs.T_K, obs.p_Pa) & (obs.p_Pa > 0) if len(obs) else np.zeros(0, bool)
     styles = source_styles(obs.source_id[ok].tolist(), obs.source_kind[ok].tolist())
     phases = solid_phases(data)
-    titles, legend, numbers = Titles(), {}, []
+    legend: dict[str, Handle] = {}
+    numbers = []
     for k, spec in enumerate(specs):
-        ax = axes[k // ncols][k % ncols]
-        numbers.append((ax, _panel(ax, data, spec, styles, phases, titles, legend)))
+        ax = fig.panel((0, 0, 1, 1))
+        numbers.append((ax, _panel(fig, ax, data, spec, styles, phases, legend)))
         form = getattr(spec.curve, "form", "")
-        style_axes(ax, title=f"{spec.name} ({form})" if form else spec.name,
-                   xlabel="T [K]" if k + ncols >= len(specs) else None,
-                   ylabel="100 (p - p_fit)/p_fit [%]" if k % ncols == 0 else None, nbins=5,
-                   label_pad_pt=(14.0, 38.0))
-    for k in range(len(specs), nrows * ncols):
-        axes[k // ncols][k % ncols].set_visible(False)
-    finish(fig, legend, numbers, axes_in=nrows * panel_in + (nrows - 1) * 0.55,
-           top_in=0.3, left=0.78 / width_in, right=0.99, wspace=0.3,
-           hspace=0.55 / panel_in if nrows > 1 else 0.2)
-    fig.fl_titles = titles.by_gid
-    return fig
+        ax.axes(title=f"{spec.name} ({form})" if form else spec.name,
+                xlabel="T [K]" if k + ncols >= len(specs) else None,
+                ylabel="100 (p - p_fit)/p_fit [%]" if k % ncols == 0 else None, nbins_x=5,
+                nbins_y=5, label_pad=(14.0, 38.0))
+    return finish(fig, legend, numbers, axes_in=nrows * panel_in + (nrows - 1) * 0.55,
+                  nrows=nrows, ncols=ncols, top_in=0.3, left=0.78 / width_in, right=0.99,
+                  wspace=0.3, hspace=0.55 / panel_in if nrows > 1 else 0.2)

@@ -3,10 +3,10 @@ inline SVG, and the flag groups their numbers refer to (cached together, as JSON
 
 :func:`draw_all` draws many fluids: in this process, or in worker processes when
 ``FLUIDLEDGER_REPORT_WORKERS`` asks for them and there are enough fluids to pay for starting
-the workers (``spawn``: each worker imports matplotlib once, about a second; a fluid's figures
-take 0.2-0.5 s). The SVG text does not depend on the process that drew it (fixed
-``svg.hashsalt``, no dates), so the figures are the same bytes either way
-(``tests/report/test_report_views.py``).
+the workers (``spawn``: each worker imports numpy and parts of matplotlib, about a second; a
+fluid's figures take about 5-10 ms, :mod:`pipeline.report.svgkit`). The SVG text does not
+depend on the process that drew it (numbers written to fixed decimals, no dates, no random
+ids), so the figures are the same bytes either way (``tests/report/test_report_views.py``).
 """
 
 from __future__ import annotations
@@ -43,7 +43,8 @@ def _prefix(fluid_id: str, figure: str) -> str:
 
 def render_figures(data: PhaseDiagramData) -> FluidFigures:
     """Draw and serialise the phase diagram and the deviation plots of one fluid."""
-    # imported here: matplotlib is loaded only by a report that draws (start-up of the rest)
+    # imported here: matplotlib (markers, ticks, font widths) is loaded only by a report that
+    # draws (start-up of the rest)
     from pipeline.report.deviation import deviation_figure
     from pipeline.report.plots import phase_diagram
     from pipeline.report.svg import figure_svg
@@ -68,9 +69,10 @@ def worker_count(n_fluids: int, workers: int | None = None) -> int:
     from :data:`PARALLEL_MIN_FLUIDS` fluids on, else 1 (this process).
 
     One process is the default because it was measured faster on a shared 2-CPU machine: a
-    cold report of 200 fluids took 150.7 s in one process and 203.7 s with two workers (load
-    average 13; ``python benchmarks/report.py --cold``). A machine with idle CPUs may set the
-    variable; the figures are the same bytes either way."""
+    cold report of 200 fluids took 25.1 s in one process and 31.0 s with two workers (load
+    average 12-13; ``python benchmarks/report.py --cold``; with the former matplotlib figures
+    150.7 s and 203.7 s at load 13): a fluid's figures cost less than a worker's start-up. A
+    machine with idle CPUs may set the variable; the figures are the same bytes either way."""
     if workers is None:
         text = os.environ.get(WORKERS_ENV, "").strip()
         if text:

@@ -9,7 +9,7 @@ deviation plots, fits, fixed points and sources; then a compact index of the flu
 passed everything, one row each, linking to their own pages (:mod:`pipeline.report.pages`). Every
 string that comes from data (citations, messages, ids, evidence) goes through :func:`e`
 (``html.escape`` with quotes), so a citation holding markup shows as text; the figures are SVG
-written by matplotlib with hover titles escaped by ElementTree.
+text (:mod:`pipeline.report.svgkit`) whose hover titles and labels are escaped the same way.
 """
 
 from __future__ import annotations

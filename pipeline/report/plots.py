@@ -1,13 +1,13 @@
-"""Per-fluid figures of the nightly report: data in, matplotlib figures out (no I/O, no store).
+"""Per-fluid figures of the nightly report: data in, SVG figures out (no I/O, no store).
 
 :func:`phase_diagram` draws one fluid on two panels:
 
 * left, log p against T: every pressure observation, one marker and colour per source, in
   layers: samples of evaluated equations (sources of kind standard or evaluated, dense, drawn
-  small and rasterised) at the bottom, then the fitted curves, then literature data, then
-  measured data on top; stated triple and critical points; flagged observations (fit outliers,
-  points named by failing checks) circled in red and numbered, the numbers explained in the
-  report's table beside the figure (no other text in the plot);
+  small, one merged path per source) at the bottom, then the fitted curves, then literature
+  data, then measured data on top; stated triple and critical points; flagged observations
+  (fit outliers, points named by failing checks) circled in red and numbered, the numbers
+  explained in the report's table beside the figure (no other text in the plot);
 * right, the melting curve(s) on a linear pressure axis [MPa], one colour per solid phase.
 
 A file diagnosed with a unit mix-up (``data.unit-mixup``) is drawn at its corrected position
@@ -15,23 +15,31 @@ with hollow markers, so it neither hides among nor stretches the axes away from 
 Uncertainty bands are not drawn on the log axis, where a k = 2 band is thinner than the line:
 they are in the deviation plots (:mod:`pipeline.report.deviation`).
 
-Figures are built with :class:`matplotlib.figure.Figure` directly (no pyplot state); every
-measured point carries a hover text (source, file, row, T, p) that :mod:`pipeline.report.svg`
-writes as an SVG ``<title>``: artists with titles get a gid listed in ``fig.fl_titles``.
+Figures are drawn as SVG text with :mod:`pipeline.report.svgkit` (matplotlib's marker
+shapes, tick positions and font metrics, not its figures: a fluid's two figures cost a few
+milliseconds instead of a quarter of a second). Every measured point is one ``<use>`` carrying
+its hover text (source, file, row, T, p) as an SVG ``<title>``; the dense samples of evaluated
+equations, which carry none, are merged into one path per source.
 """
 
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any, Sequence
+from typing import Any, Sequence
 
 import numpy as np
 
 from pipeline.report.labels import place_numbers
-
-if TYPE_CHECKING:   # matplotlib is imported only when a figure is drawn
-    from matplotlib.figure import Figure
+from pipeline.report.svgkit import (
+    LEGEND_FONT,
+    LEGEND_ROW,
+    Canvas,
+    Handle,
+    Panel,
+    PointStyle,
+    grid_cells,
+)
 
 #: Coverage factor of the error bars and bands drawn.
 K_COVERAGE = 2.0
@@ -190,12 +198,19 @@ class SourceStyle:
     layer: float
     equation: bool
 
-    def scatter_kw(self) -> dict:
+    def variant(self, name: str) -> tuple[PointStyle, float, bool]:
+        """(style, layer, titled) of the source's points drawn plain, drawn corrected (hollow:
+        the points below stay visible) or excluded by a decision (grey cross)."""
+        if name == "corrected":
+            return PointStyle(self.marker, self.size, None, self.colour, 1.3, 1.0), 3.3, True
+        alpha = 0.6 if self.equation else 0.95
+        if name == "excluded":
+            return PointStyle("x", 30.0, "#777777", None, 1.0, alpha), 3.5, True
         if self.equation:   # dense smooth samples: small, muted, no edge, under everything
-            return {"marker": self.marker, "s": self.size, "color": self.colour, "alpha": 0.6,
-                    "linewidths": 0.0, "zorder": self.layer, "rasterized": True}
-        return {"marker": self.marker, "s": self.size, "color": self.colour, "alpha": 0.95,
-                "edgecolors": "#111111", "linewidths": 0.45, "zorder": self.layer}
+            return PointStyle(self.marker, self.size, self.colour, None, 0.0, alpha), \
+                self.layer, False
+        return PointStyle(self.marker, self.size, self.colour, "#111111", 0.45, alpha), \
+            self.layer, True
 
 
 def source_styles(sources: Sequence[str], kinds: Sequence[str]) -> dict[str, SourceStyle]:
@@ -240,23 +255,13 @@ def _limits(values: list[np.ndarray], log: bool) -> tuple[float, float] | None:
     return lo - pad, hi + pad
 
 
-class Titles:
-    """Hover texts of a figure: gid -> one text per drawn point, in drawing order."""
-
-    def __init__(self):
-        self.by_gid: dict[str, list[str]] = {}
-
-    def add(self, artist, texts: list[str], kind: str) -> None:
-        gid = f"fl-{kind}-{len(self.by_gid)}"
-        artist.set_gid(gid)
-        self.by_gid[gid] = texts
-
-
 # -- drawing -----------------------------------------------------------------------------------
-def draw_points(ax, obs: Observations, styles, mask: np.ndarray, x: np.ndarray, y: np.ndarray,
-                titles: Titles, legend: dict, extra: list[str] | None = None) -> None:
-    """Points selected by ``mask`` at (x, y), one artist per source and style variant:
-    plain, drawn corrected (hollow), excluded by a decision (grey cross)."""
+def draw_points(fig: Canvas, panel: Panel, obs: Observations, styles, mask: np.ndarray,
+                x: np.ndarray, y: np.ndarray, legend: dict, extra: list[str] | None = None
+                ) -> None:
+    """Points selected by ``mask`` at (x, y), one layer per source and style variant: plain,
+    drawn corrected (hollow), excluded by a decision (grey cross); every point but the dense
+    equation samples carries its hover text."""
     for source, st in styles.items():
         base = mask & (obs.source_id == source)
         if not base.any():
@@ -267,28 +272,22 @@ def draw_points(ax, obs: Observations, styles, mask: np.ndarray, x: np.ndarray, 
         for variant, sel in variants:
             if not sel.any():
                 continue
-            kw = st.scatter_kw()
-            label = source
-            if variant == "corrected":   # hollow: the points below stay visible
-                kw.update(facecolors="none", edgecolors=st.colour, linewidths=1.3, alpha=1.0,
-                          zorder=3.3, rasterized=False)
-                kw.pop("color")
-                label = f"{source} (drawn corrected)"
-            elif variant == "excluded":
-                kw.update(marker="x", color="#777777", s=30, linewidths=1.0, zorder=3.5,
-                          rasterized=False)
-                kw.pop("edgecolors", None)
-                label = "excluded by a curation decision"
+            style, z, titled = st.variant(variant)
+            label = {"plain": source, "corrected": f"{source} (drawn corrected)",
+                     "excluded": "excluded by a curation decision"}[variant]
             idx = np.flatnonzero(sel)
-            artist = ax.scatter(x[idx], y[idx], **kw)
-            if label not in legend:
-                legend[label] = artist
-            if not kw.get("rasterized"):
-                titles.add(artist, [obs.hover(i, extra[i] if extra else "") for i in idx], "pts")
+            titles = ([obs.hover(i, extra[i] if extra else "") for i in idx] if titled
+                      else None)
+            panel.points(fig, x[idx], y[idx], style, z, label=label, titles=titles,
+                         layer="points" if titled else "samples")
+            legend.setdefault(label, Handle("marker", style))
 
 
-def draw_flags(ax, obs: Observations, mask: np.ndarray, x: np.ndarray, y: np.ndarray,
-               titles: Titles, legend: dict) -> dict:
+RING = PointStyle("o", 80.0, None, FLAG_COLOUR, 1.1)
+
+
+def draw_flags(fig: Canvas, panel: Panel, obs: Observations, mask: np.ndarray, x: np.ndarray,
+               y: np.ndarray, legend: dict) -> dict:
     """Red circles around the flagged points of ``mask``; returns where each flag group's
     number goes (data coordinates of its middle point) and the panel's other points, for
     :func:`finish` to place the numbers."""
@@ -297,10 +296,9 @@ def draw_flags(ax, obs: Observations, mask: np.ndarray, x: np.ndarray, y: np.nda
         return {}
     idx = np.flatnonzero(sel)
     # rings under the measured points (which stay visible) and over the fitted curves
-    ring = ax.scatter(x[idx], y[idx], s=80, facecolors="none", edgecolors=FLAG_COLOUR,
-                      linewidths=1.1, zorder=3.35)
-    titles.add(ring, [obs.hover(i) for i in idx], "flag")
-    legend.setdefault("flagged (numbers: see the table)", ring)
+    panel.points(fig, x[idx], y[idx], RING, 3.35, layer="flags", label="flagged",
+                 titles=[obs.hover(i) for i in idx])
+    legend.setdefault("flagged (numbers: see the table)", Handle("marker", RING))
     anchors = {}
     for n in sorted(set(int(f) for f in obs.flag[idx])):
         pts = idx[obs.flag[idx] == n]
@@ -311,21 +309,21 @@ def draw_flags(ax, obs: Observations, mask: np.ndarray, x: np.ndarray, y: np.nda
     return anchors
 
 
-def draw_fixed(ax, points: Sequence[FixedPointMark], scale: float, titles: Titles,
+def draw_fixed(fig: Canvas, panel: Panel, points: Sequence[FixedPointMark], scale: float,
                legend: dict) -> None:
     for fp in points:
         if not (math.isfinite(fp.T_K) and math.isfinite(fp.p_Pa)):
             continue
         critical = fp.kind == "critical"
         name = "critical point" if critical else "triple point"
-        artist = ax.scatter([fp.T_K], [fp.p_Pa / scale], marker="*" if critical else "^",
-                            s=150 if critical else 60, color="#f2c200" if critical else "#2e8b57",
-                            edgecolors="black", linewidths=0.7, zorder=5)
+        style = PointStyle("*" if critical else "^", 150.0 if critical else 60.0,
+                           "#f2c200" if critical else "#2e8b57", "#000000", 0.7)
         u = (f"u(T) = {fp.u_T_K:.2g} K, u(p) = {fp.u_p_Pa:.2g} Pa (k = 1)"
              if math.isfinite(fp.u_T_K) and math.isfinite(fp.u_p_Pa) else "")
-        titles.add(artist, [f"{fp.kind} point {fp.phases} ({fp.source_id})\nT = {fp.T_K:.7g} K, "
-                            f"p = {fp.p_Pa:.7g} Pa\n{u}".rstrip()], "fixed")
-        legend.setdefault(name, artist)
+        panel.points(fig, [fp.T_K], [fp.p_Pa / scale], style, 5.0, layer="fixed", label=name,
+                     titles=[f"{fp.kind} point {fp.phases} ({fp.source_id})\nT = {fp.T_K:.7g} "
+                             f"K, p = {fp.p_Pa:.7g} Pa\n{u}".rstrip()])
+        legend.setdefault(name, Handle("marker", style))
 
 
 def curve_grid(spec: CurveSpec, n: int = 160) -> tuple[np.ndarray, np.ndarray]:
@@ -338,16 +336,20 @@ def curve_grid(spec: CurveSpec, n: int = 160) -> tuple[np.ndarray, np.ndarray]:
         return T, np.asarray(spec.curve.value(T), dtype=float)
 
 
-def draw_curves(ax, curves: Sequence[CurveSpec], scale: float, log: bool, phases: Sequence[str],
-                legend: dict) -> None:
+def draw_curves(panel: Panel, curves: Sequence[CurveSpec], scale: float, log: bool,
+                phases: Sequence[str], legend: dict) -> list[np.ndarray]:
+    """The fitted curves; returns their drawn values (for limits when there are no points)."""
+    drawn = []
     for spec in curves:
         T, value = curve_grid(spec)
         ok = _finite(T, value) & ((value > 0) if log else True) if len(T) else np.zeros(0, bool)
         if not ok.any():
             continue
         colour = curve_colour(spec.boundary, spec.solid_phase, phases)
-        (line,) = ax.plot(T[ok], value[ok] / scale, color=colour, linewidth=1.3, zorder=2)
-        legend.setdefault(f"{spec.name} (fit)", line)
+        panel.line(T[ok], value[ok] / scale, colour, 1.3, 2.0, label=f"{spec.name} (fit)")
+        legend.setdefault(f"{spec.name} (fit)", Handle("line", colour=colour, width=1.3))
+        drawn.append(np.column_stack([T[ok], value[ok] / scale]))
+    return drawn
 
 
 def solid_phases(data: PhaseDiagramData) -> list[str]:
@@ -364,48 +366,22 @@ _SUPERSCRIPT = str.maketrans("-0123456789", "\u207b\u2070\u00b9\u00b2\u00b3\u207
 
 
 def decade_label(value: float, _pos=None) -> str:
-    """``10⁵`` for 1e5: a log axis label in plain text (no mathtext parse, ~15 % of the
-    drawing time of a figure)."""
+    """``10⁵`` for 1e5: a log axis label in plain text ('' between decades)."""
     if not (value > 0 and math.isfinite(value)):
         return ""
     k = math.log10(value)
     return "10" + str(int(round(k))).translate(_SUPERSCRIPT) if abs(k - round(k)) < 1e-9 else ""
 
 
-def style_axes(ax, *, title: str, xlabel: str | None, ylabel: str | None, log: bool = False,
-               nbins: int | None = None, label_pad_pt: tuple[float, float] = (22.0, 40.0)
-               ) -> None:
-    """Titles, labels and ticks with fixed positions: matplotlib then skips measuring every
-    tick label of every panel to place them (half the drawing time of a small figure)."""
-    from matplotlib.ticker import FuncFormatter, LogLocator, MaxNLocator, NullLocator
-    from matplotlib.transforms import ScaledTranslation
-
-    ax.set_title(title, fontsize=8.5, y=1.0, pad=4.0)
-    fig = ax.figure
-    if xlabel:
-        ax.set_xlabel(xlabel, fontsize=8.0)
-        ax.xaxis.set_label_coords(0.5, 0.0, transform=ax.transAxes + ScaledTranslation(
-            0, -label_pad_pt[0] / 72, fig.dpi_scale_trans))
-        ax.xaxis.label.set_va("top")
-    if ylabel:
-        ax.set_ylabel(ylabel, fontsize=8.0)
-        ax.yaxis.set_label_coords(0.0, 0.5, transform=ax.transAxes + ScaledTranslation(
-            -label_pad_pt[1] / 72, 0, fig.dpi_scale_trans))
-        ax.yaxis.label.set_va("bottom")
-    if log:
-        ax.yaxis.set_major_locator(LogLocator(base=10.0, numticks=8))
-        ax.yaxis.set_major_formatter(FuncFormatter(decade_label))
-        ax.yaxis.set_minor_locator(NullLocator())
-    elif nbins:
-        ax.yaxis.set_major_locator(MaxNLocator(nbins))
-    if nbins:
-        ax.xaxis.set_major_locator(MaxNLocator(nbins))
-    ax.tick_params(labelsize=7.0, length=3.0, pad=2.0)
-    ax.grid(True, which="major", alpha=0.3)
-
-
-LEGEND_FONT = 7.0          # [pt]
-LEGEND_ROW_IN = 0.16       # height of a legend row [in]
+def set_limits(panel: Panel, xlim, ylim, curves: list[np.ndarray], log: bool) -> None:
+    """The panel's limits; where the points gave none, the curves' (else a unit range)."""
+    if (xlim is None or ylim is None) and curves:
+        pts = np.concatenate(curves)
+        xlim = xlim or _limits([pts[:, 0]], log=False)
+        ylim = ylim or _limits([pts[:, 1]], log=log)
+    panel.xlim = xlim or (0.0, 1.0)
+    panel.ylim = ylim or ((1.0, 10.0) if log else (0.0, 1.0))
+    panel.ylog = log
 
 
 def legend_columns(labels: Sequence[str], width_in: float) -> int:
@@ -414,56 +390,52 @@ def legend_columns(labels: Sequence[str], width_in: float) -> int:
     return max(1, min(4, int(width_in * 72 * 0.96 // widest)))
 
 
-def finish(fig: Figure, legend: dict, numbers: Sequence[tuple[Any, dict]], *, axes_in: float,
-           top_in: float = 0.32, axis_label_in: float = 0.52, **adjust) -> None:
-    """Size the figure for its legend (below the panels, never over them), then place the
-    flag numbers (their positions need the final layout) and draw the legend."""
-    width = fig.get_figwidth()
-    ncol = legend_columns(list(legend), width)
-    rows = -(-len(legend) // ncol) if legend else 0
-    bottom_in = axis_label_in + rows * LEGEND_ROW_IN + 0.08
-    height = axes_in + top_in + bottom_in
-    fig.set_size_inches(width, height)
-    fig.subplots_adjust(top=1 - top_in / height, bottom=bottom_in / height, **adjust)
-    for ax, anchors in numbers:
+def finish(fig: Canvas, legend: dict, numbers: Sequence[tuple[Panel, dict]], *, axes_in: float,
+           nrows: int, ncols: int, top_in: float = 0.32, axis_label_in: float = 0.52,
+           **adjust) -> Canvas:
+    """Size the figure for its legend (below the panels, never over them), place the panels,
+    then the flag numbers (their positions need the final layout)."""
+    width_in = fig.width / 72
+    fig.ncol = legend_columns(list(legend), width_in)
+    rows = -(-len(legend) // fig.ncol) if legend else 0
+    bottom_in = axis_label_in + rows * LEGEND_ROW / 72 + 0.08
+    height_in = axes_in + top_in + bottom_in
+    fig.height = height_in * 72
+    frames = grid_cells(fig.width, fig.height, nrows, ncols, top=1 - top_in / height_in,
+                        bottom=bottom_in / height_in, **adjust)
+    for panel, frame in zip(fig.panels, frames):
+        panel.x0, panel.y0, panel.w, panel.h = frame
+    fig.legend = dict(legend)
+    for panel, anchors in numbers:
         if anchors:
             anchors = dict(anchors)
             points = anchors.pop("points", None)
-            place_numbers(ax, anchors, colour=FLAG_COLOUR, points=points)
-    if legend:
-        fig.legend(list(legend.values()), list(legend.keys()), loc="lower center", ncol=ncol,
-                   fontsize=LEGEND_FONT, frameon=False, bbox_to_anchor=(0.5, 0.0),
-                   handletextpad=0.4, columnspacing=1.2, borderaxespad=0.3)
+            place_numbers(panel, anchors, colour=FLAG_COLOUR, points=points)
+    return fig
 
 
 def phase_diagram(data: PhaseDiagramData, *, width_in: float = 8.4,
-                  axes_in: float = 3.0) -> Figure:
-    """The phase diagram of one fluid (see the module docstring); ``fig.fl_titles`` holds the
-    hover texts (gid -> texts)."""
-    from matplotlib.figure import Figure   # lazy: a report that draws nothing never imports it
-
-    fig = Figure(figsize=(width_in, axes_in + 1.5), dpi=72)
-    ax, ax_m = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1.55, 1.0]})
+                  axes_in: float = 3.0) -> Canvas:
+    """The phase diagram of one fluid (see the module docstring), ready to be written as SVG
+    (:func:`pipeline.report.svg.figure_svg`)."""
+    fig = Canvas(width_in * 72, (axes_in + 1.5) * 72)
+    ax, ax_m = fig.panel((0, 0, 1, 1)), fig.panel((0, 0, 1, 1))
     obs = data.observations
     ok = _finite(obs.T_K, obs.p_Pa) & (obs.p_Pa > 0) if len(obs) else np.zeros(0, dtype=bool)
     styles = source_styles(obs.source_id[ok].tolist(), obs.source_kind[ok].tolist())
     phases = solid_phases(data)
-    titles, legend = Titles(), {}
+    legend: dict[str, Handle] = {}
 
     # left panel: log p(T), every boundary
     ylim = _limits([obs.p_Pa[ok]] + [np.array([f.p_Pa]) for f in data.fixed_points], log=True)
     xlim = _limits([obs.T_K[ok]] + [np.array([f.T_K]) for f in data.fixed_points], log=False)
-    ax.set_yscale("log")
-    if ylim:
-        ax.set_ylim(*ylim)
-    if xlim:
-        ax.set_xlim(*xlim)
-    draw_points(ax, obs, styles, ok, obs.T_K, obs.p_Pa, titles, legend)
-    draw_curves(ax, data.curves, 1.0, True, phases, legend)
-    draw_fixed(ax, data.fixed_points, 1.0, titles, legend)
-    numbers = [(ax, draw_flags(ax, obs, ok, obs.T_K, obs.p_Pa, titles, legend))]
-    style_axes(ax, title="phase boundaries", xlabel="T [K]", ylabel="p [Pa] (log scale)",
-               log=True, nbins=7, label_pad_pt=(16.0, 30.0))
+    draw_points(fig, ax, obs, styles, ok, obs.T_K, obs.p_Pa, legend)
+    lines = draw_curves(ax, data.curves, 1.0, True, phases, legend)
+    set_limits(ax, xlim, ylim, lines, log=True)
+    draw_fixed(fig, ax, data.fixed_points, 1.0, legend)
+    numbers = [(ax, draw_flags(fig, ax, obs, ok, obs.T_K, obs.p_Pa, legend))]
+    ax.axes(title="phase boundaries", xlabel="T [K]", ylabel="p [Pa] (log scale)", nbins_x=7,
+            nbins_y=8, label_pad=(16.0, 30.0), ylabels=lambda v: [decade_label(t) for t in v])
 
     # right panel: melting curves on a linear axis [MPa], one colour per solid phase
     melt = ok & (obs.boundary == "solid-liquid") if len(obs) else ok
@@ -475,22 +447,14 @@ def phase_diagram(data: PhaseDiagramData, *, width_in: float = 8.4,
         m_xlim = _limits([obs.T_K[melt]] + [curve_grid(c)[0] for c in m_curves]
                          + [np.array([f.T_K]) for f in m_fixed], log=False)
         m_ylim = _limits([p_m[melt]] + [np.array([f.p_Pa / 1e6]) for f in m_fixed], log=False)
-        if m_xlim:
-            ax_m.set_xlim(*m_xlim)
-        if m_ylim:
-            ax_m.set_ylim(*m_ylim)
-        draw_points(ax_m, obs, styles, melt, obs.T_K, p_m, titles, legend)
-        draw_curves(ax_m, m_curves, 1e6, False, phases, legend)
-        draw_fixed(ax_m, m_fixed, 1e6, titles, legend)
-        numbers.append((ax_m, draw_flags(ax_m, obs, melt, obs.T_K, p_m, titles, legend)))
-        style_axes(ax_m, title="melting curve(s)", xlabel="T [K]",
-                   ylabel="p [MPa] (linear)", nbins=6, label_pad_pt=(16.0, 30.0))
+        draw_points(fig, ax_m, obs, styles, melt, obs.T_K, p_m, legend)
+        m_lines = draw_curves(ax_m, m_curves, 1e6, False, phases, legend)
+        set_limits(ax_m, m_xlim, m_ylim, m_lines, log=False)
+        draw_fixed(fig, ax_m, m_fixed, 1e6, legend)
+        numbers.append((ax_m, draw_flags(fig, ax_m, obs, melt, obs.T_K, p_m, legend)))
+        ax_m.axes(title="melting curve(s)", xlabel="T [K]", ylabel="p [MPa] (linear)",
+                  nbins_x=6, nbins_y=6, label_pad=(16.0, 30.0))
     else:
-        ax_m.text(0.5, 0.5, "no melting data", ha="center", va="center",
-                  transform=ax_m.transAxes, color="#666666", fontsize=8.5)
-        ax_m.set_xticks([])
-        ax_m.set_yticks([])
-        ax_m.set_title("melting curve(s)", fontsize=8.5, y=1.0, pad=4.0)
-    finish(fig, legend, numbers, axes_in=axes_in, left=0.085, right=0.985, wspace=0.28)
-    fig.fl_titles = titles.by_gid
-    return fig
+        ax_m.empty("melting curve(s)", "no melting data")
+    return finish(fig, legend, numbers, axes_in=axes_in, nrows=1, ncols=2, left=0.085,
+                  right=0.985, wspace=0.28, width_ratios=(1.55, 1.0))

@@ -25,7 +25,7 @@ from pipeline.report.files import PlotCache, source_hash
 
 #: The modules whose source makes the figures (hashed by file, so that a report drawing
 #: nothing never imports matplotlib).
-FIGURE_CODE = ("plots", "content", "deviation", "figures", "labels", "svg")
+FIGURE_CODE = ("plots", "content", "deviation", "figures", "labels", "svg", "svgkit")
 
 #: Fluids whose observations are read in one query.
 BATCH = 50

@@ -154,7 +154,9 @@ PROBE = """(() => {
     const r = s.getBoundingClientRect();
     return {fluid: s.dataset.fluid, figure: s.dataset.figure, w: r.width, h: r.height,
             points: s.querySelectorAll('use').length,
-            rasters: Array.from(s.querySelectorAll('image')).map(i => i.getBBox().width),
+            samples: Array.from(s.querySelectorAll('g[data-layer="samples"] path'))
+              .map(p => p.getBBox().width),
+            images: s.querySelectorAll('image').length,
             titles: s.querySelectorAll('title').length};
   });
   const target = Array.from(document.querySelectorAll(
@@ -197,13 +199,15 @@ def _check_figures(figures: dict) -> None:
     for key, fig in figures.items():
         assert fig["w"] > 500 and fig["h"] > 250, key
         assert fig["points"] > 20 and fig["titles"] > 10, key
-        assert fig["rasters"] and all(w > 50 for w in fig["rasters"]), key
+        # the dense samples of evaluated equations: merged paths spread over the panel
+        assert fig["samples"] and max(fig["samples"]) > 50 and min(fig["samples"]) > 0, key
+        assert fig["images"] == 0, key
 
 
 def test_report_renders_in_chromium_with_every_figure(report, tmp_path):
     """Chromium loads report.html from disk with no console error and no request beyond the
     file itself; the phase diagram and deviation plots of every fluid needing attention
-    render (drawn size, points, the rasterised layer of equation samples); resting the pointer
+    render (drawn size, points, the merged layer of equation samples); resting the pointer
     on a flagged point shows its source, file and row; the fluid that passed everything is
     an index row whose link opens its own page, as self-contained, with both figures and a
     link back; a screenshot is saved."""

@@ -1,5 +1,5 @@
 """Report figures: what the phase diagram and the deviation plots draw for given data (pure:
-data in, figure out), and the SVG they become."""
+data in, SVG out), read back from the SVG they become."""
 
 from __future__ import annotations
 
@@ -8,9 +8,6 @@ import xml.etree.ElementTree as ET
 
 import numpy as np
 import pytest
-from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.collections import PathCollection, PolyCollection
-from matplotlib.colors import to_hex
 
 from pipeline.correlations import reference_curve
 from pipeline.report.deviation import deviation_figure, y_range
@@ -25,6 +22,7 @@ from pipeline.report.plots import (
     phase_diagram,
 )
 from pipeline.report.svg import SVG_NS, figure_svg
+from pipeline.report.svgkit import Panel
 
 # Argon: Tegeler, Span & Wagner (1999) ancillary equations via pipeline.correlations.reference.
 VAP = reference_curve("argon", "liquid-vapour", "pressure")
@@ -80,39 +78,85 @@ def _data(flag_lab: bool = False, lab_offset: float = 0.0) -> PhaseDiagramData:
     return PhaseDiagramData("argon", "argon (Ar)", obs, curves, fixed, flags)
 
 
-def _collections(ax):
-    return [c for c in ax.collections if isinstance(c, PathCollection)]
+G = f"{{{SVG_NS}}}g"
+USE = f"{{{SVG_NS}}}use"
+PATH = f"{{{SVG_NS}}}path"
+TEXT = f"{{{SVG_NS}}}text"
+RECT = f"{{{SVG_NS}}}rect"
+FLAG_RED = "#d62728"
+
+
+def _svg(fig) -> ET.Element:
+    return ET.fromstring(figure_svg(fig, prefix="t-", figure="test", fluid_id="argon",
+                                    label="test figure"))
+
+
+def _panels(root: ET.Element) -> list[ET.Element]:
+    return [g for g in root.iter(G) if g.get("class") == "panel"]
+
+
+def _drawn(panel: ET.Element) -> list[ET.Element]:
+    """What is drawn inside the panel's frame, bottom to top."""
+    (body,) = [g for g in panel.findall(G) if g.get("clip-path")]
+    return list(body)
+
+
+def _layers(panel: ET.Element, layer: str) -> list[ET.Element]:
+    return [el for el in _drawn(panel) if el.get("data-layer") == layer]
+
+
+def _legend(root: ET.Element) -> list[str]:
+    (legend,) = [g for g in root.iter(G) if g.get("class") == "legend"]
+    return [t.text for t in legend.iter(TEXT)]
+
+
+def _data_y(panel: Panel, Y: float) -> float:
+    """The data value at SVG y coordinate ``Y`` of a linear panel."""
+    lo, hi = panel.ylim
+    return lo + (panel.y0 + panel.h - Y) / panel.h * (hi - lo)
+
+
+def _path_xy(d: str) -> np.ndarray:
+    return np.array([float(v) for v in re.findall(r"-?\d+(?:\.\d+)?", d)]).reshape(-1, 2)
 
 
 def test_measured_data_sit_above_equation_samples_and_the_curves():
-    """Lab points are drawn over the fitted curves, which are drawn over the (rasterised)
-    samples of evaluated equations."""
-    fig = phase_diagram(_data())
-    ax = fig.axes[0]
-    eq = [c for c in _collections(ax) if c.get_rasterized()]
-    lab = [c for c in _collections(ax) if not c.get_rasterized()
-           and len(c.get_offsets()) == 10]
-    lines = [ln.get_zorder() for ln in ax.lines]
-    assert len(eq) == 1 and len(lab) == 1
-    assert eq[0].get_zorder() < min(lines) <= max(lines) < lab[0].get_zorder()
+    """Lab points are drawn over the fitted curves, which are drawn over the samples of
+    evaluated equations (one merged path, 40 markers, no hover text)."""
+    (phase, _) = _panels(_svg(phase_diagram(_data())))
+    drawn = _drawn(phase)
+    kinds = [(el.get("data-layer"), el.get("data-label")) for el in drawn]
+    samples = kinds.index(("samples", "eq-src"))
+    curves = [i for i, k in enumerate(kinds) if k[0] == "curve"]
+    lab = kinds.index(("points", "lab-a"))
+    assert samples < min(curves) <= max(curves) < lab
+    (merged,) = drawn[samples].findall(PATH)
+    assert merged.get("d").count("M") == 40 and not drawn[samples].findall(USE)
+    assert not list(drawn[samples].iter(f"{{{SVG_NS}}}title"))
+    assert len(drawn[lab].findall(USE)) == 10
 
 
 def test_one_legend_entry_per_source_and_no_in_plot_text():
     """Every source has one legend entry; without flags the panels carry no text at all
-    (titles and axis labels aside)."""
-    fig = phase_diagram(_data())
-    labels = [t.get_text() for t in fig.legends[0].get_texts()]
+    (titles, ticks and axis labels aside)."""
+    root = _svg(phase_diagram(_data()))
+    labels = _legend(root)
     for source in ("eq-src", "lab-a", "paper-c"):
         assert labels.count(source) == 1
     assert "critical point" in labels and "triple point" in labels
-    assert all(not ax.texts for ax in fig.axes[:2])
+    for panel in _panels(root):
+        assert not [el for el in _drawn(panel) if el.tag == TEXT]
+        assert not [g for g in panel.iter(G) if g.get("class") == "flag-number"]
 
 
 def test_log_axis_has_no_band_and_plain_decade_labels():
     """No uncertainty band is drawn on the log panel (it would be thinner than the line); its
     ticks read 10⁵ without mathtext."""
-    fig = phase_diagram(_data())
-    assert not [c for c in fig.axes[0].collections if isinstance(c, PolyCollection)]
+    root = _svg(phase_diagram(_data()))
+    phase = _panels(root)[0]
+    assert not _layers(phase, "band")
+    ticks = [t.text for t in phase.findall(TEXT) if t.get("text-anchor") == "end"]
+    assert ticks and all(t.startswith("10") for t in ticks)
     assert decade_label(1e5) == "10\u2075" and decade_label(0.1) == "10\u207b\u00b9"
     assert decade_label(3e4) == ""
 
@@ -122,21 +166,23 @@ def test_melting_curves_of_solid_phases_differ_by_colour():
     obs = Observations.empty()
     data = PhaseDiagramData("water", "water", obs, [CurveSpec("solid-liquid", "Ih", ICE_IH),
                                                     CurveSpec("solid-liquid", "III", ICE_III)])
-    ax_m = phase_diagram(data).axes[1]
-    colours = {to_hex(ln.get_color()) for ln in ax_m.lines}
-    styles = {ln.get_linestyle() for ln in ax_m.lines}
-    assert len(ax_m.lines) == 2 and len(colours) == 2 and len(styles) == 1
-    assert "MPa" in ax_m.get_ylabel()
+    fig = phase_diagram(data)
+    melt = _panels(_svg(fig))[1]
+    curves = _layers(melt, "curve")
+    assert len(curves) == 2
+    assert len({c.get("stroke") for c in curves}) == 2
+    assert len({(c.get("stroke-width"), c.get("stroke-dasharray")) for c in curves}) == 1
+    assert "MPa" in fig.panels[1].ylabel
 
 
 def test_flagged_points_are_circled_and_numbered_once_per_panel():
     """A flagged lab point gets a red ring and its group number beside it."""
-    fig = phase_diagram(_data(flag_lab=True))
-    ax = fig.axes[0]
-    assert [t.get_text() for t in ax.texts] == ["1"]
-    rings = [c for c in _collections(ax) if len(c.get_offsets()) == 1
-             and np.allclose(c.get_edgecolor()[0][:3], (0.839, 0.153, 0.157), atol=0.01)]
-    assert len(rings) == 1
+    phase = _panels(_svg(phase_diagram(_data(flag_lab=True))))[0]
+    numbers = [g for g in phase.iter(G) if g.get("class") == "flag-number"]
+    assert [g.find(TEXT).text for g in numbers] == ["1"]
+    (rings,) = _layers(phase, "flags")
+    assert rings.get("stroke") == FLAG_RED and rings.get("fill") == "none"
+    assert len(rings.findall(USE)) == 1
 
 
 def test_many_flag_numbers_never_overlap_and_stay_in_their_panel():
@@ -152,17 +198,19 @@ def test_many_flag_numbers_never_overlap_and_stay_in_their_panel():
     obs = Observations.build(obs.T_K, obs.p_Pa, obs.source_id, obs.boundary, obs.obs_id,
                              source_kind=obs.source_kind, file_path=obs.file_path, flag=flag)
     fig = phase_diagram(PhaseDiagramData("argon", "argon", obs, d.curves, d.fixed_points))
-    canvas = FigureCanvasAgg(fig)
-    canvas.draw()
-    renderer = canvas.get_renderer()
-    ax = fig.axes[0]
-    boxes = [t.get_bbox_patch().get_window_extent(renderer) for t in ax.texts]
-    frame = ax.get_window_extent(renderer)
+    phase = _panels(_svg(fig))[0]
+    p = fig.panels[0]
+    boxes = []
+    for g in phase.iter(G):
+        if g.get("class") == "flag-number":
+            r = g.find(RECT)
+            x, y = float(r.get("x")), float(r.get("y"))
+            boxes.append((x, y, x + float(r.get("width")), y + float(r.get("height"))))
     assert len(boxes) >= 10
     for i, a in enumerate(boxes):
-        assert frame.x0 <= a.x0 and a.x1 <= frame.x1 and frame.y0 <= a.y0 and a.y1 <= frame.y1
+        assert p.x0 <= a[0] and a[2] <= p.x0 + p.w and p.y0 <= a[1] and a[3] <= p.y0 + p.h
         for b in boxes[i + 1:]:
-            assert not a.overlaps(b), (a, b)
+            assert not (a[0] < b[2] and b[0] < a[2] and a[1] < b[3] and b[1] < a[3]), (a, b)
 
 
 def test_a_corrected_file_is_drawn_hollow_where_it_belongs():
@@ -172,26 +220,30 @@ def test_a_corrected_file_is_drawn_hollow_where_it_belongs():
     corr = np.where(obs.source_id == "lab-a", "kPa recorded as Pa (factor 1000)", "")
     obs = Observations.build(obs.T_K, obs.p_Pa, obs.source_id, obs.boundary, obs.obs_id,
                              source_kind=obs.source_kind, correction=corr)
-    fig = phase_diagram(PhaseDiagramData("argon", "argon", obs, d.curves, d.fixed_points))
-    labels = [t.get_text() for t in fig.legends[0].get_texts()]
-    assert "lab-a (drawn corrected)" in labels
-    (hollow,) = [c for c in _collections(fig.axes[0]) if len(c.get_offsets()) == 10]
-    assert len(hollow.get_facecolor()) == 0 or hollow.get_facecolor()[0][3] == 0.0
+    root = _svg(phase_diagram(PhaseDiagramData("argon", "argon", obs, d.curves,
+                                               d.fixed_points)))
+    assert "lab-a (drawn corrected)" in _legend(root)
+    (hollow,) = [g for g in _layers(_panels(root)[0], "points")
+                 if g.get("data-label") == "lab-a (drawn corrected)"]
+    assert len(hollow.findall(USE)) == 10
+    assert hollow.get("fill") == "none" and hollow.get("stroke") == "#d62728"
 
 
 def test_deviation_plot_has_one_panel_per_curve_with_its_k2_band():
     """One panel per fitted pressure curve; the band is +/- 2u/p [%] (here 1 %); the lab points
     sit at +0.1 %."""
     fig = deviation_figure(_data())
-    panels = [ax for ax in fig.axes if ax.get_visible()]
-    assert [ax.get_title() for ax in panels] == ["vapour pressure (test-form)",
-                                                 "melting (test-form)"]
-    ax = panels[0]
-    (band,) = [c for c in ax.collections if isinstance(c, PolyCollection)]
-    assert band.get_paths()[0].vertices[:, 1].max() == pytest.approx(1.0, rel=1e-6)
-    (lab,) = [c for c in _collections(ax) if len(c.get_offsets()) == 10]
-    assert np.allclose(lab.get_offsets()[:, 1], 0.1, rtol=1e-6)
-    assert "fit uncertainty band (k = 2)" in [t.get_text() for t in fig.legends[0].get_texts()]
+    root = _svg(fig)
+    panels = _panels(root)
+    assert [p.get("data-title") for p in panels] == ["vapour pressure (test-form)",
+                                                     "melting (test-form)"]
+    (band,) = _layers(panels[0], "band")
+    top = min(_path_xy(band.get("d"))[:, 1])
+    assert _data_y(fig.panels[0], top) == pytest.approx(1.0, abs=0.01)   # 0.01 pt rounding
+    (lab,) = [g for g in _layers(panels[0], "points") if g.get("data-label") == "lab-a"]
+    ys = [_data_y(fig.panels[0], float(u.get("y"))) for u in lab.findall(USE)]
+    assert len(ys) == 10 and np.allclose(ys, 0.1, atol=0.002)
+    assert "fit uncertainty band (k = 2)" in _legend(root)
 
 
 def test_a_gross_outlier_sits_on_the_edge_and_does_not_stretch_the_axis():
@@ -207,12 +259,13 @@ def test_a_gross_outlier_sits_on_the_edge_and_does_not_stretch_the_axis():
                              source_kind=d.observations.source_kind, flag=d.observations.flag)
     fig = deviation_figure(PhaseDiagramData("argon", "argon", obs, d.curves, d.fixed_points,
                                             d.flags))
-    ax = fig.axes[0]
-    lo, hi = ax.get_ylim()
+    lo, hi = fig.panels[0].ylim
     assert hi < 2.0
-    edge = [c for c in _collections(ax) if c.get_paths()[0].vertices[:, 1].max() > 0.4
-            and len(c.get_offsets()) == 1 and c.get_offsets()[0][1] == pytest.approx(hi / 1.06)]
-    assert edge
+    (edge,) = _layers(_panels(_svg(fig))[0], "edge")
+    (u,) = edge.findall(USE)
+    assert _data_y(fig.panels[0], float(u.get("y"))) == pytest.approx(hi / 1.06, rel=1e-3)
+    assert "+8" in u.find(f"{{{SVG_NS}}}title").text and "beyond the axis" in \
+        u.find(f"{{{SVG_NS}}}title").text
 
 
 def test_svg_titles_name_source_file_row_T_and_p():
@@ -250,3 +303,16 @@ def test_hover_texts_with_markup_are_escaped_in_the_svg():
     text = figure_svg(phase_diagram(PhaseDiagramData("argon", "argon", obs, d.curves)),
                       prefix="e-", figure="phase", fluid_id="argon", label="x")
     assert "<script" not in text and "&lt;script&gt;alert(1)&lt;/script&gt;" in text
+
+
+def test_a_fluid_without_melting_data_says_so_in_the_right_panel():
+    """Without melting points or curves the right panel holds its title and 'no melting data',
+    no ticks; the left panel's limits come from the curves when no point is drawable."""
+    obs = Observations.empty()
+    fig = phase_diagram(PhaseDiagramData("argon", "argon", obs,
+                                         [CurveSpec("liquid-vapour", "", VAP)]))
+    phase, melt = _panels(_svg(fig))
+    assert [t.text for t in melt.findall(TEXT)] == ["melting curve(s)", "no melting data"]
+    lo, hi = fig.panels[0].ylim
+    assert lo < float(VAP.value(VAP.T_min_K)) and hi > float(VAP.value(VAP.T_max_K))
+    assert len(_layers(phase, "curve")) == 1
