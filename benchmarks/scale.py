@@ -25,7 +25,10 @@ machine is shared.
                                [--with EARLIER.json] [--predict 10000]
 
 ``--keep DIR`` writes the raw roots, stores and reports to DIR/n<N>/ and keeps them (a folder
-already there is replaced); ``--json PATH`` writes every figure after each size; ``--with``
+already there is replaced); ``--again DIR`` runs one more incremental nightly in each kept
+DIR/n<N>/ after one more batch changed (the next fluid, the next variant: the steady state of
+nightly runs, measured with the code as it is now), printed against the full run of
+DIR's ``--json`` file (``--with``); ``--json PATH`` writes every figure after each size; ``--with``
 adds an earlier run's figures to the tables (sizes measured on different days: compare their
 load averages); with two sizes or more, a straight line through the two largest predicts
 ``--predict`` fluids, printed as a prediction. The synthetic fluids are test data, not
@@ -122,6 +125,18 @@ def measure_size(n: int, points: int, work: Path) -> dict:
             "full": full, "incremental": inc}
 
 
+def measure_again(earlier: dict, work: Path) -> dict:
+    """One more incremental nightly in a kept folder: the next fluid's batch changes."""
+    n, points = earlier["fluids"], earlier["points"]
+    k = len(earlier.get("again", [])) + 1
+    generator.write_fluid(work / "raw", n // 2 + k, variant=k + 1, points=points)
+    inc = run_nightly(work)
+    print(f"[{n} fluids] incremental nightly #{k + 1} (fluid {n // 2 + k} changed): "
+          f"{inc['wall_s']:.1f} s, peak RSS {inc['peak_rss_mib']:.0f} MiB, exit {inc['exit']}, "
+          f"publish {inc['publish']} ({inc['load_before']} -> {inc['load_after']})", flush=True)
+    return {**earlier, "incremental": inc, "again": earlier.get("again", []) + [inc]}
+
+
 def _cell(run: dict, stage: str) -> str:
     if stage == "process":
         return f"{run['wall_s']:8.2f} {run.get('cpu_s', float('nan')):8.2f} " \
@@ -213,6 +228,9 @@ def main(argv=None) -> int:
     ap.add_argument("--keep", type=Path, default=None,
                     help="work in this folder (DIR/n<N>/) and keep it")
     ap.add_argument("--json", type=Path, default=None, help="also write the figures here")
+    ap.add_argument("--again", type=Path, default=None, metavar="DIR",
+                    help="one more incremental nightly in each DIR/n<N>/ kept by --keep, "
+                         "against the full run of the --with file")
     ap.add_argument("--with", dest="earlier", type=Path, action="append", default=[],
                     metavar="PATH", help="add the sizes of an earlier run's --json file to "
                                          "the tables (repeatable; sizes run now win)")
@@ -220,11 +238,20 @@ def main(argv=None) -> int:
                     help="also print a straight-line prediction for this many fluids when it "
                          "is above the sizes run (default 10000)")
     args = ap.parse_args(argv)
-    root = args.keep or Path(tempfile.mkdtemp(prefix="fl-scale-"))
-    print(f"scale benchmark: sizes {args.sizes}, {args.points}x rows, in {root}; "
+    root = args.again or args.keep or Path(tempfile.mkdtemp(prefix="fl-scale-"))
+    print(f"scale benchmark: sizes {'kept' if args.again else args.sizes}, "
+          f"{'kept' if args.again else args.points}x rows, in {root}; "
           f"{os.cpu_count()} cores, {load()}", flush=True)
     earlier = {r["fluids"]: r for path in args.earlier for r in json.loads(path.read_text())}
     results = []
+    if args.again is not None:       # the kept folders of an earlier --keep run, in place
+        if not earlier:
+            ap.error("--again needs the earlier run's figures (--with ITS.json)")
+        results = [measure_again(r, args.again / f"n{n}") for n, r in sorted(earlier.items())]
+        if args.json:
+            args.json.write_text(json.dumps(results, indent=1))
+        print_tables(results)
+        return 0
     try:
         for n in sorted(args.sizes):
             results.append(measure_size(n, args.points, root / f"n{n}"))

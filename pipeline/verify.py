@@ -70,9 +70,12 @@ class VerifyResult:
     rules_run: list[str] = field(default_factory=list)
     releases: list[str] = field(default_factory=list)
     files_hashed: int = 0
+    files_unchanged: int = 0
     counts: dict[str, int] = field(default_factory=dict)
     findings: list[Finding] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    #: path -> :func:`file_stamp` of every release file found intact (for the next verify)
+    stamps: dict[str, list] = field(default_factory=dict, repr=False)
 
     @property
     def ok(self) -> bool:
@@ -80,6 +83,7 @@ class VerifyResult:
 
     def asdict(self) -> dict:
         out = asdict(self)
+        out.pop("stamps")
         out["ok"] = self.ok
         return out
 
@@ -87,7 +91,8 @@ class VerifyResult:
         lines = [f"store {self.store} (schema version {self.schema_version}): "
                  f"{len(self.rules_run)} rules checked"
                  + (f", {len(self.releases)} release(s) with {self.files_hashed} files hashed"
-                    if self.releases else "")]
+                    + (f" and {self.files_unchanged} proved unchanged since they were hashed"
+                       if self.files_unchanged else "") if self.releases else "")]
         if self.counts:
             lines.append("  " + ", ".join(f"{n} {t}" for t, n in self.counts.items()))
         lines += [f"  note: {n}" for n in self.notes]
@@ -347,7 +352,22 @@ def _manifest_entries(manifest: Path) -> tuple[list[tuple[int, str, str]], list[
     return entries, findings
 
 
-def verify_release_manifests(root: str | os.PathLike) -> tuple[list[Finding], list[str], int]:
+def file_stamp(path: Path, sha256: str) -> list:
+    """What identifies a file's bytes once they were hashed to ``sha256``: that digest, the
+    size, device and inode, and the modification and status-change times in ns.
+
+    Any write to the file through the file system moves its mtime and ctime, a chmod or
+    ``os.utime`` moves its ctime (which no caller can set back), a replaced file is another
+    inode: so a file whose stamp equals the one recorded when it was hashed still holds the
+    bytes that were hashed (short of writes to the raw device or a clock set back)."""
+    st = os.stat(path)
+    return [sha256, st.st_size, st.st_dev, st.st_ino, st.st_mtime_ns, st.st_ctime_ns]
+
+
+def verify_release_manifests(root: str | os.PathLike, *,
+                             stamps: dict[str, list] | None = None,
+                             intact: dict[str, list] | None = None
+                             ) -> tuple[list[Finding], list[str], int]:
     """Recompute the SHA-256 of every file each release manifest under ``root`` lists.
 
     Parameters
@@ -355,17 +375,24 @@ def verify_release_manifests(root: str | os.PathLike) -> tuple[list[Finding], li
     root : path
         Folder holding release folders (``<root>/<release>/manifest.json``), or one release
         folder. Manifest paths are relative to the release folder.
+    stamps : mapping, optional
+        Resolved path -> :func:`file_stamp` recorded when the file was last hashed (by a
+        verify, or by the publish that wrote and read it back). A file whose stamp is that
+        record, with the manifest's SHA-256 in it, is proved unchanged and not read again.
+    intact : dict, optional
+        Filled with the stamp of every listed file found intact (hashed or proved unchanged).
 
     Returns
     -------
     (findings, releases, files_hashed)
         One finding per manifest problem or per listed file that is missing, leaves the release
         folder, or whose bytes no longer hash to the listed SHA-256; the release names found;
-        how many files were hashed.
+        how many files were hashed (files proved unchanged are not counted).
     """
     findings: list[Finding] = []
     releases: list[str] = []
     hashed = 0
+    stamps = stamps or {}
     for manifest in find_release_manifests(Path(root)):
         release_dir = manifest.parent.resolve()
         release = manifest.parent.name
@@ -381,11 +408,19 @@ def verify_release_manifests(root: str | os.PathLike) -> tuple[list[Finding], li
             if not target.is_file():
                 findings.append(Finding("release.missing", f"{where} is listed but missing"))
                 continue
+            key = str(target.resolve())
+            before = file_stamp(target, expected)
+            if stamps.get(key) == before:
+                if intact is not None:
+                    intact[key] = before
+                continue
             actual = sha256_file(target)
             hashed += 1
             if actual != expected:
                 findings.append(Finding("release.hash", f"{where}: SHA-256 is {actual}, the "
                                         f"manifest says {expected}"))
+            elif intact is not None and file_stamp(target, actual) == before:
+                intact[key] = before
     return findings, releases, hashed
 
 
@@ -415,19 +450,29 @@ def verify(store_path: str | os.PathLike | None, *, releases_root: str | os.Path
 
 def verify_connection(con: duckdb.DuckDBPyConnection, store_label: str,
                       releases_root: str | os.PathLike | None = None, *,
-                      running: tuple[str, ...] = ()) -> VerifyResult:
+                      running: tuple[str, ...] = (),
+                      stamps: dict[str, list] | None = None,
+                      published_checked: bool = False) -> VerifyResult:
     """Every store rule over an open connection, then (with ``releases_root``) the release
     manifests there and the releases the store lists as published there.
 
     Only reads; the nightly job runs it on its own (writable) connection, naming its own run
-    in ``running``.
+    in ``running``, and passes the ``stamps`` of the release files found intact before (see
+    :func:`verify_release_manifests`: those proved unchanged are not hashed again); the
+    stamps of the files found intact now are in ``result.stamps``. ``published_checked``:
+    the caller has just found the published file intact (:func:`~pipeline.publish.integrity.
+    repair_published`), so it is not compared again.
     """
     result = verify_store(con, VerifyResult(store=store_label), running=running)
     if releases_root is not None:
-        found, releases, hashed = verify_release_manifests(releases_root)
+        found, releases, hashed = verify_release_manifests(releases_root, stamps=stamps,
+                                                           intact=result.stamps)
         result.findings += found + verify_listed_releases(published_releases(con), releases_root)
-        result.findings += verify_published_file(con, releases_root, result.notes)
+        if not published_checked:
+            result.findings += verify_published_file(con, releases_root, result.notes)
         result.releases, result.files_hashed = releases, hashed
+        result.files_unchanged = sum(stamps.get(k) == v for k, v in result.stamps.items()) \
+            if stamps else 0
     return result
 
 

@@ -26,7 +26,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 from functools import lru_cache
-from typing import Any, Mapping
+from typing import Any, Mapping, Sequence
 
 import numpy as np
 
@@ -210,6 +210,46 @@ class CurveBudget:
                           for f in self.files],
                 "birge_ratio": None if math.isnan(self.birge_ratio) else self.birge_ratio,
                 "expansion": self.expansion}
+
+
+def floor_rel_rows(budgets: Sequence[CurveBudget], owner: np.ndarray, T: np.ndarray) -> np.ndarray:
+    """``budgets[owner[i]].floor_rel_array`` at ``T[i]`` for every row i, all rows at once.
+
+    The same numbers: the files of all budgets side by side (a budget with fewer files has
+    empty places that never cover and are never nearest), then the same comparisons, minima
+    and products per row (minima and comparisons do not round).
+    """
+    T = np.asarray(T, dtype=float)
+    owner = np.asarray(owner, dtype=np.intp)
+    n_files = max((len(b.files) for b in budgets), default=0)
+    out = np.zeros(len(T))
+    if not n_files or not len(T):
+        return out
+    lo = np.full((len(budgets), n_files), np.nan)
+    hi, corr = lo.copy(), np.full((len(budgets), n_files), np.inf)
+    place = np.zeros((len(budgets), n_files), dtype=bool)
+    min_K, fraction = np.zeros(len(budgets)), np.zeros(len(budgets))
+    policy, expansion = np.zeros(len(budgets), dtype=bool), np.ones(len(budgets))
+    for i, b in enumerate(budgets):
+        k = len(b.files)
+        place[i, :k] = True
+        lo[i, :k] = [f.T_min_K for f in b.files]
+        hi[i, :k] = [f.T_max_K for f in b.files]
+        corr[i, :k] = [f.correlated_rel for f in b.files]
+        if b.policy is not None:
+            policy[i], min_K[i], fraction[i] = True, b.policy.min_K, b.policy.max_fraction
+        expansion[i] = b.expansion
+    margin = np.where(policy[owner], np.maximum(min_K[owner], fraction[owner] * np.abs(T)), 0.0)
+    Tc, m = T[:, None], margin[:, None]
+    lo_r, hi_r, corr_r = lo[owner], hi[owner], corr[owner]
+    covering = (lo_r - m <= Tc) & (Tc <= hi_r + m)
+    covered = np.where(covering, corr_r, np.inf).min(axis=1)
+    dist = np.where(place[owner], np.minimum(np.abs(Tc - lo_r), np.abs(Tc - hi_r)), np.inf)
+    nearest = corr_r[np.arange(len(T)), np.argmin(dist, axis=1)]
+    floor = np.where(covering.any(axis=1), covered, nearest) * expansion[owner]
+    files = np.array([len(b.files) > 0 for b in budgets], dtype=bool)[owner]
+    out[files] = floor[files]
+    return out
 
 
 def curve_budget(series, fitted: np.ndarray, model: UncertaintyModel,

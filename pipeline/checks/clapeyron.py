@@ -28,7 +28,7 @@ from pipeline.checks.physics import (
 )
 from pipeline.checks.points import SINGLE_SOLID
 from pipeline.checks.registry import register_check
-from pipeline.checks.stats import deviation_statistic, linear_fit
+from pipeline.checks.stats import deviation_statistic, linear_fit, linear_fits
 
 _SIGN_WORD = {1: "positive", -1: "negative"}
 _T_CLAMP = 1e6  # |t| of an exactly linear series
@@ -99,12 +99,13 @@ def _fitted_sign(out: Findings, fluid: FluidData, key, fitted: FittedCurve, grid
 
 
 def _file_sign(out: Findings, fluid: FluidData, path: str, s: ObsSeries, sign: int, basis: str,
-               th) -> None:
+               th, lines: dict | None = None) -> None:
     subject = f"file:{path}|{s.boundary}" + (f":{s.solid_phase}" if s.solid_phase else "")
-    if len(s) < th["min_points"] or np.ptp(s.T) == 0:
+    if not _has_slope(s, th):
         out.skip(fluid.fluid_id, subject, f"{len(s)} points in {path}: too few for a slope")
         return
-    (a, b), cov = linear_fit(s.T, s.value)
+    found = (lines or {}).get((fluid.fluid_id, s.solid_phase, path))
+    (a, b), cov = found if found is not None else linear_fit(s.T, s.value)
     se = math.sqrt(max(cov[1, 1], 0.0))
     t = float(np.clip(sign * b / se, -_T_CLAMP, _T_CLAMP)) if se > 0 else math.copysign(_T_CLAMP, sign * b)
     context = (f"{path}: {len(s)} melting points, slope {b:.4g} Pa/K (t = {t:.3g}); {basis} so "
@@ -116,8 +117,30 @@ def _file_sign(out: Findings, fluid: FluidData, path: str, s: ObsSeries, sign: i
                         "n_points": len(s), "observations": s.refs() if wrong else []})
 
 
+def _has_slope(s: ObsSeries, th) -> bool:
+    return len(s) >= th["min_points"] and np.ptp(s.T) != 0
+
+
+def _file_lines(batch: CheckBatch, th) -> dict:
+    """The least-squares lines of every melting file with a slope, all at once
+    (:func:`~pipeline.checks.stats.linear_fits`): (fluid, solid phase, path) -> (params, cov)."""
+    keys, xs, ys = [], [], []
+    for fluid in batch:
+        t = th(fluid.fluid_id)
+        for solid_phase in _solids(fluid):
+            for path, s in fluid.series("solid-liquid", "pressure", solid_phase).by_file().items():
+                if _has_slope(s, t):
+                    keys.append((fluid.fluid_id, solid_phase, path))
+                    xs.append(s.T)
+                    ys.append(s.value)
+    try:
+        return dict(zip(keys, linear_fits(xs, ys)))
+    except Exception:   # noqa: BLE001 - a file whose line fails fails alone, in _file_sign
+        return {}
+
+
 def _melting_findings(out: Findings, fluid: FluidData, solid_phase: str, slopes: dict,
-                      th) -> None:
+                      th, lines: dict | None = None) -> None:
     key = ("solid-liquid", solid_phase, "pressure")
     fitted = fluid.curve(*key)
     files = fluid.series("solid-liquid", "pressure", solid_phase).by_file()
@@ -145,7 +168,7 @@ def _melting_findings(out: Findings, fluid: FluidData, solid_phase: str, slopes:
     elif fitted is not None:
         out.skip(fluid.fluid_id, f"curve:{curve_label(key)}", reason)
     for path, s in files.items():
-        _file_sign(out, fluid, path, s, sign, basis, th)
+        _file_sign(out, fluid, path, s, sign, basis, th, lines)
 
 
 def _sign_requests(fluid: FluidData, th) -> list:
@@ -192,11 +215,12 @@ def slope_sign(batch: CheckBatch, th) -> Findings:
     for (fluid, key, _), grid in zip(curves, slopes):
         by_fluid.setdefault(fluid.fluid_id, {})[key] = grid
     batch.prefetch(r for fluid in batch for r in _sign_requests(fluid, th(fluid.fluid_id)))
+    lines = _file_lines(batch, th)
     out = Findings()
     for fluid in batch:
         t, own = th(fluid.fluid_id), by_fluid.get(fluid.fluid_id, {})
         for solid_phase in _solids(fluid):
-            _melting_findings(out, fluid, solid_phase, own, t)
+            _melting_findings(out, fluid, solid_phase, own, t, lines)
         for key, fitted in fluid.pressure_curves().items():
             if key[0] in ("liquid-vapour", "solid-vapour"):
                 _fitted_sign(out, fluid, key, fitted, own[key], 1,

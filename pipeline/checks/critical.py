@@ -11,7 +11,7 @@ from pipeline.checks.inputs import CheckBatch, FluidData
 from pipeline.checks.findings import WARN, Findings
 from pipeline.checks.points import u0
 from pipeline.checks.registry import register_check
-from pipeline.checks.stats import combined_u, deviation_statistic, linear_fit
+from pipeline.checks.stats import combined_u, deviation_statistic, linear_fit, linear_fits
 
 LV = "liquid-vapour"
 
@@ -175,13 +175,23 @@ def _paired_densities(fluid: FluidData, Tc: float, th):
     return T, np.asarray(fl.value(T), float), np.asarray(fv.value(T), float), "fitted curves"
 
 
+def _lines(T, rl, rv, beta) -> tuple[tuple, tuple]:
+    """The two straight lines in T: (ρ'−ρ'')^(1/β) and the diameter (ρ'+ρ'')/2 (x, y each)."""
+    return (T, (rl - rv) ** (1.0 / beta)), (T, (rl + rv) / 2.0)
+
+
 def _estimate(T, rl, rv, beta):
     """Tc from (ρ'−ρ'')^(1/β) linear in T; ρc from the rectilinear diameter at that Tc."""
-    (a, b), cov = linear_fit(T, (rl - rv) ** (1.0 / beta))
+    return _estimate_from(*(linear_fit(x, y) for x, y in _lines(T, rl, rv, beta)))
+
+
+def _estimate_from(scaling, diameter):
+    """(Tc, u(Tc), ρc, u(ρc), diameter slope) from the two fitted lines (params, covariance)."""
+    (a, b), cov = scaling
     Tc = -a / b
     g = np.array([-1.0 / b, a / b ** 2])
     u_Tc = math.sqrt(max(g @ cov @ g, 0.0))
-    (c0, c1), cov_d = linear_fit(T, (rl + rv) / 2.0)
+    (c0, c1), cov_d = diameter
     rhoc = c0 + c1 * Tc
     gd = np.array([1.0, Tc])
     u_rhoc = math.sqrt(max(gd @ cov_d @ gd + (c1 * u_Tc) ** 2, 0.0))
@@ -207,23 +217,38 @@ def density_convergence(batch: CheckBatch, th) -> Findings:
     measured on another temperature scale.
     """
     out = Findings()
-    for fluid in batch:
-        _convergence(out, fluid, th(fluid.fluid_id))
+    plans = [(fluid, t, _convergence_plan(fluid, t)) for fluid, t in
+             ((f, th(f.fluid_id)) for f in batch)]
+    lines = [line for _, t, plan in plans if plan is not None
+             for line in _lines(plan[0], plan[1], plan[2], t["beta"])]
+    fits = iter(linear_fits([x for x, _ in lines], [y for _, y in lines]))   # all fluids' lines at once
+    for fluid, t, plan in plans:
+        _convergence(out, fluid, t, plan, None if plan is None else (next(fits), next(fits)))
     return out
 
 
-def _convergence(out: Findings, fluid: FluidData, th) -> None:
+def _convergence_plan(fluid: FluidData, th):
+    """(T, ρ', ρ'', basis) to fit, or None (the fluid gets a skip)."""
+    cp = fluid.critical_point
+    if cp is None:
+        return None
+    pairs = _paired_densities(fluid, cp.T_K, th)
+    if pairs is None or len(pairs[0]) < th["min_points"]:
+        return None
+    return pairs
+
+
+def _convergence(out: Findings, fluid: FluidData, th, pairs, fits) -> None:
     cp = fluid.critical_point
     if cp is None:
         out.skip(fluid.fluid_id, "Tc", "no stated critical point")
         return
-    pairs = _paired_densities(fluid, cp.T_K, th)
-    if pairs is None or len(pairs[0]) < th["min_points"]:
+    if pairs is None:
         out.skip(fluid.fluid_id, "Tc", f"fewer than {th['min_points']} pairs of saturated "
                                        f"densities with T/Tc >= {th['Tr_min']}")
         return
     T, rl, rv, basis = pairs
-    Tc, u_Tc, rhoc, u_rhoc, slope_d = _estimate(T, rl, rv, th["beta"])
+    Tc, u_Tc, rhoc, u_rhoc, slope_d = _estimate_from(*fits)
     ev = {"basis": basis, "n_points": int(len(T)), "T_range_K": [float(T.min()), float(T.max())],
           "Tc_estimate_K": Tc, "u_Tc_estimate_K": u_Tc, "rhoc_estimate_kg_m3": rhoc,
           "u_rhoc_estimate_kg_m3": u_rhoc, "diameter_slope_kg_m3_K": slope_d,

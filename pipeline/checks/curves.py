@@ -25,7 +25,7 @@ from typing import TYPE_CHECKING, Any, Iterable, Sequence
 
 import numpy as np
 
-from pipeline.checks.budget import CurveBudget, CurvePoint, reach
+from pipeline.checks.budget import CurveBudget, CurvePoint, floor_rel_rows, reach
 from pipeline.checks.budget import curve_budgets as budgets_of
 from pipeline.checks.points import curve_label
 from pipeline.correlations.base import Curve
@@ -411,9 +411,12 @@ def evaluate_point_columns(requests: Sequence[Request], slope_u: bool = True) ->
         for j in good:
             fluid, key, _ = requests[within[j]]
             by_curve.setdefault((id(fluid), key), []).append(j)
-        for js in by_curve.values():
-            fluid, key, _ = requests[within[js[0]]]
-            floor[js] = fluid.curve_budget(key).floor_rel_array(T[rows[js]])
+        budgets = [requests[within[js[0]]][0].curve_budget(requests[within[js[0]]][1])
+                   for js in by_curve.values()]
+        if budgets:
+            at = np.concatenate([np.asarray(js, dtype=np.intp) for js in by_curve.values()])
+            owner = np.repeat(np.arange(len(budgets)), [len(js) for js in by_curve.values()])
+            floor[at] = floor_rel_rows(budgets, owner, T[rows[at]])
         fv, fs = (floor * np.abs(value)).tolist(), (floor * np.abs(slope)).tolist()
         uc, us = u_cov.tolist(), u_slope.tolist()
         u = np.array([math.hypot(a, b) for a, b in zip(uc, fv)])

@@ -16,7 +16,8 @@ import numpy as np
 import pandas as pd
 
 from pipeline.checks.curves import curves_at
-from pipeline.checks.inputs import CheckBatch, Stacked
+from pipeline.checks.file_trends import file_residuals
+from pipeline.checks.inputs import CheckBatch, Stacked, _Rows
 from pipeline.checks.findings import Findings
 from pipeline.checks.physics import curve_label
 from pipeline.checks.registry import register_check
@@ -65,8 +66,8 @@ def _segments(st: Stacked, rows: np.ndarray, keys: list[str], order: list[str] =
     sort_keys = [st[c][rows] for c in reversed(list(order))] + [g]
     idx = np.lexsort(sort_keys) if order else np.argsort(g, kind="stable")
     ordered = rows[idx]
-    cols = {c: st[c][ordered] for c in _COLUMNS}
-    cols.update({c: v[ordered] for c, v in (extra or {}).items()})
+    # each column taken in the sorted order on first use (a check reads a few of them)
+    cols = _Rows({**{c: st[c] for c in _COLUMNS}, **(extra or {})}, ordered)
     g = g[idx]
     starts = np.flatnonzero(np.r_[True, g[1:] != g[:-1]]) if len(g) else np.zeros(0, dtype=int)
     return cols, Codes(st, ordered), g, starts, np.r_[starts[1:], len(g)].astype(int)
@@ -250,96 +251,87 @@ def ranges(batch: CheckBatch, th) -> Findings:
     return out
 
 
-def _pinv(a: np.ndarray) -> np.ndarray:
-    """``np.linalg.pinv(a)`` of a real square matrix, its operations without its checks."""
-    u, s, vt = np.linalg.svd(a, full_matrices=False)
-    large = s > 1e-15 * s.max()
-    s = np.divide(1, s, where=large, out=s)
-    s[~large] = 0
-    return vt.T @ (s[:, None] * u.T)
+def _budget_u(batch: CheckBatch, cols: dict, codes: Codes, groups: list[tuple[int, int]],
+              values: list, slopes: list) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(rows, r, u_rel) of the fitted groups ``groups`` (start, end), all at once.
 
-
-def _deleted_residuals(x: np.ndarray, r: np.ndarray, w: np.ndarray) -> np.ndarray:
-    """Studentised leave-one-out residuals of r about a weighted polynomial trend in x.
-
-    Degree 2 from 7 points, 1 from 4, else the weighted mean. The deleted residual
-    e_i / (1 − h_ii) (h the hat matrix) judges each point against the trend of the others, so a
-    spike does not hide in a trend it pulled itself; its standard deviation is u_i /
-    sqrt(1 − h_ii), so it is scaled by sqrt(1 − h_ii) to keep the points at the ends of a file
-    (high leverage) on the same footing as the middle (D. A. Belsley, E. Kuh, R. E. Welsch,
-    Regression Diagnostics, Wiley (1980), from memory).
+    r = value / fit − 1 (relative residual about the fitted curve); u = the point's stated
+    relative u, else the budget's default for its source kind, combined with the budget's
+    absolute pressure floor (of its fluid's budget, for the group's quantity); a temperature
+    uncertainty moves the point along the curve: u_eff^2 = u^2 + (dy/dT u_T)^2 (in the groups
+    where any point states u_T).
     """
-    n = len(r)
-    degree = 2 if n >= 7 else 1 if n >= 4 else 0
-    span = float(np.ptp(x)) or 1.0
-    s = (x - x.mean()) / span
-    A = np.column_stack([s * s, s, np.ones(n)][2 - degree:])   # np.vander(s, degree + 1)
-    sw = np.sqrt(w)
-    Aw = A * sw[:, None]
-    G = _pinv(Aw.T @ Aw)
-    coef = G @ (Aw.T @ (r * sw))
-    e = r - A @ coef
-    h = np.einsum("ij,jk,ik->i", A, G, A) * w
+    sizes = np.array([b - a for a, b in groups], dtype=np.intp)
+    rows = np.concatenate([np.arange(a, b) for a, b in groups]) if groups else np.zeros(0, dtype=np.intp)
+    group = np.repeat(np.arange(len(groups)), sizes)
+    y = cols["value_si"][rows].astype(float)
     with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(h < 1.0 - 1e-9, e / np.sqrt(np.clip(1.0 - h, 1e-12, None)), e)
-
-
-def _budget_z(fluid, cols: dict, codes: Codes, lo: int, hi: int, fitted: np.ndarray,
-              slope: np.ndarray, min_file_points: int, z_max: float) -> np.ndarray:
-    """z of rows lo:hi (one fitted group of ``fluid``) about their own file's trend.
-
-    r = value / fit − 1 (relative residual about the fitted curve); within each file of
-    ``min_file_points`` or more points r is judged against the leave-one-out polynomial trend
-    of the file's other residuals (an outlier is off its own data set; a file's systematic
-    offset or a smooth drift at the end of its range is a between-source matter); u = the
-    point's stated relative u, else the budget's default for its source kind, combined with the
-    budget's absolute pressure floor.
-    """
-    T, y = cols["T_K"][lo:hi].astype(float), cols["value_si"][lo:hi].astype(float)
-    if fitted is None:
-        return np.full(hi - lo, np.nan)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        r = y / fitted - 1.0
-    model = fluid.budget.uncertainty
-    u = cols["u_value_si"][lo:hi].astype(float)
-    kinds = codes.of("source_kind")[lo:hi]
-    files = codes.of("file_path")[lo:hi]
+        r = y / np.concatenate(values) - 1.0 if groups else np.zeros(0)
+    # the budget's defaults, one pair per (fluid's model, quantity, source kind)
+    of_group: dict[tuple[int, str], int] = {}
+    pairs, mq = [], []
+    for a, _ in groups:
+        model = batch.fluids[cols["fluid_id"][a]].budget.uncertainty
+        quantity = str(cols["quantity"][a])
+        k = of_group.setdefault((id(model), quantity), len(pairs))
+        if k == len(pairs):
+            pairs.append((model, quantity))
+        mq.append(k)
+    kinds = codes.of("source_kind")[rows]
     kind_names = codes.stacked.codes("source_kind")[1]
-    quantity = str(cols["quantity"][lo])
-    for code in np.unique(kinds):
-        m = kinds == code
+    key = np.asarray(mq, dtype=np.int64)[group] * (len(kind_names) + 1) + (kinds + 1)
+    combos, inverse = np.unique(key, return_inverse=True)
+    rel, floor = np.empty(len(combos)), np.empty(len(combos))
+    for j, c in enumerate(combos.tolist()):
+        model, quantity = pairs[c // (len(kind_names) + 1)]
+        code = c % (len(kind_names) + 1) - 1
         kind = kind_names[code] if code >= 0 else None
-        default = model.observed_rel(quantity, kind) * np.abs(y[m])
-        u[m] = np.hypot(np.where(np.isfinite(u[m]) & (u[m] > 0), u[m], default),
-                        model.observed_abs(quantity, kind))
-    # a temperature uncertainty moves the point along the curve: u_eff^2 = u^2 + (dy/dT u_T)^2
-    u_T = np.nan_to_num(cols["u_T_K"][lo:hi].astype(float))
-    if u_T.any():
-        u = np.hypot(u, np.nan_to_num(slope) * u_T)
+        rel[j], floor[j] = model.observed_rel(quantity, kind), model.observed_abs(quantity, kind)
+    u = cols["u_value_si"][rows].astype(float)
+    u = np.hypot(np.where(np.isfinite(u) & (u > 0), u, rel[inverse] * np.abs(y)), floor[inverse])
+    u_T = np.nan_to_num(cols["u_T_K"][rows].astype(float))
+    stated = (np.logical_or.reduceat(u_T != 0, np.r_[0, np.cumsum(sizes)[:-1]])[group]
+              if len(rows) else np.zeros(0, dtype=bool))
+    if stated.any():
+        slope = np.nan_to_num(np.concatenate(slopes))
+        u = np.where(stated, np.hypot(u, slope * u_T), u)
     with np.errstate(invalid="ignore", divide="ignore"):
-        u_rel = u / np.abs(y)
-    usable = np.isfinite(r) & np.isfinite(u_rel) & (u_rel > 0)
-    for path in np.unique(files):
-        m = np.flatnonzero((files == path) & usable)
-        if len(m) >= min_file_points:
-            r[m] = _file_residuals(T[m], r[m], u_rel[m], z_max)
+        return rows, r, u / np.abs(y)
+
+
+def _budget_z(batch: CheckBatch, th, cols: dict, codes: Codes, starts, ends, values, slopes,
+              zmax: np.ndarray) -> np.ndarray:
+    """z of every row about its own file's trend (NaN in groups without a fitted curve).
+
+    Within each file of ``min_file_points`` or more usable points (finite r, u_rel > 0), r is
+    judged against the leave-one-out polynomial trend of the file's other residuals (an
+    outlier is off its own data set; a file's systematic offset or a smooth drift at the end
+    of its range is a between-source matter): :func:`~pipeline.checks.file_trends.file_residuals`,
+    all files at once.
+    """
+    n = len(cols["fluid_id"])
+    r, u_rel = np.full(n, np.nan), np.full(n, np.nan)
+    fitted = np.zeros(n, dtype=bool)
+    min_points = np.zeros(n, dtype=np.int64)
+    have = [k for k, v in enumerate(values) if v is not None]
+    at, r_fit, u_fit = _budget_u(batch, cols, codes, [(int(starts[k]), int(ends[k])) for k in have],
+                                 [values[k] for k in have], [slopes[k] for k in have])
+    r[at], u_rel[at], fitted[at] = r_fit, u_fit, True
+    for k in have:
+        min_points[starts[k]:ends[k]] = int(th(cols["fluid_id"][starts[k]])["min_file_points"])
+    usable = fitted & np.isfinite(r) & np.isfinite(u_rel) & (u_rel > 0)
+    # the usable rows of each (group, file), in row order
+    group = np.repeat(np.arange(len(starts)), np.asarray(ends) - np.asarray(starts))
+    rows = np.flatnonzero(usable)
+    rows = rows[np.lexsort((codes.of("file_path")[rows], group[rows]))]
+    key = group[rows] * (len(codes.stacked.codes("file_path")[1]) + 1) + codes.of("file_path")[rows]
+    first = np.flatnonzero(np.r_[True, key[1:] != key[:-1]]) if len(rows) else np.zeros(0, dtype=int)
+    lengths = np.diff(np.r_[first, len(rows)]).astype(np.intp)
+    judged = lengths >= np.maximum(min_points[rows[first]], 1)
+    first, lengths = first[judged], lengths[judged]
+    r = file_residuals(cols["T_K"].astype(float), r, u_rel, rows, first, lengths,
+                       zmax[rows[first]])
     return r / u_rel
-
-
-def _file_residuals(T: np.ndarray, r: np.ndarray, u_rel: np.ndarray, z_max: float) -> np.ndarray:
-    """Deleted residuals of one file, the worst point set aside while it exceeds z_max (up to a
-    third of the points), so one spike does not tilt the trend its neighbours are judged by."""
-    keep = np.ones(len(r), dtype=bool)
-    out = np.empty(len(r))
-    while True:
-        idx = np.flatnonzero(keep)
-        d = _deleted_residuals(T[idx], r[idx], 1.0 / u_rel[idx] ** 2)
-        out[idx] = d
-        z = np.abs(d / u_rel[idx])
-        worst = int(np.argmax(z))
-        if z[worst] <= z_max or (~keep).sum() + 1 > len(r) // 3 or keep.sum() <= 3:
-            return out
-        keep[idx[worst]] = False
 
 
 def _fitted_at(batch: CheckBatch, cols: dict, starts, ends) -> tuple[list, list]:
@@ -404,10 +396,7 @@ def outliers(batch: CheckBatch, th) -> Findings:
                                              extra={c: st[c] for c in ("source_kind", "u_T_K")})
     zmax = _per_row(th, "z_max", codes)
     values, slopes = _fitted_at(batch, cols, starts, ends)
-    z = np.concatenate([_budget_z(batch.fluids[cols["fluid_id"][a]], cols, codes, a, b, v, sl,
-                                  int(th(cols["fluid_id"][a])["min_file_points"]), zmax[a])
-                        for a, b, v, sl in zip(starts, ends, values, slopes)]) \
-        if len(starts) else np.zeros(0)
+    z = _budget_z(batch, th, cols, codes, starts, ends, values, slopes, zmax)
     absz = np.abs(z)
     flagged = absz > zmax
     fit_z = cols["z"].astype(float)

@@ -130,48 +130,55 @@ def _results(spec: CheckSpec, batch: CheckBatch, view: ThresholdView, found: Fin
              seconds: Mapping[str, float]) -> dict[str, list]:
     """The result rows of one check as columns, fluid by fluid in batch order, each fluid's
     findings in the order the check gave them (a fluid without any gets a skip)."""
-    rows: dict[str, list[int]] = {fid: [] for fid in batch.fluids}
-    for i, fid in enumerate(found.fluid_id):
-        rows[fid].append(i)
+    ids = batch.ids
+    at = {fid: i for i, fid in enumerate(ids)}
+    owner = [at[fid] for fid in found.fluid_id]
+    order = sorted(range(len(owner)), key=owner.__getitem__)        # stable: the check's order
+    counts = [0] * len(ids)
+    for i in owner:
+        counts[i] += 1
+    # per fluid: severity, thresholds (as JSON-safe values, one per distinct mapping), hash, time
+    plain: dict[int, dict] = {}
+    severity, th_json = [], []
+    for fid in ids:
+        th = view(fid)
+        js = plain.get(id(th))
+        if js is None:
+            js = plain[id(th)] = jsonable(th)
+        severity.append(th["severity"])
+        th_json.append(js)
+    hashes = [f.input_hash for f in batch.fluids.values()]
+    took = [seconds.get(fid) for fid in ids]
+    # each row's fluid (a fluid without findings: one skip row) and, for findings, its index
+    row_fluid = [i for i, c in enumerate(counts) for _ in range(c or 1)]
+    taken = iter(order)
+    source = [next(taken) if counts[i] else -1 for i in row_fluid]
     subject, status, message = found.subject, found.status, found.message
     measured, limit, statistic, evidence = found.measured, found.limit, found.statistic, found.evidence
-    out = {f: [] for f in ("fluid_id", "subject", "status", "severity", "message", "measured",
-                           "limit", "statistic", "evidence", "thresholds", "input_hash",
-                           "duration_s")}
-    plain: dict[int, dict] = {}
-    for fid, fluid in batch.fluids.items():
-        th = view(fid)
-        th_json = plain.get(id(th))
-        if th_json is None:
-            th_json = plain[id(th)] = jsonable(th)
-        severity, input_hash, took = th["severity"], fluid.input_hash, seconds.get(fid)
-        own = rows[fid]
-        if own:
-            seen: dict[str, int] = {}
-            for i in own:
-                s = subject[i]
-                n = seen[s] = seen.get(s, 0) + 1
-                out["subject"].append(s if n == 1 else f"{s}#{n}")
-                out["status"].append(_resolve(status[i], severity))
-                out["message"].append(message[i])
-                out["measured"].append(_scalar(measured[i]))
-                out["limit"].append(_scalar(limit[i]))
-                out["statistic"].append(statistic[i])
-                out["evidence"].append(evidence[i])
-        else:
-            for col, value in (("subject", ""), ("status", SKIP), ("message", _NOTHING),
-                               ("measured", None), ("limit", None), ("statistic", None)):
-                out[col].append(value)
-            out["evidence"].append({})
-        k = max(len(own), 1)
-        out["fluid_id"].extend([fid] * k)
-        out["severity"].extend([severity] * k)
-        out["thresholds"].extend([th_json] * k)
-        out["input_hash"].extend([input_hash] * k)
-        out["duration_s"].extend([took] * k)
-    n = len(out["fluid_id"])
-    out["check_id"], out["decision_id"] = [spec.id] * n, [None] * n
-    return out
+    seen: dict[tuple[int, str], int] = {}
+    subjects = []
+    for i, k in zip(row_fluid, source):
+        if k < 0:
+            subjects.append("")
+            continue
+        s = subject[k]
+        n = seen[(i, s)] = seen.get((i, s), 0) + 1
+        subjects.append(s if n == 1 else f"{s}#{n}")
+    n = len(row_fluid)
+    return {
+        "fluid_id": [ids[i] for i in row_fluid], "subject": subjects,
+        "status": [SKIP if k < 0 else _resolve(status[k], severity[i])
+                   for i, k in zip(row_fluid, source)],
+        "severity": [severity[i] for i in row_fluid],
+        "message": [_NOTHING if k < 0 else message[k] for k in source],
+        "measured": [None if k < 0 else _scalar(measured[k]) for k in source],
+        "limit": [None if k < 0 else _scalar(limit[k]) for k in source],
+        "statistic": [None if k < 0 else statistic[k] for k in source],
+        "evidence": [{} if k < 0 else evidence[k] for k in source],
+        "thresholds": [th_json[i] for i in row_fluid],
+        "input_hash": [hashes[i] for i in row_fluid],
+        "duration_s": [took[i] for i in row_fluid],
+        "check_id": [spec.id] * n, "decision_id": [None] * n}
 
 
 def _as_batch(fluids) -> CheckBatch:
@@ -243,9 +250,12 @@ _RESULT_COLUMNS = ("run_id", "check_id", "fluid_id", "subject", "status", "sever
                    "input_hash", "decision_id", "duration_s")
 
 
-def _result_frame(run: CheckRun) -> pd.DataFrame:
-    """The ``check_result`` rows of a run, straight from its columns."""
+def _result_frame(run: CheckRun, skip: int = 0) -> pd.DataFrame:
+    """The ``check_result`` rows of a run (from row ``skip`` on), straight from its columns."""
     table = run.table
+    if skip:
+        table = ResultTable({f: col[skip:] for f, col in table.columns.items()})
+        table._json = run.table._json[skip:]
     c = table.columns
     frame = pd.DataFrame({
         "run_id": [run.run_id] * len(table), "check_id": c["check_id"], "fluid_id": c["fluid_id"],
@@ -260,9 +270,17 @@ def _result_frame(run: CheckRun) -> pd.DataFrame:
     return frame
 
 
-def store_run(con, run: CheckRun) -> None:
-    """Write the ``run`` row (kind 'check') and all ``check_result`` rows in one transaction."""
-    frame = _result_frame(run)
+def store_run(con, run: CheckRun, *,
+              copied: Sequence[tuple[str, Sequence[str], int]] = ()) -> None:
+    """Write the ``run`` row (kind 'check') and all ``check_result`` rows in one transaction.
+
+    ``copied``: (earlier run, fluids, number of rows) whose stored results are the first rows
+    of ``run``, in that order (the nightly job's reused results, read from the store): they
+    are copied within the store by SQL, the other rows inserted from the table."""
+    n_copied = sum(n for _, _, n in copied)
+    if n_copied > len(run.table):
+        raise ValueError(f"{n_copied} copied check results, the run holds {len(run.table)}")
+    frame = _result_frame(run, n_copied)
     con.execute("BEGIN TRANSACTION")
     try:
         con.execute(
@@ -271,8 +289,15 @@ def store_run(con, run: CheckRun) -> None:
             [run.run_id, run.started_at.rstrip("Z"), run.finished_at.rstrip("Z"),
              run.pipeline_version, json.dumps(jsonable(run.parameters), sort_keys=True),
              run.status, json.dumps(run.summary(), sort_keys=True)])
-        con.register("fl_check_results", frame)
         cols = ", ".join(_RESULT_COLUMNS)
+        for old_run, fluids, n in copied:
+            done = con.execute(
+                f"INSERT INTO check_result ({cols}) SELECT ?, {', '.join(_RESULT_COLUMNS[1:])} "
+                "FROM check_result WHERE run_id = ? AND list_contains(?, fluid_id)",
+                [run.run_id, old_run, list(fluids)]).fetchone()[0]
+            if done != n:
+                raise ValueError(f"copied {done} results of check run {old_run}, read {n}")
+        con.register("fl_check_results", frame)
         con.execute(f"INSERT INTO check_result ({cols}) SELECT {cols} FROM fl_check_results")
         con.unregister("fl_check_results")
         con.execute("COMMIT")

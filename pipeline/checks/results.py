@@ -144,6 +144,15 @@ def _scalar(value: Any) -> Any:
     return None if value is None else jsonable(value)
 
 
+class _StoredEvidence:
+    """Evidence read back from the store as its JSON text, parsed when a row is first read."""
+
+    __slots__ = ("text",)
+
+    def __init__(self, text: str):
+        self.text = text
+
+
 class ResultTable:
     """Check results as columns: one list per field of :class:`CheckResult`, one row each.
 
@@ -204,6 +213,15 @@ class ResultTable:
         return table
 
     @classmethod
+    def from_stored(cls, columns: Mapping[str, list], evidence_json: list[str]) -> "ResultTable":
+        """Rows read back from ``check_result`` (every field but ``evidence``, which comes as
+        its stored JSON text): that text is kept for the store and parsed only when a row is
+        read (a nightly run reuses most results unread)."""
+        table = cls({**columns, "evidence": [_StoredEvidence(t) for t in evidence_json]})
+        table._json = list(evidence_json)
+        return table
+
+    @classmethod
     def concat(cls, tables: Iterable["ResultTable"]) -> "ResultTable":
         out = cls()
         for t in tables:
@@ -219,10 +237,13 @@ class ResultTable:
         r = self._objects[i]
         if r is None:
             c = self.columns
+            evidence = c["evidence"][i]
+            evidence = json.loads(evidence.text) if type(evidence) is _StoredEvidence \
+                else jsonable(evidence)
             r = self._objects[i] = CheckResult(
                 c["check_id"][i], c["fluid_id"][i], c["subject"][i], c["status"][i],
                 c["severity"][i], c["message"][i], c["measured"][i], c["limit"][i],
-                c["statistic"][i], jsonable(c["evidence"][i]), c["thresholds"][i],
+                c["statistic"][i], evidence, c["thresholds"][i],
                 c["input_hash"][i], c["decision_id"][i], c["duration_s"][i])
         return r
 

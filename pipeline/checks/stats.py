@@ -170,3 +170,64 @@ def linear_fit(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     s2 = float(np.sum((y - A @ params) ** 2) / dof)
     cov = s2 * np.linalg.inv(A.T @ A)
     return params, cov
+
+
+def linear_fits(xs: list[np.ndarray], ys: list[np.ndarray]) -> list[tuple[np.ndarray, np.ndarray]]:
+    """:func:`linear_fit` of every pair (x, y), the same numbers: pairs of one length are
+    stacked and solved together (numpy's least-squares kernel, one LAPACK call per matrix;
+    each row's residuals summed over that row alone; one inverse per matrix)."""
+    from pipeline.checks.consensus import solve_many
+
+    out: list[tuple[np.ndarray, np.ndarray] | None] = [None] * len(xs)
+    lengths: dict[int, list[int]] = {}
+    for i, x in enumerate(xs):
+        lengths.setdefault(len(x), []).append(i)
+    for n, idx in lengths.items():
+        if len(idx) < 2 or n < 2:
+            for i in idx:
+                out[i] = linear_fit(xs[i], ys[i])
+            continue
+        X = np.stack([np.asarray(xs[i], dtype=float) for i in idx])
+        Y = np.stack([np.asarray(ys[i], dtype=float) for i in idx])
+        A = np.stack([np.ones_like(X), X], axis=2)
+        params = np.stack([c for c, _ in solve_many([(A[j], Y[j]) for j in range(len(idx))])])
+        dof = max(n - 2, 1)
+        s2 = np.sum((Y - (A @ params[:, :, None])[:, :, 0]) ** 2, axis=1) / dof
+        cov = s2[:, None, None] * np.linalg.inv(A.transpose(0, 2, 1) @ A)
+        for j, i in enumerate(idx):
+            out[i] = (params[j], cov[j])
+    return out
+
+
+def polyfit_lines(xs: list[np.ndarray], ys: list[np.ndarray]) -> list[np.ndarray]:
+    """``np.polyfit(x, y, 1)`` of every pair, the same numbers: pairs of one length stacked
+    (the same design [x, 1], column scaling and least-squares kernel, one LAPACK call per
+    matrix); a pair of its own length, or whose line is rank-deficient, through np.polyfit."""
+    from pipeline.checks.consensus import _KERNEL
+
+    out: list[np.ndarray | None] = [None] * len(xs)
+    lengths: dict[int, list[int]] = {}
+    for i, x in enumerate(xs):
+        lengths.setdefault(len(x), []).append(i)
+    for n, idx in lengths.items():
+        if len(idx) > 1 and n >= 2 and _KERNEL is not None:
+            X = np.stack([np.asarray(xs[i], dtype=float) for i in idx])
+            Y = np.stack([np.asarray(ys[i], dtype=float) for i in idx])
+            lhs = np.stack([X, np.ones_like(X)], axis=2)          # np.vander(x, 2)
+            scale = np.sqrt((lhs * lhs).sum(axis=1))
+            lhs = lhs / scale[:, None, :]
+            try:
+                with np.errstate(invalid="raise", over="ignore", divide="ignore", under="ignore"):
+                    c, _, rank, _ = _KERNEL(lhs, Y[:, :, None], n * np.finfo(float).eps,
+                                            signature="ddd->ddid")
+            except FloatingPointError:
+                pass
+            else:
+                c = (c[:, :, 0].T / scale.T).T
+                for j, i in enumerate(idx):
+                    if rank[j] == 2:
+                        out[i] = c[j].copy()
+        for i in idx:
+            if out[i] is None:
+                out[i] = np.polyfit(xs[i], ys[i], 1)
+    return out

@@ -24,13 +24,13 @@ from typing import Callable
 
 import numpy as np
 
-from pipeline.checks.consensus import poly_design, robust_fit, wagner_design
+from pipeline.checks.consensus import _row_medians, poly_design, robust_fit, robust_fits, wagner_design
 from pipeline.checks.inputs import CheckBatch, FluidData, ObsSeries
 from pipeline.checks.estimates import estimate_from_constants
 from pipeline.checks.findings import VIOLATED, WARN, Findings
 from pipeline.checks.points import SOURCE_RANK
 from pipeline.checks.registry import register_check
-from pipeline.checks.stats import median
+from pipeline.checks.stats import median, polyfit_lines
 
 #: pressure units and their size in Pa (the candidates of a factor mix-up)
 PRESSURE_UNITS_PA = {"Pa": 1.0, "hPa": 100.0, "kPa": 1e3, "bar": 1e5, "MPa": 1e6,
@@ -207,7 +207,36 @@ def _anchors(fluid: FluidData, s: ObsSeries) -> list[tuple[str, float, float]]:
     return [a for a in out if math.isfinite(a[1]) and math.isfinite(a[2]) and a[2] > 0]
 
 
-def _anchored(fluid: FluidData, s: ObsSeries, th) -> Consensus | None:
+def _anchor_line(s: ObsSeries, th) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """(1/T, ln p, T) of the file's usable points, or None when too few for a line."""
+    T, p = s.T.astype(float), s.value.astype(float)
+    ok = np.isfinite(T) & np.isfinite(p) & (p > 0) & (T > 0)
+    if ok.sum() < th["min_points"] or np.ptp(T[ok]) == 0:
+        return None
+    return 1.0 / T[ok], np.log(p[ok]), T[ok]
+
+
+def _anchor_lines(files: list) -> dict:
+    """The Clausius-Clapeyron line of every file alone in a vapour or sublimation group (the
+    files the anchored consensus reads), all at once (:func:`~pipeline.checks.stats.polyfit_lines`):
+    (fluid, boundary, solid phase, path) -> (slope, intercept, points)."""
+    keys, xs, ys = [], [], []
+    for f in files:
+        if f.rel_u is None or f.group.boundary not in ("liquid-vapour", "solid-vapour") \
+                or len(f.series) != len(f.group):
+            continue
+        line = _anchor_line(f.series, f.th)
+        if line is not None:
+            keys.append((id(f.fluid), f.group.boundary, f.group.solid_phase, str(f.path), len(line[0])))
+            xs.append(line[0])
+            ys.append(line[1])
+    try:
+        return dict(zip(keys, polyfit_lines(xs, ys)))
+    except Exception:   # noqa: BLE001 - a file whose line fails fails alone, in _anchored
+        return {}
+
+
+def _anchored(fluid: FluidData, s: ObsSeries, th, lines: dict | None = None) -> Consensus | None:
     """The file's own shape shifted through a stated point that ends its curve.
 
     A straight line in (1/T, ln p) through the file's points (Clausius-Clapeyron), evaluated at
@@ -216,13 +245,14 @@ def _anchored(fluid: FluidData, s: ObsSeries, th) -> Consensus | None:
     offset of the file from it.
     """
     anchors = _anchors(fluid, s)
-    T, p = s.T.astype(float), s.value.astype(float)
-    ok = np.isfinite(T) & np.isfinite(p) & (p > 0) & (T > 0)
-    if not anchors or ok.sum() < th["min_points"] or np.ptp(T[ok]) == 0:
+    line = _anchor_line(s, th) if anchors else None
+    if line is None:
         return None
     policy = fluid.budget.extrapolation
-    b, a = np.polyfit(1.0 / T[ok], np.log(p[ok]), 1)
-    lo, hi = float(T[ok].min()), float(T[ok].max())
+    key = (id(fluid), s.boundary, s.solid_phase, str(s.file_path[0]), len(line[0]))
+    found = (lines or {}).get(key)
+    b, a = found if found is not None else np.polyfit(line[0], line[1], 1)
+    lo, hi = float(line[2].min()), float(line[2].max())
     for name, T_a, p_a in anchors:
         if max(lo - T_a, T_a - hi, 0.0) > policy.allowed(T_a):
             continue
@@ -250,11 +280,15 @@ def _file_rel_u(fluid: FluidData, group: ObsSeries, path: str) -> float:
     return median(rel) * model.correlated_fraction(kind)
 
 
-def _robust(fluid: FluidData, group: ObsSeries, th, start_w=None):
+def _robust_args(fluid: FluidData, group: ObsSeries, th, start_w=None) -> tuple:
     space = SPACES[group.boundary]
-    return robust_fit(group.T.astype(float), space.y(group.value.astype(float)), group.file_code,
-                      space.design(fluid), poly_design(space.x, 1),
-                      space.floor(group.value, th["rel_floor"]), start_w)
+    return (group.T.astype(float), space.y(group.value.astype(float)), group.file_code,
+            space.design(fluid), poly_design(space.x, 1), space.floor(group.value, th["rel_floor"]),
+            start_w)
+
+
+def _robust(fluid: FluidData, group: ObsSeries, th, start_w=None):
+    return robust_fit(*_robust_args(fluid, group, th, start_w))
 
 
 def _curve_of(fluid: FluidData, group: ObsSeries, weights: np.ndarray, th):
@@ -266,7 +300,7 @@ def _curve_of(fluid: FluidData, group: ObsSeries, weights: np.ndarray, th):
     return lambda T: back(model(T))
 
 
-def _consensus(fluid: FluidData, group: ObsSeries, path: str, pooled_w, th):
+def _consensus(fluid: FluidData, group: ObsSeries, path: str, pooled_w, th, lines=None):
     """(Consensus, None) for the file at ``path``, or (None, reason).
 
     In order: the robust fit of two or more other files; the reference equation (matched by
@@ -297,10 +331,9 @@ def _consensus(fluid: FluidData, group: ObsSeries, path: str, pooled_w, th):
             return Consensus(cons, f"the other file {other}",
                              math.hypot(th["rel_floor"], _file_rel_u(fluid, group, other))), None
     own = group.take(np.flatnonzero(~others))
-    for make in (_estimate, _anchored):
-        cons = make(fluid, own, th)
-        if cons is not None:
-            return cons, None
+    cons = _estimate(fluid, own, th) or _anchored(fluid, own, th, lines)
+    if cons is not None:
+        return cons, None
     return None, ("no other file, reference equation or stated constants (Tc and pc with ω, "
                   "a normal boiling point or a triple point) to compare with")
 
@@ -316,15 +349,16 @@ def _median_z(cons: Consensus, T, p, rel_u, th) -> tuple[float, float]:
     with np.errstate(invalid="ignore", divide="ignore"):
         r = np.log(p) - np.log(cons.curve(T))
     ok = np.isfinite(r)
-    if not ok.any() or ok.mean() < th["min_coverage"]:
-        return math.inf, float(ok.mean())
+    share = _share(ok)
+    if not ok.any() or share < th["min_coverage"]:
+        return math.inf, share
     z = r[ok] / np.sqrt(rel_u[ok] ** 2 + cons.floor ** 2)
     stat = abs(median(z))
     n_low = max(int(th["min_points"]), len(z) // 3)
     if cons.floor >= th["estimate_rel_floor"] and len(z) >= 2 * n_low:
         low = z[np.argsort(p[ok], kind="stable")[:n_low]]
         stat = max(stat, abs(median(low)))
-    return stat, float(ok.mean())
+    return stat, share
 
 
 def _scores(cons: Consensus, s: ObsSeries, rel_u, th) -> list[tuple[float, str]]:
@@ -336,8 +370,19 @@ def _scores(cons: Consensus, s: ObsSeries, rel_u, th) -> list[tuple[float, str]]
     return sorted(out)
 
 
+def _share(ok: np.ndarray) -> float:
+    """``float(ok.mean())`` (the same number: an exact count over the size, NaN when empty)."""
+    return np.count_nonzero(ok) / ok.size if ok.size else math.nan
+
+
 def _rel_u(s: ObsSeries) -> np.ndarray:
-    return np.nan_to_num(np.abs(s.u_value_si / s.value))
+    """|u / value|, 0 where NaN (``np.nan_to_num`` of it, without its generic overhead)."""
+    rel = np.abs(s.u_value_si / s.value)
+    if rel.dtype != np.float64:
+        return np.nan_to_num(rel)
+    rel[np.isnan(rel)] = 0.0
+    rel[rel == np.inf] = np.finfo(np.float64).max
+    return rel
 
 
 def _diagnose(out: Findings, fluid: FluidData, s: ObsSeries, subject: str, path: str,
@@ -386,28 +431,111 @@ def _screen(fluid: FluidData, group: ObsSeries, pooled, pooled_w, th) -> Consens
                      th["rel_floor"])
 
 
-def _group_findings(out: Findings, fluid: FluidData, group: ObsSeries, th) -> None:
-    several = len(set(group.file_path)) > 1
-    pooled, pooled_w = _robust(fluid, group, th) if several else (None, None)
+def _files(group: ObsSeries) -> dict[str, tuple[ObsSeries, np.ndarray]]:
+    """:meth:`ObsSeries.by_file`, with each file's rows in the group."""
+    paths, codes = group.columns["file_path"], group.columns["file_code"]
+    out = {}
+    for code in dict.fromkeys(codes.tolist()):
+        rows = np.flatnonzero(codes == code)
+        out[paths[rows[0]]] = (group.take(rows), rows)
+    return out
+
+
+@dataclass
+class _File:
+    """One file of a group on its way to a finding."""
+
+    fluid: FluidData
+    group: ObsSeries
+    th: dict
+    path: str
+    series: ObsSeries
+    subject: str
+    rel_u: np.ndarray | None = None          # None: too few points (a skip)
+    scored: tuple[float, float] | None = None   # against the pooled fit, when screened
+    screen: Consensus | None = None
+    pooled_w: np.ndarray | None = None
+    pooled_model: object = None              # the pooled fit (a consensus Model), when screened
+    design: np.ndarray | None = None         # the pooled model's design at the file's rows
+
+
+def _plan(fluid: FluidData, group: ObsSeries, th, fit) -> list[_File]:
+    """The files of one group; ``fit`` is the robust fit of all its files with its design
+    (:func:`~pipeline.checks.consensus.robust_fits`), Nones for a group of one file."""
+    pooled, pooled_w, A, usable = fit
     if pooled_w is None:
         pooled_w = np.ones(len(group))
     screen = _screen(fluid, group, pooled, pooled_w, th)
-    for path, s in group.by_file().items():
+    out = []
+    for path, (s, rows) in _files(group).items():
         subject = f"file:{path}|{group.boundary}" + (f":{group.solid_phase}" if group.solid_phase else "")
-        if len(s) < th["min_points"]:
-            out.skip(fluid.fluid_id, subject, f"{len(s)} points: too few to diagnose")
+        f = _File(fluid, group, th, path, s, subject, pooled_w=pooled_w)
+        if len(s) >= th["min_points"]:
+            f.rel_u, f.screen = _rel_u(s), screen
+            if screen is not None and A is not None and usable[rows].all():
+                f.design, f.pooled_model = A[rows], pooled
+        out.append(f)
+    return out
+
+
+def _screen_scores(files: list[_File]) -> None:
+    """:func:`_median_z` of every screened file against its pooled fit, files whose design
+    matrices share a shape (and consensus space) stacked as rows: the same numbers (the model's
+    design rows as the fit built them, one product per file of the same shape, elementwise
+    arithmetic, each row's median). Files the shortcut does not cover are scored one by one."""
+    classes: dict[tuple, list[_File]] = {}
+    for f in files:
+        if f.screen is None:
             continue
-        rel_u = _rel_u(s)
-        if screen is not None:
-            scored = _median_z(screen, s.T, s.value, rel_u, th)
-            if scored[0] <= th["z_max"]:
-                _diagnose(out, fluid, s, subject, path, screen, th, rel_u, scored)
-                continue
-        cons, reason = _consensus(fluid, group, path, pooled_w, th)
-        if cons is None:
-            out.skip(fluid.fluid_id, subject, reason)
-            continue
-        _diagnose(out, fluid, s, subject, path, cons, th, rel_u)
+        low = f.screen.floor >= f.th["estimate_rel_floor"]      # the low-pressure rule: one by one
+        if f.design is None or low:
+            f.scored = _median_z(f.screen, f.series.T, f.series.value, f.rel_u, f.th)
+        else:
+            key = (f.design.shape, SPACES[f.group.boundary].log, f.th["min_coverage"])
+            classes.setdefault(key, []).append(f)
+    for (_, log, min_coverage), group in classes.items():
+        A = np.stack([f.design for f in group])
+        C = np.stack([f.pooled_model.coef for f in group])[:, :, None]
+        T = np.stack([np.asarray(f.series.T, dtype=float) for f in group])
+        p = np.stack([f.series.value for f in group])
+        lo = np.array([f.pooled_model.T_min_K for f in group])[:, None]
+        hi = np.array([f.pooled_model.T_max_K for f in group])[:, None]
+        with np.errstate(invalid="ignore", over="ignore"):
+            y = np.where((T >= lo) & (T <= hi), (A @ C)[:, :, 0], np.nan)
+        with np.errstate(over="ignore"):
+            curve = np.exp(y) if log else y
+        with np.errstate(invalid="ignore", divide="ignore"):
+            r = np.log(p) - np.log(curve)
+        ok = np.isfinite(r)
+        U = np.stack([f.rel_u for f in group])
+        f2 = np.array([f.screen.floor ** 2 for f in group])[:, None]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            z = np.where(ok, r / np.sqrt(U ** 2 + f2), np.nan)
+        stat = np.abs(_row_medians(z, ok))
+        share = ok.sum(axis=1) / ok.shape[1]
+        for i, f in enumerate(group):
+            if np.isnan(z[i][ok[i]]).any():                    # a NaN z: as the one-file code
+                f.scored = _median_z(f.screen, f.series.T, f.series.value, f.rel_u, f.th)
+            elif not ok[i].any() or share[i] < min_coverage:
+                f.scored = (math.inf, float(share[i]))
+            else:
+                f.scored = (float(stat[i]), float(share[i]))
+
+
+def _emit(out: Findings, f: _File, lines: dict | None = None) -> None:
+    """The finding of one planned file (its screen score known)."""
+    fluid, th, s = f.fluid, f.th, f.series
+    if f.rel_u is None:
+        out.skip(fluid.fluid_id, f.subject, f"{len(s)} points: too few to diagnose")
+        return
+    if f.scored is not None and f.scored[0] <= th["z_max"]:
+        _diagnose(out, fluid, s, f.subject, f.path, f.screen, th, f.rel_u, f.scored)
+        return
+    cons, reason = _consensus(fluid, f.group, f.path, f.pooled_w, th, lines)
+    if cons is None:
+        out.skip(fluid.fluid_id, f.subject, reason)
+        return
+    _diagnose(out, fluid, s, f.subject, f.path, cons, th, f.rel_u)
 
 
 @register_check("data.unit-mixup", tags=("data", "units", "sources"), vectorised=True,
@@ -437,9 +565,18 @@ def unit_mixup(batch: CheckBatch, th) -> Findings:
     twice, a gauge reading, temperatures on the old scale.
     """
     out = Findings()
-    for fluid in batch:
-        t = th(fluid.fluid_id)
-        for boundary, solid, quantity in fluid.groups():
-            if quantity == "pressure" and boundary in SPACES:
-                _group_findings(out, fluid, fluid.series(boundary, "pressure", solid), t)
+    todo = [(fluid, fluid.series(boundary, "pressure", solid), t)
+            for fluid, t in ((f, th(f.fluid_id)) for f in batch)
+            for boundary, solid, quantity in fluid.groups()
+            if quantity == "pressure" and boundary in SPACES]
+    # the pooled fits of all groups of several files, run together (the same numbers as one by one)
+    several = [i for i, (_, group, _) in enumerate(todo) if len(set(group.file_path)) > 1]
+    fits = robust_fits([_robust_args(*todo[i]) for i in several], designs=True)
+    pooled = dict(zip(several, fits))
+    files = [f for i, (fluid, group, t) in enumerate(todo)
+             for f in _plan(fluid, group, t, pooled.get(i, (None, None, None, None)))]
+    _screen_scores(files)       # every screened file against its group's pooled fit, together
+    lines = _anchor_lines(files)  # the lines of files alone in their group, together
+    for f in files:
+        _emit(out, f, lines)
     return out

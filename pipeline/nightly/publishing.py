@@ -32,7 +32,10 @@ def publish_adapter(con, *, store_path, curation: Curation, check_run_id: str) -
     return {"status": "published", "release_id": outcome.release_id,
             "reason": f"{state}: {outcome.n_constants} constants, {outcome.n_curves} curves, "
                       f"exports in {outcome.export_dir}",
-            "created": outcome.created, "previous": row[0] if row else None}
+            "created": outcome.created, "previous": row[0] if row else None,
+            "changed_fluids": outcome.changed_fluids
+            if row is not None and outcome.release_id != row[0] else None,
+            "file_stamps": outcome.file_stamps}
 
 
 def publish_stage(con, opts, prev, result: NightlyResult, ingest: Stage, publisher: Callable,
@@ -66,12 +69,15 @@ def publish_stage(con, opts, prev, result: NightlyResult, ingest: Stage, publish
                    "reason": f"publish failed: {type(err).__name__}: {err}"}
     text = pub["reason"] or f"release {pub['release_id']}"
     return Stage(pub["status"], time.perf_counter() - t0, text,
-                 {k: v for k, v in pub.items() if k not in ("status", "reason")}), pub
+                 {k: v for k, v in pub.items()
+                  if k not in ("status", "reason", "changed_fluids", "file_stamps")}), pub
 
 
 def value_changes(con, prev: PreviousState, pub: dict, selected, fits_now) -> tuple[list, str]:
     if pub.get("created") and pub.get("previous"):
-        return (release_value_changes(con, pub["previous"], pub["release_id"]),
+        # only the fluids the release recomputed or dropped: the others' rows were copied
+        return (release_value_changes(con, pub["previous"], pub["release_id"],
+                                      pub.get("changed_fluids")),
                 f"Recommended values of release {pub['release_id']} against release "
                 f"{pub['previous']} (the publish stage's diff); change / u is the change in "
                 "units of the combined standard uncertainty.")

@@ -119,7 +119,7 @@ def _run(con, opts: NightlyOptions, result: NightlyResult, folder: Path, publish
     values, basis = value_changes(con, prev, pub, selected, fits_now)
     result.changes.update(values=values, values_basis=basis)
     with measure() as usage:
-        verify = verify_stage(con, store_path, result.run_id)
+        verify = verify_stage(con, store_path, result.run_id, prev, pub, contexts)
     result.stages["verify"] = _measured("verify", verify, usage,
                                         logging.INFO if verify.status == "ok" else logging.ERROR)
     result.verdict = verdict(result.counts, ingest, pub, verify)

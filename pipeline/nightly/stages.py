@@ -14,7 +14,7 @@ from pathlib import Path
 from pipeline import __version__
 from pipeline.checks import Thresholds, load_fluid_data, run_checks, select_checks, store_run
 from pipeline.checks.engine import _utc, new_run_id
-from pipeline.checks.results import CheckResult, CheckRun, ResultTable
+from pipeline.checks.results import CheckRun, ResultTable
 from pipeline.errors import BatchError
 from pipeline.fitting.stage import run_fit
 from pipeline.ingest.discover import batch_file_hashes, discover_batches
@@ -131,7 +131,10 @@ def fit_stage(con, opts: NightlyOptions, prev: PreviousState, contexts: dict, se
                   "fit_run_id": result.run_id})
 
 
-def reused_results(con, run_id: str, fluids: list[str]) -> list:
+def reused_results(con, run_id: str, fluids: list[str]) -> ResultTable:
+    """The stored results of ``fluids`` in check run ``run_id``, as a table whose evidence
+    stays JSON text until a row is read (stored again as the same text); thresholds parsed
+    once per distinct text."""
     rows = con.execute(
         "SELECT check_id, fluid_id, subject, status, severity, message, measured, limit_value, "
         "statistic, evidence_json, thresholds_json, input_hash, decision_id, duration_s "
@@ -141,9 +144,18 @@ def reused_results(con, run_id: str, fluids: list[str]) -> list:
     def num(x):
         return None if x is None or (isinstance(x, float) and math.isnan(x)) else float(x)
 
-    return [CheckResult(c, f, s, st, sev, msg, num(m), num(lim), stat, json.loads(ev),
-                        json.loads(th), ih, dec, num(dur))
-            for c, f, s, st, sev, msg, m, lim, stat, ev, th, ih, dec, dur in rows]
+    cols = list(zip(*rows)) if rows else [()] * 14
+    thresholds: dict[str, dict] = {}
+    for text in cols[10]:
+        if text not in thresholds:
+            thresholds[text] = json.loads(text)
+    columns = {"check_id": list(cols[0]), "fluid_id": list(cols[1]), "subject": list(cols[2]),
+               "status": list(cols[3]), "severity": list(cols[4]), "message": list(cols[5]),
+               "measured": [num(x) for x in cols[6]], "limit": [num(x) for x in cols[7]],
+               "statistic": list(cols[8]), "thresholds": [thresholds[t] for t in cols[10]],
+               "input_hash": list(cols[11]), "decision_id": list(cols[12]),
+               "duration_s": [num(x) for x in cols[13]]}
+    return ResultTable.from_stored(columns, list(cols[9]))
 
 
 def check_stage(con, opts: NightlyOptions, prev: PreviousState, contexts: dict, selected: list[str],
@@ -161,8 +173,8 @@ def check_stage(con, opts: NightlyOptions, prev: PreviousState, contexts: dict, 
             recheck.append(f)
         else:
             reuse.setdefault(p["check_run"], []).append(f)
-    tables = [ResultTable.from_results(reused_results(con, old_run, fluids))
-              for old_run, fluids in reuse.items()]
+    tables = [reused_results(con, old_run, fluids) for old_run, fluids in reuse.items()]
+    copied = [(old_run, fluids, len(t)) for (old_run, fluids), t in zip(reuse.items(), tables)]
     chunks = [recheck[i:i + CHECK_CHUNK] for i in range(0, len(recheck), CHECK_CHUNK)]
     exclusions = curation.check_exclusions(con) if recheck else None
     with stage_progress("check", len(chunks), quiet=opts.quiet) as tick:
@@ -179,7 +191,7 @@ def check_stage(con, opts: NightlyOptions, prev: PreviousState, contexts: dict, 
          "threshold_files": list(thresholds.files), "full": opts.full,
          "decisions": curation.path},
         [s.id for s in specs], list(selected), results, time.perf_counter() - t0)
-    store_run(con, check_run)
+    store_run(con, check_run, copied=copied)   # the reused rows copied within the store
     n_reused = sum(len(f) for f in reuse.values())
     why = " (check code, thresholds or decisions changed)" if context_changed else ""
     text = (f"{len(recheck)} fluid(s) checked{why}, {n_reused} reused from the previous run; "
@@ -191,24 +203,40 @@ def check_stage(con, opts: NightlyOptions, prev: PreviousState, contexts: dict, 
     return check_run, stage
 
 
-def verify_stage(con, store_path, run_id: str) -> Stage:
+def verify_stage(con, store_path, run_id: str, prev: PreviousState | None = None,
+                 pub: dict | None = None, contexts: dict | None = None) -> Stage:
     """``fluidledger verify`` inside the run: the store rules over the run's own connection,
     the release manifests in the store's folder (where the run publishes) and every release
-    the store lists as published there."""
+    the store lists as published there.
 
-
+    A release file is hashed, and the published file's content compared with the store's,
+    unless it is proved unchanged since that was last done: by the previous run's verify (its
+    stamps, kept in ``contexts["verified_files"]``) or by this run's publish, which read back
+    the files it wrote (``pub["file_stamps"]``); see :func:`pipeline.verify.file_stamp`. The
+    published file is compared once (by the repair step; again only after a rebuild). The
+    stamps found intact now go to ``contexts``.
+    """
     t0 = time.perf_counter()
-
-    repaired = repair_published(con, Path(store_path).parent)
-    res = verify_connection(con, str(store_path), Path(store_path).parent, running=(run_id,))
+    stamps = dict((prev.contexts.get("verified_files") or {}) if prev is not None else {})
+    stamps.update((pub or {}).get("file_stamps") or {})
+    published_ok: dict[str, list] = {}
+    repaired = repair_published(con, Path(store_path).parent, stamps=stamps,
+                                intact=published_ok)
+    res = verify_connection(con, str(store_path), Path(store_path).parent, running=(run_id,),
+                            stamps=stamps, published_checked=repaired is None)
+    if contexts is not None:
+        contexts["verified_files"] = {**res.stamps, **published_ok}
     head = (f"{len(res.rules_run)} store rules, {len(res.releases)} release(s) with "
-            f"{res.files_hashed} files hashed")
+            f"{res.files_hashed} files hashed"
+            + (f" ({res.files_unchanged} proved unchanged since hashed)"
+               if res.files_unchanged else ""))
     text = f"{head}: OK" if res.ok else (f"{head}: {len(res.findings)} finding(s): "
                                          + "; ".join(f.asstr() for f in res.findings[:3]))
     if repaired:
         text += f"; {repaired['text']}"
     detail = {"rules": len(res.rules_run), "releases": len(res.releases),
-              "files_hashed": res.files_hashed, "findings": [asdict(f) for f in res.findings],
+              "files_hashed": res.files_hashed, "files_unchanged": res.files_unchanged,
+              "findings": [asdict(f) for f in res.findings],
               "notes": res.notes, "repaired": repaired}
     status = "failed" if not res.ok else "repaired" if repaired else "ok"
     return Stage(status, time.perf_counter() - t0, text, detail)

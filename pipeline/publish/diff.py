@@ -63,22 +63,25 @@ class ReleaseDiff:
                 f"{self.unchanged} unchanged")
 
 
-def _load(con: duckdb.DuckDBPyConnection, release_id: str) -> dict[str, dict]:
+def _load(con: duckdb.DuckDBPyConnection, release_id: str,
+          fluids: list[str] | None = None) -> dict[str, dict]:
     if con.execute("SELECT count(*) FROM release WHERE release_id = ?", [release_id]).fetchone()[0] == 0:
         known = [r[0] for r in con.execute("SELECT release_id FROM release ORDER BY created_at")
                  .fetchall()]
         raise PublishError(f"no release {release_id!r} in the store; known: "
                            f"{', '.join(known) or 'none'}")
     out: dict[str, dict] = {}
+    only, params = ("", [release_id]) if fluids is None else \
+        (" AND list_contains(?, fluid_id)", [release_id, list(fluids)])
     for table, kind in (("release_constant", "constant"), ("release_curve", "curve")):
-        cur = con.execute(f"SELECT * FROM {table} WHERE release_id = ? ORDER BY value_id",
-                          [release_id])
+        cur = con.execute(f"SELECT * FROM {table} WHERE release_id = ?{only} ORDER BY value_id",
+                          params)
         names = [d[0] for d in cur.description]
         for row in cur.fetchall():
             rec = dict(zip(names, row))
             out[rec["value_id"]] = {"kind": kind, "row": rec}
     cur = con.execute("SELECT value_id, was_attributed_to, was_derived_from FROM "
-                      "release_provenance WHERE release_id = ?", [release_id])
+                      f"release_provenance WHERE release_id = ?{only}", params)
     for value_id, attributed, derived in cur.fetchall():
         if value_id in out:
             out[value_id]["attributed"] = attributed
@@ -192,9 +195,14 @@ def _compare_curves(ra: dict, rb: dict) -> tuple[float | None, float | None, str
 _CURVE_KEYS = ("form", "params", "exponents", "T_ref_K", "T_min_K", "T_max_K", "covariance")
 
 
-def diff_releases(con: duckdb.DuckDBPyConnection, release_a: str, release_b: str) -> ReleaseDiff:
-    """Values added, removed and changed from ``release_a`` to ``release_b`` (store tables)."""
-    a, b = _load(con, release_a), _load(con, release_b)
+def diff_releases(con: duckdb.DuckDBPyConnection, release_a: str, release_b: str, *,
+                  fluids: list[str] | None = None) -> ReleaseDiff:
+    """Values added, removed and changed from ``release_a`` to ``release_b`` (store tables).
+
+    ``fluids`` restricts the comparison to the values of these fluids (``unchanged`` then
+    counts theirs only): the nightly job passes the fluids a release recomputed or dropped,
+    since the rows of the others were copied from ``release_a`` and cannot differ."""
+    a, b = _load(con, release_a, fluids), _load(con, release_b, fluids)
     changes, unchanged = [], 0
     for vid in sorted(set(a) | set(b)):
         va, vb = a.get(vid), b.get(vid)

@@ -249,10 +249,16 @@ def validate_table(release_id: str, table: str, rows: pa.Table) -> None:
 
 
 def validate_folder(folder: Path, release_id: str,
-                    tables: dict[str, pa.Table | list[dict]]) -> None:
+                    tables: dict[str, pa.Table | list[dict]],
+                    stamps: dict[str, list] | None = None) -> None:
     """An export folder: every table's rows against its schema (:func:`validate_table`), the
     Parquet files read back as those rows, and every file against the manifest's hash and size
-    (the JSON and CSV files are renderings of the same rows, see the module docstring)."""
+    (the JSON and CSV files are renderings of the same rows, see the module docstring).
+
+    ``stamps``, when given, gets each file's :func:`pipeline.verify.file_stamp` as it was read
+    back and hashed (by file name): what lets the nightly verify prove it unchanged later."""
+    from pipeline.verify import file_stamp
+
     for table, rows in tables.items():
         data = rows if isinstance(rows, pa.Table) else arrow_table(table, rows)
         validate_table(release_id, table, data)
@@ -265,9 +271,13 @@ def validate_folder(folder: Path, release_id: str,
     manifest = json.loads((folder / MANIFEST).read_text("utf-8"))
     check_schema(manifest, MANIFEST_SCHEMA, MANIFEST)
     for entry in manifest["files"]:
-        data = (folder / entry["path"]).read_bytes()
+        path = folder / entry["path"]
+        before = file_stamp(path, entry["sha256"]) if stamps is not None else None
+        data = path.read_bytes()
         if hashlib.sha256(data).hexdigest() != entry["sha256"] or len(data) != entry["bytes"]:
             raise PublishError(f"{entry['path']} does not match its manifest entry")
+        if stamps is not None and file_stamp(path, entry["sha256"]) == before:
+            stamps[entry["path"]] = before
 
 
 # --- writing -----------------------------------------------------------------------------------
@@ -378,10 +388,12 @@ def remove_leftovers(root: Path) -> list[Path]:
 
 
 def prepare_release_folder(root: Path, release_id: str, fingerprint: str,
-                           tables: dict[str, ExportTable | list[dict]]
+                           tables: dict[str, ExportTable | list[dict]],
+                           stamps: dict[str, list] | None = None
                            ) -> tuple[Path, dict, dict]:
     """Write and validate the exports in a temporary folder under ``root``; return it, the
     manifest and where each block of rows stands in the text files (see :func:`_text_files`).
+    ``stamps``: see :func:`validate_folder`.
     """
     tables = {name: t if isinstance(t, ExportTable) else export_table(name, t)
               for name, t in tables.items()}
@@ -392,7 +404,7 @@ def prepare_release_folder(root: Path, release_id: str, fingerprint: str,
     tmp.mkdir()
     try:
         manifest, spans = _write_files(tmp, release_id, fingerprint, tables)
-        validate_folder(tmp, release_id, {name: t.rows for name, t in tables.items()})
+        validate_folder(tmp, release_id, {name: t.rows for name, t in tables.items()}, stamps)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise

@@ -118,6 +118,13 @@ class Plan:
     reuse: list[str] = field(default_factory=list)
     recompute: list[str] = field(default_factory=list)
 
+    def changed(self) -> list[str] | None:
+        """The fluids whose rows may differ from the previous release's: those recomputed and
+        those it held that this release does not; None without a previous release."""
+        if self.previous is None:
+            return None
+        return sorted(set(self.recompute) | (set(self.previous.digests) - set(self.digests)))
+
 
 def plan(con, digests: dict[str, str], *, incremental: bool = True) -> Plan:
     """Copy the fluids whose digest (:func:`fluid_digests`) the previous release recorded."""

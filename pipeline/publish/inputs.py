@@ -201,10 +201,50 @@ class ReleaseInputs:
 
     def fingerprints(self, policy: dict, decisions) -> tuple[str, dict[str, str]]:
         """:meth:`fingerprint` of all inputs, and of each fluid's :meth:`subset` with the
-        decisions about it (``decisions``: a :class:`~pipeline.publish.policy.Decisions`)."""
-        per_fluid = {f: part.fingerprint(policy, decisions.restricted({f}).asdict())
+        decisions about it (``decisions``: a :class:`~pipeline.publish.policy.Decisions`).
+
+        Every row is encoded to JSON once; the documents of the whole and of each fluid are
+        joined from those texts exactly as ``json.dumps`` (sort-keyed, compact) writes them
+        (``tests/publish/test_publish_incremental.py`` holds the two equal)."""
+        texts = _RowTexts(self)
+        per_fluid = {f: texts.digest(part, policy, decisions.restricted({f}).asdict())
                      for f, part in self.partition().items()}
-        return self.fingerprint(policy, decisions.asdict()), per_fluid
+        return texts.digest(self, policy, decisions.asdict()), per_fluid
+
+
+_ENCODE = json.JSONEncoder(sort_keys=True, separators=(",", ":"), allow_nan=False).encode
+
+
+class _RowTexts:
+    """The JSON text of every row of some inputs, encoded once, and the fingerprint documents
+    of the inputs and of their parts joined from those texts (the bytes ``json.dumps`` of
+    :meth:`ReleaseInputs.fingerprint_doc` gives)."""
+
+    _LISTS = ("checks", "constants", "enthalpy_observations", "fits", "fixed_points", "fluids")
+
+    def __init__(self, whole: ReleaseInputs):
+        self.rows = {id(r): _ENCODE(r) for name in self._LISTS for r in getattr(whole, name)}
+        self.fit_rows = {k: _ENCODE(v) for k, v in whole.fit_rows.items()}
+        self.raw_files = {str(k): _ENCODE(v) for k, v in whole.raw_files.items()}
+        self.sources = {k: _ENCODE(v) for k, v in whole.sources.items()}
+
+    @staticmethod
+    def _object(items: dict[str, str]) -> str:
+        return "{" + ",".join(_ENCODE(k) + ":" + items[k] for k in sorted(items)) + "}"
+
+    def digest(self, part: ReleaseInputs, policy: dict, decisions: dict) -> str:
+        rows = self.rows
+        fields = {name: "[" + ",".join([rows[id(r)] for r in getattr(part, name)]) + "]"
+                  for name in self._LISTS}
+        fields["decisions"] = _ENCODE(decisions)
+        fields["policy"] = _ENCODE(policy)
+        fields["pipeline_version"] = _ENCODE(part.pipeline_version)
+        fields["fit_rows"] = self._object({k: self.fit_rows[k] for k in part.fit_rows})
+        fields["raw_files"] = self._object({str(k): self.raw_files[str(k)]
+                                            for k in part.raw_files})
+        fields["sources"] = self._object({k: self.sources[k] for k in part.sources})
+        doc = self._object(fields)
+        return hashlib.sha256(doc.encode("utf-8")).hexdigest()
 
 
 def latest_check_run(con: duckdb.DuckDBPyConnection) -> str:

@@ -23,6 +23,7 @@ nightly job does when the check finds one).
 
 from __future__ import annotations
 
+import hashlib
 import json
 import logging
 import tempfile
@@ -182,9 +183,23 @@ def _build(con, pub: Publication, target: Path, recorded: Path) -> Path:
     return published.build_published_file(target, tables, extra, publication)
 
 
-def check_published(con: duckdb.DuckDBPyConnection, target: Path) -> PublishedCheck:
+def parts_digest(parts: dict[str, str]) -> str:
+    """SHA-256 of a file's parts (what a stamp of the published file records)."""
+    return hashlib.sha256(json.dumps(parts, sort_keys=True).encode("utf-8")).hexdigest()
+
+
+def check_published(con: duckdb.DuckDBPyConnection, target: Path, *,
+                    stamps: dict[str, list] | None = None,
+                    intact: dict[str, list] | None = None) -> PublishedCheck:
     """Compare the published file ``target`` with the store's publications into it (see
-    :class:`PublishedCheck`); all clear when the store never published into ``target``."""
+    :class:`PublishedCheck`); all clear when the store never published into ``target``.
+
+    ``stamps``: path -> :func:`pipeline.verify.file_stamp` (with :func:`parts_digest` of the
+    parts recorded for the latest publication) taken when those parts were read from the
+    file; a file whose stamp is that record is not read again. ``intact`` gets the stamp of
+    a file found to hold the recorded parts."""
+    from pipeline.verify import file_stamp
+
     target = Path(target)
     pubs = publications(con, target)
     if not pubs:
@@ -192,11 +207,20 @@ def check_published(con: duckdb.DuckDBPyConnection, target: Path) -> PublishedCh
     if not target.exists():
         return PublishedCheck((f"{target.name} is missing (the store published release "
                                f"{pubs[0].release_id} into it)",))
+    recorded = recorded_parts(con, pubs[0])
+    key = str(target.resolve())
+    before = file_stamp(target, parts_digest(recorded)) if recorded is not None else None
+    if before is not None and (stamps or {}).get(key) == before:
+        if intact is not None:
+            intact[key] = before
+        return PublishedCheck()
     try:
         have, run = _parts(target)
     except Exception as err:  # noqa: BLE001 - a file that cannot be read is the finding itself
         return PublishedCheck((f"{target.name} cannot be read: {str(err).splitlines()[0]}",))
-    if have == recorded_parts(con, pubs[0]):
+    if have == recorded:
+        if intact is not None and file_stamp(target, parts_digest(recorded)) == before:
+            intact[key] = before
         return PublishedCheck()
     want = _reference(con, pubs[0], target)      # the installed FluidLedger's macros
     if have == want:
@@ -234,12 +258,15 @@ def rebuild_published(con: duckdb.DuckDBPyConnection, target: Path) -> str | Non
     return pub.release_id
 
 
-def repair_published(con: duckdb.DuckDBPyConnection, root: Path) -> dict | None:
+def repair_published(con: duckdb.DuckDBPyConnection, root: Path, *,
+                     stamps: dict[str, list] | None = None,
+                     intact: dict[str, list] | None = None) -> dict | None:
     """Rebuild ``<root>/published.duckdb`` from the store when it differs from the store's
     latest publication into it (altered, missing, or stale after a stopped publish); what was
-    found and done, or None when it was right (what the nightly job's verify stage does)."""
+    found and done, or None when it was right (what the nightly job's verify stage does).
+    ``stamps`` and ``intact``: see :func:`check_published`."""
     target = Path(root) / published.PUBLISHED_NAME
-    found = check_published(con, target)
+    found = check_published(con, target, stamps=stamps, intact=intact)
     if found.ok:
         return None
     release = rebuild_published(con, target)
@@ -251,6 +278,6 @@ def repair_published(con: duckdb.DuckDBPyConnection, root: Path) -> dict | None:
     return {"text": text, "release_id": release, "differences": diffs}
 
 
-__all__ = ["PublishedCheck", "check_published", "rebuild_published", "repair_published",
+__all__ = ["PublishedCheck", "check_published", "parts_digest", "rebuild_published", "repair_published",
            "latest_publication", "publications", "content_of_file", "file_parts",
            "recorded_parts"]

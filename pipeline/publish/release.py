@@ -50,10 +50,11 @@ from pipeline.errors import EXIT_CHECK_FAILED, PublishError
 from pipeline.ingest.stage import new_run_id, utcnow
 from pipeline.publish import exports, incremental, provenance as prov, published, sqlmacros
 from pipeline.publish.inputs import ReleaseInputs, load_inputs
-from pipeline.publish.integrity import file_parts
+from pipeline.publish.integrity import file_parts, parts_digest
 from pipeline.publish.policy import NO_DECISIONS, Decisions, Policy
 from pipeline.publish.recommend import Recommendation, recommend_all
 from pipeline.store.runs import end_run
+from pipeline.verify import file_stamp
 
 RELEASE_NAME = re.compile(r"^[a-z0-9][a-z0-9._-]{0,63}\Z")  # \Z: no trailing newline
 CURVE_UNITS = {"pressure": "Pa", "rho_liquid": "kg/m^3", "rho_vapour": "kg/m^3"}
@@ -86,10 +87,19 @@ class PublishResult:
     fluids_computed: int = 0       # fluids whose rows were computed
     #: digests of the published file's parts, kept in the run row for ``verify``
     published_content: dict = field(default_factory=dict, repr=False)
+    #: the fluids whose rows may differ from the previous release's (recomputed, or no longer
+    #: released); None when nothing was copied from it (all may differ)
+    changed_fluids: list[str] | None = field(default=None, repr=False)
+    #: resolved path -> :func:`pipeline.verify.file_stamp` of each export file this publish
+    #: wrote and read back against its manifest (none when the folder was already there) and
+    #: of the published file whose parts it read (``published_content``)
+    file_stamps: dict[str, list] = field(default_factory=dict, repr=False)
 
     def asdict(self) -> dict:
         out = asdict(self)
         out.pop("published_content")
+        out.pop("changed_fluids")
+        out.pop("file_stamps")
         return out
 
     def asstr(self) -> str:
@@ -363,8 +373,9 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
     target = root / published.PUBLISHED_NAME
     exports.remove_leftovers(root)
     published.remove_leftovers(target)
+    stamps: dict[str, list] = {}
     tmp_dir, manifest, spans = exports.prepare_release_folder(root, release_id, fingerprint,
-                                                              tables)
+                                                              tables, stamps)
     crash_point("publish:exports-written")
     publication = {"release_id": release_id, "published_at": now, "publish_run_id": run_id,
                    "export_dir": str(final_dir)}
@@ -403,12 +414,18 @@ def _publish(con, root: Path, run_id: str, name, allow_failures, policy, decisio
     crash_point("publish:store-committed")
     published.swap_in(tmp_pub, target)
     crash_point("publish:swapped")
+    # the stamp of the file whose parts were just read (renamed into place: a new ctime)
+    file_stamps = {str(target.resolve()): file_stamp(target, parts_digest(content_parts))}
+    if written:
+        file_stamps.update({str((final_dir / name).resolve()): stamp
+                            for name, stamp in stamps.items()})
     counts = inputs.counts()
     return PublishResult(release_id, fingerprint, inputs.check_run_id, row is None,
                          bool(inputs.bad_checks()), counts.get("fail", 0),
                          counts.get("error", 0), tables["constants"].rows.num_rows,
                          tables["curves"].rows.num_rows, str(final_dir), str(target), written,
-                         unresolved, len(plan.reuse), len(plan.recompute), content_parts)
+                         unresolved, len(plan.reuse), len(plan.recompute), content_parts,
+                         plan.changed(), file_stamps)
 
 
 def _not_copied(arrow: dict[str, pa.Table], plan: incremental.Plan) -> dict[str, pa.Table]:

@@ -77,13 +77,16 @@ def _num(x) -> float | None:
     return float(x) if x is not None and math.isfinite(float(x)) else None
 
 
-def release_value_changes(con, release_a: str, release_b: str) -> list[dict]:
+def release_value_changes(con, release_a: str, release_b: str,
+                          fluids: Sequence[str] | None = None) -> list[dict]:
     """Values added, removed or changed from ``release_a`` to ``release_b`` (the publish
-    stage's diff), largest change in units of the combined standard uncertainty first."""
+    stage's diff, of ``fluids`` only when given), largest change in units of the combined
+    standard uncertainty first."""
     from pipeline.publish.diff import diff_releases
 
     out = []
-    for c in diff_releases(con, release_a, release_b).changes:
+    for c in diff_releases(con, release_a, release_b,
+                           fluids=None if fluids is None else list(fluids)).changes:
         fluid = c.value_id.split("/", 1)[0]
         delta = c.new - c.old if c.old is not None and c.new is not None else None
         u = math.hypot(c.u_old or 0.0, c.u_new or 0.0) or None

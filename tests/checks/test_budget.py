@@ -177,3 +177,27 @@ def test_a_temperature_only_triple_point_compares_the_curves_with_each_other():
     curves[sv] = Scaled(curves[sv])
     found = by_subject(on_curves(water(fixed_points=pts, curves=curves), th("triple-point.on-curves")))
     assert found["triple:vapour,liquid,Ih|solid-vapour:Ih"].status == "violated"
+
+
+def test_floors_of_many_curves_at_once_equal_each_curve_alone():
+    """floor_rel_rows (the files of many budgets side by side) gives floor_rel_array's numbers
+    for every curve: covered, uncovered (nearest file) and widened by the policy, a budget
+    without files (floor 0) and one without a policy among them."""
+    from pipeline.checks.budget import CurveBudget, ExtrapolationPolicy, FileShare, floor_rel_rows
+
+    policy = ExtrapolationPolicy(0.02, 1.0)
+    budgets = [
+        CurveBudget((FileShare("a", 100.0, 150.0, 1e-3, 1e-4, 20),
+                     FileShare("b", 140.0, 200.0, 4e-4, 1e-4, 30)), 1.3, 1.7, policy),
+        CurveBudget((FileShare("c", 90.0, 95.0, 2e-3, 1e-4, 5),), 0.9, 1.0, None),
+        CurveBudget(),
+        CurveBudget((FileShare("d", 10.0, 20.0, 5e-3, 1e-4, 8), FileShare("e", 30.0, 40.0, 3e-3, 1e-4, 8),
+                     FileShare("f", 21.0, 29.0, 7e-3, 1e-4, 8)), 1.0, 1.0, policy),
+    ]
+    T = [np.array([99.5, 120.0, 145.0, 210.0, 300.0]), np.array([80.0, 92.0, 96.0]),
+         np.array([50.0]), np.array([5.0, 20.3, 25.0, 29.5, 45.0])]
+    owner = np.repeat(np.arange(4), [len(t) for t in T])
+    got = floor_rel_rows(budgets, owner, np.concatenate(T))
+    expected = np.concatenate([b.floor_rel_array(t) for b, t in zip(budgets, T)])
+    assert got.tolist() == expected.tolist()
+    assert got[0] == pytest.approx(1e-3 * 1.7) and got[8] == 0.0   # the best covering file times the Birge expansion (floor_rel)

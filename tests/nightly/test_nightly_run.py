@@ -121,6 +121,18 @@ def test_second_run_with_no_changes_refits_nothing_and_says_so(demo):
     assert second.stages["report"].detail["plots_drawn"] == 0   # plots came from the cache
 
 
+def test_reused_check_results_are_stored_again_unchanged(demo):
+    """The second run's check run holds every result of the first one, column for column
+    (evidence and thresholds as the same JSON text), although it never parsed most of them."""
+    cols = ("check_id, fluid_id, subject, status, severity, message, measured, limit_value, "
+            "statistic, evidence_json, thresholds_json, input_hash, decision_id")
+    with _store(demo) as con:
+        runs = [demo["first"].check_run_id, demo["second"].check_run_id]
+        a, b = (con.execute(f"SELECT {cols} FROM check_result WHERE run_id = ? ORDER BY ALL",
+                            [r]).fetchall() for r in runs)
+    assert len(a) > 200 and a == b
+
+
 def test_latest_points_to_the_newest_run(demo):
     """reports/latest is a symlink to the newest run's folder."""
     latest = demo["tmp"] / "reports" / "latest"

@@ -46,7 +46,12 @@ def test_diff_explains_a_change_made_by_a_new_batch(demo_store, tmp_path, capsys
 
     con = duckdb.connect(str(demo_store), read_only=True)
     result = diff_releases(con, "before", "after")
+    argon = diff_releases(con, "before", "after", fluids=["argon"])
+    others = diff_releases(con, "before", "after", fluids=["nitrogen", "water"])
     con.close()
+    # the diff over the fluids a release recomputed (argon) is the whole diff
+    assert argon.changes == result.changes and others.changes == []
+    assert 0 < argon.unchanged < result.unchanged
     by_id = {c.value_id: c for c in result.changes}
     tc = by_id["argon/critical:vapour,liquid/Tc"]
     w = [1 / 0.015**2, 1 / 0.015**2]

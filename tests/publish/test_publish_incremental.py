@@ -146,6 +146,24 @@ def test_a_fluid_digest_changes_with_that_fluids_inputs_only(demo_store):
     assert [f for f in plain if plain[f] != with_decision[f]] == ["water"]
 
 
+def test_digests_joined_from_row_texts_are_those_of_the_whole_documents(demo_store):
+    """The release fingerprint and every fluid's digest, joined from rows encoded once, equal
+    the SHA-256 of ``json.dumps`` of each whole document (the definition), with and without
+    a decision."""
+    with open_store(demo_store) as s:
+        inputs = load_inputs(s.con)
+    policy = Policy.load().asdict()
+    decided = Decisions(exclude={("water", "*"): {"iapws-sr1-86-water-saturation": "D-9"}})
+    for decisions in (Decisions(), decided):
+        fingerprint, digests = inputs.fingerprints(policy, decisions)
+        assert fingerprint == inputs.fingerprint(policy, decisions.asdict())
+        parts = inputs.partition()
+        assert len(parts) == 4 and parts["water"].checks and parts["argon"].fit_rows
+        for fluid, part in parts.items():
+            assert digests[fluid] == part.fingerprint(
+                policy, decisions.restricted({fluid}).asdict()), fluid
+
+
 def test_a_block_whose_rows_are_not_where_the_state_says_is_rendered(published_demo):
     """A span off by one byte, or naming other rows, is not spliced."""
     folder = published_demo["out"] / published_demo["release"]
