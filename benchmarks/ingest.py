@@ -10,7 +10,10 @@ result depends on speed):
 2. **many small batches**: B batches (default 1,000) of 4 table files each (20 rows per file,
    the batch.toml not counted as a file), ingested by one ``run_ingest`` into a new store.
    Target: <= 5 ms per table file. The bare typed ``read_csv`` of the same 4,000 files (one
-   statement per file into one table) is printed beside it for scale.
+   statement per file into one table) is printed beside it for scale. With ``--not-plain``
+   each file has a fourth, unmapped column of quoted notes holding the delimiter
+   (``"run 3, rig B"``), so no file is plain (:mod:`pipeline.ingest.plaincsv`) and each is
+   staged by DuckDB's reader: the cost of the files the Python split leaves to DuckDB.
 
 Every measurement runs in its own fresh process (``--child``), so the peak RSS printed is that
 process's own high-water mark (``VmHWM`` of /proc/self/status, which starts afresh at exec;
@@ -25,7 +28,7 @@ With ``--before DIR`` the ingest of the checkout at DIR (for example a worktree 
 before a change) is measured too, in the same repeats, and its ratios printed beside.
 
     python benchmarks/ingest.py [--rows 2000000] [--batches 1000] [--repeat 3] [--skip-big]
-                                [--skip-small] [--before DIR]
+                                [--skip-small] [--not-plain] [--before DIR]
 """
 
 from __future__ import annotations
@@ -67,10 +70,12 @@ BIG_BATCH = batch_toml(
               uncertainty=COLUMN_U)], format_version=None)
 
 
-def small_batch(i: int) -> str:
-    """batch.toml of small campaign ``i``: FILES_PER_BATCH tables of argon vapour pressures."""
+def small_batch(i: int, notes: bool = False) -> str:
+    """batch.toml of small campaign ``i``: FILES_PER_BATCH tables of argon vapour pressures
+    (``notes``: the files' note column is left unmapped)."""
+    extra = {"extra_columns": "ignore"} if notes else {}
     return batch_toml(source(f"rig-{i:04d}", f"synthetic benchmark campaign {i}"),
-                      [vp_table(file=f"run-{j}.csv", uncertainty=COLUMN_U)
+                      [vp_table(file=f"run-{j}.csv", uncertainty=COLUMN_U, **extra)
                        for j in range(FILES_PER_BATCH)], format_version=None)
 
 
@@ -106,8 +111,10 @@ def make_big(root: Path, rows: int) -> Path:
     return raw
 
 
-def make_small(root: Path, batches: int) -> Path:
+def make_small(root: Path, batches: int, notes: bool = False) -> Path:
     import numpy as np
+
+    header, note = ("T,p,u_p,note\n", ',"run {}, rig B"') if notes else ("T,p,u_p\n", "")
 
     rng = np.random.default_rng(2)
     raw = root / "small" / "raw"
@@ -119,10 +126,10 @@ def make_small(root: Path, batches: int) -> Path:
         for j in range(FILES_PER_BATCH):
             T = np.sort(rng.uniform(84.0, 150.0, ROWS_PER_FILE))
             p = vapour_pressure_kpa(T) * (1 + 1e-4 * rng.standard_normal(ROWS_PER_FILE))
-            text = "T,p,u_p\n" + "".join(f"{a:.4f},{b:.6g},{b * 2e-3:.3g}\n"
-                                         for a, b in zip(T, p))
+            text = header + "".join(f"{a:.4f},{b:.6g},{b * 2e-3:.3g}{note.format(n)}\n"
+                                    for n, (a, b) in enumerate(zip(T, p)))
             (batch / f"run-{j}.csv").write_text(text)
-        (batch / "batch.toml").write_text(small_batch(i))
+        (batch / "batch.toml").write_text(small_batch(i, notes))
     return raw
 
 
@@ -151,12 +158,15 @@ def child_bare(raw: Path, db: Path) -> dict:
     import duckdb
 
     files = sorted(str(p) for p in raw.rglob("*.csv"))
+    notes = open(files[0]).readline().strip().endswith(",note")     # --not-plain files
+    columns = COLUMNS[:-1] + ", 'note': 'VARCHAR'}" if notes else COLUMNS
     t0, c0 = time.perf_counter(), cpu_seconds()
     con = duckdb.connect(str(db))
-    con.execute("CREATE TABLE t (T DOUBLE, p DOUBLE, u_p DOUBLE)")
+    con.execute("CREATE TABLE t (T DOUBLE, p DOUBLE, u_p DOUBLE" + (", note VARCHAR)" if notes
+                                                                     else ")"))
     for f in files:
         con.execute(f"INSERT INTO t SELECT * FROM read_csv(?, header=true, auto_detect=false, "
-                    f"columns={COLUMNS}, ignore_errors=true)", [f])
+                    f"columns={columns}, ignore_errors=true)", [f])
     con.close()
     return {"seconds": time.perf_counter() - t0, "cpu": cpu_seconds() - c0, "files": len(files)}
 
@@ -251,12 +261,13 @@ def report_big(bare: list[dict], full: list[dict], rows: int) -> None:
     print(f"  throughput: {rows / statistics.median(tf):,.0f} rows/s")
 
 
-def report_small(bare: list[dict], full: list[dict], batches: int) -> None:
+def report_small(bare: list[dict], full: list[dict], batches: int, notes: bool) -> None:
     files = full[0]["files"]
     tb = [b["seconds"] * 1e3 / files for b in bare]
     tf = [f["seconds"] * 1e3 / files for f in full]
     per_file = statistics.median(tf)
-    print(f"small batches: {batches:,} batches x {FILES_PER_BATCH} table files of "
+    print(f"small batches{' (quoted notes: every file read by DuckDB)' if notes else ''}: "
+          f"{batches:,} batches x {FILES_PER_BATCH} table files of "
           f"{ROWS_PER_FILE} rows ({files:,} files, {full[0]['rows'][1]:,} rows loaded), "
           f"{len(tf)} repeats, min / median / max")
     print(f"  bare typed read_csv, one statement per file: {spread(tb, '.2f')} ms per file, "
@@ -276,6 +287,8 @@ def main() -> None:
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--skip-big", action="store_true")
     ap.add_argument("--skip-small", action="store_true")
+    ap.add_argument("--not-plain", action="store_true",
+                    help="small files with a quoted note column holding commas (none is plain)")
     ap.add_argument("--before", metavar="DIR", help="also measure the ingest of this checkout")
     ap.add_argument("--child", nargs=3, metavar=("SIDE", "RAW", "DB"), help=argparse.SUPPRESS)
     args = ap.parse_args()
@@ -294,9 +307,9 @@ def main() -> None:
             report_big(bare, full, args.rows)
             report_before(full, old, bare)
         if not args.skip_small:
-            raw = make_small(tmp, args.batches)
+            raw = make_small(tmp, args.batches, args.not_plain)
             bare, full, old = compare("small", raw, tmp, args.repeat, args.before)
-            report_small(bare, full, args.batches)
+            report_small(bare, full, args.batches, args.not_plain)
             report_before(full, old, bare, 1e3 / full[0]["files"], "ms per file")
     print(f"after: {load()}")
 

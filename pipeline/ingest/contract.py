@@ -119,9 +119,120 @@ def schema_message(err: jsonschema.ValidationError) -> str:
     return message
 
 
+@lru_cache(maxsize=None)
+def _validator(schema_name: str):
+    """One validator per schema, built once (building it costs more than a small document's
+    validation)."""
+    return Validator(load_schema(schema_name))
+
+
+#: Most values a schema node remembers as valid (its memo is emptied when it is full), and
+#: the longest canonical JSON text of a value remembered [characters]
+_MEMO_VALUES = 20_000
+_MEMO_TEXT = 4096
+#: Keywords that look at which properties or items other keywords evaluated: a schema using
+#: one is validated whole
+_NOT_SPLIT = {"unevaluatedProperties", "unevaluatedItems", "prefixItems", "$dynamicRef",
+              "$recursiveRef"}
+
+
+def inlined(node: Any, defs: dict, depth: int = 0) -> Any:
+    """``node`` with every ``{"$ref": "#/$defs/name"}`` replaced by the definition itself
+    (``allOf`` with its sibling keywords, if any): the same constraints, checked without
+    resolving references (about 3x faster to validate). Raises ``KeyError`` for any other
+    reference and ``RecursionError`` for a recursive definition."""
+    if depth > 64:
+        raise RecursionError("recursive schema definition")
+    if isinstance(node, list):
+        return [inlined(v, defs, depth + 1) for v in node]
+    if not isinstance(node, dict):
+        return node
+    out = {k: inlined(v, defs, depth + 1) for k, v in node.items() if k not in ("$ref", "$defs")}
+    if "$ref" in node:
+        ref = node["$ref"]
+        if not (isinstance(ref, str) and ref.startswith("#/$defs/")):
+            raise KeyError(ref)
+        target = inlined(defs[ref[len("#/$defs/"):]], defs, depth + 1)
+        return {"allOf": [target], **out} if out else target
+    return out
+
+
+class _Node:
+    """One schema node of the fast check: the node with ``true`` for the subschemas of
+    ``properties`` and ``items`` (its *shell*, validated by jsonschema), a node per property and one for the items, and a
+    memo of the values found valid here (by their canonical JSON text).
+
+    A value is valid against a schema when it satisfies every keyword; ``properties``
+    holds when each present property is valid against its subschema and ``items`` when
+    each item is valid against its own (a node using a keyword of :data:`_NOT_SPLIT` is
+    validated whole). So a value is valid when the shell accepts it and its properties or
+    items are valid at their nodes, where a repeated value (the same ``temperature``
+    mapping of every table of a campaign) is looked up instead of validated again."""
+
+    def __init__(self, schema: Any):
+        self.properties: dict[str, _Node] = {}
+        self.items: _Node | None = None
+        self.memo: set[str] = set()
+        if isinstance(schema, dict) and not (set(schema) & _NOT_SPLIT):
+            props = schema.get("properties")
+            if isinstance(props, dict):
+                self.properties = {k: _Node(v) for k, v in props.items()}
+            if isinstance(schema.get("items"), (dict, bool)):
+                self.items = _Node(schema["items"])
+            # the shell keeps the property names (additionalProperties depends on them)
+            schema = dict(schema)
+            if self.properties:
+                schema["properties"] = {k: True for k in props}
+            if self.items is not None:
+                schema["items"] = True
+        self.shell = Validator(schema)
+
+    def valid(self, value: Any) -> bool:
+        try:
+            key = json.dumps(value, sort_keys=True, allow_nan=False)
+        except (TypeError, ValueError):     # a TOML date or a non-finite number
+            key = None
+        if key is not None and key in self.memo:
+            return True
+        if not self.shell.is_valid(value):
+            return False
+        if isinstance(value, dict) and not all(node.valid(value[name]) for name, node in
+                                               self.properties.items() if name in value):
+            return False
+        if isinstance(value, list) and self.items is not None and \
+                not all(self.items.valid(item) for item in value):
+            return False
+        if key is not None and len(key) <= _MEMO_TEXT:
+            if len(self.memo) >= _MEMO_VALUES:
+                self.memo.clear()
+            self.memo.add(key)
+        return True
+
+
+@lru_cache(maxsize=None)
+def _fast(schema_name: str) -> _Node | None:
+    """The fast check's root node (references inlined), None when a reference cannot be
+    inlined."""
+    schema = load_schema(schema_name)
+    try:
+        return _Node(inlined(schema, schema.get("$defs", {})))
+    except (KeyError, RecursionError):
+        return None
+
+
+def is_valid(document: Any, schema_name: str) -> bool:
+    """Whether ``document`` satisfies the schema: the same answer as an empty
+    :func:`schema_errors`, several times faster for many manifests of the same shape (see
+    :class:`_Node`; ``tests/ingest/test_contract.py`` holds the two equal)."""
+    root = _fast(schema_name)
+    if root is None:
+        return _validator(schema_name).is_valid(document)
+    return root.valid(document)
+
+
 def schema_errors(document: Any, schema_name: str) -> list[tuple[str, str]]:
     """All violations of a schema, as (key path, what was expected), sorted by path."""
-    validator = Validator(load_schema(schema_name))
+    validator = _validator(schema_name)
     found = []
     for err in validator.iter_errors(document):
         found.append((key_path(err.absolute_path), schema_message(err)))
@@ -144,7 +255,7 @@ def validated(path: Path, schema_name: str, error=BatchError, *, data: bytes | N
     """Parse and validate a manifest; raise ``error`` listing every violation."""
     label = label or str(path)
     document = read_toml(path, error, data=data, label=label)
-    problems = schema_errors(document, schema_name)
+    problems = [] if is_valid(document, schema_name) else schema_errors(document, schema_name)
     if problems:
         key, what = problems[0]
         more = f" (and {len(problems) - 1} more: " + "; ".join(

@@ -311,7 +311,10 @@ def _pint(expr: str):
     return ureg.parse_units(overrides.get(expr, expr))
 
 
+@functools.lru_cache(maxsize=4096)
 def _magnitude(value: float, expr: str, target: str) -> float:
+    """``value`` in pint unit ``expr`` expressed in ``target`` (cached: a conversion that
+    depends on a fluid's molar mass reuses the pint part for every fluid)."""
     ureg, _ = _registry()
     return float(ureg.Quantity(value, _pint(expr)).to(_pint(target)).magnitude)
 

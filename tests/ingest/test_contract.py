@@ -180,3 +180,80 @@ def test_a_schema_error_quotes_a_short_excerpt_of_a_huge_value(raw_root, store_p
     assert f"'{'9' * (EXCERPT - 1)}... (5,000,002 characters)" in err
     summary = rows(store_path, "SELECT summary_json FROM run WHERE kind = 'ingest'")[0][0]
     assert len(summary) < 3000
+
+
+def _manifests() -> list[tuple[str, dict]]:
+    """Every batch.toml of the demo, the real-data corpus and the bad-input corpus that the
+    ingest parses (within its size and depth bounds), with its label."""
+    from pathlib import Path
+
+    from pipeline.errors import BatchError
+    from pipeline.ingest.rawread import parse_toml
+
+    root = Path(__file__).resolve().parents[2]
+    out = []
+    for folder in (root / "raw", root / "tests" / "realdata" / "corpus", root / "tests" / "bad_inputs"):
+        for path in sorted(folder.rglob("batch.toml")):
+            try:
+                out.append((str(path.relative_to(root)), parse_toml(path.read_bytes(), "x")))
+            except (BatchError, OSError):
+                continue
+    return out
+
+
+def _mutations(doc: dict):
+    """Variants of a manifest that break or keep one rule of the schema, entry by entry."""
+    import copy
+
+    for kind in ("table", "fixed_point", "constant"):
+        entries = doc.get(kind)
+        for i, entry in enumerate(entries if isinstance(entries, list) else []):
+            if not isinstance(entry, dict):
+                continue
+            for key in list(entry):
+                for value in (None, "x", 1, 1.5, float("nan"), [], {}, "file.xlsx",
+                              "argon\n"):
+                    variant = copy.deepcopy(doc)
+                    if value is None:
+                        del variant[kind][i][key]
+                    else:
+                        variant[kind][i][key] = value
+                    yield variant
+            variant = copy.deepcopy(doc)
+            variant[kind][i]["unknown_key"] = 1
+            yield variant
+    variant = copy.deepcopy(doc)
+    variant.pop("source", None)
+    yield variant
+
+
+def test_the_fast_schema_check_agrees_with_full_validation():
+    """Validating each [[table]], [[fixed_point]] and [[constant]] entry alone (remembering the valid ones) accepts exactly the manifests that full JSON Schema validation accepts: every manifest of the demo and both corpora, and one-key mutations of each."""
+    from pipeline.ingest.contract import _validator, is_valid
+
+    full = _validator("batch.schema.json")
+    docs = _manifests()
+    assert len(docs) > 150
+    checked = accepted = 0
+    for n, (label, doc) in enumerate(docs):
+        variants = [doc, *list(_mutations(doc))[:24]] if n % 8 == 0 else [doc]
+        for variant in variants:
+            want = not any(True for _ in full.iter_errors(variant))
+            assert is_valid(variant, "batch.schema.json") == want, label
+            assert is_valid(variant, "batch.schema.json") == want, label    # memo answers
+            checked += 1
+            accepted += want
+    assert 0 < accepted < checked
+
+
+def test_references_are_inlined_with_their_sibling_keywords():
+    """A local $ref is replaced by its definition, an allOf keeping the keywords beside it; a reference elsewhere is refused."""
+    from pipeline.ingest.contract import inlined
+
+    defs = {"slug": {"type": "string", "pattern": "^[a-z]+$"}}
+    assert inlined({"properties": {"id": {"$ref": "#/$defs/slug"}}}, defs) == \
+        {"properties": {"id": {"type": "string", "pattern": "^[a-z]+$"}}}
+    assert inlined({"$ref": "#/$defs/slug", "maxLength": 3}, defs) == \
+        {"allOf": [defs["slug"]], "maxLength": 3}
+    with pytest.raises(KeyError):
+        inlined({"$ref": "other.json#/x"}, defs)
