@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import pytest
 
+import pipeline.ingest.grouped as grouped
 import pipeline.ingest.stage as stage
 from pipeline.cli import main
 from pipeline.errors import EXIT_INTERNAL
@@ -23,17 +24,18 @@ def test_an_unexpected_exception_in_one_batch_refuses_only_that_batch(raw_root, 
                 "SELECT count(*) FROM source WHERE source_id = 'rig-b'").fetchone()[0]:
             raise ZeroDivisionError("a bug in batch b")
 
-    original_normalise, original_load = stage.normalise, stage.load_staged
+    original_add, original_load = grouped._Group.add, stage.load_staged
 
-    def faulty_normalise(con, staged, spec, *args, **kwargs):     # the batches loaded together
-        bug_in_b(con, spec)
-        return original_normalise(con, staged, spec, *args, **kwargs)
+    def faulty_add(self, p, tables):           # the batches loaded together: planning batch b
+        if p.plan.batch.endswith("b"):
+            raise ZeroDivisionError("a bug in batch b")
+        return original_add(self, p, tables)
 
     def faulty_load(ing, file_id, rel, sha, spec, staged, rejects):  # a batch loaded alone
         bug_in_b(ing.con, spec)
         return original_load(ing, file_id, rel, sha, spec, staged, rejects)
 
-    monkeypatch.setattr(stage, "normalise", faulty_normalise)
+    monkeypatch.setattr(grouped._Group, "add", faulty_add)
     monkeypatch.setattr(stage, "load_staged", faulty_load)
     code = main(["ingest", str(raw_root), "--store", str(store_path)])
     out, err = capsys.readouterr()
