@@ -25,18 +25,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from pipeline.errors import BatchError
-from pipeline.ingest.reader import (
-    MAX_COLUMNS,
-    MAX_LINE_BYTES,
-    _check_line_lengths,
-    _data_lines,
-    _decode,
-    _header_line,
-    _Lines,
-    check_columns,
-    read_header,
-)
+from pipeline.ingest.reader import _decode, _header_line, _Lines, checked_header
 
 
 @dataclass(frozen=True)
@@ -62,15 +51,7 @@ def split_plain(data: bytes, spec, label: str, needed: dict[str, str]) -> PlainT
     header_line = _header_line(info, spec.comment, label)
     physical = text.split("\n")
     first = physical[header_line - 1]
-    if first.count(spec.delimiter) >= MAX_COLUMNS and len(first) > MAX_LINE_BYTES:
-        raise BatchError(f"header has more than {MAX_COLUMNS:,} columns ({len(first):,} "
-                         f"characters); the limit is {MAX_COLUMNS:,} columns", file=label, row=0)
-    _check_line_lengths(info, header_line, label)
-    header = read_header(first, spec, label)
-    check_columns(header, needed, spec, label)
-    lines = _data_lines(info, spec.comment, header_line)
-    if lines.size == 0:
-        raise BatchError("file has a header but no data rows", file=label)
+    header, lines = checked_header(info, header_line, first, spec, needed, label)
     # plain: what DuckDB reads from the header line on holds no NUL or lone CR, and each
     # line is one record (a quote only around a whole field)
     rest = "\n".join(physical[header_line - 1:])

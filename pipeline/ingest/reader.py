@@ -289,15 +289,12 @@ def _private_copy(data: bytes, start: int) -> str:
 _COPY_CHUNK = 1 << 22
 
 
-def stage_csv(con: duckdb.DuckDBPyConnection, data: bytes, spec, label: str,
-              needed: dict[str, str], table: str) -> StagedTable:
-    """Stage the CSV file whose bytes are ``data`` into temporary table ``table``."""
-    _check_encoding(data, spec.encoding, label)
-    body = data[3:] if data.startswith(b"\xef\xbb\xbf") else data
-    info = _Lines.of(body)
-    header_line = _header_line(info, spec.comment, label)
-    physical = _Physical(body, spec.encoding)
-    first = physical[header_line - 1]
+def checked_header(info, header_line: int, first: str, spec, needed: dict[str, str],
+                   label: str) -> tuple[tuple[str, ...], np.ndarray]:
+    """The header (line ``header_line``, text ``first``) and the data line numbers of a
+    table file, after the limits on width and line length and the mapped columns are checked
+    (what every reader of a CSV file refuses alike: :func:`stage_csv` and the plain split of
+    :mod:`pipeline.ingest.plaincsv`)."""
     if first.count(spec.delimiter) >= MAX_COLUMNS and len(first) > MAX_LINE_BYTES:
         raise BatchError(f"header has more than {MAX_COLUMNS:,} columns ({len(first):,} "
                          f"characters); the limit is {MAX_COLUMNS:,} columns", file=label, row=0)
@@ -307,6 +304,19 @@ def stage_csv(con: duckdb.DuckDBPyConnection, data: bytes, spec, label: str,
     lines = _data_lines(info, spec.comment, header_line)
     if lines.size == 0:
         raise BatchError("file has a header but no data rows", file=label)
+    return header, lines
+
+
+def stage_csv(con: duckdb.DuckDBPyConnection, data: bytes, spec, label: str,
+              needed: dict[str, str], table: str) -> StagedTable:
+    """Stage the CSV file whose bytes are ``data`` into temporary table ``table``."""
+    _check_encoding(data, spec.encoding, label)
+    body = data[3:] if data.startswith(b"\xef\xbb\xbf") else data
+    info = _Lines.of(body)
+    header_line = _header_line(info, spec.comment, label)
+    physical = _Physical(body, spec.encoding)
+    first = physical[header_line - 1]
+    header, lines = checked_header(info, header_line, first, spec, needed, label)
     start = int(info.starts[header_line - 1])
     del info                             # freed before DuckDB reads: its arrays are large
     offset = header_line - 1             # DuckDB numbers the lines of the copy: + offset
