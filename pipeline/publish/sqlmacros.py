@@ -330,7 +330,7 @@ def table_macro_statements() -> list[tuple[str, str, str]]:
     A scalar macro such as ``fl_vapour_pressure`` is a subquery correlated on (fluid,
     temperature), which DuckDB evaluates by a join over every distinct pair; here the curves
     are joined once by fluid and the coefficients travel as scalar columns, which measured
-    about 4x faster over a million rows (``benchmarks/publish.py``). The values are the same
+    about 3x faster over a million rows (``benchmarks/publish.py``). The values are the same
     (the same arithmetic; a test holds them equal)."""
     value = (f"CASE WHEN {_in_range('fl__pt.temperature_K')} THEN fl__form_value_terms("
              "fl__c.fl__branch, " + ", ".join(f"fl__c.{n}" for n in _SCALARS)
