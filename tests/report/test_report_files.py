@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 
 from pipeline.report.files import PlotCache, update_latest
+from tests.report.test_report_fragments import _nightly_block
 
 
 def test_latest_is_a_relative_symlink_replaced_by_newer_runs(tmp_path):
@@ -44,16 +45,7 @@ def test_plot_cache_round_trip_disable_and_prune(tmp_path):
 def _document(results):
     import json
 
-    nightly = {"run_id": "nightly-x", "kind": "nightly", "started_at": "t", "finished_at": "t",
-               "duration_s": 1.0, "pipeline_version": "0", "parameters": {}, "verdict": "pass",
-               "exit_code": 0, "no_changes": False, "previous_run_id": None,
-               "check_run_id": "check-x", "counts": {},
-               "stages": {s: {"status": "ok", "duration_s": 0.0, "text": "", "detail": {}}
-                          for s in ("ingest", "fit", "check")},
-               "changes": {"new_failures": [], "fixed": [], "changed": [], "values": [],
-                           "values_basis": ""},
-               "publish": {"status": "skipped", "release_id": None, "reason": None},
-               "report": {}}
+    nightly = _nightly_block()
     run = {"run_id": "check-x", "kind": "check", "started_at": "2026-01-01T00:00:00Z",
            "finished_at": "2026-01-01T00:00:00Z", "duration_s": 0.0, "pipeline_version": "0",
            "parameters": {}, "status": "ok", "checks": ["data.ranges"], "fluids": ["argon"],
